@@ -1,0 +1,1 @@
+"""Subcommands of the ``basinkit`` command line (one module each, loaded on demand)."""
