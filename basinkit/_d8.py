@@ -351,3 +351,72 @@ def azimuth_to_receivers(code, ncols, nrows):
             rec[i] = -9
             bad += 1
     return rec, bad
+
+
+@njit(cache=True, nogil=True)
+def receiver_distance(rec, ncols, dist):
+    """Distance (m) from each cell centre to its receiver's; 0 where there is none.
+    ``dist`` is the (nrows, 8) table of CellGeometry.neighbour_distances()."""
+    n = rec.shape[0]
+    out = np.zeros(n, dtype=np.float64)
+    for i in range(n):
+        r = rec[i]
+        if r < 0:
+            continue
+        row = i // ncols
+        dr = r // ncols - row
+        dc = r % ncols - i % ncols
+        for k in range(8):
+            if DROW[k] == dr and DCOL[k] == dc:
+                out[i] = dist[row, k]
+                break
+    return out
+
+
+@njit(cache=True, nogil=True)
+def label_nearest_outlet(rec, stack, outlet_cells, outlet_labels, n):
+    """Label every cell with the nearest outlet downstream (one forward pass over the stack).
+
+    ``outlet_cells`` are flat indices, ``outlet_labels`` their labels (> 0). Cells that
+    drain to no outlet get 0. Where two outlets share a cell the later one wins.
+    """
+    lab = np.zeros(n, dtype=np.int32)
+    for t in range(outlet_cells.shape[0]):
+        lab[outlet_cells[t]] = outlet_labels[t]
+    for t in range(stack.shape[0]):
+        i = stack[t]
+        if lab[i] == 0:
+            r = rec[i]
+            if r >= 0:
+                lab[i] = lab[r]
+    return lab
+
+
+@njit(cache=True, nogil=True)
+def upstream_length(rec, stack, step):
+    """Longest flow-path length (m) upstream of every cell, from ``step`` = distance to the
+    receiver (one backward pass over the stack; Hack 1957 main-stream length)."""
+    n = rec.shape[0]
+    up = np.zeros(n, dtype=np.float64)
+    for t in range(stack.shape[0] - 1, -1, -1):
+        i = stack[t]
+        r = rec[i]
+        if r >= 0:
+            v = up[i] + step[i]
+            if v > up[r]:
+                up[r] = v
+    return up
+
+
+@njit(cache=True, nogil=True)
+def downstream_length(rec, stack, step):
+    """Flow distance (m) from every cell down to where its water leaves the grid
+    (one forward pass over the stack)."""
+    n = rec.shape[0]
+    down = np.zeros(n, dtype=np.float64)
+    for t in range(stack.shape[0]):
+        i = stack[t]
+        r = rec[i]
+        if r >= 0:
+            down[i] = down[r] + step[i]
+    return down

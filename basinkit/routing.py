@@ -152,6 +152,44 @@ class FlowModel:
 
         return multi_receivers(self, method, self.parameters.get("mfd_exponent", 1.1))
 
+    def receiver_distance(self) -> np.ndarray:
+        """Distance (m, on the ground) from each cell centre to its D8 receiver, flat."""
+        if "step" not in self._cache:
+            self._cache["step"] = _d8.receiver_distance(
+                self.receiver, self.ncols, self.terrain.geometry.neighbour_distances())
+        return self._cache["step"]
+
+    def upstream_length(self) -> np.ndarray:
+        """Length (m) of the longest D8 flow path upstream of each cell, as a grid."""
+        return _d8.upstream_length(self.receiver, self.stack,
+                                   self.receiver_distance()).reshape(self.shape)
+
+    def downstream_length(self) -> np.ndarray:
+        """D8 flow distance (m) from each cell to where its water leaves the grid."""
+        return _d8.downstream_length(self.receiver, self.stack,
+                                     self.receiver_distance()).reshape(self.shape)
+
+    def label_outlets(self, outlet_cells, labels=None) -> np.ndarray:
+        """Label every cell with the nearest outlet downstream of it (0: none), in one pass
+        over the stack whatever the number of outlets. Returns an int32 grid.
+
+        Parameters
+        ----------
+        outlet_cells : array of int
+            Flat cell indices (``row * ncols + col``).
+        labels : array of int, optional
+            Label of each outlet (> 0); defaults to 1, 2, ...
+        """
+        cells = np.asarray(outlet_cells, dtype=np.int64)
+        labs = (np.arange(1, cells.size + 1, dtype=np.int32) if labels is None
+                else np.asarray(labels, dtype=np.int32))
+        return _d8.label_nearest_outlet(self.receiver, self.stack, cells, labs,
+                                        self.receiver.shape[0]).reshape(self.shape)
+
+    def upstream_mask(self, cell) -> np.ndarray:
+        """Boolean grid of the cells draining through ``cell`` (flat index), itself included."""
+        return self.label_outlets([int(cell)]) == 1
+
     def upstream_area(self) -> np.ndarray:
         """Upstream area in m² (model's routing method)."""
         return self.accumulation(unit="m2")
