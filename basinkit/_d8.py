@@ -5,14 +5,14 @@ Receivers are flat indices ``r * ncols + c``; ``-1`` means the water leaves the 
 """
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 from ._fill import DCOL, DROW
 
 NO_FLOW = -3  # internal: a cell with no downslope neighbour that is not an exit (a flat)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, parallel=True)
 def d8_receivers(z, valid, seeds, base_level, dist):
     """Steepest-descent receiver of every cell (O'Callaghan & Mark 1984).
 
@@ -20,11 +20,15 @@ def d8_receivers(z, valid, seeds, base_level, dist):
     (``dist[row, k]``). Ties go to the first neighbour in the order N, NE, E, SE, S, SW, W,
     NW. Exits (``seeds``) without a lower neighbour get -1, base-level cells always -1;
     other cells without a lower neighbour get NO_FLOW (they lie on a flat).
+    Rows are processed in parallel.
     """
     nr, nc = z.shape
     rec = np.empty(nr * nc, dtype=np.int32)
-    nflat = 0
-    for r in range(nr):
+    flats_in_row = np.zeros(nr, dtype=np.int64)
+    for r in prange(nr):
+        d = dist[r]
+        interior_row = r > 0 and r < nr - 1
+        nrow_flat = 0
         for c in range(nc):
             i = r * nc + c
             if not valid[r, c]:
@@ -36,14 +40,16 @@ def d8_receivers(z, valid, seeds, base_level, dist):
             zc = z[r, c]
             best = 0.0
             bk = -1
+            inside = interior_row and c > 0 and c < nc - 1
             for k in range(8):
                 rr = r + DROW[k]
                 cc = c + DCOL[k]
-                if rr < 0 or rr >= nr or cc < 0 or cc >= nc or not valid[rr, cc]:
-                    continue
-                drop = zc - z[rr, cc]
-                if drop > 0.0:
-                    s = drop / dist[r, k]
+                if not inside:
+                    if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
+                        continue
+                zn = z[rr, cc]
+                if zn < zc:  # NaN (nodata) compares False
+                    s = (zc - zn) / d[k]
                     if s > best:
                         best = s
                         bk = k
@@ -53,8 +59,9 @@ def d8_receivers(z, valid, seeds, base_level, dist):
                 rec[i] = -1
             else:
                 rec[i] = NO_FLOW
-                nflat += 1
-    return rec, nflat
+                nrow_flat += 1
+        flats_in_row[r] = nrow_flat
+    return rec, flats_in_row.sum()
 
 
 @njit(cache=True, nogil=True)
@@ -65,47 +72,71 @@ def resolve_flats(z, valid, rec, dist):
     surfaces in raster digital elevation models", Computers & Geosciences 62:128-135
     (after Garbrecht & Martz 1997): a breadth-first gradient away from higher terrain and a
     stronger one toward lower terrain are combined into an integer mask, and each flat cell
-    drains to the neighbour of the same flat with the lowest mask value.
+    drains to the neighbour of the same flat with the lowest mask value (the steepest mask
+    descent, using true distances). Work is proportional to the number of flat cells.
     Returns the flat mask (int32 per cell, 0 off flats) and the number of cells left without
     a receiver (0 on a depression-filled surface).
     """
     nr, nc = z.shape
     n = nr * nc
-    labels = np.zeros(n, dtype=np.int32)
-    away = np.zeros(n, dtype=np.int32)
-    queue = np.empty(n, dtype=np.int32)
-    low = np.empty(n, dtype=np.int32)
+    nflat = 0
+    for i in range(n):
+        if rec[i] == NO_FLOW:
+            nflat += 1
+    flats = np.empty(nflat, dtype=np.int32)
+    t = 0
+    for i in range(n):
+        if rec[i] == NO_FLOW:
+            flats[t] = i
+            t += 1
+    # mark: 1 = low edge (drains, touches a same-height flat cell), 2 = high edge
+    mark = np.zeros(n, dtype=np.uint8)
     nlow = 0
     nhigh = 0
-    # edges: low = drains and touches a same-height flat cell; high = flat next to higher
-    for r in range(nr):
-        for c in range(nc):
-            i = r * nc + c
-            if rec[i] == -2:
+    for t in range(nflat):
+        i = flats[t]
+        r = i // nc
+        c = i - r * nc
+        zc = z[r, c]
+        for k in range(8):
+            rr = r + DROW[k]
+            cc = c + DCOL[k]
+            if rr < 0 or rr >= nr or cc < 0 or cc >= nc or not valid[rr, cc]:
                 continue
-            zc = z[r, c]
-            is_low = False
-            is_high = False
-            for k in range(8):
-                rr = r + DROW[k]
-                cc = c + DCOL[k]
-                if rr < 0 or rr >= nr or cc < 0 or cc >= nc or not valid[rr, cc]:
-                    continue
-                j = rr * nc + cc
-                if rec[i] != NO_FLOW and rec[j] == NO_FLOW and z[rr, cc] == zc:
-                    is_low = True
-                    break
-                if rec[i] == NO_FLOW and z[rr, cc] > zc:
-                    is_high = True
-            if is_low:
-                low[nlow] = i
+            j = rr * nc + cc
+            zn = z[rr, cc]
+            if zn > zc:
+                if mark[i] == 0:
+                    mark[i] = 2
+                    nhigh += 1
+            elif zn == zc and rec[j] != NO_FLOW and mark[j] == 0:
+                mark[j] = 1
                 nlow += 1
-            elif is_high:
-                queue[nhigh] = i
-                nhigh += 1
-    # label each flat by flooding from its low edges over cells of the same elevation
+    low = np.empty(nlow, dtype=np.int32)
+    high = np.empty(nhigh, dtype=np.int32)
+    a = 0
+    b = 0
+    for t in range(nflat):
+        i = flats[t]
+        if mark[i] == 2:
+            high[b] = i
+            b += 1
+        r = i // nc
+        c = i - r * nc
+        for k in range(8):
+            rr = r + DROW[k]
+            cc = c + DCOL[k]
+            if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
+                continue
+            j = rr * nc + cc
+            if mark[j] == 1:
+                low[a] = j
+                a += 1
+                mark[j] = 3  # collected
+    # label each flat by flooding from its low edges over flat cells of the same elevation
+    labels = np.zeros(n, dtype=np.int32)
+    queue = np.empty(nflat + nlow + 1, dtype=np.int32)
     nlab = 0
-    stack = np.empty(n, dtype=np.int32)
     for t in range(nlow):
         s0 = low[t]
         if labels[s0] != 0:
@@ -113,30 +144,35 @@ def resolve_flats(z, valid, rec, dist):
         nlab += 1
         zf = z[s0 // nc, s0 % nc]
         sp = 0
-        stack[sp] = s0
+        queue[sp] = s0
         sp += 1
         labels[s0] = nlab
         while sp > 0:
             sp -= 1
-            i = stack[sp]
+            i = queue[sp]
             r = i // nc
             c = i - r * nc
             for k in range(8):
                 rr = r + DROW[k]
                 cc = c + DCOL[k]
-                if rr < 0 or rr >= nr or cc < 0 or cc >= nc or not valid[rr, cc]:
+                if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
                     continue
                 j = rr * nc + cc
-                if labels[j] == 0 and z[rr, cc] == zf:
+                if labels[j] != 0 or z[rr, cc] != zf:
+                    continue
+                if rec[j] == NO_FLOW:
                     labels[j] = nlab
-                    stack[sp] = j
+                    queue[sp] = j
                     sp += 1
+                elif rec[i] == NO_FLOW and mark[j] == 3:
+                    labels[j] = nlab  # another low edge of the same flat
     flat_height = np.zeros(nlab + 1, dtype=np.int32)
+    away = np.zeros(n, dtype=np.int32)
     # gradient away from higher terrain (breadth first from the high edges)
     head = 0
     tail = 0
     for t in range(nhigh):
-        i = queue[t]
+        i = high[t]
         if labels[i] != 0:
             queue[tail] = i
             tail += 1
@@ -160,26 +196,20 @@ def resolve_flats(z, valid, rec, dist):
                 away[j] = d + 1
                 queue[tail] = j
                 tail += 1
-    # gradient toward lower terrain (breadth first from the low edges), combined
+    # gradient toward lower terrain (breadth first from the low edges)
     mask = np.zeros(n, dtype=np.int32)
-    towards = stack  # reuse as the BFS distance
-    towards[:] = 0
     head = 0
     tail = 0
     for t in range(nlow):
         i = low[t]
         queue[tail] = i
         tail += 1
-        towards[i] = 1
+        mask[i] = 1
     while head < tail:
         i = queue[head]
         head += 1
         lab = labels[i]
-        d = towards[i]
-        if away[i] > 0:
-            mask[i] = flat_height[lab] - away[i] + 2 * d
-        else:
-            mask[i] = 2 * d
+        d = mask[i]
         r = i // nc
         c = i - r * nc
         for k in range(8):
@@ -188,15 +218,21 @@ def resolve_flats(z, valid, rec, dist):
             if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
                 continue
             j = rr * nc + cc
-            if labels[j] == lab and rec[j] == NO_FLOW and towards[j] == 0:
-                towards[j] = d + 1
+            if labels[j] == lab and rec[j] == NO_FLOW and mask[j] == 0:
+                mask[j] = d + 1
                 queue[tail] = j
                 tail += 1
+    # combine: towards lower counts twice, away from higher once (Barnes et al. 2014b)
+    for t in range(tail):
+        i = queue[t]
+        if away[i] > 0:
+            mask[i] = flat_height[labels[i]] - away[i] + 2 * mask[i]
+        else:
+            mask[i] = 2 * mask[i]
     # each flat cell drains down the mask, within its own flat
     unresolved = 0
-    for i in range(n):
-        if rec[i] != NO_FLOW:
-            continue
+    for t in range(nflat):
+        i = flats[t]
         lab = labels[i]
         r = i // nc
         c = i - r * nc
@@ -227,44 +263,54 @@ def resolve_flats(z, valid, rec, dist):
 
 
 @njit(cache=True, nogil=True)
-def build_stack(rec):
-    """Order cells so that every cell comes after its receiver (Braun & Willett 2013).
+def stack_and_count(rec):
+    """The stack (Braun & Willett 2013) and the D8 cell-count accumulation in one sweep.
 
-    Returns the stack (valid cells only) as int32 flat indices.
+    Cells are emitted upstream-first: a scan finds every cell without donors and walks
+    downstream from it, adding its count to the receiver, for as long as the receiver has
+    no donor left to wait for. Written back to front, that order is the stack: valid cells
+    ordered so that every cell comes after its receiver. Cells on a receiver cycle (only
+    possible in a damaged direction raster) are left out.
+
+    Returns (stack int32, count int32 per cell, 0 on nodata).
     """
     n = rec.shape[0]
-    ndon = np.zeros(n + 1, dtype=np.int32)
+    pending = np.zeros(n, dtype=np.uint8)
     nvalid = 0
     for i in range(n):
         r = rec[i]
         if r >= 0:
-            ndon[r + 1] += 1
+            pending[r] += 1
         if r != -2:
             nvalid += 1
-    for i in range(n):
-        ndon[i + 1] += ndon[i]
-    donors = np.empty(max(ndon[n], 1), dtype=np.int32)
-    fillp = ndon[:n].copy()
-    for i in range(n):
-        r = rec[i]
-        if r >= 0:
-            donors[fillp[r]] = i
-            fillp[r] += 1
+    count = np.zeros(n, dtype=np.int32)
     stack = np.empty(nvalid, dtype=np.int32)
-    # breadth-first from every exit: each level follows its receivers
-    ns = 0
+    pos = nvalid
     for i in range(n):
-        if rec[i] == -1:
-            stack[ns] = i
-            ns += 1
-    head = 0
-    while head < ns:
-        i = stack[head]
-        head += 1
-        for t in range(ndon[i], ndon[i + 1]):
-            stack[ns] = donors[t]
-            ns += 1
-    return stack[:ns]
+        if pending[i] != 0 or rec[i] == -2 or count[i] != 0:
+            continue
+        j = i
+        while True:
+            count[j] += 1
+            pos -= 1
+            stack[pos] = j
+            r = rec[j]
+            if r < 0:
+                break
+            count[r] += count[j]
+            pending[r] -= 1
+            if pending[r] != 0:
+                break
+            j = r
+    if pos != 0:
+        stack = stack[pos:].copy()
+    return stack, count
+
+
+@njit(cache=True, nogil=True)
+def build_stack(rec):
+    """The stack alone (see :func:`stack_and_count`)."""
+    return stack_and_count(rec)[0]
 
 
 @njit(cache=True, nogil=True)

@@ -94,31 +94,27 @@ def fill_depressions(terrain: Terrain, epsilon: float = 0.0) -> Terrain:
     """
     if epsilon < 0:
         raise InputError("epsilon must be zero or positive")
-    z = terrain.elevation.copy()
-    _fill.priority_flood_fill(z, terrain.valid, exit_cells(terrain), np.float32(epsilon))
+    z = np.ascontiguousarray(terrain.elevation, dtype=np.float32).copy()
+    if epsilon == 0:
+        _fill.fill_exact(z, terrain.valid, exit_cells(terrain))
+    else:
+        _fill.priority_flood_fill(z, terrain.valid, exit_cells(terrain), np.float32(epsilon))
     return terrain.with_elevation(z)
 
 
 def summarize_change(original: Terrain, conditioned: Terrain, method: str,
                      burned_cells: int = 0) -> ConditionSummary:
     """Counts, depths and volumes of what conditioning changed."""
-    from scipy import ndimage
-
-    v = original.valid
-    diff = np.where(v, conditioned.elevation.astype(np.float64)
-                    - original.elevation.astype(np.float64), 0.0)
-    area = original.cell_area()
-    up = diff > 0
-    down = diff < 0
-    _, ndep = ndimage.label(up, structure=np.ones((3, 3), dtype=bool))
+    raised, lowered, up, down, vup, vdown, ndep = _fill.change_summary(
+        original.elevation, conditioned.elevation, original.valid, original.geometry.area)
     return ConditionSummary(
         method=method,
-        cells_raised=int(up.sum()),
-        cells_lowered=int(down.sum()),
-        max_fill_depth_m=float(diff.max()) if up.any() else 0.0,
-        max_cut_depth_m=float(-diff.min()) if down.any() else 0.0,
-        filled_volume_m3=float((diff * up * area).sum()),
-        cut_volume_m3=float((-diff * down * area).sum()),
+        cells_raised=int(raised),
+        cells_lowered=int(lowered),
+        max_fill_depth_m=float(up),
+        max_cut_depth_m=float(down),
+        filled_volume_m3=float(vup),
+        cut_volume_m3=float(vdown),
         depressions=int(ndep),
         burned_cells=int(burned_cells),
     )

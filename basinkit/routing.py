@@ -314,12 +314,16 @@ def flow_from_conditioned(cond: Terrain, method: str, params: dict) -> FlowModel
         flat_mask, unresolved = _d8.resolve_flats(z, valid, rec, dist)
         if unresolved:
             params = {**params, "cells_without_outlet": int(unresolved)}
-    stack = _d8.build_stack(rec)
+    flat_mask_for_multi = flat_mask if method in ("dinf", "mfd") else None
+    del flat_mask
+    stack, count = _d8.stack_and_count(rec)
     fm = FlowModel(cond, rec, stack, method, parameters=params)
+    fm._cache[("d8", "cells")] = count.reshape(cond.shape)
     if method in ("dinf", "mfd"):
         from ._multi import multi_receivers
 
-        fm.multi = multi_receivers(fm, method, params.get("mfd_exponent", 1.1), flat_mask)
+        fm.multi = multi_receivers(fm, method, params.get("mfd_exponent", 1.1),
+                                   flat_mask_for_multi)
         if method == "dinf":
             from ._multi import dinf_azimuth
 
