@@ -103,14 +103,25 @@ def available_memory_bytes() -> int | None:
         return None
 
 
+def format_bytes(n) -> str:
+    """A byte count in a readable binary unit: '512 bytes', '87.9 KiB', '1.5 GiB'."""
+    n = float(n)
+    if n < 1024:
+        return f"{int(n)} bytes"
+    for unit in ("KiB", "MiB", "GiB", "TiB"):
+        n /= 1024.0
+        if n < 1024 or unit == "TiB":
+            return f"{n:.1f} {unit}"
+
+
 def check_memory(ncells: int, bytes_per_cell: int = ROUTE_BYTES_PER_CELL, what="routing"):
     """Refuse, before allocating, a job whose working memory exceeds what is available."""
     need = int(ncells) * bytes_per_cell
     have = available_memory_bytes()
     if have is not None and need > have:
         raise MemoryBudgetError(
-            f"{what} a grid of {ncells:,} cells needs about {need / 2**30:.1f} GiB of working "
-            f"memory but only {have / 2**30:.1f} GiB is available; clip the DEM to the area "
+            f"{what} a grid of {ncells:,} cells needs about {format_bytes(need)} of working "
+            f"memory but only {format_bytes(have)} is available; clip the DEM to the area "
             "of interest, coarsen it, or run on a machine with more memory")
     return need
 
