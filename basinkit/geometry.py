@@ -116,7 +116,8 @@ def cell_geometry(transform, shape, crs) -> CellGeometry:
     -----
     Geographic grids: neighbour distances are geodesics between cell centres (Karney 2013,
     through pyproj); the cell area is the exact area of the ellipsoidal quadrangle,
-    ``A = a²(1-e²)/2 · Δλ · (q(φ₂) - q(φ₁))`` with the authalic ``q`` (Snyder 1987).
+    ``A = a²/2 · Δλ · (q(φ₂) - q(φ₁))`` with the authalic ``q`` (Snyder 1987, eq. 3-12,
+    which already carries the factor 1-e²; the whole ellipsoid gives 2πa²·q(90°)).
     """
     nrows = shape[0]
     if crs.is_geographic:
@@ -143,7 +144,7 @@ def cell_geometry(transform, shape, crs) -> CellGeometry:
             diag[-1] = diag[-2]
         north = np.radians(np.clip(top - dlat * np.arange(nrows), -90, 90))
         south = np.radians(np.clip(top - dlat * (np.arange(nrows) + 1), -90, 90))
-        area = (a * a * (1 - e2) / 2.0 * np.radians(dlon)
+        area = (a * a / 2.0 * np.radians(dlon)
                 * np.abs(_authalic_q(north, e) - _authalic_q(south, e)))
         return CellGeometry(np.abs(dx), np.abs(dyd), np.abs(diag), area, True)
     k = _linear_unit_to_metres(crs)
