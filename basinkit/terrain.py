@@ -257,7 +257,12 @@ def read_dem(path, band: int | None = None, crs=None, sea_level: float | None = 
         if dtype.startswith("complex"):
             raise InputError(f"band {band} of {str(p)!r} holds complex numbers, not "
                              "elevations")
-        data = ds.read(band, masked=True)
+        try:
+            data = ds.read(band, masked=True)
+        except RasterioIOError as exc:
+            why = exc.__cause__ or exc
+            raise InputError(f"cannot read band {band} of {str(p)!r}: the file is damaged or "
+                             f"truncated ({why}); copy or export it again") from None
         pcrs = _to_pyproj(crs if crs is not None else ds.crs.to_wkt())
         transform = ds.transform
     z = np.asarray(data.data, dtype=np.float32)
@@ -294,10 +299,16 @@ def _read_base_level(spec, shape, transform, crs):
         return rasterize(((g, 1) for g in geoms), out_shape=shape, transform=transform,
                          fill=0, dtype="uint8").astype(bool)
     import rasterio
+    from rasterio.errors import RasterioIOError
 
-    with rasterio.open(p) as ds:
-        if (ds.height, ds.width) != shape or ds.transform != transform:
-            raise InputError(f"the base-level raster {str(p)!r} is not on the DEM's grid "
-                             f"({ds.height}x{ds.width} vs {shape[0]}x{shape[1]}); resample it")
-        m = ds.read(1, masked=True)
+    try:
+        with rasterio.open(p) as ds:
+            if (ds.height, ds.width) != shape or ds.transform != transform:
+                raise InputError(f"the base-level raster {str(p)!r} is not on the DEM's grid "
+                                 f"({ds.height}x{ds.width} vs {shape[0]}x{shape[1]}); "
+                                 "resample it")
+            m = ds.read(1, masked=True)
+    except RasterioIOError as exc:
+        raise InputError(f"cannot read the base-level file {str(p)!r} as a raster or a "
+                         f"polygon layer (.gpkg, .geojson, .shp, .fgb): {exc}") from None
     return np.asarray(m.filled(0)) != 0

@@ -252,3 +252,21 @@ def test_rotated_grid_refused(tmp_path):
     tr = Affine(10, 2, 500000, 1, -10, 5000000)
     with pytest.raises(InputError, match="rotated"):
         read_dem(write_tif(tmp_path / "rot.tif", slope(), transform=tr))
+
+
+def test_truncated_file_is_a_clear_error(tmp_path):
+    """A GeoTIFF cut short (an interrupted copy) opens but cannot be read: InputError."""
+    p = write_tif(tmp_path / "whole.tif", np.tile(slope(), (30, 30)))
+    data = p.read_bytes()
+    cut = tmp_path / "cut.tif"
+    cut.write_bytes(data[: len(data) // 2])
+    with pytest.raises(InputError, match="damaged or truncated"):
+        read_dem(cut)
+
+
+def test_base_level_file_that_is_no_raster(tmp_path):
+    dem = write_tif(tmp_path / "dem.tif", slope())
+    junk = tmp_path / "lake.tif"
+    junk.write_text("not a mask")
+    with pytest.raises(InputError, match="cannot read the base-level file"):
+        read_dem(dem, base_level=junk)

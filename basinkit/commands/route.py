@@ -28,11 +28,13 @@ def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
     Example: basinkit route dem.tif -o flow/ --method d8 --sea-level 0
     """
     import time
+    from pathlib import Path
 
     from ..routing import route
     from ..writers import prepare_output_dir
 
-    prepare_output_dir(output, overwrite)
+    if Path(output).exists():  # refuse a used folder now; create it only when writing
+        prepare_output_dir(output, overwrite)
     t0 = time.perf_counter()
     terrain = read_dem_from_options(dem, band, crs, sea_level, base_level)
     console.info(f"read {dem}: {terrain.shape[0]} x {terrain.shape[1]} cells, "
