@@ -51,7 +51,17 @@ def dem_path(n):
 
 
 def rss_mb():
+    """Peak resident memory of this process so far, MB."""
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def current_rss_mb():
+    """Resident memory now, MB (Linux /proc)."""
+    with open("/proc/self/status") as f:
+        for line in f:
+            if line.startswith("VmRSS:"):
+                return int(line.split()[1]) / 1024.0
+    return rss_mb()
 
 
 def child_basinkit(n):
@@ -67,7 +77,7 @@ def child_basinkit(n):
     fm.accumulation()
     fm.upstream_area()
     compile_s = time.perf_counter() - t
-    base = rss_mb()
+    base = current_rss_mb()
     z = np.load(dem_path(n))
     terrain = terrain_from_array(z, cellsize=10.0)
     del z
@@ -87,21 +97,29 @@ def child_basinkit(n):
     stack, cells = _d8.stack_and_count(rec)
     area = _d8.accumulate_area(rec, stack, zc.shape[1], filled.geometry.area)
     t4 = time.perf_counter()
-    del cells, area, stack, rec
-    # the whole public route() (fill, flats, stack, accumulation) for the memory figure
-    from basinkit.routing import route
-
-    del filled
-    t5 = time.perf_counter()
-    fm = route(terrain)
-    fm.accumulation()
-    fm.upstream_area()
-    t6 = time.perf_counter()
+    del cells, area, stack, rec, zc, filled
     return {"compile_s": compile_s, "fill_s": t1 - t0, "d8_s": t2 - t1, "flats_s": t3 - t2,
-            "stack_accumulation_s": t4 - t3, "route_total_s": t6 - t5,
+            "stack_accumulation_s": t4 - t3,
             "conditioning_s": (t1 - t0) + (t3 - t2),
             "routing_s": (t2 - t1) + (t4 - t3),
             "peak_mb": rss_mb(), "base_mb": base, "flat_cells": int(nflat)}
+
+
+def child_route(n):
+    """Only the public route() + both accumulations: its peak memory per cell."""
+    from basinkit.routing import route
+    from basinkit.terrain import terrain_from_array
+
+    tiny = route(terrain_from_array(fractal(32), cellsize=10.0))
+    tiny.upstream_area()
+    base = current_rss_mb()
+    terrain = terrain_from_array(np.load(dem_path(n)), cellsize=10.0)
+    t0 = time.perf_counter()
+    fm = route(terrain)
+    fm.accumulation()
+    fm.upstream_area()
+    t1 = time.perf_counter()
+    return {"route_total_s": t1 - t0, "peak_mb": rss_mb(), "base_mb": base}
 
 
 def child_pysheds(n):
@@ -129,7 +147,7 @@ def child_pysheds(n):
     t = time.perf_counter()
     run(fractal(32))
     compile_s = time.perf_counter() - t
-    base = rss_mb()
+    base = current_rss_mb()
     z = np.load(dem_path(n)).astype(np.float64)
     cond, routing = run(z)
     return {"compile_s": compile_s, "conditioning_s": cond, "routing_s": routing,
@@ -139,12 +157,13 @@ def child_pysheds(n):
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[1024, 2048, 4096])
-    ap.add_argument("--tools", nargs="+", default=["basinkit", "pysheds"])
+    ap.add_argument("--tools", nargs="+", default=["basinkit", "route", "pysheds"])
     ap.add_argument("--child", nargs=2, metavar=("TOOL", "N"), help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.child:
         tool, n = args.child[0], int(args.child[1])
-        res = (child_basinkit if tool == "basinkit" else child_pysheds)(n)
+        res = {"basinkit": child_basinkit, "route": child_route,
+               "pysheds": child_pysheds}[tool](n)
         print(json.dumps(res))
         return
     print(f"machine: {os.cpu_count()} cores; numpy {np.__version__}")
@@ -160,24 +179,28 @@ def main():
             rows[(tool, n)] = r = json.loads(out.stdout.strip().splitlines()[-1])
             per_cell = (r["peak_mb"] - r["base_mb"]) * 2**20 / (n * n)
             r["bytes_per_cell"] = per_cell
+            if tool == "route":
+                print(f"route()    {n:5d}²: {r['route_total_s']:6.2f} s for fill, flats, D8, "
+                      f"stack, cells and m² accumulation; peak {per_cell:5.1f} bytes/cell "
+                      "(input DEM included)", flush=True)
+                continue
             extra = ""
             if tool == "basinkit":
                 extra = (f" [fill {r['fill_s']:.2f} flats {r['flats_s']:.2f} d8 "
-                         f"{r['d8_s']:.2f} stack+acc {r['stack_accumulation_s']:.2f}; "
-                         f"route() total {r['route_total_s']:.2f}]")
+                         f"{r['d8_s']:.2f} stack+acc {r['stack_accumulation_s']:.2f}]")
             print(f"{tool:9s} {n:5d}²: conditioning {r['conditioning_s']:7.2f} s  routing "
                   f"{r['routing_s']:6.2f} s  peak {r['peak_mb']:7.0f} MB "
-                  f"({per_cell:5.1f} B/cell over start)  compile {r['compile_s']:.1f} s{extra}",
+                  f"({per_cell:5.1f} B/cell)  compile {r['compile_s']:.1f} s{extra}",
                   flush=True)
         b, p = rows.get(("basinkit", n)), rows.get(("pysheds", n))
         if b and p:
             print(f"   ratio pysheds/basinkit at {n}²: conditioning "
                   f"{p['conditioning_s'] / b['conditioning_s']:.1f}x, routing "
                   f"{p['routing_s'] / b['routing_s']:.1f}x", flush=True)
-    sizes = [n for n in args.sizes if ("basinkit", n) in rows]
+    sizes = [n for n in args.sizes if ("route", n) in rows]
     if len(sizes) >= 2:
         lo, hi = min(sizes), max(sizes)
-        per = lambda n: rows[("basinkit", n)]["route_total_s"] / (n * n)  # noqa: E731
+        per = lambda n: rows[("route", n)]["route_total_s"] / (n * n)  # noqa: E731
         print(f"time per cell {hi}² / {lo}² (route total): {per(hi) / per(lo):.2f}")
 
 
