@@ -204,6 +204,8 @@ class FlowModel:
         from .writers import prepare_output_dir, provenance, write_geotiff, write_json
 
         out = prepare_output_dir(folder, overwrite)
+        for name in FILES.values():  # no stale layer of an earlier run may stay listed
+            (out / name).unlink(missing_ok=True)
         t = self.terrain
         nod = np.float32(np.nan)
         if self.input_elevation is not None:
