@@ -58,15 +58,15 @@ class ChannelNetwork:
     slope_area: tuple | None = None
     outlet_cells: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
 
-    @property
     def max_order(self) -> int:
+        """Highest Strahler order of the network (0 when it is empty)."""
         return int(self.strahler.max()) if self.strahler.size else 0
 
     def summary(self) -> dict:
         """Counts and lengths of the whole network (for logs and provenance)."""
         seg = self.segments
         return {"channel_cells": int(self.mask.sum()), "segments": int(len(seg)),
-                "junctions": int(len(self.junctions)), "max_strahler_order": self.max_order,
+                "junctions": int(len(self.junctions)), "max_strahler_order": self.max_order(),
                 "total_length_m": float(seg["length_m"].sum()) if len(seg) else 0.0,
                 "min_area_m2": float(self.min_area_m2)}
 

@@ -114,7 +114,7 @@ def test_strahler_matches_pysheds(fractal_flow):
         if down[i] and rec[i] >= 0:
             down[rec[i]] = True
     cmp = interior & net.mask & ~down.reshape(net.mask.shape)
-    assert net.mask.sum() > 300 and net.max_order >= 3
+    assert net.mask.sum() > 300 and net.max_order() >= 3
     assert cmp.sum() > 0.8 * (interior & net.mask).sum()
     np.testing.assert_array_equal(net.strahler[cmp], ref[cmp])
     assert (ref[interior & ~net.mask] == 0).all()
