@@ -673,6 +673,9 @@ class ConcavityFit:
         stem's χ–z curve at each θ.
     tributary_count, node_count : int
     reference_area_m2 : float
+    at_grid_edge : bool
+        The least misfit lies at the first or last θ tried: no interior minimum, so the
+        fit is not reliable.
     """
 
     concavity: float
@@ -684,9 +687,10 @@ class ConcavityFit:
     tributary_count: int
     node_count: int
     reference_area_m2: float
+    at_grid_edge: bool = False
 
     def to_dict(self) -> dict:
-        return {"concavity": self.concavity, "concavity_spread": self.spread,
+        return {"concavity": self.concavity, "at_grid_edge": self.at_grid_edge, "concavity_spread": self.spread,
                 "concavity_p16": self.low, "concavity_p84": self.high,
                 "tributary_count": self.tributary_count, "node_count": self.node_count,
                 "reference_area_m2": self.reference_area_m2,
@@ -779,6 +783,8 @@ def fit_concavity(fm, network, outlet_cell, min_order=1, thetas=None, reference_
         raise InputError("no tributary node lies within the main stem's χ range; the "
                          "catchment is too small to fit θ")
     best = _refine_min(th, mis)
+    imin = int(np.nanargmin(mis))
+    edge = imin == 0 or imin == th.size - 1
     boots = np.zeros(0)
     if n_bootstrap and ng > 1:
         rng = np.random.default_rng(seed)
@@ -794,7 +800,8 @@ def fit_concavity(fm, network, outlet_cell, min_order=1, thetas=None, reference_
         spread, lo, hi = float("nan"), float("nan"), float("nan")
     return ConcavityFit(concavity=float(best), spread=spread, low=lo, high=hi, thetas=th,
                         misfit_m=np.sqrt(mis), tributary_count=int(ng),
-                        node_count=int(t.cells.size), reference_area_m2=a0)
+                        node_count=int(t.cells.size), reference_area_m2=a0,
+                        at_grid_edge=bool(edge))
 
 
 def _refine_min(x, y):
@@ -945,7 +952,10 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
         ``chi_m``, ``upstream_area_m2``, ``ksn_below_m_per_m``, ``ksn_above_m_per_m``,
         ``ksn_change_ratio`` (above / below), ``relief_m`` (magnitude: elevation of the
         reach's top above (+) or below (-) the extension of the line below the knickpoint),
-        ``kind`` (``"steeper upstream"`` or ``"gentler upstream"``).
+        ``kind`` (``"steeper upstream"`` or ``"gentler upstream"``) and, when the table
+        has both elevations, ``in_filled_depression`` (the conditioned surface lies more
+        than the vertical precision above the DEM there: the break may be the edge of a
+        filled depression rather than of the channel).
 
     Notes
     -----
@@ -1013,6 +1023,8 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
         for c in ("ksn_below_m_per_m", "ksn_above_m_per_m", "ksn_change_ratio", "relief_m"):
             res[c] = pd.Series(dtype=float)
         res["kind"] = pd.Series(dtype=object)
+        if {"elevation_m", "elevation_conditioned_m"} <= set(df.columns):
+            res["in_filled_depression"] = pd.Series(dtype=bool)
         return res.rename(columns={elevation: "elevation_m"})
     idx = np.array([o[0] for o in out])
     res = df.iloc[idx][cols_out].reset_index(drop=True)
@@ -1024,6 +1036,10 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
         res["ksn_change_ratio"] = ka / kb
     res["relief_m"] = np.array([o[3] for o in out])
     res["kind"] = np.where(ka > kb, "steeper upstream", "gentler upstream")
+    if {"elevation_m", "elevation_conditioned_m"} <= set(df.columns):
+        raised = (df["elevation_conditioned_m"].to_numpy(float)[idx]
+                  - df["elevation_m"].to_numpy(float)[idx])
+        res["in_filled_depression"] = raised > prec
     return res.rename(columns={elevation: "elevation_m"})
 
 
@@ -1324,8 +1340,10 @@ def plot_chi(nodes, ax=None, knickpoints=None, steepness_table=None,
         theta = nodes.attrs.get("concavity", np.nan)
         trib = nodes[~nodes["is_main_stem"]]
         if len(trib):
-            ax.scatter(trib["chi_m"], trib[elevation], s=2, color=COLOURS["tributary"],
-                       linewidths=0, label="tributaries", rasterized=True)
+            ax.scatter(trib["chi_m"], trib[elevation], s=3, color=COLOURS["tributary"],
+                       linewidths=0, rasterized=True)
+            ax.plot([], [], ls="none", marker="o", ms=4, color=COLOURS["tributary"],
+                    label="tributaries")
         ms = nodes[nodes["is_main_stem"]].sort_values("chi_m")
         for _, g in ms.groupby("outlet_id"):
             ax.plot(g["chi_m"], g[elevation], color=COLOURS["main"], lw=1.6,
@@ -1340,7 +1358,7 @@ def plot_chi(nodes, ax=None, knickpoints=None, steepness_table=None,
     ax.set_ylabel("elevation (m)")
     ax.set_xlim(left=0)
     ax.set_title(title or "χ–elevation")
-    ax.legend(frameon=False, loc="upper left", fontsize=8, markerscale=3)
+    ax.legend(frameon=False, loc="upper left", fontsize=8)
     _style(ax)
     fig.tight_layout()
     return fig
@@ -1369,8 +1387,9 @@ def plot_slope_area(area_m2, slope_m_per_m, fit=None, ax=None, bins=20, title=No
     ok = np.isfinite(a) & np.isfinite(s) & (a > 0) & (s > 0)
     a, s = a[ok], s[ok]
     if a.size:
-        ax.scatter(a, s, s=2, color=COLOURS["tributary"], linewidths=0,
-                   label="channel nodes", rasterized=True)
+        ax.scatter(a, s, s=3, color=COLOURS["tributary"], linewidths=0, rasterized=True)
+        ax.plot([], [], ls="none", marker="o", ms=4, color=COLOURS["tributary"],
+                label="channel nodes")
         if bins:
             ba, bs = _log_bins(a, s, bins)
             if ba.size:
@@ -1380,14 +1399,18 @@ def plot_slope_area(area_m2, slope_m_per_m, fit=None, ax=None, bins=20, title=No
         xa = np.logspace(np.log10(a.min()), np.log10(a.max()), 50)
         lo, hi = fit.concavity_ci
         ax.plot(xa, fit.predict(xa), color=COLOURS["fit"], lw=2,
-                label=f"S = {fit.steepness_index:.3g}·A^-{fit.concavity:.3f} "
-                      f"(θ {lo:.2f}–{hi:.2f})")
+                label=(f"fit $S = {fit.steepness_index:.3g}\\,A^{{-{fit.concavity:.3f}}}$, "
+                       f"θ {lo:.2f} to {hi:.2f} ({100 * fit.confidence:.0f} %)"))
     ax.set_xscale("log")
     ax.set_yscale("log")
+    from matplotlib.ticker import NullFormatter
+
+    ax.xaxis.set_minor_formatter(NullFormatter())
+    ax.yaxis.set_minor_formatter(NullFormatter())
     ax.set_xlabel("upstream area (m²)")
     ax.set_ylabel("channel slope (m/m)")
     ax.set_title(title or "slope–area")
-    ax.legend(frameon=False, loc="lower left", fontsize=8, markerscale=2)
+    ax.legend(frameon=False, loc="lower left", fontsize=8)
     _style(ax)
     fig.tight_layout()
     return fig

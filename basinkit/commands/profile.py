@@ -1,0 +1,361 @@
+"""``basinkit profile``: longitudinal profiles, χ, k_sn, knickpoints for one or more outlets."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from ._common import overwrite_option, parse_area, parse_length
+
+CAUTIONS = [
+    "Profiles, flow paths and steepness values are estimates derived from a DEM; their "
+    "accuracy is limited by the DEM's resolution and vertical precision.",
+    "Culverts, storm sewers, diversions and other structures are not represented unless "
+    "they were burned into the DEM before routing.",
+    "Verify flow paths and knickpoints in the field before relying on them.",
+    "For design or permit work, defer to local codes and licensed professional practice.",
+]
+
+
+def _parse_xy(text):
+    from ..errors import InputError
+
+    parts = str(text).replace(";", ",").split(",")
+    try:
+        x, y = (float(p) for p in parts)
+    except ValueError:
+        raise InputError(f"cannot read the outlet {text!r}; write it as X,Y in the DEM's CRS "
+                         "(e.g. --outlet 512300,4712850)") from None
+    return x, y
+
+
+def _read_outlets_file(path, crs_wkt, id_column):
+    """Outlet points from a CSV (columns x, y, optional id) or a point layer."""
+    import pandas as pd
+
+    from ..errors import InputError
+
+    p = Path(path)
+    if not p.exists():
+        raise InputError(f"the outlets file {str(p)!r} does not exist")
+    if p.suffix.lower() in (".csv", ".txt"):
+        t = pd.read_csv(p)
+        cols = {c.lower(): c for c in t.columns}
+        if "x" not in cols or "y" not in cols:
+            raise InputError(f"{str(p)!r} needs columns x and y (map coordinates in the DEM's "
+                             f"CRS); it has {list(t.columns)}")
+        xs, ys = t[cols["x"]].to_numpy(float), t[cols["y"]].to_numpy(float)
+    else:
+        import geopandas as gpd
+
+        try:
+            t = gpd.read_file(p)
+        except Exception as exc:  # noqa: BLE001 - any reader failure is an input problem
+            raise InputError(f"cannot read the outlets layer {str(p)!r}: {exc}") from None
+        if t.crs is not None and crs_wkt is not None:
+            t = t.to_crs(crs_wkt)
+        if len(t) and not (t.geometry.geom_type == "Point").all():
+            raise InputError(f"{str(p)!r} must hold points only")
+        xs, ys = t.geometry.x.to_numpy(), t.geometry.y.to_numpy()
+    if len(t) == 0:
+        raise InputError(f"the outlets file {str(p)!r} holds no outlets")
+    idc = id_column or next((c for c in t.columns if c.lower() in ("outlet_id", "id", "name")),
+                            None)
+    if idc is not None and idc not in t.columns:
+        raise InputError(f"{str(p)!r} has no column {idc!r}")
+    ids = [str(v) for v in t[idc]] if idc else [str(i + 1) for i in range(len(t))]
+    return list(zip(ids, xs, ys))
+
+
+def _snapper(fm, snap_m):
+    """(x, y) -> cell: the outlets module's snapping when it exists, else the cell of greatest
+    upstream area within the snapping distance."""
+    import importlib
+
+    import numpy as np
+
+    from ..profiles import snap_outlet
+
+    try:
+        o = importlib.import_module("basinkit.outlets")
+    except ModuleNotFoundError:
+        o = None
+    if o is not None and hasattr(o, "snap_to_channel"):
+        return lambda x, y: int(o.snap_to_channel(fm, x, y, radius_m=snap_m))
+    g = fm.terrain.geometry
+    cell = float(min(g.dx.min(), g.dy_down.min()))
+    k = int(np.floor(snap_m / cell)) if cell > 0 else 0
+    return lambda x, y: int(snap_outlet(fm, x, y, search_radius_cells=k))
+
+
+def _save_png(fig, path):
+    from ..writers import atomic_path
+
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, format="png", dpi=120, metadata={"Software": None})
+    return Path(path)
+
+
+def _write_gpkg(path, layers):
+    from ..writers import atomic_path
+
+    with atomic_path(path) as tmp:
+        for i, (name, gdf) in enumerate(layers.items()):
+            gdf.to_file(tmp, layer=name, driver="GPKG", mode="w" if i == 0 else "a")
+    return Path(path)
+
+
+def _safe(name):
+    return "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in str(name))
+
+
+@click.command("profile")
+@click.argument("flowdir", type=click.Path())
+@click.option("-o", "--output", required=True, type=click.Path(),
+              help="Output folder (profile.csv, profiles.gpkg, PNG figures, summary.json).")
+@click.option("--outlet", "outlet_xy", multiple=True,
+              help="Outlet as X,Y in the DEM's CRS; may be given several times.")
+@click.option("--outlets", "outlets_file", type=click.Path(),
+              help="CSV (columns x, y, optional id) or point layer of outlets.")
+@click.option("--id-column", default=None, help="Column of the outlets file with outlet ids.")
+@click.option("--snap-distance", default="2 cells", show_default=True,
+              help="Move each outlet to the cell of greatest upstream area within this "
+                   "distance (e.g. 60m).")
+@click.option("--min-order", type=int, default=2, show_default=True,
+              help="Lowest Strahler order of the channels profiled.")
+@click.option("--min-area", default="0.5km2", show_default=True,
+              help="Channel initiation threshold (upstream area, e.g. 0.5km2, 20ha).")
+@click.option("--concavity", type=float, default=None,
+              help="Concavity θ for χ and k_sn [default: 0.45].")
+@click.option("--fit-concavity", is_flag=True,
+              help="Fit θ per outlet from the collinearity of tributaries in χ–z.")
+@click.option("--reference-area", default="1m2", show_default=True,
+              help="Reference area A0 for χ (e.g. 1m2, 1km2).")
+@click.option("--slope-window", default=None,
+              help="Length of the window local slope is measured over [default: 20m].")
+@click.option("--slope-drop", default=None,
+              help="Measure local slope over this vertical interval instead (e.g. 5m).")
+@click.option("--vertical-precision", type=float, default=1.0, show_default=True,
+              help="Vertical precision of the DEM (m), for knickpoint detection.")
+@overwrite_option
+@click.pass_obj
+def command(console, flowdir, output, outlet_xy, outlets_file, id_column, snap_distance,
+            min_order, min_area, concavity, fit_concavity, reference_area, slope_window,
+            slope_drop, vertical_precision, overwrite):
+    """Longitudinal profiles, χ, channel steepness and knickpoints upstream of outlets.
+
+    Example: basinkit profile flow/ --outlet 512300,4712850 --min-area 0.5km2 -o prof/
+    """
+    import time
+
+    import numpy as np
+    import pandas as pd
+
+    from .. import profiles as P
+    from ..channels import extract_channels
+    from ..errors import BasinkitError, InputError, OutletError
+    from ..routing import load_flow
+    from ..writers import prepare_output_dir, provenance, write_csv, write_json
+
+    t0 = time.perf_counter()
+    if concavity is not None and fit_concavity:
+        raise InputError("give either --concavity or --fit-concavity, not both")
+    if not outlet_xy and not outlets_file:
+        raise InputError("say where the outlet is: --outlet X,Y or --outlets FILE")
+    if outlet_xy and outlets_file:
+        raise InputError("give either --outlet or --outlets, not both")
+    theta0 = P.DEFAULT_CONCAVITY if concavity is None else concavity
+    P._check_theta(theta0)
+    a0 = parse_area(reference_area, "--reference-area")
+    if not a0 > 0:
+        raise InputError("--reference-area must be positive (e.g. 1m2)")
+    min_area_m2 = parse_area(min_area, "--min-area")
+    if slope_window is not None and slope_drop is not None:
+        raise InputError("give either --slope-window or --slope-drop, not both")
+    sw = parse_length(slope_window, "--slope-window") if slope_window is not None else None
+    sd = parse_length(slope_drop, "--slope-drop") if slope_drop is not None else None
+    if min_order < 1:
+        raise InputError("--min-order must be 1 or more")
+    out = prepare_output_dir(output, overwrite)
+    fm = load_flow(flowdir)
+    console.info(f"read flow folder {flowdir}: {fm.shape[0]} x {fm.shape[1]} cells")
+    crs_wkt = fm.terrain.crs.to_wkt() if fm.terrain.crs is not None else None
+    if outlets_file:
+        points = _read_outlets_file(outlets_file, crs_wkt, id_column)
+    else:
+        points = [(str(i + 1), *_parse_xy(t)) for i, t in enumerate(outlet_xy)]
+    if str(snap_distance).strip().lower().replace(" ", "") == "2cells":
+        g = fm.terrain.geometry
+        snap_m = 2.0 * float(max(g.dx.max(), g.dy_down.max()))
+    else:
+        snap_m = parse_length(snap_distance, "--snap-distance")
+    snap = _snapper(fm, snap_m)
+    placed, failures = [], []
+    for oid, x, y in points:
+        try:
+            placed.append((oid, x, y, snap(x, y)))
+        except BasinkitError as exc:
+            failures.append({"outlet_id": oid, "stage": "outlet", "error": str(exc)})
+            console.warn(f"outlet {oid}: {exc}")
+    if not placed:
+        raise OutletError("no outlet could be placed on the DEM: "
+                          + "; ".join(f["error"] for f in failures))
+    cells = np.array([p[3] for p in placed], dtype=np.int64)
+    net = extract_channels(fm, min_area_m2, outlet_cells=cells)
+    mo = net.max_order
+    mo = mo() if callable(mo) else mo
+    console.info(f"channel network: {len(net.segments):,} segments, highest Strahler order "
+                 f"{mo}")
+    node_tables, seg_rows, knick_tables, path_lines, summaries = [], [], [], [], []
+    nc = fm.ncols
+    for oid, x, y, cell in console.progress(placed, desc="outlets"):
+        try:
+            res = _one_outlet(P, fm, net, oid, cell, min_order, theta0, fit_concavity, a0, sw,
+                              sd, vertical_precision, out)
+        except BasinkitError as exc:
+            failures.append({"outlet_id": oid, "stage": "profiles", "error": str(exc)})
+            console.warn(f"outlet {oid}: {exc}")
+            continue
+        nodes, steep, knick, paths, summary = res
+        for w in summary.get("warnings", []):
+            console.warn(f"outlet {oid}: {w}")
+        summary.update(outlet_x=float(x), outlet_y=float(y), outlet_row=cell // nc,
+                       outlet_col=cell % nc)
+        node_tables.append(nodes)
+        seg_rows.append(steep)
+        knick_tables.append(knick)
+        path_lines.extend(paths)
+        summaries.append(summary)
+    if not summaries:
+        raise OutletError("profiles failed for every outlet: "
+                          + "; ".join(f"{f['outlet_id']}: {f['error']}" for f in failures))
+    table = pd.concat(node_tables, ignore_index=True)
+    write_csv(out / "profile.csv", table)
+    steep_all = pd.concat(seg_rows, ignore_index=True)
+    write_csv(out / "steepness.csv", steep_all)
+    knick_all = pd.concat([k for k in knick_tables if len(k)], ignore_index=True) \
+        if any(len(k) for k in knick_tables) else knick_tables[0]
+    write_csv(out / "knickpoints.csv", knick_all)
+    _write_layers(out / "profiles.gpkg", fm, net, steep_all, knick_all, path_lines, crs_wkt)
+    params = {"min_order": min_order, "min_area_m2": min_area_m2,
+              "concavity": None if fit_concavity else theta0, "fit_concavity": fit_concavity,
+              "reference_area_m2": a0, "slope_window_m": sw, "slope_drop_m": sd,
+              "vertical_precision_m": vertical_precision, "snap_distance_m": snap_m}
+    meta = provenance(params, {"flow_folder": str(Path(flowdir).resolve()),
+                               "dem": fm.terrain.source}, crs=fm.terrain.crs,
+                      shape=fm.shape, outlets=summaries, failures=failures,
+                      cautions=CAUTIONS, seconds=round(time.perf_counter() - t0, 3),
+                      files=sorted(p.name for p in out.iterdir() if not p.name.startswith(".")))
+    write_json(out / "summary.json", meta)
+    console.info(f"wrote {out} ({len(summaries)} outlet(s), {len(failures)} failure(s), "
+                 f"{time.perf_counter() - t0:.1f} s)")
+    for c in CAUTIONS:
+        console.info(f"note: {c}")
+    return 1 if failures else 0
+
+
+def _one_outlet(P, fm, net, oid, cell, min_order, theta0, fit, a0, sw, sd, prec, out):
+    import numpy as np
+    import pandas as pd
+
+    from ..errors import OutletError
+
+    order_here = int(np.asarray(net.strahler).ravel()[cell])
+    if order_here < min_order:
+        raise OutletError(f"the outlet lies on a channel of Strahler order {order_here}, below "
+                          f"--min-order {min_order}; move it onto a larger channel, lower "
+                          "--min-order or lower --min-area")
+    summary = {"outlet_id": oid}
+    theta = theta0
+    if fit:
+        cf = P.fit_concavity(fm, net, cell, min_order=min_order, reference_area_m2=a0)
+        theta = cf.concavity
+        summary["concavity_fit"] = cf.to_dict()
+        if cf.at_grid_edge:
+            summary["warnings"] = [f"the best-fit concavity {theta:.2f} lies at the end of the "
+                                   "range tried; the fit is not reliable (too few or too "
+                                   "short tributaries?)"]
+    opts = dict(concavity=theta, reference_area_m2=a0, slope_window_m=sw, slope_drop_m=sd)
+    nodes = P.channel_profiles(fm, net, cell, min_order=min_order, **opts)
+    nodes["outlet_id"] = oid
+    nodes.insert(1, "profile_kind", "channel")
+    steep = P.steepness(nodes, by="segment_id")
+    steep["outlet_id"] = oid
+    knick = P.find_knickpoints(nodes, vertical_precision_m=prec)
+    knick["outlet_id"] = oid
+    lfp = P.longest_flow_path(fm, cell, network=net, **opts)
+    ms = P.main_stem(fm, cell, network=net, **opts)
+    frames = [nodes]
+    for prof in (ms, lfp):
+        f = prof.to_frame()
+        f.insert(0, "outlet_id", oid)
+        frames.append(f)
+    nodes_all = pd.concat(frames, ignore_index=True)
+    summary["concavity"] = theta
+    summary["reference_area_m2"] = a0
+    summary["longest_flow_path"] = lfp.summary()
+    summary["main_stem"] = ms.summary()
+    summary["channel_node_count"] = int(len(nodes))
+    summary["knickpoint_count"] = int(len(knick))
+    try:
+        sa = P.slope_area_fit(nodes["upstream_area_m2"], nodes["slope_m_per_m"])
+        summary["slope_area_fit"] = sa.to_dict()
+    except Exception as exc:  # noqa: BLE001 - a failed fit is reported, not fatal
+        sa = None
+        summary["slope_area_fit"] = {"error": str(exc)}
+    try:
+        summary["hack_law_fit"] = P.hack_law_fit(fm, net, cell).to_dict()
+    except Exception as exc:  # noqa: BLE001
+        summary["hack_law_fit"] = {"error": str(exc)}
+    name = _safe(oid)
+    ms_k = knick[knick["profile_id"] == nodes.loc[nodes["is_main_stem"], "profile_id"].iloc[0]] \
+        if len(knick) and nodes["is_main_stem"].any() else None
+    figs = [
+        (f"long_profile_{name}.png",
+         P.plot_long_profile(ms, knickpoints=ms_k, title=f"main stem, outlet {oid}")),
+        (f"chi_elevation_{name}.png",
+         P.plot_chi(nodes, knickpoints=knick, steepness_table=steep,
+                    title=f"χ–elevation, outlet {oid}")),
+        (f"slope_area_{name}.png",
+         P.plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"], fit=sa,
+                           title=f"slope–area, outlet {oid}")),
+    ]
+    for fname, fig in figs:
+        _save_png(fig, out / fname)
+    paths = [(oid, "longest_flow_path", lfp, theta), (oid, "main_stem", ms, theta)]
+    return nodes_all, steep, knick, paths, summary
+
+
+def _write_layers(path, fm, net, steep, knick, paths, crs_wkt):
+    import geopandas as gpd
+    import numpy as np
+    import pandas as pd
+    import shapely
+
+    seg = net.segments
+    geom = seg.set_index("segment_id").geometry
+    s = steep.copy()
+    keep_cols = ["segment_id", "length_m", "strahler_order"]
+    s = s.merge(seg[keep_cols].rename(columns={"strahler_order": "_o"}), on="segment_id",
+                how="left").drop(columns=["_o"])
+    s.insert(0, "kind", "channel_segment")
+    lines = list(geom.reindex(s["segment_id"]).to_numpy())
+    extra = []
+    for oid, kind, prof, theta in paths:
+        xy = np.column_stack([prof.x, prof.y])
+        if len(xy) == 1:
+            xy = np.vstack([xy, xy])
+        extra.append({"kind": kind, "outlet_id": oid, "length_m": prof.length_m,
+                      "concavity": theta, "reference_area_m2": prof.reference_area_m2,
+                      "ksn_m_per_m": np.nan,
+                      "slope_10_85_m_per_m": prof.slope_10_85(),
+                      "average_slope_m_per_m": prof.average_slope()})
+        lines.append(shapely.linestrings(xy))
+    table = pd.concat([s, pd.DataFrame(extra)], ignore_index=True)
+    layers = {"profiles": gpd.GeoDataFrame(table, geometry=lines, crs=crs_wkt)}
+    k = knick.reset_index(drop=True)
+    layers["knickpoints"] = gpd.GeoDataFrame(
+        k, geometry=shapely.points(k["x"].to_numpy(float), k["y"].to_numpy(float)),
+        crs=crs_wkt)
+    _write_gpkg(path, layers)
