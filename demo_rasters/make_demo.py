@@ -52,6 +52,7 @@ DIFFUSIVITY = 0.01   # m² / yr
 DT = 5000.0          # yr
 STEPS = 100
 
+EDGE_BAND = 6             # cells along the north, east and west edges that drain outward
 EMBANKMENT_HEIGHT = 8.0   # m above the valley floor at the crossing
 ROAD_HALF_WIDTH = 12.0    # m, crest
 SIDE_SLOPE = 0.5          # m per m (1 vertical : 2 horizontal)
@@ -160,6 +161,15 @@ def build():
     from basinkit import fill_depressions
     z = fill_depressions(terrain_from_array(z.astype(np.float32), transform=TRANSFORM,
                                             crs=CRS)).elevation.astype(np.float64)
+    # the map is cut a little outside the valley's divide: the outermost cells of the
+    # north, east and west edges fall away outward, so the basin lies wholly on the map
+    b = EDGE_BAND
+    out = z.copy()
+    ramp = 5.0 * (b - np.arange(b, dtype=float))  # m below the ridge line, edge cell first
+    out[:b, :] = np.minimum(out[:b, :], z[b, :][None, :] - ramp[:, None])
+    out[:, :b] = np.minimum(out[:, :b], z[:, b][:, None] - ramp[None, :])
+    out[:, -b:] = np.minimum(out[:, -b:], z[:, -b - 1][:, None] - ramp[None, ::-1])
+    z = out
     # fine surface roughness (survey noise, vegetation): a few decimetres
     z = z + 0.15 * (fractal_noise(rng, NROWS, NCOLS, beta=1.0) - 0.5)
     z, hollows = press_depressions(z, rng)
@@ -248,14 +258,19 @@ def sampling_points(z, info, rng):
             break
     for n, (i, _, _) in enumerate(sorted(chosen[taken:], key=lambda t: stem.index(
             int(fm.receiver[t[0]]))), 1):
-        # a step upstream of the junction so the tributary's own catchment is delineated
+        # a few cells up the tributary, so that its own catchment is delineated
+        for _ in range(4):
+            up = np.flatnonzero(fm.receiver == i)
+            if up.size == 0 or acc[up].max() < 5e3:
+                break
+            i = int(up[np.argmax(acc[up])])
         points.append((f"tributary_{n}", i, f"Tributary {n} just above its junction with "
                        "the main stream"))
     rows = []
     for name, cell, desc in points:
         x, y = xy(cell)
-        # field coordinates are never exactly on a cell centre: a few metres off
-        dx, dy = rng.uniform(-7.0, 7.0, size=2)
+        # field coordinates are never exactly on a cell centre: a few metres off it
+        dx, dy = rng.uniform(-3.5, 3.5, size=2)
         rows.append({"id": name, "x": round(x + dx, 2), "y": round(y + dy, 2),
                      "description": desc})
     return rows
