@@ -63,39 +63,88 @@ def stream_orders(rec, stack, mask):
 
 
 @njit(cache=True, nogil=True)
-def split_segments(rec, stack, mask, ndon, split):
-    """Cut the channel network into segments between junctions (and at ``split`` cells).
+def build_network(rec, stack, area, min_area, crit, use_crit, step, split):
+    """Channel cells, Strahler order, Shreve magnitude and segments in two passes.
 
-    A cell ends a segment (is its *bottom*) when its water leaves the channel network or the
-    grid, when its receiver is a junction (two or more channel donors), or when it is a
-    ``split`` cell (an outlet). Segment ids run 1, 2, ... in stack order, so a segment's
-    downstream neighbour always has a smaller id.
+    Backward pass (upstream to downstream): a cell is a channel cell when its upstream
+    ``area`` reaches ``min_area`` (and ``crit`` holds, when ``use_crit``) or when a channel
+    cell drains into it, so the network is continuous down to the exits. Orders as in
+    :func:`stream_orders`.
 
-    Returns (segment id per cell int32 (0 off channel), bottom cell per segment, top cell
-    per segment).
+    Forward pass (downstream to upstream): a channel cell ends a segment (is its *bottom*)
+    when its water leaves the grid, when its receiver is a junction (two or more channel
+    donors) or when it is a ``split`` cell (an outlet). Segment ids run 1, 2, ... in stack
+    order, so a segment's downstream neighbour always has a smaller id. Segment length is
+    the sum of ``step`` (ground distance to the receiver) of its cells whose receiver is a
+    channel cell (every one but a bottom cell at the grid edge).
+
+    Returns (mask, strahler int16, shreve int32, channel donors int8, segment id int32,
+    bottom, top, length, cell count (per segment), junction cells).
     """
     n = rec.shape[0]
-    seg = np.zeros(n, dtype=np.int32)
+    mask = np.zeros(n, dtype=np.bool_)
+    strahler = np.zeros(n, dtype=np.int16)
+    shreve = np.zeros(n, dtype=np.int32)
+    ndon = np.zeros(n, dtype=np.int8)
+    top_o = np.zeros(n, dtype=np.int16)
+    ntop = np.zeros(n, dtype=np.int8)
     nch = 0
-    for t in range(stack.shape[0]):
-        if mask[stack[t]]:
-            nch += 1
-    bottom = np.empty(max(nch, 1), dtype=np.int64)
-    top = np.empty(max(nch, 1), dtype=np.int64)
+    for t in range(stack.shape[0] - 1, -1, -1):
+        i = stack[t]
+        if not mask[i]:
+            if area[i] >= min_area and (not use_crit or crit[i]):
+                mask[i] = True
+            else:
+                continue
+        nch += 1
+        if ndon[i] == 0:
+            strahler[i] = 1
+            shreve[i] = 1
+        elif ntop[i] >= 2:
+            strahler[i] = top_o[i] + 1
+        else:
+            strahler[i] = top_o[i]
+        r = rec[i]
+        if r >= 0:
+            mask[r] = True
+            ndon[r] += 1
+            shreve[r] += shreve[i]
+            o = strahler[i]
+            if o > top_o[r]:
+                top_o[r] = o
+                ntop[r] = 1
+            elif o == top_o[r]:
+                ntop[r] += 1
+    seg = np.zeros(n, dtype=np.int32)
+    m = max(nch, 1)
+    bottom = np.empty(m, dtype=np.int64)
+    top = np.empty(m, dtype=np.int64)
+    length = np.zeros(m, dtype=np.float64)
+    count = np.zeros(m, dtype=np.int32)
+    junctions = np.empty(m, dtype=np.int64)
     ns = 0
+    nj = 0
     for t in range(stack.shape[0]):
         i = stack[t]
         if not mask[i]:
             continue
         r = rec[i]
-        if r < 0 or (not mask[r]) or ndon[r] >= 2 or split[i]:
+        if r < 0 or ndon[r] >= 2 or split[i]:
             bottom[ns] = i
             ns += 1
             seg[i] = ns
         else:
             seg[i] = seg[r]
-        top[seg[i] - 1] = i  # the last cell written is the most upstream one
-    return seg, bottom[:ns].copy(), top[:ns].copy()
+        s = seg[i] - 1
+        top[s] = i  # the last cell written is the most upstream one
+        count[s] += 1
+        if r >= 0:
+            length[s] += step[i]
+        if ndon[i] >= 2:
+            junctions[nj] = i
+            nj += 1
+    return (mask, strahler, shreve, ndon, seg, bottom[:ns].copy(), top[:ns].copy(),
+            length[:ns].copy(), count[:ns].copy(), junctions[:nj].copy())
 
 
 @njit(cache=True, nogil=True)

@@ -33,7 +33,8 @@ class ChannelNetwork:
     segment_id : ndarray of int32 (nrows, ncols)
         Segment of every channel cell, 0 off the network.
     stream_id : ndarray of int32 (nrows, ncols)
-        Strahler stream (chain of segments of one order) of every channel cell, 0 off.
+        Strahler stream (chain of segments of one order) of every channel cell, 0 off
+        (a property, built on first use).
     segments : geopandas.GeoDataFrame
         One row per segment (columns listed in :func:`extract_channels`), line geometry
         through cell centres in the DEM's CRS.
@@ -51,12 +52,27 @@ class ChannelNetwork:
     strahler: np.ndarray
     shreve: np.ndarray
     segment_id: np.ndarray
-    stream_id: np.ndarray
     segments: object
     junctions: object
     min_area_m2: float
     slope_area: tuple | None = None
     outlet_cells: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+    segment_stream: np.ndarray | None = field(default=None, repr=False)
+    _stream_grid: np.ndarray | None = field(default=None, repr=False)
+
+    @property
+    def stream_id(self) -> np.ndarray:
+        """Strahler stream (chain of segments of one order) of every channel cell, 0 off
+        the network (int32 grid, built on first use)."""
+        if self._stream_grid is None:
+            seg = self.segment_id
+            lut = np.zeros(int(seg.max()) + 1 if seg.size else 1, dtype=np.int32)
+            if self.segment_stream is not None:
+                lut[1:] = self.segment_stream
+            else:
+                lut[self.segments["segment_id"].to_numpy()] = self.segments["stream_id"]
+            self._stream_grid = lut[seg]
+        return self._stream_grid
 
     def max_order(self) -> int:
         """Highest Strahler order of the network (0 when it is empty)."""
@@ -107,20 +123,6 @@ def _d8_slope(fm) -> np.ndarray:
     return np.maximum(s, 0.0)
 
 
-def _channel_mask(fm, min_area_m2, slope_area):
-    area = fm.d8_upstream_area_flat()
-    with np.errstate(invalid="ignore"):
-        mask = area >= min_area_m2
-    if slope_area is not None:
-        alpha, const = slope_area
-        s = _d8_slope(fm)
-        with np.errstate(invalid="ignore", over="ignore"):
-            mask &= area * s ** alpha >= const
-    mask &= fm.receiver != -2
-    _channels.extend_downstream(fm.receiver, fm.stack, mask)
-    return mask
-
-
 def _check_threshold(min_area_m2, slope_area):
     try:
         v = float(min_area_m2)
@@ -142,29 +144,38 @@ def _check_threshold(min_area_m2, slope_area):
 
 
 def _core(fm, min_area_m2, slope_area, outlet_cells):
-    """Mask, orders and segment arrays (no geometry)."""
+    """Mask, orders and per-segment arrays (no geometry): two passes over the stack."""
     n = fm.receiver.shape[0]
-    mask = _channel_mask(fm, min_area_m2, slope_area)
-    strahler, shreve, ndon = _channels.stream_orders(fm.receiver, fm.stack, mask)
+    area = fm.d8_upstream_area_flat()
+    if slope_area is not None:
+        alpha, const = slope_area
+        with np.errstate(invalid="ignore", over="ignore"):
+            crit = area * _d8_slope(fm) ** alpha >= const
+        use_crit = True
+    else:
+        crit = np.zeros(1, dtype=np.bool_)
+        use_crit = False
     split = np.zeros(n, dtype=np.bool_)
     if outlet_cells is not None and len(outlet_cells):
         oc = np.asarray(outlet_cells, dtype=np.int64)
         if oc.min() < 0 or oc.max() >= n:
             raise InputError("an outlet cell lies outside the grid")
         split[oc] = True
-    seg, bottom, top = _channels.split_segments(fm.receiver, fm.stack, mask, ndon, split)
+    (mask, strahler, shreve, ndon, seg, bottom, top, length, count,
+     junctions) = _channels.build_network(fm.receiver, fm.stack, area, float(min_area_m2),
+                                          crit, use_crit, fm.receiver_distance(), split)
     rec_b = fm.receiver[bottom]
     has_down = rec_b >= 0
-    has_down[has_down] = mask[rec_b[has_down]]
     end = np.where(has_down, rec_b, bottom)
-    downstream = np.where(has_down, seg[np.where(has_down, rec_b, 0)], 0).astype(np.int32)
+    downstream = np.where(has_down, seg[end], 0).astype(np.int32)
     order = strahler[bottom]
     stream = _channels.strahler_streams(order, downstream)
     z = fm.terrain.elevation.ravel()
-    drop = (z[top].astype(np.float64) - z[end].astype(np.float64))
+    drop = z[top].astype(np.float64) - z[end].astype(np.float64)
     return dict(mask=mask, strahler=strahler, shreve=shreve, ndon=ndon, seg=seg,
                 bottom=bottom, top=top, end=end, downstream=downstream, order=order,
-                stream=stream, drop=drop, has_down=has_down)
+                stream=stream, drop=drop, has_down=has_down, length=length, count=count,
+                junctions=junctions, area=area)
 
 
 def extract_channels(fm, min_area_m2, slope_area=None, outlet_cells=None,
@@ -237,27 +248,19 @@ def extract_channels(fm, min_area_m2, slope_area=None, outlet_cells=None,
     c = _core(fm, min_area_m2, slope_area, oc)
     top, bottom, end = c["top"], c["bottom"], c["end"]
     ns = top.shape[0]
-    step = fm.receiver_distance()
     mask = c["mask"]
     seg = c["seg"]
     rec = fm.receiver
-    # length: every segment cell's step to its receiver when the receiver is a channel cell
-    ch = np.flatnonzero(mask)
-    rch = rec[ch]
-    inside = rch >= 0
-    inside[inside] = mask[rch[inside]]
-    length = np.bincount(seg[ch] - 1, weights=np.where(inside, step[ch], 0.0), minlength=ns)
-    ncell = np.bincount(seg[ch] - 1, minlength=ns)
-    area = fm.d8_upstream_area_flat()
-    z = fm.terrain.elevation.ravel().astype(np.float64)
+    length = c["length"]
+    area = c["area"]
+    z = fm.terrain.elevation.ravel()
     straight = ground_distance(fm, top, end) if ns else np.zeros(0)
     with np.errstate(invalid="ignore", divide="ignore"):
         slope = np.where(length > 0, c["drop"] / length, np.nan)
         sinuosity = np.where(straight > 0, length / straight, np.nan)
     nc = shape[1]
-    seg_ids = np.arange(1, ns + 1, dtype=np.int32)
     table = {
-        "segment_id": seg_ids,
+        "segment_id": np.arange(1, ns + 1, dtype=np.int32),
         "downstream_id": c["downstream"],
         "stream_id": c["stream"],
         "strahler_order": c["order"].astype(np.int16),
@@ -269,32 +272,30 @@ def extract_channels(fm, min_area_m2, slope_area=None, outlet_cells=None,
         "upstream_area_bottom_m2": area[bottom],
         "straight_length_m": straight,
         "sinuosity": sinuosity,
-        "top_elevation_m": z[top],
-        "bottom_elevation_m": z[end],
-        "cell_count": ncell.astype(np.int32),
+        "top_elevation_m": z[top].astype(np.float64),
+        "bottom_elevation_m": z[end].astype(np.float64),
+        "cell_count": c["count"],
         "top_row": (top // nc).astype(np.int32), "top_col": (top % nc).astype(np.int32),
         "bottom_row": (bottom // nc).astype(np.int32),
         "bottom_col": (bottom % nc).astype(np.int32),
     }
-    stream_grid = np.zeros(seg.shape[0], dtype=np.int32)
-    stream_grid[ch] = c["stream"][seg[ch] - 1]
-    junction_cells = np.flatnonzero(mask & (c["ndon"] >= 2))
+    junction_cells = c["junctions"]
     jt = {"junction_id": np.arange(1, junction_cells.size + 1, dtype=np.int32),
           "segment_id": seg[junction_cells],
           "strahler_order": c["strahler"][junction_cells],
           "shreve_magnitude": c["shreve"][junction_cells],
-          "tributary_count": c["ndon"][junction_cells],
+          "tributary_count": c["ndon"][junction_cells].astype(np.int16),
           "upstream_area_m2": area[junction_cells],
-          "elevation_m": z[junction_cells],
+          "elevation_m": z[junction_cells].astype(np.float64),
           "row": (junction_cells // nc).astype(np.int32),
           "col": (junction_cells % nc).astype(np.int32)}
     segments, junctions = _frames(fm, table, jt, junction_cells, top, bottom, rec, mask,
                                   geometry)
     return ChannelNetwork(mask=mask.reshape(shape), strahler=c["strahler"].reshape(shape),
                           shreve=c["shreve"].reshape(shape), segment_id=seg.reshape(shape),
-                          stream_id=stream_grid.reshape(shape), segments=segments,
-                          junctions=junctions, min_area_m2=min_area_m2,
-                          slope_area=slope_area, outlet_cells=oc)
+                          segments=segments, junctions=junctions, min_area_m2=min_area_m2,
+                          slope_area=slope_area, outlet_cells=oc,
+                          segment_stream=c["stream"])
 
 
 def _frames(fm, table, jt, junction_cells, top, bottom, rec, mask, geometry):
