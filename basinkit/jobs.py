@@ -459,8 +459,8 @@ def _hashes(job):
 
 
 def run_job(job, output=None, overwrite: bool = False, console=None) -> JobResult:
-    """Run a job: condition → route → outlets → channels → delineate → profiles →
-    morphometry → report.
+    """Run a job: condition → route → delineate → channels → profiles → morphometry →
+    report.
 
     Parameters
     ----------
@@ -480,7 +480,10 @@ def run_job(job, output=None, overwrite: bool = False, console=None) -> JobResul
     Notes
     -----
     Outputs (names inside the folder): ``flow/`` (the flow folder of ``basinkit route``),
-    ``outlets_snapped.csv``, ``catchments.gpkg`` and ``catchment_labels.tif``,
+    ``catchments.csv`` (one row per outlet: given and snapped positions, areas, relief,
+    warnings), ``outlet_errors.csv`` (outlets that could not be used, if any),
+    ``catchments.gpkg`` (catchments, sub-catchments, snapped and given outlets) and
+    ``catchment_labels.tif``,
     ``channel_segments.csv``, ``channels.gpkg`` and ``strahler_order.tif``,
     ``profiles/``, ``morphometry.csv``, ``hypsometry/``, ``report.html`` and
     ``provenance.json``. Every table and raster is deterministic; ``provenance.json`` and
@@ -499,9 +502,8 @@ def run_job(job, output=None, overwrite: bool = False, console=None) -> JobResul
     inputs = _hashes(job)
 
     _stage_route(job, res, console)
-    _stage_outlets(job, res, console)
-    _stage_channels(job, res, console)
     _stage_delineate(job, res, console)
+    _stage_channels(job, res, console)
     _stage_profiles(job, res, console)
     _stage_morphometry(job, res, console)
     _collect_warnings(job, res)
@@ -683,7 +685,6 @@ def _collect_warnings(job, res):
         if fm.input_elevation is not None:
             raised = np.where(fm.terrain.valid,
                               fm.terrain.elevation - fm.input_elevation, 0.0)
-        edge = _edge_cells(fm)
         area = fm.terrain.cell_area()
         for row in res.outlets.itertuples():
             msgs = []
@@ -692,7 +693,7 @@ def _collect_warnings(job, res):
                 msgs.append(str(row.error))
             mask = res.masks.get(oid)
             if mask is not None:
-                if (mask & edge).any():
+                if getattr(row, "touches_edge", False):
                     msgs.append("The catchment reaches the edge of the DEM (or a nodata "
                                 "hole): it may continue beyond it. Extend the DEM and run "
                                 "again.")
@@ -716,16 +717,6 @@ def _collect_warnings(job, res):
     res.warnings = w
 
 
-def _edge_cells(fm):
-    """Valid cells on the grid edge or next to nodata."""
-    from .conditioning import exit_cells
-
-    t = fm.terrain
-    if t.base_level is None:
-        return exit_cells(t)
-    return exit_cells(t.with_elevation(t.elevation, base_level=None))
-
-
 def _descriptions(path):
     """``{outlet id: description}`` from a CSV's ``description`` column (else empty)."""
     import pandas as pd
@@ -742,95 +733,69 @@ def _descriptions(path):
     return dict(zip(df[idc].astype(str).str.strip(), df["description"]))
 
 
-def _stage_outlets(job, res, console):
+def _stage_delineate(job, res, console):
+    """Snap the outlets and delineate their catchments (basinkit.catchments)."""
     import pandas as pd
 
-    from .writers import write_csv
+    from .writers import write_csv, write_geotiff
 
-    with _Stage(res, "outlets", console) as st:
+    with _Stage(res, "delineate", console) as st:
         if job["inputs"]["outlets"] is None:
             st.skip("no outlets file in [inputs]; catchments, profiles and morphometry need "
                     "outlets")
             return
-        if not _module_available("outlets"):
-            st.skip("the outlets module is not available in this version")
+        if not _module_available("catchments"):
+            st.skip("the catchments module is not available in this version")
             return
-        from .outlets import prepare_outlets
+        from .catchments import delineate
 
         oc = job["outlets"]
         min_area = oc["snap_min_area"]
         if min_area is None:
             min_area = job["channels"]["min_area"]
-        snapped, errors = prepare_outlets(res.flow, job["inputs"]["outlets"],
-                                          radius_m=oc["snap_radius_m"],
-                                          channel_area_m2=min_area, id_column=oc["id_column"])
+        fm, t = res.flow, res.flow.terrain
+        d = delineate(fm, job["inputs"]["outlets"], snap_radius_m=oc["snap_radius_m"],
+                      snap_to_channel_m2=min_area, id_column=oc["id_column"])
+        res.catchments = d
+        tab = d.table
         desc = _descriptions(job["inputs"]["outlets"])
+        ids = tab["outlet_id"].astype(str)
         out = pd.DataFrame({
-            "outlet_id": snapped["outlet_id"].astype(str),
-            "description": [desc.get(i, "") for i in snapped["outlet_id"].astype(str)],
-            "x_given": snapped["x"].to_numpy(float), "y_given": snapped["y"].to_numpy(float),
-            "x_snapped": snapped["x_snapped"].to_numpy(float),
-            "y_snapped": snapped["y_snapped"].to_numpy(float),
-            "row": snapped["row"].to_numpy(np.int64), "col": snapped["col"].to_numpy(np.int64),
-            "cell": snapped["cell"].to_numpy(np.int64),
-            "snap_distance_m": snapped["snap_distance_m"].to_numpy(float),
-            "upstream_area_km2": snapped["upstream_area_m2"].to_numpy(float) / 1e6,
-            "snap_warning": snapped["snap_warning"].fillna("").astype(str),
-            "error": "",
-        })
-        if len(errors):
-            bad = pd.DataFrame({
-                "outlet_id": errors["outlet_id"].astype(str),
-                "description": [desc.get(i, "") for i in errors["outlet_id"].astype(str)],
-                "x_given": errors["x_given"].to_numpy(float),
-                "y_given": errors["y_given"].to_numpy(float),
-                "cell": -1, "row": -1, "col": -1, "error": errors["reason"].astype(str)})
+            "outlet_id": ids, "description": [desc.get(i, "") for i in ids],
+            "x_given": tab["x"].to_numpy(float), "y_given": tab["y"].to_numpy(float),
+            "x_snapped": tab["x_snapped"].to_numpy(float),
+            "y_snapped": tab["y_snapped"].to_numpy(float),
+            "row": tab["row"].to_numpy(np.int64), "col": tab["col"].to_numpy(np.int64),
+            "cell": tab["cell"].to_numpy(np.int64),
+            "snap_distance_m": tab["snap_distance_m"].to_numpy(float),
+            "area_km2": tab["area_km2"].to_numpy(float),
+            "touches_edge": tab["touches_edge"].to_numpy(bool),
+            "snap_warning": tab["snap_warning"].fillna("").astype(str), "error": ""})
+        if len(d.errors):
+            e = d.errors
+            eids = e["outlet_id"].astype(str)
+            bad = pd.DataFrame({"outlet_id": eids,
+                                "description": [desc.get(i, "") for i in eids],
+                                "x_given": e["x_given"].to_numpy(float),
+                                "y_given": e["y_given"].to_numpy(float), "cell": -1,
+                                "row": -1, "col": -1, "error": e["reason"].astype(str)})
             for r in bad.itertuples():
                 console.warn(f"outlet {r.outlet_id}: {r.error}")
             out = pd.concat([out, bad], ignore_index=True)
+            write_csv(_add(res, res.folder / "outlet_errors.csv"), e)
         res.outlets = out
-        write_csv(_add(res, res.folder / "outlets_snapped.csv"), out)
-        console.info(f"  {len(snapped)} of {len(out)} outlets placed")
-
-
-def _stage_delineate(job, res, console):
-    import pandas as pd
-
-    from .polygons import ground_area_perimeter, mask_to_polygon
-    from .writers import write_csv, write_geotiff
-
-    with _Stage(res, "delineate", console) as st:
-        if res.outlets is None:
-            st.skip("no outlets")
-            return
-        fm = res.flow
-        t = fm.terrain
-        ok = res.outlets[res.outlets["cell"] >= 0]
-        masks = {}
-        for row in ok.itertuples():
-            masks[row.outlet_id] = fm.upstream_mask(int(row.cell))
-        res.masks = masks
-        # nested outlets: each cell labelled with the nearest outlet downstream of it
-        labels = fm.label_outlets(ok["cell"].to_numpy(np.int64),
-                                  np.arange(1, len(ok) + 1, dtype=np.int32))
-        recs, geoms = [], []
-        for row in ok.itertuples():
-            poly = mask_to_polygon(masks[row.outlet_id], t.transform)
-            a, p = ground_area_perimeter(poly, t.crs)
-            recs.append({"outlet_id": row.outlet_id, "area_km2": a / 1e6,
-                         "perimeter_m": p, "cell_count": int(masks[row.outlet_id].sum())})
-            geoms.append(poly)
-        import geopandas as gpd
-
-        table = pd.DataFrame(recs)
-        res.catchments = gpd.GeoDataFrame(table, geometry=geoms, crs=t.crs.to_wkt())
-        write_csv(_add(res, res.folder / "catchments.csv"), table)
-        _add(res, _write_gpkg(res.folder / "catchments.gpkg", {"catchments": res.catchments}))
+        res.masks = {oid: d.catchment_mask(oid) for oid in ids}
+        write_csv(_add(res, res.folder / "catchments.csv"), tab)
+        layers = {"catchments": d.catchments_frame(),
+                  "subcatchments": d.subcatchments_frame(),
+                  "outlets_snapped": d.outlets_frame("snapped"),
+                  "outlets_given": d.outlets_frame("given")}
+        _add(res, _write_gpkg(res.folder / "catchments.gpkg", layers))
         if job["outputs"]["rasters"]:
-            lab = np.where(t.valid, labels, -1).astype(np.int32)
+            lab = np.where(t.valid, d.labels, -1).astype(np.int32)
             write_geotiff(_add(res, res.folder / "catchment_labels.tif"), lab, t.transform,
                           t.crs, nodata=-1)
-        console.info(f"  {len(masks)} catchments")
+        console.info(f"  {len(tab)} of {len(out)} outlets delineated")
 
 
 def _stage_profiles(job, res, console):
