@@ -18,77 +18,6 @@ CAUTIONS = [
 ]
 
 
-def _parse_xy(text):
-    from ..errors import InputError
-
-    parts = str(text).replace(";", ",").split(",")
-    try:
-        x, y = (float(p) for p in parts)
-    except ValueError:
-        raise InputError(f"cannot read the outlet {text!r}; write it as X,Y in the DEM's CRS "
-                         "(e.g. --outlet 512300,4712850)") from None
-    return x, y
-
-
-def _read_outlets_file(path, crs_wkt, id_column):
-    """Outlet points from a CSV (columns x, y, optional id) or a point layer."""
-    import pandas as pd
-
-    from ..errors import InputError
-
-    p = Path(path)
-    if not p.exists():
-        raise InputError(f"the outlets file {str(p)!r} does not exist")
-    if p.suffix.lower() in (".csv", ".txt"):
-        t = pd.read_csv(p)
-        cols = {c.lower(): c for c in t.columns}
-        if "x" not in cols or "y" not in cols:
-            raise InputError(f"{str(p)!r} needs columns x and y (map coordinates in the DEM's "
-                             f"CRS); it has {list(t.columns)}")
-        xs, ys = t[cols["x"]].to_numpy(float), t[cols["y"]].to_numpy(float)
-    else:
-        import geopandas as gpd
-
-        try:
-            t = gpd.read_file(p)
-        except Exception as exc:  # noqa: BLE001 - any reader failure is an input problem
-            raise InputError(f"cannot read the outlets layer {str(p)!r}: {exc}") from None
-        if t.crs is not None and crs_wkt is not None:
-            t = t.to_crs(crs_wkt)
-        if len(t) and not (t.geometry.geom_type == "Point").all():
-            raise InputError(f"{str(p)!r} must hold points only")
-        xs, ys = t.geometry.x.to_numpy(), t.geometry.y.to_numpy()
-    if len(t) == 0:
-        raise InputError(f"the outlets file {str(p)!r} holds no outlets")
-    idc = id_column or next((c for c in t.columns if c.lower() in ("outlet_id", "id", "name")),
-                            None)
-    if idc is not None and idc not in t.columns:
-        raise InputError(f"{str(p)!r} has no column {idc!r}")
-    ids = [str(v) for v in t[idc]] if idc else [str(i + 1) for i in range(len(t))]
-    return list(zip(ids, xs, ys))
-
-
-def _snapper(fm, snap_m):
-    """(x, y) -> cell: the outlets module's snapping when it exists, else the cell of greatest
-    upstream area within the snapping distance."""
-    import importlib
-
-    import numpy as np
-
-    from ..profiles import snap_outlet
-
-    try:
-        o = importlib.import_module("basinkit.outlets")
-    except ModuleNotFoundError:
-        o = None
-    if o is not None and hasattr(o, "snap_to_channel"):
-        return lambda x, y: int(o.snap_to_channel(fm, x, y, radius_m=snap_m))
-    g = fm.terrain.geometry
-    cell = float(min(g.dx.min(), g.dy_down.min()))
-    k = int(np.floor(snap_m / cell)) if cell > 0 else 0
-    return lambda x, y: int(snap_outlet(fm, x, y, search_radius_cells=k))
-
-
 def _save_png(fig, path):
     from ..writers import atomic_path
 
@@ -106,22 +35,21 @@ def _write_gpkg(path, layers):
     return Path(path)
 
 
-def _safe(name):
-    return "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in str(name))
-
-
 @click.command("profile")
 @click.argument("flowdir", type=click.Path())
 @click.option("-o", "--output", required=True, type=click.Path(),
               help="Output folder (profile.csv, profiles.gpkg, PNG figures, summary.json).")
 @click.option("--outlet", "outlet_xy", multiple=True,
-              help="Outlet as X,Y in the DEM's CRS; may be given several times.")
+              help="Outlet as X,Y or NAME=X,Y (DEM's CRS unless --outlet-crs); may be "
+                   "given several times.")
 @click.option("--outlets", "outlets_file", type=click.Path(),
-              help="CSV (columns x, y, optional id) or point layer of outlets.")
+              help="CSV (id, x/y or lon/lat columns) or point layer of outlets.")
 @click.option("--id-column", default=None, help="Column of the outlets file with outlet ids.")
-@click.option("--snap-distance", default="2 cells", show_default=True,
-              help="Move each outlet to the cell of greatest upstream area within this "
-                   "distance (e.g. 60m).")
+@click.option("--outlet-crs", default=None,
+              help="CRS of outlet coordinates without one (default: the DEM's).")
+@click.option("--snap-radius", default=None,
+              help="Move each outlet to the nearest channel cell (upstream area >= "
+                   "--min-area) within this distance [default: 10 cells]; 0 keeps it.")
 @click.option("--min-order", type=int, default=2, show_default=True,
               help="Lowest Strahler order of the channels profiled.")
 @click.option("--min-area", default="0.5km2", show_default=True,
@@ -140,8 +68,8 @@ def _safe(name):
               help="Vertical precision of the DEM (m), for knickpoint detection.")
 @overwrite_option
 @click.pass_obj
-def command(console, flowdir, output, outlet_xy, outlets_file, id_column, snap_distance,
-            min_order, min_area, concavity, fit_concavity, reference_area, slope_window,
+def command(console, flowdir, output, outlet_xy, outlets_file, id_column, outlet_crs,
+            snap_radius, min_order, min_area, concavity, fit_concavity, reference_area, slope_window,
             slope_drop, vertical_precision, overwrite):
     """Longitudinal profiles, χ, channel steepness and knickpoints upstream of outlets.
 
@@ -155,6 +83,8 @@ def command(console, flowdir, output, outlet_xy, outlets_file, id_column, snap_d
     from .. import profiles as P
     from ..channels import extract_channels
     from ..errors import BasinkitError, InputError, OutletError
+    from ..outlets import (outlets_from_text, prepare_outlets, read_outlet_file,
+                           require_outlets)
     from ..routing import load_flow
     from ..writers import prepare_output_dir, provenance, write_csv, write_json
 
@@ -181,27 +111,26 @@ def command(console, flowdir, output, outlet_xy, outlets_file, id_column, snap_d
     fm = load_flow(flowdir)
     console.info(f"read flow folder {flowdir}: {fm.shape[0]} x {fm.shape[1]} cells")
     crs_wkt = fm.terrain.crs.to_wkt() if fm.terrain.crs is not None else None
+    snap_m = parse_length(snap_radius, "--snap-radius") if snap_radius is not None else None
     if outlets_file:
-        points = _read_outlets_file(outlets_file, crs_wkt, id_column)
+        raw, errs0 = read_outlet_file(outlets_file, crs=outlet_crs, id_column=id_column)
     else:
-        points = [(str(i + 1), *_parse_xy(t)) for i, t in enumerate(outlet_xy)]
-    if str(snap_distance).strip().lower().replace(" ", "") == "2cells":
-        g = fm.terrain.geometry
-        snap_m = 2.0 * float(max(g.dx.max(), g.dy_down.max()))
-    else:
-        snap_m = parse_length(snap_distance, "--snap-distance")
-    snap = _snapper(fm, snap_m)
-    placed, failures = [], []
-    for oid, x, y in points:
-        try:
-            placed.append((oid, x, y, snap(x, y)))
-        except BasinkitError as exc:
-            failures.append({"outlet_id": oid, "stage": "outlet", "error": str(exc)})
-            console.warn(f"outlet {oid}: {exc}")
-    if not placed:
-        raise OutletError("no outlet could be placed on the DEM: "
-                          + "; ".join(f["error"] for f in failures))
-    cells = np.array([p[3] for p in placed], dtype=np.int64)
+        raw, errs0 = outlets_from_text(outlet_xy, crs=outlet_crs)
+    snapped, errs = prepare_outlets(fm, raw, crs=outlet_crs, radius_m=snap_m,
+                                    channel_area_m2=min_area_m2)
+    errs = pd.concat([e for e in (errs0, errs) if len(e)] or [errs], ignore_index=True)
+    failures = [{"outlet_id": str(r.outlet_id), "stage": "outlet", "error": str(r.reason)}
+                for r in errs.itertuples()]
+    for f in failures:
+        console.warn(f"outlet {f['outlet_id']}: {f['error']}")
+    require_outlets(snapped, errs)
+    for r in snapped.itertuples():
+        if r.snap_warning:
+            console.warn(f"outlet {r.outlet_id}: {r.snap_warning}")
+    placed = [(str(r.outlet_id), str(r.file_id), float(r.x_given), float(r.y_given),
+               int(r.cell), float(r.snap_distance_m), str(r.snap_warning))
+              for r in snapped.itertuples()]
+    cells = np.array([p[4] for p in placed], dtype=np.int64)
     net = extract_channels(fm, min_area_m2, outlet_cells=cells)
     mo = net.max_order
     mo = mo() if callable(mo) else mo
@@ -209,10 +138,10 @@ def command(console, flowdir, output, outlet_xy, outlets_file, id_column, snap_d
                  f"{mo}")
     node_tables, seg_rows, knick_tables, path_lines, summaries = [], [], [], [], []
     nc = fm.ncols
-    for oid, x, y, cell in console.progress(placed, desc="outlets"):
+    for oid, fid, x, y, cell, snap_d, snap_w in console.progress(placed, desc="outlets"):
         try:
-            res = _one_outlet(P, fm, net, oid, cell, min_order, theta0, fit_concavity, a0, sw,
-                              sd, vertical_precision, out)
+            res = _one_outlet(P, fm, net, oid, fid, cell, min_order, theta0, fit_concavity,
+                              a0, sw, sd, vertical_precision, out)
         except BasinkitError as exc:
             failures.append({"outlet_id": oid, "stage": "profiles", "error": str(exc)})
             console.warn(f"outlet {oid}: {exc}")
@@ -220,8 +149,9 @@ def command(console, flowdir, output, outlet_xy, outlets_file, id_column, snap_d
         nodes, steep, knick, paths, summary = res
         for w in summary.get("warnings", []):
             console.warn(f"outlet {oid}: {w}")
-        summary.update(outlet_x=float(x), outlet_y=float(y), outlet_row=cell // nc,
-                       outlet_col=cell % nc)
+        summary.update(outlet_x_given=x, outlet_y_given=y, outlet_row=cell // nc,
+                       outlet_col=cell % nc, snap_distance_m=snap_d, snap_warning=snap_w,
+                       file_id=fid)
         node_tables.append(nodes)
         seg_rows.append(steep)
         knick_tables.append(knick)
@@ -241,7 +171,8 @@ def command(console, flowdir, output, outlet_xy, outlets_file, id_column, snap_d
     params = {"min_order": min_order, "min_area_m2": min_area_m2,
               "concavity": None if fit_concavity else theta0, "fit_concavity": fit_concavity,
               "reference_area_m2": a0, "slope_window_m": sw, "slope_drop_m": sd,
-              "vertical_precision_m": vertical_precision, "snap_distance_m": snap_m}
+              "vertical_precision_m": vertical_precision, "snap_radius_m": snap_m,
+              "outlet_crs": outlet_crs}
     meta = provenance(params, {"flow_folder": str(Path(flowdir).resolve()),
                                "dem": fm.terrain.source}, crs=fm.terrain.crs,
                       shape=fm.shape, outlets=summaries, failures=failures,
@@ -255,7 +186,7 @@ def command(console, flowdir, output, outlet_xy, outlets_file, id_column, snap_d
     return 1 if failures else 0
 
 
-def _one_outlet(P, fm, net, oid, cell, min_order, theta0, fit, a0, sw, sd, prec, out):
+def _one_outlet(P, fm, net, oid, name, cell, min_order, theta0, fit, a0, sw, sd, prec, out):
     import numpy as np
     import pandas as pd
 
@@ -308,7 +239,6 @@ def _one_outlet(P, fm, net, oid, cell, min_order, theta0, fit, a0, sw, sd, prec,
         summary["hack_law_fit"] = P.hack_law_fit(fm, net, cell).to_dict()
     except Exception as exc:  # noqa: BLE001
         summary["hack_law_fit"] = {"error": str(exc)}
-    name = _safe(oid)
     ms_k = knick[knick["profile_id"] == nodes.loc[nodes["is_main_stem"], "profile_id"].iloc[0]] \
         if len(knick) and nodes["is_main_stem"].any() else None
     figs = [
