@@ -353,3 +353,87 @@ def test_constant_drop_stream_drops_add_up():
     assert row.first_order_streams == 2 ** 4
     assert row.first_order_mean_drop_m == pytest.approx(first["length_m"].mean())
     assert row.higher_order_streams == 2 ** 4 - 1
+
+
+# ------------------------------------------------------------------ command line
+def _cli(argv, capsys):
+    from basinkit.cli import main
+
+    with pytest.raises(SystemExit) as exc:
+        main([str(a) for a in argv])
+    out = capsys.readouterr()
+    return (exc.value.code or 0), out.err
+
+
+@pytest.fixture(scope="module")
+def flow_folder(tmp_path_factory):
+    import rasterio
+
+    d = tmp_path_factory.mktemp("chcli")
+    z = fractal_dem(90, seed=6)
+    with rasterio.open(d / "dem.tif", "w", driver="GTiff", width=90, height=90, count=1,
+                       dtype="float32", crs="EPSG:32633",
+                       transform=Affine(30, 0, 500000, 0, -30, 4000000)) as ds:
+        ds.write(z, 1)
+    from basinkit import read_dem
+
+    route(read_dem(d / "dem.tif")).save(d / "flow")
+    return d
+
+
+def test_channels_command_outputs(flow_folder, capsys):
+    """``basinkit channels`` writes the GeoPackage layers channels and junctions, the
+    Strahler raster, the segment and constant-drop tables and provenance; everything read
+    back with GDAL (rasterio, pyogrio) matches the library result; hashlib recomputes the
+    DEM's SHA-256 (FIPS 180-4); a second run is byte-identical (project rule)."""
+    import hashlib
+    import json
+
+    import pandas as pd
+    import pyogrio
+    import rasterio
+
+    from basinkit import load_flow
+
+    d = flow_folder
+    out = d / "ch"
+    code, err = _cli(["channels", d / "flow", "--choose-threshold", "0.01km2:0.5km2",
+                      "--threshold-steps", "6", "-o", out], capsys)
+    assert code == 0, err
+    layers = {name for name, _ in pyogrio.list_layers(out / "channels.gpkg")}
+    assert {"channels", "junctions"} <= layers
+    meta = json.loads((out / "channels.json").read_text())
+    chosen = meta["constant_drop_test"]["chosen_min_area_m2"]
+    assert meta["parameters"]["min_area_m2"] == chosen
+    sha = hashlib.sha256((d / "dem.tif").read_bytes()).hexdigest()
+    assert meta["inputs"]["dem"]["sha256"] == sha
+    assert "field" in meta["cautions"]
+    net = extract_channels(load_flow(d / "flow"), chosen)
+    with rasterio.open(out / "strahler_order.tif") as ds:
+        order = ds.read(1)
+        assert ds.crs.to_epsg() == 32633
+    np.testing.assert_array_equal(order, net.strahler)
+    seg = pd.read_csv(out / "channel_segments.csv")
+    assert len(seg) == len(net.segments)
+    np.testing.assert_allclose(seg["length_m"], net.segments["length_m"])
+    gp = pyogrio.read_dataframe(out / "channels.gpkg", layer="channels")
+    np.testing.assert_allclose(gp.geometry.length, seg["length_m"])
+    drop = pd.read_csv(out / "constant_drop_test.csv")
+    assert len(drop) == 6 and "t_statistic" in drop
+    first = (out / "channel_segments.csv").read_bytes()
+    code, err = _cli(["channels", d / "flow", "--min-area", f"{chosen}m2", "-o", out,
+                      "--overwrite"], capsys)
+    assert code == 0, err
+    assert (out / "channel_segments.csv").read_bytes() == first
+
+
+def test_channels_command_clean_failures(flow_folder, capsys):
+    """User errors print one message without a traceback (project rule)."""
+    d = flow_folder
+    for argv, frag in ([["--min-area", "big"], "cannot read"],
+                       [[], "--min-area"],
+                       [["--min-area", "1ha", "--slope-area-exponent", "2"], "both"],
+                       [["--choose-threshold", "5km2"], "LOW:HIGH"]):
+        code, err = _cli(["channels", d / "flow", "-o", d / "bad", "--overwrite", *argv],
+                         capsys)
+        assert code != 0 and "Traceback" not in err and frag in err, err

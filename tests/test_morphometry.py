@@ -278,3 +278,54 @@ def test_hypsometric_outputs(tmp_path):
     img = mpimg.imread(tmp_path / "h.png")
     assert img.shape[0] > 100 and img.shape[1] > 100
     json.dumps({k: v for k, v in m.items()}, default=float)
+
+
+# ------------------------------------------------------------------ command line
+def test_morphometry_command(tmp_path, capsys):
+    """``basinkit morphometry``: CSV and JSON with provenance and cautions, one hypsometric
+    CSV/PNG per outlet; a nested outlet gets its full catchment, equal to the library's
+    ``fm.upstream_mask`` area (and to the delineation's area); an outlet off the grid is
+    recorded in the error column while the others carry on (project rules)."""
+    import pandas as pd
+    import rasterio
+
+    from basinkit import load_flow, read_dem
+    from basinkit.cli import main
+
+    z = fractal_dem(80, seed=12)
+    with rasterio.open(tmp_path / "dem.tif", "w", driver="GTiff", width=80, height=80,
+                       count=1, dtype="float32", crs="EPSG:32633",
+                       transform=Affine(30, 0, 500000, 0, -30, 4000000)) as ds:
+        ds.write(z, 1)
+    route(read_dem(tmp_path / "dem.tif")).save(tmp_path / "flow")
+    fm = load_flow(tmp_path / "flow")
+    acc = fm.accumulation().ravel()
+    low = int(np.argmax(acc))
+    up = int(fm.stack[np.flatnonzero(acc[fm.stack] > 30)[5]])  # a cell upstream
+    assert fm.upstream_mask(low).ravel()[up]
+    pts = []
+    for name, cell in (("low", low), ("up", up)):
+        r, c = divmod(cell, fm.ncols)
+        x, y = fm.terrain.xy_of(r, c)
+        pts.append(f"{name}={x},{y}")
+    out = tmp_path / "m"
+    with pytest.raises(SystemExit) as exc:
+        main(["morphometry", str(tmp_path / "flow"), "--outlet", pts[0], "--outlet", pts[1],
+              "--outlet", "off=1,2", "--snap-distance", "0m", "--min-area", "0.02km2",
+              "-o", str(out)])
+    err = capsys.readouterr().err
+    assert (exc.value.code or 0) == 0, err
+    tab = pd.read_csv(out / "morphometry.csv", keep_default_na=False, na_values=[""])
+    assert list(tab["outlet_id"]) == ["low", "up", "off"]
+    for oid, cell in (("low", low), ("up", up)):
+        row = tab[tab.outlet_id == oid].iloc[0]
+        area = fm.terrain.geometry.area[0] * fm.upstream_mask(cell).sum()
+        assert row["area_m2"] == pytest.approx(area)
+        assert (out / "hypsometry" / f"hypsometric_curve_{oid}.png").exists()
+        assert (out / "hypsometry" / f"hypsometric_curve_{oid}.csv").exists()
+    assert "outside" in tab[tab.outlet_id == "off"].iloc[0]["error"]
+    meta = json.loads((out / "morphometry.json").read_text())
+    assert meta["nested_outlets"] is True
+    assert "licensed professional" in meta["cautions"]
+    assert meta["parameters"]["min_area_m2"] == pytest.approx(2e4)
+    assert len(meta["catchments"]) == 3

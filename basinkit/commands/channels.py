@@ -79,11 +79,11 @@ def write_network(folder, fm, net, drop=None, params=None, extra=None):
               help="Number of thresholds (log spaced) tried by --choose-threshold.")
 @click.option("--critical-t", type=float, default=2.0, show_default=True,
               help="Largest |t| of the constant-drop test that passes.")
-@click.option("--outlet", "outlets", multiple=True, metavar="X,Y",
-              help="Also split segments at this point (map coordinates of the DEM's CRS); "
-                   "repeat for more.")
+@click.option("--outlet", "outlets", multiple=True, metavar="[NAME=]X,Y",
+              help="Also split segments at this point (map coordinates of the DEM's CRS, "
+                   "snapped like basinkit delineate does); repeat for more.")
 @click.option("--outlets", "outlets_file", type=click.Path(), default=None,
-              help="CSV (columns x, y) or point layer of outlets at which to split "
+              help="CSV (id, x, y columns) or point layer of outlets at which to split "
                    "segments.")
 @overwrite_option
 @click.pass_obj
@@ -132,8 +132,11 @@ def command(console, flowdir, output, min_area, slope_area_exponent, slope_area_
         else:
             raise InputError("no threshold in the range passes the constant-drop test; "
                              "widen --choose-threshold or give --min-area")
-    cells = outlet_cells_from_options(fm, outlets, outlets_file)[0] if (
-        outlets or outlets_file) else None
+    cells = None
+    if outlets or outlets_file:
+        cells, _, errors = outlet_cells_from_options(fm, outlets, outlets_file)
+        for r in errors.itertuples():
+            console.warn(f"outlet {r.outlet_id} not used: {r.reason}")
     net = extract_channels(fm, min_area_m2, slope_area=slope_area, outlet_cells=cells)
     s = net.summary()
     console.info(f"{s['segments']:,} segments, {s['junctions']:,} junctions, highest "

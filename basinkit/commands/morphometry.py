@@ -6,123 +6,42 @@ import click
 from ._common import overwrite_option, parse_area, parse_length
 
 
-def _read_outlet_file(path, crs):
-    """(x, y, ids) from a CSV with columns x, y [, id] or a point layer [, id]."""
-    from pathlib import Path
-
-    import numpy as np
+def raw_outlets(outlets=(), outlets_file=None, crs=None):
+    """Outlet frame and errors from ``--outlet [NAME=]X,Y`` values and/or an outlet file
+    (CSV or point layer), read with :mod:`basinkit.outlets`."""
+    import pandas as pd
 
     from ..errors import InputError
+    from ..outlets import outlets_from_text, read_outlet_file
 
-    p = Path(path)
-    if not p.exists():
-        raise InputError(f"the outlet file {str(p)!r} does not exist")
-    if p.suffix.lower() in (".csv", ".txt"):
-        import pandas as pd
-
-        try:
-            df = pd.read_csv(p)
-        except Exception as exc:  # noqa: BLE001 - any reader failure is an input problem
-            raise InputError(f"cannot read the outlet table {str(p)!r}: {exc}") from None
-        cols = {c.lower().strip(): c for c in df.columns}
-        if "x" not in cols or "y" not in cols:
-            raise InputError(f"the outlet table {str(p)!r} needs columns x and y (map "
-                             f"coordinates in the DEM's CRS); it has {list(df.columns)}")
-        x = pd.to_numeric(df[cols["x"]], errors="coerce").to_numpy(float)
-        y = pd.to_numeric(df[cols["y"]], errors="coerce").to_numpy(float)
-        ids = (df[cols["id"]].astype(str).to_numpy() if "id" in cols
-               else np.arange(1, len(df) + 1).astype(str))
-        return x, y, ids
-    import geopandas as gpd
-
-    try:
-        gdf = gpd.read_file(p)
-    except Exception as exc:  # noqa: BLE001
-        raise InputError(f"cannot read the outlet layer {str(p)!r}: {exc}") from None
-    if gdf.crs is not None:
-        gdf = gdf.to_crs(crs.to_wkt())
-    geom = gdf.geometry
-    if len(gdf) == 0 or not (geom.geom_type == "Point").all():
-        raise InputError(f"the outlet layer {str(p)!r} must hold points")
-    ids = (gdf["id"].astype(str).to_numpy() if "id" in gdf.columns
-           else np.arange(1, len(gdf) + 1).astype(str))
-    return geom.x.to_numpy(), geom.y.to_numpy(), ids
-
-
-def outlet_cells_from_options(fm, outlets=(), outlets_file=None, snap_m=0.0):
-    """Flat outlet cells from ``--outlet X,Y`` options and/or an outlet file.
-
-    Each outlet may move to the cell of largest D8 upstream area within ``snap_m`` metres
-    (on the ground). Returns (cells int64, ids list of str). Raises OutletError for a point
-    off the grid or on nodata.
-    """
-    import numpy as np
-
-    from ..errors import InputError, OutletError
-
-    xs, ys, ids = [], [], []
-    for k, text in enumerate(outlets):
-        parts = str(text).replace(" ", "").split(",")
-        try:
-            x, y = float(parts[0]), float(parts[1])
-            if len(parts) != 2:
-                raise ValueError
-        except (ValueError, IndexError):
-            raise InputError(f"cannot read the outlet {text!r}; write X,Y in the DEM's "
-                             "CRS, e.g. --outlet 512300,4901250") from None
-        xs.append(x)
-        ys.append(y)
-        ids.append(str(k + 1))
+    frames, errors = [], []
+    if outlets:
+        f, e = outlets_from_text(outlets, crs=crs)
+        frames.append(f)
+        errors.append(e)
     if outlets_file:
-        x, y, i = _read_outlet_file(outlets_file, fm.terrain.crs)
-        xs += list(x)
-        ys += list(y)
-        ids += [str(s) for s in i]
-    if not xs:
+        f, e = read_outlet_file(outlets_file, crs=crs)
+        frames.append(f)
+        errors.append(e)
+    if not frames:
         raise InputError("give at least one outlet: --outlet X,Y or --outlets FILE")
-    if len(set(ids)) != len(ids):
-        raise InputError("outlet ids repeat; give each outlet its own id (the id column "
-                         "of the outlet file, or leave the ids out)")
-    t = fm.terrain
-    rows, cols = t.rowcol_of(np.asarray(xs), np.asarray(ys))
-    area = fm.d8_upstream_area_flat()
-    nr, nc = t.shape
-    g = t.geometry
-    cells = []
-    for k, (r, c) in enumerate(zip(rows, cols)):
-        if not (0 <= r < nr and 0 <= c < nc) or not np.isfinite(xs[k] + ys[k]):
-            raise OutletError(f"outlet {ids[k]} ({xs[k]}, {ys[k]}) lies outside the DEM; "
-                              "check its coordinates and CRS")
-        if not t.valid[r, c]:
-            raise OutletError(f"outlet {ids[k]} ({xs[k]}, {ys[k]}) lies on a nodata cell; "
-                              "move it onto the channel")
-        cell = int(r * nc + c)
-        if snap_m > 0:
-            hr = int(np.ceil(snap_m / max(g.dy_down[r], 1e-9)))
-            hc = int(np.ceil(snap_m / max(g.dx[r], 1e-9)))
-            r0, r1 = max(r - hr, 0), min(r + hr, nr - 1)
-            c0, c1 = max(c - hc, 0), min(c + hc, nc - 1)
-            rr, cc = np.mgrid[r0:r1 + 1, c0:c1 + 1]
-            dist = np.hypot((rr - r) * g.dy_down[r], (cc - c) * g.dx[r])
-            cand = (rr * nc + cc).ravel()
-            a = np.where(dist.ravel() <= snap_m, np.nan_to_num(area[cand], nan=-1), -1)
-            cell = int(cand[int(np.argmax(a))])
-        cells.append(cell)
-    return np.asarray(cells, dtype=np.int64), ids
+    return (pd.concat(frames, ignore_index=True),
+            pd.concat([e for e in errors if len(e)] or errors[:1], ignore_index=True))
 
 
-def catchment_masks(fm, cells):
-    """Label grid when no outlet lies upstream of another, else one full mask per outlet
-    (a nested outlet's catchment is part of the one below it)."""
-    import numpy as np
+def outlet_cells_from_options(fm, outlets=(), outlets_file=None, snap_m=None, crs=None):
+    """Snapped flat outlet cells and their ids (for splitting channel segments).
 
-    labels = fm.label_outlets(cells)
-    rec = fm.receiver[cells]
-    below = np.where(rec >= 0, labels.ravel()[np.where(rec >= 0, rec, 0)], 0)
-    unique = np.unique(cells).size == cells.size
-    if unique and not (below > 0).any():
-        return labels
-    return [fm.upstream_mask(int(c)) for c in cells]
+    Returns (cells int64, ids list of str, errors DataFrame)."""
+    import pandas as pd
+
+    from ..outlets import prepare_outlets, require_outlets
+
+    raw, errors = raw_outlets(outlets, outlets_file, crs)
+    snapped, e2 = prepare_outlets(fm, raw, crs=crs, radius_m=snap_m)
+    errors = pd.concat([e for e in (errors, e2) if len(e)] or [e2], ignore_index=True)
+    require_outlets(snapped, errors)
+    return snapped["cell"].to_numpy(dtype="int64"), snapped["outlet_id"].tolist(), errors
 
 
 @click.command("morphometry")
@@ -130,13 +49,16 @@ def catchment_masks(fm, cells):
 @click.option("-o", "--output", required=True, type=click.Path(),
               help="Folder to write morphometry.csv, morphometry.json and hypsometric "
                    "curves.")
-@click.option("--outlet", "outlets", multiple=True, metavar="X,Y",
-              help="Outlet in map coordinates of the DEM's CRS; repeat for more.")
+@click.option("--outlet", "outlets", multiple=True, metavar="[NAME=]X,Y",
+              help="Outlet in map coordinates (the DEM's CRS unless --outlet-crs); repeat "
+                   "for more.")
 @click.option("--outlets", "outlets_file", type=click.Path(), default=None,
-              help="CSV (columns x, y, optional id) or point layer of outlets.")
-@click.option("--snap-distance", default="0m", show_default=True,
+              help="CSV (id, x, y or lon, lat columns) or point layer of outlets.")
+@click.option("--outlet-crs", default=None,
+              help="CRS of --outlet coordinates and of CSV files (default: the DEM's).")
+@click.option("--snap-distance", default=None,
               help="Move each outlet to the cell of largest upstream area within this "
-                   "ground distance (e.g. 60m).")
+                   "ground distance (e.g. 60m; default 3 cells; 0m: no snapping).")
 @click.option("--min-area", default=None,
               help="Channel threshold (e.g. 0.5km2) for the network measures (stream "
                    "counts, Horton ratios, drainage density); without it they are left "
@@ -149,20 +71,21 @@ def catchment_masks(fm, cells):
               help="Write a PNG of each hypsometric curve.")
 @overwrite_option
 @click.pass_obj
-def command(console, flowdir, output, outlets, outlets_file, snap_distance, min_area,
-            slope_area_exponent, slope_area_constant, figures, overwrite):
+def command(console, flowdir, output, outlets, outlets_file, outlet_crs, snap_distance,
+            min_area, slope_area_exponent, slope_area_constant, figures, overwrite):
     """Measure the catchments above the outlets: area, perimeter, lengths, elongation,
     circularity, relief, hypsometry, slope, aspect and (with --min-area) the channel
-    network's orders, Horton ratios and drainage density.
+    network's orders, Horton ratios and drainage density. Nested outlets each get their
+    full catchment.
 
     Example: basinkit morphometry flow/ --outlet 512300,4901250 --min-area 0.5km2 -o morph/
     """
-    import re
     import time
-    from pathlib import Path
 
     import numpy as np
+    import pandas as pd
 
+    from ..catchments import delineate
     from ..channels import extract_channels
     from ..errors import InputError
     from ..morphometry import CAUTIONS, morphometry_table, write_hypsometric_curve
@@ -173,11 +96,14 @@ def command(console, flowdir, output, outlets, outlets_file, snap_distance, min_
     if (slope_area_exponent is None) != (slope_area_constant is None):
         raise InputError("the slope–area criterion needs both --slope-area-exponent and "
                          "--slope-area-constant")
-    snap_m = parse_length(snap_distance, "--snap-distance")
+    snap_m = parse_length(snap_distance, "--snap-distance") if snap_distance else None
     min_area_m2 = parse_area(min_area, "--min-area") if min_area is not None else None
     out = prepare_output_dir(output, overwrite)
     fm = load_flow(flowdir)
-    cells, ids = outlet_cells_from_options(fm, outlets, outlets_file, snap_m)
+    raw, read_errors = raw_outlets(outlets, outlets_file, outlet_crs)
+    d = delineate(fm, raw, crs=outlet_crs, snap_radius_m=snap_m, polygons=False)
+    tab = d.table
+    cells = tab["cell"].to_numpy(np.int64)
     net = None
     if min_area_m2 is not None:
         sa = (None if slope_area_exponent is None
@@ -187,38 +113,56 @@ def command(console, flowdir, output, outlets, outlets_file, snap_distance, min_
     else:
         console.warn("no --min-area given: network measures (stream counts, Horton ratios, "
                      "drainage density) are left out")
-    masks = catchment_masks(fm, cells)
-    table, curves = morphometry_table(fm, masks, cells, ids=np.arange(1, len(ids) + 1),
-                                      network=net, return_curves=True)
-    curves = {ids[k - 1]: v for k, v in curves.items()}
-    table.insert(0, "outlet_id", ids)
+    nested = bool((tab["upstream_outlet_count"] > 0).any())
+    if nested:  # full catchments overlap: one mask per outlet
+        masks = [d.catchment_mask(oid) for oid in tab["outlet_id"]]
+        ids = np.arange(1, len(tab) + 1)
+    else:  # sub-catchments are the catchments: the label grid, one window each
+        masks = d.labels
+        ids = tab["label"].to_numpy(np.int64)
+    table, curves = morphometry_table(fm, masks, cells, ids=ids, network=net,
+                                      return_curves=True)
+    curves = [curves.get(i) for i in table["catchment_id"]]
     table = table.drop(columns="catchment_id")
+    table.insert(0, "outlet_id", tab["outlet_id"].to_numpy())
+    table.insert(1, "snap_distance_m", tab["snap_distance_m"].to_numpy())
+    errors = pd.concat([e for e in (read_errors, d.errors) if len(e)] or [d.errors],
+                       ignore_index=True)
+    if len(errors):  # outlets that could not be placed: a row each, with the reason
+        extra = pd.DataFrame({"outlet_id": errors["outlet_id"].astype(str),
+                              "error": errors["reason"].astype(str)})
+        table = pd.concat([table, extra], ignore_index=True)
+        table["error"] = table["error"].fillna("")
     write_csv(out / "morphometry.csv", table)
-    hyps = out / "hypsometry"
-    files = ["morphometry.csv"]
-    for k, oid in enumerate(ids):
-        curve = curves.get(oid)
+    files = ["morphometry.csv", "morphometry.json"]
+    for k, curve in enumerate(curves):
         if curve is None:
             continue
-        safe = re.sub(r"[^A-Za-z0-9_.-]+", "_", str(oid)).strip("._") or f"outlet{k + 1}"
-        hi = table.loc[k, "hypsometric_integral"]
-        write_hypsometric_curve(curve, hyps / f"hypsometric_curve_{safe}.csv",
-                                hyps / f"hypsometric_curve_{safe}.png" if figures else None,
-                                label=f"outlet {oid}", integral=float(hi))
-        files.append(str(Path("hypsometry") / f"hypsometric_curve_{safe}.csv"))
-    params = {"outlets": list(outlets), "outlets_file": outlets_file, "snap_distance_m": snap_m,
+        fid = tab["file_id"].iloc[k]
+        base = out / "hypsometry" / f"hypsometric_curve_{fid}"
+        write_hypsometric_curve(curve, base.with_suffix(".csv"),
+                                base.with_suffix(".png") if figures else None,
+                                label=f"outlet {tab['outlet_id'].iloc[k]}",
+                                integral=float(table.loc[k, "hypsometric_integral"]))
+        files.append(f"hypsometry/{base.name}.csv")
+        if figures:
+            files.append(f"hypsometry/{base.name}.png")
+    params = {"outlets": list(outlets), "outlets_file": outlets_file,
+              "outlet_crs": outlet_crs, "snap_distance_m": snap_m,
               "min_area_m2": min_area_m2, "slope_area_exponent": slope_area_exponent,
               "slope_area_constant": slope_area_constant}
     t = fm.terrain
-    records = table.replace({np.nan: None}).to_dict(orient="records")
+    records = table.astype(object).where(table.notna(), None).to_dict(orient="records")
     meta = provenance(params, {"flow": fm.parameters.get("flow_folder"), "dem": t.source},
                       crs=t.crs, shape=t.shape, catchments=records, files=files,
-                      nested_outlets=not isinstance(masks, np.ndarray), cautions=CAUTIONS,
+                      nested_outlets=nested, warnings=list(d.warnings), cautions=CAUTIONS,
                       seconds=round(time.perf_counter() - t0, 3))
     write_json(out / "morphometry.json", meta)
-    bad = (table["error"] != "").sum()
+    for w in d.warnings:
+        console.warn(w)
+    bad = int((table["error"] != "").sum())
     if bad:
-        console.warn(f"{bad} of {len(table)} catchments could not be measured (see the "
-                     "error column)")
+        console.warn(f"{bad} of {len(table)} outlets could not be measured (see the error "
+                     "column)")
     console.info(f"measured {len(table) - bad} catchments; wrote {out} "
                  f"({time.perf_counter() - t0:.1f} s)")
