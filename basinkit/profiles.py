@@ -483,10 +483,10 @@ def _build_tree(fm, network, outlet_cell, min_order, outlet_ids=None) -> _Tree:
         lab = fm.label_outlets(cells_o, ids).ravel()
         keep &= lab > 0
     sel = fm.stack[keep[fm.stack]].astype(np.int64)
-    loc = np.full(n, -1, dtype=np.int64)
-    loc[sel] = np.arange(sel.size, dtype=np.int64)
+    loc = np.full(n, -1, dtype=np.int32)
+    loc[sel] = np.arange(sel.size, dtype=np.int32)
     r = rec[sel].astype(np.int64)
-    lrec = np.where(r >= 0, loc[np.maximum(r, 0)], -1)
+    lrec = np.where(r >= 0, loc[np.maximum(r, 0)], -1).astype(np.int64)
     if cells_o is not None:
         is_out = np.zeros(n, dtype=bool)
         is_out[cells_o] = True
@@ -565,10 +565,10 @@ def chi_transform(fm, outlet_cell=None, concavity=DEFAULT_CONCAVITY, reference_a
     if cells_o is not None:
         keep &= fm.label_outlets(cells_o, ids).ravel() > 0
     sel = fm.stack[keep[fm.stack]].astype(np.int64)
-    loc = np.full(n, -1, dtype=np.int64)
-    loc[sel] = np.arange(sel.size)
+    loc = np.full(n, -1, dtype=np.int32)
+    loc[sel] = np.arange(sel.size, dtype=np.int32)
     r = fm.receiver[sel].astype(np.int64)
-    lrec = np.where(r >= 0, loc[np.maximum(r, 0)], -1)
+    lrec = np.where(r >= 0, loc[np.maximum(r, 0)], -1).astype(np.int64)
     if cells_o is not None:
         is_out = np.zeros(n, dtype=bool)
         is_out[cells_o] = True

@@ -1,4 +1,17 @@
-"""``basinkit profile``: longitudinal profiles, χ, k_sn, knickpoints for one or more outlets."""
+"""``basinkit profile``: longitudinal profiles, χ, k_sn, knickpoints for one or more outlets.
+
+Writes into the output folder:
+
+- ``profile.csv``: one row per node: channel nodes of order ≥ --min-order
+  (``profile_kind = channel``), the main stem and the longest flow path of every outlet;
+- ``steepness.csv``: k_sn per channel segment; ``knickpoints.csv``;
+- ``profiles.gpkg``: layers ``profiles`` (segment lines with k_sn and θ, plus the main stem
+  and the longest flow path) and ``knickpoints``;
+- per outlet ``long_profile_<id>.png`` (main stem), ``longest_flow_path_<id>.png``,
+  ``chi_elevation_<id>.png``, ``slope_area_<id>.png``;
+- ``summary.json``: flow-path lengths and slopes, θ, slope–area and Hack fits per outlet,
+  failures, cautions and provenance.
+"""
 
 from __future__ import annotations
 
@@ -244,6 +257,8 @@ def _one_outlet(P, fm, net, oid, name, cell, min_order, theta0, fit, a0, sw, sd,
     figs = [
         (f"long_profile_{name}.png",
          P.plot_long_profile(ms, knickpoints=ms_k, title=f"main stem, outlet {oid}")),
+        (f"longest_flow_path_{name}.png",
+         P.plot_long_profile(lfp, title=f"longest flow path, outlet {oid}")),
         (f"chi_elevation_{name}.png",
          P.plot_chi(nodes, knickpoints=knick, steepness_table=steep,
                     title=f"χ–elevation, outlet {oid}")),
