@@ -195,7 +195,7 @@ def _polygonize_window(labels, lo, hi, box, transform, seg):
     r0, r1, c0, c1 = box
     sub = labels[r0:r1 + 1, c0:c1 + 1]
     m = _catchments.range_mask(sub, lo, hi)
-    tr = transform * Affine.translation(c0, r0)
+    tr = transform @ Affine.translation(c0, r0)
     with _warnings.catch_warnings():
         _warnings.simplefilter("ignore")
         g = labels_to_polygons(m, tr).get(1)
@@ -234,8 +234,8 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     progress : callable, optional
         ``progress(iterable, total=, desc=)`` wrapper (e.g. a tqdm-like bar).
     fraction_callback : callable, optional
-        For D∞/MFD models: called as ``fraction_callback(row, fraction_grid)`` for each
-        outlet (to write contributing-fraction rasters without keeping them all).
+        For D∞/MFD models: called as ``fraction_callback(table_row, fraction_grid)`` for
+        each outlet (``table_row`` a pandas Series with ``outlet_id`` and ``file_id``) (to write contributing-fraction rasters without keeping them all).
 
     Returns
     -------
@@ -390,7 +390,7 @@ def _contributing(fm, tab, msgs, progress, callback):
         cell = int(tab["cell"].iloc[i])
         if callback is not None:
             frac = contributing.contributing_fraction(fm, cell)
-            callback(i, frac)
+            callback(tab.iloc[i], frac)
             out[i] = float(np.nansum(frac.astype(np.float64).ravel()
                                      * fm.terrain.cell_area().ravel()))
         else:

@@ -192,9 +192,8 @@ def _read_csv(p, crs, id_column):
     rows, errs = [], []
     for i, rec in enumerate(df.itertuples(index=False), start=2):
         vals = dict(zip(cols, rec))
-        oid = str(vals[idc]).strip() if idc is not None else f"outlet_{i - 1}"
-        if not oid:
-            oid = f"outlet_{i - 1}"
+        oid = str(vals[idc]).strip() if idc is not None else ""
+        oid = oid or f"{p.stem}_{i - 1}"
         src = f"{p.name} line {i}"
         xs, ys = str(vals[xc]).strip(), str(vals[yc]).strip()
         x, y = _to_float(xs), _to_float(ys)
@@ -221,7 +220,7 @@ def _read_vector(p, crs, id_column):
     if id_column is not None and id_column not in cols:
         raise InputError(f"the outlet layer {p.name!r} has no column {id_column!r}")
     if gdf.crs is not None:
-        given_crs = gdf.crs.to_wkt()
+        given_crs = gdf.crs.to_string()
     elif p.suffix.lower() in (".geojson", ".json"):
         given_crs = "EPSG:4326"  # RFC 7946: GeoJSON coordinates are WGS 84 lon/lat
     else:
@@ -230,7 +229,7 @@ def _read_vector(p, crs, id_column):
     for i, (geom, rec) in enumerate(zip(gdf.geometry, gdf[cols].itertuples(index=False))):
         vals = dict(zip(cols, rec))
         oid = str(vals[idc]).strip() if idc is not None and vals[idc] is not None else ""
-        oid = oid or f"outlet_{i + 1}"
+        oid = oid or f"{p.stem}_{i + 1}"
         src = f"{p.name} feature {i + 1}"
         if geom is None or geom.is_empty:
             errs.append((oid, src, np.nan, np.nan, "feature without geometry"))
