@@ -404,6 +404,19 @@ def constant_drop_test(fm, thresholds, slope_area=None, critical_t: float = 2.0,
     networks from digital elevation data. Hydrological Processes 5:81-100.
     Welch, B. L. (1947). The generalization of "Student's" problem when several different
     population variances are involved. Biometrika 34:28-35.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> from basinkit.channels import constant_drop_test, threshold_range
+    >>> z = np.add.outer(np.arange(30.0, 0, -1), np.abs(np.arange(21.0) - 10) % 5)
+    >>> fm = route(terrain_from_array(z, cellsize=10))
+    >>> res = constant_drop_test(fm, threshold_range(500, 5000, 4))
+    >>> res.table["min_area_m2"].round().tolist()
+    [500.0, 1077.0, 2321.0, 5000.0]
+    >>> list(res.table.columns[-2:])
+    ['t_statistic', 'passes']
     """
     import pandas as pd
 

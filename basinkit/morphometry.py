@@ -102,6 +102,13 @@ def hypsometric_curve(elevation, weights=None, levels: int = HYPSOMETRIC_LEVELS)
     ----------
     Strahler, A. N. (1952). Hypsometric (area-altitude) analysis of erosional topography.
     GSA Bulletin 63:1117-1142.
+
+    Examples
+    --------
+    >>> from basinkit.morphometry import hypsometric_curve
+    >>> c = hypsometric_curve([0.0, 1.0, 2.0, 3.0], levels=4)
+    >>> c["relative_area_above"].tolist()
+    [1.0, 0.75, 0.5, 0.25]
     """
     z = np.asarray(elevation, dtype=np.float64).ravel()
     w = np.ones_like(z) if weights is None else np.asarray(weights, np.float64).ravel()
@@ -423,6 +430,18 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
         Column ``catchment_id`` then the keys of :func:`basin_morphometry`; a catchment that
         cannot be measured gets its message in ``error`` and NaN elsewhere (the batch
         carries on).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> from basinkit.morphometry import morphometry_table
+    >>> z = np.add.outer(np.arange(20.0, 0, -1), np.zeros(10))  # a plane sloping south
+    >>> fm = route(terrain_from_array(z, cellsize=10))
+    >>> outlets = [19 * 10 + 2, 19 * 10 + 7]  # two cells of the southern row
+    >>> tab = morphometry_table(fm, fm.label_outlets(outlets), outlets)
+    >>> tab["area_m2"].tolist(), tab["error"].tolist()
+    ([2000.0, 2000.0], ['', ''])
     """
     import pandas as pd
 

@@ -329,3 +329,13 @@ def test_morphometry_command(tmp_path, capsys):
     assert "licensed professional" in meta["cautions"]
     assert meta["parameters"]["min_area_m2"] == pytest.approx(2e4)
     assert len(meta["catchments"]) == 3
+
+
+def test_docstring_examples():
+    """The Examples in basinkit.morphometry run as written (common practice)."""
+    import doctest
+
+    import basinkit.morphometry
+
+    res = doctest.testmod(basinkit.morphometry)
+    assert res.attempted > 0 and res.failed == 0
