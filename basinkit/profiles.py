@@ -1251,10 +1251,8 @@ def hack_law_fit(fm, network, outlet_cell=None, confidence=0.95) -> HackFit:
 
 # ---------------------------------------------------------------------- figures
 def _axes(ax, figsize=(7.5, 4.5)):
-    import matplotlib
-
+    # a bare Figure (no pyplot): no GUI backend is touched, saving uses Agg
     if ax is None:
-        matplotlib.use("Agg", force=False)
         from matplotlib.figure import Figure
 
         fig = Figure(figsize=figsize, dpi=120)
