@@ -639,7 +639,8 @@ def channel_profiles(fm, network, outlet_cell=None, min_order=2,
     base = t.lrec < 0
     main_ids = np.unique(t.profile[base])
     main[np.isin(t.profile, main_ids)] = True
-    df = pd.DataFrame({
+    o = np.lexsort((t.distance, t.profile, t.outlet_id))
+    cols = {
         "outlet_id": t.outlet_id, "profile_id": t.profile, "is_main_stem": main,
         "segment_id": t.segment, "strahler_order": t.order, "cell": t.cells,
         "row": row.astype(np.int32), "col": col.astype(np.int32), "x": x, "y": y,
@@ -647,9 +648,8 @@ def channel_profiles(fm, network, outlet_cell=None, min_order=2,
         "elevation_m": t.zr, "elevation_conditioned_m": t.zc, "upstream_area_m2": t.area,
         "slope_m_per_m": slope, "chi_m": chi,
         "ksn_local_m_per_m": slope * np.exp(theta * np.log(t.area / a0)),
-    })
-    df = df.sort_values(["outlet_id", "profile_id", "distance_from_outlet_m"],
-                        kind="stable").reset_index(drop=True)
+    }
+    df = pd.DataFrame({k: v[o] for k, v in cols.items()})
     df.attrs.update({"concavity": theta, "reference_area_m2": a0, "min_order": int(min_order),
                      **_slope_description(mode, half)})
     return df
@@ -888,26 +888,31 @@ def steepness(nodes, by="segment_id", elevation="elevation_conditioned_m"):
         sse = np.maximum(syy - slope * sxy, 0.0)
         r2 = np.where(syy > 0, 1.0 - sse / syy, 1.0)
         stderr = np.where(cnt > 2, np.sqrt(sse / np.maximum(cnt - 2, 1) / sxx), np.nan)
-    sub = nodes[ok]
-    g = sub.groupby(by, sort=True)
     out = pd.DataFrame({by: gkeys})
+    gok = gi[ok]
+    _, first = np.unique(gok, return_index=True)  # first node of each group (table order)
     for col in ("outlet_id", "profile_id", "segment_id"):
         if col in nodes.columns and col != by:
-            out[col] = g[col].first().to_numpy()
-    if "strahler_order" in nodes.columns:
-        out["strahler_order"] = g["strahler_order"].max().to_numpy()
+            out[col] = nodes[col].to_numpy()[ok][first]
+    if "strahler_order" in nodes.columns and ng:
+        so = nodes["strahler_order"].to_numpy()[ok]
+        o1 = np.argsort(gok, kind="stable")
+        out["strahler_order"] = np.maximum.reduceat(so[o1], _starts(gok, ng))
     out["ksn_m_per_m"] = slope
     out["ksn_stderr_m_per_m"] = stderr
     out["r2"] = r2
     out["node_count"] = cnt.astype(np.int32)
-    out["chi_min_m"] = np.minimum.reduceat(ax[np.argsort(ai, kind="stable")],
-                                           _starts(ai, ng)) if ng else []
-    out["chi_max_m"] = np.maximum.reduceat(ax[np.argsort(ai, kind="stable")],
-                                           _starts(ai, ng)) if ng else []
-    out["elevation_min_m"] = np.minimum.reduceat(ay[np.argsort(ai, kind="stable")],
-                                                 _starts(ai, ng)) if ng else []
-    out["elevation_max_m"] = np.maximum.reduceat(ay[np.argsort(ai, kind="stable")],
-                                                 _starts(ai, ng)) if ng else []
+    if ng:
+        o2 = np.argsort(ai, kind="stable")
+        st2 = _starts(ai, ng)
+        xs, ys = ax[o2], ay[o2]
+        out["chi_min_m"] = np.minimum.reduceat(xs, st2)
+        out["chi_max_m"] = np.maximum.reduceat(xs, st2)
+        out["elevation_min_m"] = np.minimum.reduceat(ys, st2)
+        out["elevation_max_m"] = np.maximum.reduceat(ys, st2)
+    else:
+        for c in ("chi_min_m", "chi_max_m", "elevation_min_m", "elevation_max_m"):
+            out[c] = np.zeros(0)
     out["concavity"] = nodes.attrs.get("concavity", np.nan)
     out["reference_area_m2"] = nodes.attrs.get("reference_area_m2", np.nan)
     return out
