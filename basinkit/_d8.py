@@ -64,7 +64,13 @@ def d8_receivers(z, valid, seeds, base_level, dist):
     return rec, flats_in_row.sum()
 
 
-@njit(cache=True, nogil=True)
+_HIGH = np.uint8(1)     # flat cell with a higher valid neighbour
+_LOW = np.uint8(2)      # drains, and touches a flat cell of the same elevation
+_TOUCHED = np.uint8(4)  # non-flat valid neighbour of a flat, already listed
+_REACHED = np.uint8(8)  # reached by the breadth-first pass toward lower terrain
+
+
+@njit(cache=True, nogil=True, parallel=True)
 def resolve_flats(z, valid, rec, dist):
     """Give every flat cell a receiver, in place, without changing elevations.
 
@@ -73,12 +79,25 @@ def resolve_flats(z, valid, rec, dist):
     (after Garbrecht & Martz 1997): a breadth-first gradient away from higher terrain and a
     stronger one toward lower terrain are combined into an integer mask, and each flat cell
     drains to the neighbour of the same flat with the lowest mask value (the steepest mask
-    descent, using true distances). Work is proportional to the number of flat cells.
-    Returns the flat mask (int32 per cell, 0 off flats) and the number of cells left without
-    a receiver (0 on a depression-filled surface).
+    descent, using true distances; ties to the first neighbour N, NE, ..., NW).
+
+    Work is proportional to the number of flat cells: one sweep over the flat cells finds
+    the high and low edges, one flood labels the flats, and then each flat is finished on
+    its own (both gradients and the drainage directions), the flats in parallel. Flats are
+    labelled by flooding from the low edges in the order of their first flat neighbour; a
+    low edge shared by two flats that it reaches as the seed joins them into one.
+
+    Returns the flat mask (int32 per cell: the combined gradient on labelled flat cells,
+    2 on their low edges, 0 elsewhere) and the number of flat cells left without a receiver
+    (flats with no lower way out; 0 on a depression-filled surface); those get -1.
     """
     nr, nc = z.shape
     n = nr * nc
+    zf = z.ravel()
+    vf = valid.ravel()
+    offs = np.empty(8, dtype=np.int64)
+    for k in range(8):
+        offs[k] = DROW[k] * nc + DCOL[k]
     nflat = 0
     for i in range(n):
         if rec[i] == NO_FLOW:
@@ -89,177 +108,208 @@ def resolve_flats(z, valid, rec, dist):
         if rec[i] == NO_FLOW:
             flats[t] = i
             t += 1
-    # mark: 1 = low edge (drains, touches a same-height flat cell), 2 = high edge
+    # one sweep over the flat cells: high edges (flat cells next to higher terrain), and the
+    # non-flat neighbours in the order of their first flat neighbour, the low edges among them
     mark = np.zeros(n, dtype=np.uint8)
-    nlow = 0
+    touched = np.empty(max(min(8 * nflat, n - nflat), 1), dtype=np.int32)
+    high = np.empty(nflat, dtype=np.int32)
+    ntouch = 0
     nhigh = 0
     for t in range(nflat):
         i = flats[t]
         r = i // nc
         c = i - r * nc
-        zc = z[r, c]
+        zc = zf[i]
+        inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
         for k in range(8):
-            rr = r + DROW[k]
-            cc = c + DCOL[k]
-            if rr < 0 or rr >= nr or cc < 0 or cc >= nc or not valid[rr, cc]:
+            if not inside:
+                rr = r + DROW[k]
+                cc = c + DCOL[k]
+                if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
+                    continue
+            j = i + offs[k]
+            if not vf[j]:
                 continue
-            j = rr * nc + cc
-            zn = z[rr, cc]
+            zn = zf[j]
             if zn > zc:
-                if mark[i] == 0:
-                    mark[i] = 2
-                    nhigh += 1
-            elif zn == zc and rec[j] != NO_FLOW and mark[j] == 0:
-                mark[j] = 1
-                nlow += 1
-    low = np.empty(nlow, dtype=np.int32)
-    high = np.empty(nhigh, dtype=np.int32)
-    a = 0
-    b = 0
-    for t in range(nflat):
-        i = flats[t]
-        if mark[i] == 2:
-            high[b] = i
-            b += 1
-        r = i // nc
-        c = i - r * nc
-        for k in range(8):
-            rr = r + DROW[k]
-            cc = c + DCOL[k]
-            if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
-                continue
-            j = rr * nc + cc
-            if mark[j] == 1:
-                low[a] = j
-                a += 1
-                mark[j] = 3  # collected
-    # label each flat by flooding from its low edges over flat cells of the same elevation
+                mark[i] |= _HIGH
+            if rec[j] != NO_FLOW:
+                if mark[j] & _TOUCHED == 0:
+                    mark[j] |= _TOUCHED
+                    touched[ntouch] = j
+                    ntouch += 1
+                if zn == zc:
+                    mark[j] |= _LOW
+        if mark[i] & _HIGH:
+            high[nhigh] = i
+            nhigh += 1
+    nlow = 0
+    for t in range(ntouch):
+        j = touched[t]
+        if mark[j] & _LOW:
+            touched[nlow] = j
+            nlow += 1
+    low = touched[:nlow].copy()
+    # label each flat by flooding from its low edges over flat cells of the same elevation:
+    # flat cells get +label, low edges -label; members lists each label's cells together
     labels = np.zeros(n, dtype=np.int32)
-    queue = np.empty(nflat + nlow + 1, dtype=np.int32)
+    members = np.empty(nflat + nlow + 1, dtype=np.int32)
+    start = np.empty(nlow + 1, dtype=np.int64)
     nlab = 0
+    tail = 0
     for t in range(nlow):
         s0 = low[t]
         if labels[s0] != 0:
             continue
+        start[nlab] = tail
         nlab += 1
-        zf = z[s0 // nc, s0 % nc]
-        sp = 0
-        queue[sp] = s0
-        sp += 1
-        labels[s0] = nlab
-        while sp > 0:
-            sp -= 1
-            i = queue[sp]
+        zh = zf[s0]
+        labels[s0] = -nlab
+        head = tail
+        members[tail] = s0
+        tail += 1
+        while head < tail:
+            i = members[head]
+            head += 1
+            is_flat = labels[i] > 0
+            if not is_flat and i != s0:
+                continue  # another low edge: labelled, not spread from
             r = i // nc
             c = i - r * nc
+            inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
             for k in range(8):
-                rr = r + DROW[k]
-                cc = c + DCOL[k]
-                if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
-                    continue
-                j = rr * nc + cc
-                if labels[j] != 0 or z[rr, cc] != zf:
+                if not inside:
+                    rr = r + DROW[k]
+                    cc = c + DCOL[k]
+                    if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
+                        continue
+                j = i + offs[k]
+                if labels[j] != 0 or zf[j] != zh:
                     continue
                 if rec[j] == NO_FLOW:
                     labels[j] = nlab
-                    queue[sp] = j
-                    sp += 1
-                elif rec[i] == NO_FLOW and mark[j] == 3:
-                    labels[j] = nlab  # another low edge of the same flat
-    flat_height = np.zeros(nlab + 1, dtype=np.int32)
-    away = np.zeros(n, dtype=np.int32)
-    # gradient away from higher terrain (breadth first from the high edges)
-    head = 0
-    tail = 0
-    for t in range(nhigh):
-        i = high[t]
-        if labels[i] != 0:
-            queue[tail] = i
-            tail += 1
-            away[i] = 1
-    while head < tail:
-        i = queue[head]
-        head += 1
-        lab = labels[i]
-        d = away[i]
-        if d > flat_height[lab]:
-            flat_height[lab] = d
-        r = i // nc
-        c = i - r * nc
-        for k in range(8):
-            rr = r + DROW[k]
-            cc = c + DCOL[k]
-            if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
-                continue
-            j = rr * nc + cc
-            if labels[j] == lab and rec[j] == NO_FLOW and away[j] == 0:
-                away[j] = d + 1
-                queue[tail] = j
-                tail += 1
-    # gradient toward lower terrain (breadth first from the low edges)
+                    members[tail] = j
+                    tail += 1
+                elif is_flat and mark[j] & _LOW:
+                    labels[j] = -nlab
+                    members[tail] = j
+                    tail += 1
+    start[nlab] = tail
     mask = np.zeros(n, dtype=np.int32)
-    head = 0
-    tail = 0
-    for t in range(nlow):
-        i = low[t]
-        queue[tail] = i
-        tail += 1
-        mask[i] = 1
-    while head < tail:
-        i = queue[head]
-        head += 1
-        lab = labels[i]
-        d = mask[i]
-        r = i // nc
-        c = i - r * nc
-        for k in range(8):
-            rr = r + DROW[k]
-            cc = c + DCOL[k]
-            if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
-                continue
-            j = rr * nc + cc
-            if labels[j] == lab and rec[j] == NO_FLOW and mask[j] == 0:
-                mask[j] = d + 1
-                queue[tail] = j
-                tail += 1
-    # combine: towards lower counts twice, away from higher once (Barnes et al. 2014b)
-    for t in range(tail):
-        i = queue[t]
-        if away[i] > 0:
-            mask[i] = flat_height[labels[i]] - away[i] + 2 * mask[i]
-        else:
-            mask[i] = 2 * mask[i]
-    # each flat cell drains down the mask, within its own flat
+    queue = np.empty(tail + 1, dtype=np.int32)
+    # each flat on its own (independent: disjoint cells), in parallel
+    for L in prange(nlab):
+        _finish_flat(L + 1, members, start[L], start[L + 1], queue, labels, mark, mask, rec,
+                     dist, offs, nr, nc)
     unresolved = 0
     for t in range(nflat):
         i = flats[t]
-        lab = labels[i]
+        if labels[i] == 0:
+            rec[i] = -1
+            unresolved += 1
+    return mask, unresolved
+
+
+@njit(cache=True, nogil=True)
+def _finish_flat(lab, members, a, b, queue, labels, mark, mask, rec, dist, offs, nr, nc):
+    # gradient away from higher terrain, breadth first from the high edges; held in mask
+    tail = a
+    for t in range(a, b):
+        i = members[t]
+        if labels[i] > 0 and mark[i] & _HIGH:
+            mask[i] = 1
+            queue[tail] = i
+            tail += 1
+    head = a
+    height = 0
+    while head < tail:
+        i = queue[head]
+        head += 1
+        d = mask[i]
+        if d > height:
+            height = d
         r = i // nc
         c = i - r * nc
-        best = 0.0
-        bk = -1
-        if lab != 0:
-            mi = mask[i]
-            for k in range(8):
+        inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
+        for k in range(8):
+            if not inside:
                 rr = r + DROW[k]
                 cc = c + DCOL[k]
                 if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
                     continue
-                j = rr * nc + cc
-                if labels[j] != lab:
+            j = i + offs[k]
+            if labels[j] == lab and mask[j] == 0:
+                mask[j] = d + 1
+                queue[tail] = j
+                tail += 1
+    # gradient toward lower terrain, breadth first (level by level) from the low edges,
+    # combined on arrival: towards lower counts twice, away from higher once
+    tail = a
+    for t in range(a, b):
+        i = members[t]
+        if labels[i] < 0:
+            mask[i] = 2
+            queue[tail] = i
+            tail += 1
+    head = a
+    level_end = tail
+    d = 1
+    while head < tail:
+        if head == level_end:
+            d += 1
+            level_end = tail
+        i = queue[head]
+        head += 1
+        r = i // nc
+        c = i - r * nc
+        inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
+        for k in range(8):
+            if not inside:
+                rr = r + DROW[k]
+                cc = c + DCOL[k]
+                if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
                     continue
-                drop = mi - mask[j]
-                if drop > 0:
-                    s = drop / dist[r, k]
-                    if s > best:
-                        best = s
-                        bk = k
+            j = i + offs[k]
+            if labels[j] == lab and mark[j] & _REACHED == 0:
+                mark[j] |= _REACHED
+                away = mask[j]
+                if away > 0:
+                    mask[j] = height - away + 2 * (d + 1)
+                else:
+                    mask[j] = 2 * (d + 1)
+                queue[tail] = j
+                tail += 1
+    # each flat cell drains down the mask, within its own flat
+    for t in range(a, tail):
+        i = queue[t]
+        if labels[i] < 0:
+            continue
+        r = i // nc
+        c = i - r * nc
+        inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
+        mi = mask[i]
+        best = 0.0
+        bk = -1
+        for k in range(8):
+            if not inside:
+                rr = r + DROW[k]
+                cc = c + DCOL[k]
+                if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
+                    continue
+            j = i + offs[k]
+            lj = labels[j]
+            if lj != lab and lj != -lab:
+                continue
+            drop = mi - mask[j]
+            if drop > 0:
+                s = drop / dist[r, k]
+                if s > best:
+                    best = s
+                    bk = k
         if bk >= 0:
-            rec[i] = (r + DROW[bk]) * nc + c + DCOL[bk]
+            rec[i] = i + offs[bk]
         else:
             rec[i] = -1
-            unresolved += 1
-    return mask, unresolved
 
 
 @njit(cache=True, nogil=True)
