@@ -33,8 +33,9 @@ class _Context:
         self.fm = fm
         self.network = network
         self.nc = t.shape[1]
-        z = fm.input_elevation if fm.input_elevation is not None else t.elevation
-        self.z = np.where(t.valid, z, np.nan)
+        # NaN marks nodata in both (Terrain and flow folders); windows re-apply validity
+        self.z = fm.input_elevation if fm.input_elevation is not None else t.elevation
+        self.valid = t.valid
         g = t.geometry
         self.row_area = g.area
         nd = g.neighbour_distances()
@@ -214,7 +215,7 @@ def _percentiles(v, qs):
     return s[lo] + (s[hi] - s[lo]) * (pos - lo)
 
 
-def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve):
+def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve, poly=None):
     from affine import Affine
 
     from .polygons import ground_area_perimeter, mask_to_polygon
@@ -225,6 +226,7 @@ def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve):
     win = (slice(r0, r1 + 1), slice(c0, c1 + 1))
     rows = np.arange(r0, r1 + 1)
     cols = np.arange(c0, c1 + 1)
+    mwin = mwin & ctx.valid[win]  # nodata cells are never part of a catchment
     outlet = int(outlet)
     orow, ocol = divmod(outlet, nc)
     if not (r0 <= orow <= r1 and c0 <= ocol <= c1 and mwin[orow - r0, ocol - c0]):
@@ -238,8 +240,8 @@ def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve):
            "outlet_col": ocol, "cell_count": int(mwin.sum()), "area_m2": area,
            "area_km2": area / 1e6}
     # ---- shape
-    tw = t.transform @ Affine.translation(c0, r0)
-    poly = mask_to_polygon(mwin, tw)
+    if poly is None:
+        poly = mask_to_polygon(mwin, t.transform @ Affine.translation(c0, r0))
     _, p_edges = ground_area_perimeter(poly, t.crs)
     smooth = poly.simplify(max(ctx.cell_w, ctx.cell_h), preserve_topology=True)
     _, perim = ground_area_perimeter(smooth, t.crs)
@@ -266,7 +268,8 @@ def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve):
     zmax = float(zm[ok].max())
     zmean = float(np.sum(zm[ok] * am[ok]) / am[ok].sum())
     relief = zmax - zmin
-    out.update(outlet_elevation_m=float(ctx.z[orow, ocol]), min_elevation_m=zmin,
+    zo = float(ctx.z[orow, ocol])
+    out.update(outlet_elevation_m=zo, min_elevation_m=zmin,
                max_elevation_m=zmax, mean_elevation_m=zmean, relief_m=relief)
     out["relief_ratio"] = relief / lstraight if lstraight > 0 else np.nan
     out["melton_ruggedness"] = relief / math.sqrt(area) if area > 0 else np.nan
@@ -278,7 +281,8 @@ def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve):
     # ---- slope and aspect (Horn 1981) on the window padded by one cell
     pr0, pr1 = max(r0 - 1, 0), min(r1 + 1, t.shape[0] - 1)
     pc0, pc1 = max(c0 - 1, 0), min(c1 + 1, t.shape[1] - 1)
-    zp = np.ascontiguousarray(ctx.z[pr0:pr1 + 1, pc0:pc1 + 1], dtype=np.float64)
+    zp = np.where(ctx.valid[pr0:pr1 + 1, pc0:pc1 + 1], ctx.z[pr0:pr1 + 1, pc0:pc1 + 1],
+                  np.nan).astype(np.float64)
     s, asp = _channels.horn_slope_aspect(zp, ctx.dx[pr0:pr1 + 1], ctx.dy_up[pr0:pr1 + 1],
                                          ctx.dy_down[pr0:pr1 + 1])
     inner = (slice(r0 - pr0, r0 - pr0 + mwin.shape[0]),
@@ -453,6 +457,7 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
     ctx = _Context(fm, network)
     rows, curves = [], {}
     labels = None
+    polys = {}
     if isinstance(masks_or_labels, np.ndarray) and masks_or_labels.ndim == 2 \
             and masks_or_labels.dtype.kind in "iu":
         labels = masks_or_labels
@@ -461,6 +466,13 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
         nlab = int(max(ids.max() if n else 0, 0)) + 1
         lab32 = labels if labels.dtype == np.int32 else labels.astype(np.int64)
         rmin, rmax, cmin, cmax = _channels.label_bounding_boxes(lab32, nlab)
+        # polygons: one polygonize of the whole label grid beats one call per window
+        # once there are many catchments (a call costs about as much as ~25 000 cells)
+        if n * 25_000 > labels.size:
+            from .polygons import labels_to_polygons
+
+            wanted = [int(i) for i in ids if 0 < int(i) < nlab]
+            polys = labels_to_polygons(lab32, fm.terrain.transform, ids=wanted)
     else:
         masks = list(masks_or_labels)
         if len(masks) != n:
@@ -487,7 +499,8 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
                         raise InputError(f"catchment {cid} is empty")
                     r0, r1, c0, c1 = rr[0], rr[-1], cc[0], cc[-1]
                     mwin = m[r0:r1 + 1, c0:c1 + 1]
-                out, curve = _measure(ctx, r0, r1, c0, c1, mwin, outlets[i], return_curves)
+                out, curve = _measure(ctx, r0, r1, c0, c1, mwin, outlets[i], return_curves,
+                                      polys.get(int(cid)) if labels is not None else None)
                 rec.update(out)
                 rec["error"] = ""
                 if return_curves:
