@@ -186,7 +186,7 @@ def test_segment_lengths_drops_and_lines():
     projected grid: 10 m and 10·√2 m) and equals the planar length of its line; the
     drop equals the elevation difference of its ends; the network is continuous (every
     downstream id exists)."""
-    fm, outlet = binary_tree_model(4)
+    fm, _ = binary_tree_model(4)
     net = extract_channels(fm, 1.0)
     seg = net.segments
     np.testing.assert_allclose(seg.geometry.length, seg["length_m"], rtol=1e-12)
