@@ -193,13 +193,15 @@ def _line_sse(sx, sy, sxx, sxy, syy, n):
 
 
 @njit(cache=True, nogil=True)
-def best_hinge(x, y, lo, hi, min_nodes):
-    """Best single break of a continuous two-piece line (hinge model
-    y = a + b·x + c·max(0, x - x_k)) over nodes lo..hi-1 (x increasing), by least squares,
-    trying every node with at least ``min_nodes`` nodes on each side as the hinge. Running
-    sums make each trial O(1) (data centred first for round-off).
+def best_break(x, y, lo, hi, min_nodes):
+    """Best single break of a two-piece line over nodes lo..hi-1 (x increasing), by least
+    squares: y = a + b·x + c·h + d·H with h = max(0, x - x_k) and H = 1 above node k
+    (nodes k+1..), trying every node with at least ``min_nodes`` nodes on each side as k.
+    ``c`` is the change of slope (a slope-break knickpoint), ``d`` the offset between the
+    two pieces (a vertical-step knickpoint). Running sums make each trial O(1); the data
+    are centred first for round-off.
 
-    Returns (k, sse_hinge, sse_line, slope_below, slope_above); k = -1 if none fits.
+    Returns (k, sse_break, sse_line, slope_below, slope_above, step).
     """
     n = hi - lo
     mx = 0.0
@@ -227,74 +229,113 @@ def best_hinge(x, y, lo, hi, min_nodes):
     best_sse = np.inf
     best_b = np.nan
     best_c = np.nan
+    best_d = np.nan
     if n < 2 * min_nodes + 1:
-        return best_k, best_sse, sse_line, best_b, best_c
+        return best_k, best_sse, sse_line, best_b, best_c, best_d
+    M = np.empty((4, 4))
+    r = np.empty(4)
     ux = 0.0
     ux2 = 0.0
     uy = 0.0
     uxy = 0.0
     nu = 0
     for i in range(n - 1, min_nodes - 1, -1):
-        # the suffix sums hold nodes i+1..n-1, the ones above a hinge at node i
+        # the suffix sums hold nodes i+1..n-1, the ones above a break at node i
         if nu >= min_nodes and i >= min_nodes:
             xk = xs[i]
             sh = ux - nu * xk
             shh = ux2 - 2 * xk * ux + nu * xk * xk
             shx = ux2 - xk * ux
             shy = uxy - xk * uy
-            m00 = float(n)
-            m01 = sx
-            m02 = sh
-            m11 = sxx
-            m12 = shx
-            m22 = shh
-            r0 = sy
-            r1 = sxy
-            r2 = shy
-            c00 = m11 * m22 - m12 * m12
-            c01 = m01 * m22 - m12 * m02
-            c02 = m01 * m12 - m11 * m02
-            det = m00 * c00 - m01 * c01 + m02 * c02
-            if det > 0 and np.isfinite(det):
-                a = (r0 * c00 - m01 * (r1 * m22 - m12 * r2) + m02 * (r1 * m12 - m11 * r2)) / det
-                b = (m00 * (r1 * m22 - r2 * m12) - r0 * c01 + m02 * (m01 * r2 - r1 * m02)) / det
-                c = (m00 * (m11 * r2 - m12 * r1) - m01 * (m01 * r2 - r1 * m02) + r0 * c02) / det
-                sse = syy - (a * r0 + b * r1 + c * r2)
+            M[0, 0] = n
+            M[0, 1] = sx
+            M[0, 2] = sh
+            M[0, 3] = nu
+            M[1, 1] = sxx
+            M[1, 2] = shx
+            M[1, 3] = ux
+            M[2, 2] = shh
+            M[2, 3] = sh
+            M[3, 3] = nu
+            for p in range(4):
+                for q in range(p):
+                    M[p, q] = M[q, p]
+            r[0] = sy
+            r[1] = sxy
+            r[2] = shy
+            r[3] = uy
+            # Gaussian elimination with partial pivoting (4 x 4)
+            A = M.copy()
+            v = r.copy()
+            ok = True
+            for col in range(4):
+                piv = col
+                for row in range(col + 1, 4):
+                    if abs(A[row, col]) > abs(A[piv, col]):
+                        piv = row
+                if abs(A[piv, col]) < 1e-12 * (abs(M[0, 0]) + abs(M[1, 1]) + 1.0):
+                    ok = False
+                    break
+                if piv != col:
+                    for q in range(4):
+                        tmp = A[col, q]
+                        A[col, q] = A[piv, q]
+                        A[piv, q] = tmp
+                    tmp = v[col]
+                    v[col] = v[piv]
+                    v[piv] = tmp
+                for row in range(col + 1, 4):
+                    f = A[row, col] / A[col, col]
+                    for q in range(col, 4):
+                        A[row, q] -= f * A[col, q]
+                    v[row] -= f * v[col]
+            if ok:
+                beta = np.empty(4)
+                for row in range(3, -1, -1):
+                    acc = v[row]
+                    for q in range(row + 1, 4):
+                        acc -= A[row, q] * beta[q]
+                    beta[row] = acc / A[row, row]
+                sse = syy - (beta[0] * r[0] + beta[1] * r[1] + beta[2] * r[2]
+                             + beta[3] * r[3])
                 if sse < 0:
                     sse = 0.0
                 if sse < best_sse:
                     best_sse = sse
                     best_k = lo + i
-                    best_b = b
-                    best_c = b + c
+                    best_b = beta[1]
+                    best_c = beta[1] + beta[2]
+                    best_d = beta[3]
         ux += xs[i]
         ux2 += xs[i] * xs[i]
         uy += ys[i]
         uxy += xs[i] * ys[i]
         nu += 1
-    return best_k, best_sse, sse_line, best_b, best_c
+    return best_k, best_sse, sse_line, best_b, best_c, best_d
 
 
 @njit(cache=True, nogil=True)
 def knickpoints_one(x, y, min_nodes, noise_var, min_ratio, min_relief, max_breaks):
-    """Binary segmentation of one χ–z profile with hinge fits.
+    """Binary segmentation of one χ–z profile with two-piece fits (:func:`best_break`).
 
-    A break is kept when the Bayesian information criterion of the two-piece fit beats the
-    single line's (residual variance floored at ``noise_var``, the square of the vertical
-    precision), the steepness changes by at least the fraction ``min_ratio`` and the
-    elevation above (or below) the downstream line at the reach's top end is at least
-    ``min_relief`` metres; each kept piece is searched again.
-    Returns arrays (node index, slope below, slope above, relief m), by node index.
+    A break is kept when the Bayesian information criterion of the two-piece fit (three
+    more parameters: position, slope change, offset) beats the single line's, the residual
+    variance floored at ``noise_var`` (the square of the vertical precision), and either
+    the steepness changes by at least the fraction ``min_ratio`` or the pieces are offset
+    by at least ``min_relief`` metres; besides, the elevation of the reach's top above (or
+    below) the extension of the lower line must be at least ``min_relief``. Each kept
+    piece is searched again.
+    Returns arrays (node index, slope below, slope above, step m, relief m), by node.
     """
     n = x.shape[0]
     ks = np.empty(max_breaks, dtype=np.int64)
     kb = np.empty(max_breaks)
     ka = np.empty(max_breaks)
+    kd = np.empty(max_breaks)
     kr = np.empty(max_breaks)
     nk = 0
     stack_lo = np.empty(2 * max_breaks + 2, dtype=np.int64)
     stack_hi = np.empty(2 * max_breaks + 2, dtype=np.int64)
-    sp = 0
     stack_lo[0] = 0
     stack_hi[0] = n
     sp = 1
@@ -305,31 +346,35 @@ def knickpoints_one(x, y, min_nodes, noise_var, min_ratio, min_relief, max_break
         m = hi - lo
         if m < 2 * min_nodes + 1:
             continue
-        k, sse2, sse1, b, c = best_hinge(x, y, lo, hi, min_nodes)
+        k, sse2, sse1, b, c, d = best_break(x, y, lo, hi, min_nodes)
         if k < 0:
             continue
         v1 = max(sse1 / m, noise_var)
         v2 = max(sse2 / m, noise_var)
         bic1 = m * np.log(v1) + 2 * np.log(m)
-        bic2 = m * np.log(v2) + 4 * np.log(m)
+        bic2 = m * np.log(v2) + 5 * np.log(m)
         if bic2 >= bic1:
             continue
         ref = max(abs(b), abs(c))
-        if ref <= 0 or abs(c - b) < min_ratio * ref:
+        slope_break = ref > 0 and abs(c - b) >= min_ratio * ref
+        step = abs(d) >= min_relief
+        if not (slope_break or step):
             continue
-        relief = (c - b) * (x[hi - 1] - x[k])
-        if abs(relief) < min_relief:
+        relief = d + (c - b) * (x[hi - 1] - x[k])
+        if abs(relief) < min_relief and not step:
             continue
         ks[nk] = k
         kb[nk] = b
         ka[nk] = c
+        kd[nk] = d
         kr[nk] = relief
         nk += 1
         stack_lo[sp] = lo
         stack_hi[sp] = k + 1
         sp += 1
-        stack_lo[sp] = k
+        stack_lo[sp] = k + 1
         stack_hi[sp] = hi
         sp += 1
     order = np.argsort(ks[:nk])
-    return ks[:nk][order], kb[:nk][order], ka[:nk][order], kr[:nk][order]
+    return (ks[:nk][order], kb[:nk][order], ka[:nk][order], kd[:nk][order],
+            kr[:nk][order])

@@ -955,22 +955,26 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
         One row per knickpoint: the grouping column (when a table is given), ``outlet_id``,
         ``row``, ``col``, ``x``, ``y``, ``distance_from_outlet_m``, ``elevation_m``,
         ``chi_m``, ``upstream_area_m2``, ``ksn_below_m_per_m``, ``ksn_above_m_per_m``,
-        ``ksn_change_ratio`` (above / below), ``relief_m`` (magnitude: elevation of the
-        reach's top above (+) or below (-) the extension of the line below the knickpoint),
-        ``kind`` (``"steeper upstream"`` or ``"gentler upstream"``) and, when the table
+        ``ksn_change_ratio`` (above / below), ``step_m`` (offset between the two pieces at
+        the break: the height of a vertical step), ``relief_m`` (magnitude: elevation of
+        the reach's top above (+) or below (-) the extension of the line below the
+        knickpoint), ``kind`` (``"steeper upstream"`` or ``"gentler upstream"`` for
+        slope breaks, ``"vertical step up"``/``"vertical step down"`` for offsets without
+        a change of steepness, placed at the top of the step) and, when the table
         has both elevations, ``in_filled_depression`` (the conditioned surface lies more
         than the vertical precision above the DEM there: the break may be the edge of a
         filled depression rather than of the channel).
 
     Notes
     -----
-    Each profile, ordered by χ, is fitted by a continuous two-piece line (hinge) at every
-    possible break; the best break is kept when the Bayesian information criterion
-    (Schwarz 1978) prefers it to a single line (residual variance floored at the square of
-    the vertical precision) and the change of steepness and the relief exceed their
-    thresholds. Each piece is searched again (binary segmentation). In χ–z a steady-state
-    channel of uniform k_sn is one straight line (Perron & Royden 2013), so breaks mark
-    changes of steepness: slope-break knickpoints in the sense of Kirby & Whipple (2012).
+    Each profile, ordered by χ, is fitted by a two-piece line at every possible break
+    (segmented regression, the pieces free to change slope and to be offset); the best
+    break is kept when the Bayesian information criterion (Schwarz 1978) prefers it to a
+    single line (residual variance floored at the square of the vertical precision) and
+    the change of steepness (or the offset) and the relief exceed their thresholds. Each
+    piece is searched again (binary segmentation). In χ–z a steady-state channel of uniform
+    k_sn is one straight line (Perron & Royden 2013), so breaks mark slope-break and
+    vertical-step knickpoints in the sense of Kirby & Whipple (2012).
 
     References
     ----------
@@ -1016,16 +1020,22 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
         ys = np.ascontiguousarray(z_all[s0:s1])
         if not (np.isfinite(xs).all() and np.isfinite(ys).all()):
             continue
-        k, kb, ka, kr = _profiles.knickpoints_one(xs, ys, int(min_nodes), prec * prec,
-                                                  float(min_change), relief,
-                                                  int(max_per_profile))
+        k, kb, ka, kd, kr = _profiles.knickpoints_one(xs, ys, int(min_nodes), prec * prec,
+                                                      float(min_change), relief,
+                                                      int(max_per_profile))
         for j in range(k.size):
-            out.append((order[s0 + k[j]], kb[j], ka[j], kr[j]))
+            ref = max(abs(kb[j]), abs(ka[j]))
+            is_step = abs(kd[j]) >= relief and not (ref > 0 and
+                                                   abs(ka[j] - kb[j]) >= min_change * ref)
+            # a vertical step is placed at its top (the first node of the upper piece)
+            node = s0 + k[j] + (1 if is_step and k[j] + 1 < s1 - s0 else 0)
+            out.append((order[node], kb[j], ka[j], kr[j], kd[j], is_step))
     cols_out = ([] if single else [by]) + (["outlet_id"] if "outlet_id" in df.columns
                                            else []) + cols
     if not out:
         res = pd.DataFrame({c: pd.Series(dtype=float) for c in cols_out})
-        for c in ("ksn_below_m_per_m", "ksn_above_m_per_m", "ksn_change_ratio", "relief_m"):
+        for c in ("ksn_below_m_per_m", "ksn_above_m_per_m", "ksn_change_ratio", "step_m",
+                  "relief_m"):
             res[c] = pd.Series(dtype=float)
         res["kind"] = pd.Series(dtype=object)
         if {"elevation_m", "elevation_conditioned_m"} <= set(df.columns):
@@ -1039,8 +1049,12 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
     res["ksn_above_m_per_m"] = ka
     with np.errstate(divide="ignore", invalid="ignore"):
         res["ksn_change_ratio"] = ka / kb
+    res["step_m"] = np.array([o[4] for o in out])
     res["relief_m"] = np.array([o[3] for o in out])
-    res["kind"] = np.where(ka > kb, "steeper upstream", "gentler upstream")
+    steps = np.array([o[5] for o in out], dtype=bool)
+    res["kind"] = np.where(steps, np.where(res["step_m"] > 0, "vertical step up",
+                                           "vertical step down"),
+                           np.where(ka > kb, "steeper upstream", "gentler upstream"))
     if {"elevation_m", "elevation_conditioned_m"} <= set(df.columns):
         raised = (df["elevation_conditioned_m"].to_numpy(float)[idx]
                   - df["elevation_m"].to_numpy(float)[idx])

@@ -163,6 +163,21 @@ def test_knickpoint_found_within_two_cells(base_model):
     assert abs(on_main["distance_from_outlet_m"].iloc[0] - true_d) <= 2 * cell_size
 
 
+def test_vertical_step_found_within_two_cells(base_model):
+    """A 30 m vertical step (everything above one main-stem cell raised) is found within two
+    cells of its top, as a step of 30 m without a change of k_sn (closed form)."""
+    plain, _, outlet, ms, j = _knick_setup(base_model)
+    up = base_model.upstream_mask(int(ms.cells[j]))
+    z = plain.terrain.elevation + np.where(up, 30.0, 0.0)
+    stepped = FlowModel(plain.terrain.with_elevation(z), plain.receiver, plain.stack)
+    kp = P.find_knickpoints(P.main_stem(stepped, outlet))
+    assert len(kp) == 1
+    assert abs(kp["distance_from_outlet_m"].iloc[0] - ms.distance_m[j]) <= 2 * 30 * np.sqrt(2)
+    assert kp["kind"].iloc[0] == "vertical step up"
+    assert kp["step_m"].iloc[0] == pytest.approx(30.0, rel=0.02)
+    assert kp["ksn_above_m_per_m"].iloc[0] == pytest.approx(KS, rel=0.02)
+
+
 def test_no_knickpoint_without_one(base_model):
     """A steady-state profile of uniform k_sn, exact and with 0.5 m of noise, yields no
     knickpoint (its χ–z plot is one straight line: Perron & Royden 2013)."""
