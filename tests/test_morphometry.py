@@ -339,3 +339,27 @@ def test_docstring_examples():
 
     res = doctest.testmod(basinkit.morphometry)
     assert res.attempted > 0 and res.failed == 0
+
+
+def test_horn_slope_on_geographic_grid_uses_true_cell_sizes():
+    """On a 3″ geographic grid at 60° N a surface rising 0.1 m per metre eastwards on the
+    ground has slope 0.1 everywhere (closed form; the east-west cell width, half the
+    north-south one at 60°, comes from pyproj.Geod, Karney 2013). A naive slope from
+    degree spacing or equal dx, dy would be off by a factor of about 2."""
+    from pyproj import Geod
+
+    d = 1.0 / 1200
+    n = 40
+    lat_top = 60.0 + n * d / 2
+    geod = Geod(ellps="WGS84")
+    lats = lat_top - d * (np.arange(n) + 0.5)
+    _, _, dx = geod.inv(np.zeros(n), lats, np.full(n, d), lats)
+    z = 0.1 * np.arange(n)[None, :] * dx[:, None]  # per-row true east distance
+    t = terrain_from_array(z, transform=Affine(d, 0, 10.0, 0, -d, lat_top), crs="EPSG:4326")
+    fm = route(t, conditioning="none")
+    inner = np.zeros(z.shape, bool)
+    inner[1:-1, 1:-1] = True
+    m = basin_morphometry(fm, inner, 20 * n + 1)
+    assert m["mean_slope_m_per_m"] == pytest.approx(0.1, rel=2e-3)
+    assert m["slope_p90_m_per_m"] == pytest.approx(0.1, rel=2e-3)
+    assert m["aspect_w_fraction"] == pytest.approx(1.0)

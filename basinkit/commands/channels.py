@@ -66,7 +66,8 @@ def write_network(folder, fm, net, drop=None, params=None, extra=None):
               help="Folder to write (GeoPackage, GeoTIFF, CSV, JSON).")
 @click.option("--min-area", default=None,
               help="Upstream area at which channels begin, with a unit (e.g. 0.5km2, 20ha). "
-                   "Required unless --choose-threshold picks it.")
+                   "Required unless --choose-threshold picks it; with it, the fallback "
+                   "when no threshold passes.")
 @click.option("--slope-area-exponent", type=float, default=None,
               help="Exponent α of the slope–area criterion A·S^α ≥ C (Montgomery & "
                    "Dietrich 1988 used 2).")
