@@ -411,7 +411,7 @@ def _polygons(t, labels, n, L, size, rmin, rmax, cmin, cmax, workers, progress):
         seg = min(abs(t.transform.a), abs(t.transform.e)) * 1.0000001
     with _warnings.catch_warnings():
         _warnings.simplefilter("ignore")
-        subs = labels_to_polygons(labels, t.transform)
+        subs = labels_to_polygons(labels, t.transform, workers=workers)
     if seg:
         keys = list(subs)
         segd = shapely.segmentize(np.array([subs[k] for k in keys], dtype=object), seg)
