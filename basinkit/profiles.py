@@ -674,8 +674,8 @@ class ConcavityFit:
     tributary_count, node_count : int
     reference_area_m2 : float
     at_grid_edge : bool
-        The least misfit lies at the first or last θ tried: no interior minimum, so the
-        fit is not reliable.
+        The least misfit, or the bootstrap 16–84 % range, reaches the first or last θ
+        tried: the misfit has no clear interior minimum and the fit is not reliable.
     """
 
     concavity: float
@@ -796,6 +796,7 @@ def fit_concavity(fm, network, outlet_cell, min_order=1, thetas=None, reference_
     if boots.size:
         spread, lo, hi = (float(np.std(boots)), float(np.percentile(boots, 16)),
                           float(np.percentile(boots, 84)))
+        edge = edge or lo <= th[0] or hi >= th[-1]
     else:
         spread, lo, hi = float("nan"), float("nan"), float("nan")
     return ConcavityFit(concavity=float(best), spread=spread, low=lo, high=hi, thetas=th,
