@@ -350,8 +350,10 @@ class ConstantDropResult:
     critical_t: float
 
     def to_dict(self) -> dict:
+        t = self.table.astype(object).where(self.table.notna(), None)  # NaN -> null
         return {"chosen_min_area_m2": self.chosen_min_area_m2, "critical_t": self.critical_t,
-                "thresholds": self.table.to_dict(orient="records")}
+                "test": "Welch two-sample t, first-order vs higher-order stream drops",
+                "thresholds": t.to_dict(orient="records")}
 
 
 def threshold_range(low_m2, high_m2, count=12) -> np.ndarray:

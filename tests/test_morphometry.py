@@ -324,7 +324,8 @@ def test_morphometry_command(tmp_path, capsys):
         assert (out / "hypsometry" / f"hypsometric_curve_{oid}.png").exists()
         assert (out / "hypsometry" / f"hypsometric_curve_{oid}.csv").exists()
     assert "outside" in tab[tab.outlet_id == "off"].iloc[0]["error"]
-    meta = json.loads((out / "morphometry.json").read_text())
+    meta = json.loads((out / "morphometry.json").read_text(),  # strict JSON (RFC 8259)
+                      parse_constant=lambda t: (_ for _ in ()).throw(ValueError(t)))
     assert meta["nested_outlets"] is True
     assert "licensed professional" in meta["cautions"]
     assert meta["parameters"]["min_area_m2"] == pytest.approx(2e4)
