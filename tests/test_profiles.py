@@ -424,5 +424,17 @@ def test_profile_command(tmp_path, base_model):
     assert meta["software"] == "basinkit" and meta["cautions"]
     assert [f["outlet_id"] for f in meta["failures"]] == ["offgrid"]
     assert meta["outlets"][0]["longest_flow_path"]["length_m"] > 0
+    # deterministic: the same job gives byte-identical tables (DESIGN.md)
+    out_b = tmp_path / "out_b"
+    CliRunner().invoke(cli, ["--quiet", "profile", str(tmp_path / "flow"), "--outlets",
+                             str(pts), "--min-area", "0.1km2", "--min-order", "1",
+                             "--slope-window", "90m", "-o", str(out_b)], standalone_mode=False)
+    for f in ("profile.csv", "steepness.csv", "knickpoints.csv"):
+        assert (out / f).read_bytes() == (out_b / f).read_bytes()
+    # user errors: no outlet; both a fixed and a fitted concavity
     r2 = CliRunner().invoke(cli, ["profile", str(tmp_path / "flow"), "-o", str(out)])
-    assert r2.exit_code != 0
+    assert r2.exit_code != 0 and isinstance(r2.exception, InputError)
+    r3 = CliRunner().invoke(cli, ["profile", str(tmp_path / "flow"), "--outlet", f"{x},{y}",
+                                  "--concavity", "0.5", "--fit-concavity", "-o",
+                                  str(tmp_path / "o3")])
+    assert isinstance(r3.exception, InputError) and "not both" in str(r3.exception)
