@@ -149,3 +149,27 @@ def test_user_errors_without_traceback(flowdir, tmp_path, capsys):
     assert "--snap-radius" in capsys.readouterr().err
     assert run(["delineate", p, "--outlet", "1,2", "-o", tmp_path / "w"]) == 2
     assert "none of the 1 outlets" in capsys.readouterr().err
+
+
+def test_outputs_byte_identical_between_runs(flowdir, tmp_path):
+    """The same inputs and options give byte-identical files (project rule: deterministic
+    outputs; the GeoPackage gets a fixed timestamp)."""
+    p, _ = flowdir
+    outs = []
+    for k in range(2):
+        o = tmp_path / f"r{k}"
+        assert run(["-q", "delineate", p, "--outlet", "600705,5000905", "--outlet",
+                    "b=600305,5000505", "-o", o, "--labels-raster", "--web-geojson"]) == 0
+        outs.append(o)
+    names = sorted(f.name for f in outs[0].iterdir())
+    assert names == sorted(f.name for f in outs[1].iterdir())
+    for n in names:
+        assert (outs[0] / n).read_bytes() == (outs[1] / n).read_bytes(), n
+
+
+def test_fraction_rasters_on_d8_warns(flowdir, tmp_path, capsys):
+    p, _ = flowdir
+    assert run(["delineate", p, "--outlet", "600705,5000905", "-o", tmp_path / "f",
+                "--fraction-rasters"]) == 0
+    assert "D8" in capsys.readouterr().err
+    assert not (tmp_path / "f" / "contributing_fraction").exists()

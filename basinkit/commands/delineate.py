@@ -194,13 +194,13 @@ def _write_outputs(console, res, fm, out, outlet_file, labels_raster, web_geojso
     snapped = res.outlets_frame("snapped")
     pts = gpd.GeoDataFrame(pd.concat([given, snapped], ignore_index=True),
                            geometry="geometry", crs=given.crs)
-    with atomic_path(out / OUTPUT_FILES["vectors"]) as tmp:
-        pts.to_file(tmp, layer="outlets", driver="GPKG", layer_metadata=layer_meta)
-        cat.to_file(tmp, layer="catchments", driver="GPKG", layer_metadata=layer_meta)
-        sub.to_file(tmp, layer="subcatchments", driver="GPKG", layer_metadata=layer_meta)
-        pyogrio.write_dataframe(res.errors.astype({"reason": str, "outlet_id": str,
-                                                   "source": str}),
-                                tmp, layer="errors", driver="GPKG")
+    # a fixed timestamp in the GeoPackage tables keeps the file byte-identical per input
+    old = pyogrio.get_gdal_config_option("OGR_CURRENT_DATE")
+    pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": "2000-01-01T00:00:00.000Z"})
+    try:
+        _write_gpkg(out / OUTPUT_FILES["vectors"], pts, cat, sub, res.errors, layer_meta)
+    finally:
+        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": old})
     write_csv(out / OUTPUT_FILES["table"], _csv_table(res))
     if len(res.errors):
         write_csv(out / OUTPUT_FILES["errors"], res.errors)
@@ -214,8 +214,22 @@ def _write_outputs(console, res, fm, out, outlet_file, labels_raster, web_geojso
         web = cat[["outlet_id", "area_km2", "touches_edge", "warning",
                    "geometry"]].to_crs(4326)
         with atomic_path(out / OUTPUT_FILES["web"]) as tmp:
-            web.to_file(tmp, driver="GeoJSON")
+            web.to_file(tmp, driver="GeoJSON", layer="catchments", RFC7946="YES")
     write_json(out / OUTPUT_FILES["meta"], meta)
+
+
+def _write_gpkg(path, pts, cat, sub, errors, layer_meta):
+    import pyogrio
+
+    from ..writers import atomic_path
+
+    with atomic_path(path) as tmp:
+        pts.to_file(tmp, layer="outlets", driver="GPKG", layer_metadata=layer_meta)
+        cat.to_file(tmp, layer="catchments", driver="GPKG", layer_metadata=layer_meta)
+        sub.to_file(tmp, layer="subcatchments", driver="GPKG", layer_metadata=layer_meta)
+        pyogrio.write_dataframe(errors.astype({"reason": str, "outlet_id": str,
+                                               "source": str}),
+                                tmp, layer="errors", driver="GPKG")
 
 
 def _report(console, res, n_given):
