@@ -29,6 +29,7 @@ LONG_SNAP_CELLS = 5.0
 AREA_JUMP_FACTOR = 10.0
 DEFAULT_RADIUS_CELLS = 3
 DEFAULT_CHANNEL_RADIUS_CELLS = 10
+MAX_WINDOW_CELLS = 4_000_000  # candidate cells per outlet (a radius of ~1000 cells)
 
 _ID_COLUMNS = ("outlet_id", "id", "name", "outlet", "site", "station", "gauge")
 _XY_COLUMNS = (("x", "y"), ("easting", "northing"), ("east", "north"))
@@ -438,6 +439,12 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     kc = int(min(nc, math.ceil(radius_m / max(float(g.dx.min()), 1e-9)) + 1))
     if radius_m == 0:
         kr = kc = 0
+    if (2 * kr + 1) * (2 * kc + 1) > MAX_WINDOW_CELLS:
+        raise InputError(f"a snap radius of {radius_m:g} m spans about {kr} x {kc} cells "
+                         "on each side; snapping searches that whole window, so use a "
+                         f"radius under {int(cell_m * 900):d} m here "
+                         "(an outlet should be placed near its stream, not kilometres "
+                         "away)")
     dr, dc = np.meshgrid(np.arange(-kr, kr + 1), np.arange(-kc, kc + 1), indexing="ij")
     dr, dc = dr.ravel(), dc.ravel()
     K = dr.size

@@ -251,3 +251,17 @@ def test_prepare_outlets_accepts_arrays(flow):
     assert s["outlet_id"].tolist() == ["outlet_1", "outlet_2"]
     assert (s["cell"] == s["cell_given"]).all() and (s["snap_distance_m"] < 8).all()
     assert s["file_id"].tolist() == ["outlet_1", "outlet_2"]
+
+
+def test_huge_snap_radius_refused(flow, monkeypatch):
+    """A radius of thousands of cells would need a window of ~1e8 candidates per outlet:
+    refused with a message naming a workable radius (common practice, no source). The
+    limit is lowered here so that a small grid shows it."""
+    import basinkit.outlets as mod
+
+    monkeypatch.setattr(mod, "MAX_WINDOW_CELLS", 1000)
+    loc, _ = locate_outlets(flow.terrain, outlets_from_points([500005], [405]))
+    with pytest.raises(InputError, match="snap radius"):
+        snap_outlets(flow, loc, radius_m=300)
+    s, _ = snap_outlets(flow, loc, radius_m=100)  # 11 x 11 cells each side: fine
+    assert len(s) == 1
