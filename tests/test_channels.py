@@ -424,11 +424,13 @@ def test_channels_command_outputs(flow_folder, capsys):
     np.testing.assert_allclose(gp.geometry.length, seg["length_m"])
     drop = pd.read_csv(out / "constant_drop_test.csv")
     assert len(drop) == 6 and "t_statistic" in drop
-    first = (out / "channel_segments.csv").read_bytes()
+    names = ("channel_segments.csv", "channels.gpkg", "strahler_order.tif")
+    first = {n: (out / n).read_bytes() for n in names}
     code, err = _cli(["channels", d / "flow", "--min-area", f"{chosen}m2", "-o", out,
                       "--overwrite"], capsys)
     assert code == 0, err
-    assert (out / "channel_segments.csv").read_bytes() == first
+    for n in names:
+        assert (out / n).read_bytes() == first[n], n
 
 
 def test_channels_command_clean_failures(flow_folder, capsys):

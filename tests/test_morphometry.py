@@ -277,6 +277,10 @@ def test_hypsometric_outputs(tmp_path):
                                   "area_above_km2"]
     img = mpimg.imread(tmp_path / "h.png")
     assert img.shape[0] > 100 and img.shape[1] > 100
+    png = (tmp_path / "h.png").read_bytes()
+    write_hypsometric_curve(curve, tmp_path / "h.csv", tmp_path / "h.png", label="cone",
+                            integral=m["hypsometric_integral"])
+    assert (tmp_path / "h.png").read_bytes() == png  # deterministic outputs (project rule)
     json.dumps({k: v for k, v in m.items()}, default=float)
 
 

@@ -31,17 +31,15 @@ def write_network(folder, fm, net, drop=None, params=None, extra=None):
     out = Path(folder)
     written = []
     gpkg = out / "channels.gpkg"
-    with atomic_path(gpkg) as tmp:
-        net.segments.to_file(tmp, layer="channels", driver="GPKG")
-        if len(net.junctions):
-            net.junctions.to_file(tmp, layer="junctions", driver="GPKG", mode="a")
-        else:  # an empty point layer still needs a schema
-            import geopandas as gpd
-            from shapely.geometry import Point
+    import pyogrio
 
-            empty = gpd.GeoDataFrame({"junction_id": [0]}, geometry=[Point(0, 0)],
-                                     crs=net.junctions.crs).iloc[:0]
-            empty.to_file(tmp, layer="junctions", driver="GPKG", mode="a")
+    # a fixed timestamp in the GeoPackage tables keeps the file byte-identical per input
+    old = pyogrio.get_gdal_config_option("OGR_CURRENT_DATE")
+    pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": "2000-01-01T00:00:00.000Z"})
+    try:
+        _write_gpkg(gpkg, net, atomic_path)
+    finally:
+        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": old})
     written.append(gpkg)
     t = fm.terrain
     order = np.where(t.valid, net.strahler, -1).astype(np.int16)
@@ -58,6 +56,20 @@ def write_network(folder, fm, net, drop=None, params=None, extra=None):
                       files=[p.name for p in written], cautions=CAUTIONS, **(extra or {}))
     written.append(write_json(out / "channels.json", meta))
     return written
+
+
+def _write_gpkg(path, net, atomic_path):
+    with atomic_path(path) as tmp:
+        net.segments.to_file(tmp, layer="channels", driver="GPKG")
+        if len(net.junctions):
+            net.junctions.to_file(tmp, layer="junctions", driver="GPKG", mode="a")
+        else:  # an empty point layer still needs a schema
+            import geopandas as gpd
+            from shapely.geometry import Point
+
+            empty = gpd.GeoDataFrame({"junction_id": [0]}, geometry=[Point(0, 0)],
+                                     crs=net.junctions.crs).iloc[:0]
+            empty.to_file(tmp, layer="junctions", driver="GPKG", mode="a")
 
 
 @click.command("channels")
