@@ -834,12 +834,15 @@ def _stage_profiles(job, res, console):
             if net is not None and net.strahler.ravel()[cell] > 0:
                 nodes = P.channel_profiles(fm, net, outlet_cell=cell, min_order=min_order,
                                            concavity=theta, reference_area_m2=a0)
+                nodes["outlet_id"] = oid  # our id, not the position in this call
                 out["channel_nodes"] = nodes
                 write_csv(_add(res, res.folder / "profiles" / f"channel_nodes_{name}.csv"),
                           nodes)
                 if len(nodes):
                     steep = P.steepness(nodes, by="profile_id")
                     knick = P.find_knickpoints(nodes)
+                    steep["outlet_id"] = oid
+                    knick["outlet_id"] = oid
                     out["steepness"], out["knickpoints"] = steep, knick
                     write_csv(_add(res, res.folder / "profiles" / f"steepness_{name}.csv"),
                               steep)

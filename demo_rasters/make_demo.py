@@ -52,6 +52,7 @@ DIFFUSIVITY = 0.01   # m² / yr
 DT = 5000.0          # yr
 STEPS = 100
 
+RELIEF_SCALE = 0.5        # vertical scaling of the evolved relief
 EDGE_BAND = 6             # cells along the north, east and west edges that drain outward
 EMBANKMENT_HEIGHT = 8.0   # m above the valley floor at the crossing
 ROAD_HALF_WIDTH = 12.0    # m, crest
@@ -161,6 +162,10 @@ def build():
     from basinkit import fill_depressions
     z = fill_depressions(terrain_from_array(z.astype(np.float32), transform=TRANSFORM,
                                             crs=CRS)).elevation.astype(np.float64)
+    # the model's hillslopes come out alpine; halve the relief above the outlet level for
+    # the gentler slopes of an upland valley (a monotonic rescaling keeps every flow path)
+    base = float(z.min())
+    z = base + RELIEF_SCALE * (z - base)
     # the map is cut a little outside the valley's divide: the outermost cells of the
     # north, east and west edges fall away outward, so the basin lies wholly on the map
     b = EDGE_BAND
