@@ -623,6 +623,20 @@ def channel_profiles(fm, network, outlet_cell=None, min_order=2,
     Perron, J. T., Royden, L. (2013). Earth Surface Processes and Landforms 38:570-576.
     Wobus, C., et al. (2006). Tectonics from topography: procedures, promise, and pitfalls.
     GSA Special Paper 398:55-74 (smoothing windows for channel slope).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> from basinkit.channels import extract_channels
+    >>> z = np.add.outer(np.arange(6.0, 0, -1), np.abs(np.arange(5.0) - 2))  # a V valley
+    >>> fm = route(terrain_from_array(z, cellsize=10))
+    >>> net = extract_channels(fm, min_area_m2=500)
+    >>> nodes = channel_profiles(fm, net, outlet_cell=5 * 5 + 2, min_order=1)
+    >>> nodes[["row", "distance_from_outlet_m", "upstream_area_m2"]].values.tolist()
+    [[5.0, 0.0, 3000.0], [4.0, 10.0, 1900.0], [3.0, 20.0, 1400.0], [2.0, 30.0, 900.0]]
+    >>> steepness(nodes)["node_count"].tolist()
+    [4]
     """
     import pandas as pd
 
@@ -852,6 +866,11 @@ def steepness(nodes, by="segment_id", elevation="elevation_conditioned_m"):
     ----------
     Whipple, K. X., Tucker, G. E. (1999). Journal of Geophysical Research 104:17661-17674.
     Perron, J. T., Royden, L. (2013). Earth Surface Processes and Landforms 38:570-576.
+
+    Examples
+    --------
+    See :func:`channel_profiles`; ``steepness(nodes, by="profile_id")`` gives one k_sn per
+    profile instead of per segment.
     """
     import pandas as pd
 
@@ -983,6 +1002,17 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
     Kirby, E., Whipple, K. X. (2012). Expression of active tectonics in erosional
     landscapes. Journal of Structural Geology 44:54-75.
     Schwarz, G. (1978). Estimating the dimension of a model. Annals of Statistics 6:461-464.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> z = np.add.outer(np.arange(30.0, 0, -1), np.abs(np.arange(5.0) - 2))  # a V valley
+    >>> z[:15] += 20  # a 20 m step in its upper half
+    >>> fm = route(terrain_from_array(z, cellsize=10))
+    >>> kp = find_knickpoints(main_stem(fm, 29 * 5 + 2, concavity=0.0))  # χ = distance
+    >>> kp[["row", "kind"]].values.tolist(), round(float(kp["step_m"].iloc[0]))
+    ([[14, 'vertical step up']], 20)
     """
     import pandas as pd
 
@@ -1243,6 +1273,14 @@ def hack_law_fit(fm, network, outlet_cell=None, confidence=0.95) -> HackFit:
     ----------
     Hack, J. T. (1957). Studies of longitudinal stream profiles in Virginia and Maryland.
     USGS Professional Paper 294-B.
+
+    Examples
+    --------
+    >>> from basinkit.channels import extract_channels
+    >>> # fm: a FlowModel of a real DEM
+    >>> fit = hack_law_fit(fm, extract_channels(fm, 1e6))  # doctest: +SKIP
+    >>> fit.exponent  # doctest: +SKIP
+    0.54
     """
     if network is None:
         raise InputError("Hack's law needs a channel network (extract_channels)")
