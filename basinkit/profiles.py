@@ -704,7 +704,8 @@ class ConcavityFit:
     at_grid_edge: bool = False
 
     def to_dict(self) -> dict:
-        return {"concavity": self.concavity, "at_grid_edge": self.at_grid_edge, "concavity_spread": self.spread,
+        return {"concavity": self.concavity, "at_grid_edge": self.at_grid_edge,
+                "concavity_spread": self.spread,
                 "concavity_p16": self.low, "concavity_p84": self.high,
                 "tributary_count": self.tributary_count, "node_count": self.node_count,
                 "reference_area_m2": self.reference_area_m2,

@@ -82,8 +82,8 @@ def _write_gpkg(path, layers):
 @overwrite_option
 @click.pass_obj
 def command(console, flowdir, output, outlet_xy, outlets_file, id_column, outlet_crs,
-            snap_radius, min_order, min_area, concavity, fit_concavity, reference_area, slope_window,
-            slope_drop, vertical_precision, overwrite):
+            snap_radius, min_order, min_area, concavity, fit_concavity, reference_area,
+            slope_window, slope_drop, vertical_precision, overwrite):
     """Longitudinal profiles, χ, channel steepness and knickpoints upstream of outlets.
 
     Example: basinkit profile flow/ --outlet 512300,4712850 --min-area 0.5km2 -o prof/
