@@ -14,6 +14,8 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as hst
 
 from basinkit import route, terrain_from_array
 from basinkit import profiles as P
@@ -286,6 +288,31 @@ def test_jacksboro_paths_geodesic(jacksboro):
     assert lp.length_m == pytest.approx(fm.upstream_length().ravel()[outlet], rel=1e-12)
     # it drains to the outlet: every vertex's receiver is the previous vertex
     np.testing.assert_array_equal(fm.receiver[lp.cells[1:]], lp.cells[:-1])
+    # raw elevations come from the DEM as read, conditioned ones from the filled surface
+    np.testing.assert_array_equal(lp.elevation_m, fm.input_elevation.ravel()[lp.cells])
+    assert (lp.elevation_conditioned_m >= lp.elevation_m - 1e-3).all()
+    assert (np.diff(lp.elevation_conditioned_m) >= 0).all()  # filled: never rises downstream
+
+
+@settings(max_examples=8, deadline=None)
+@given(seed=hst.integers(0, 10_000), theta=hst.floats(0.1, 0.9))
+def test_chi_and_distance_properties(seed, theta):
+    """On any routed fractal DEM, χ and the distance from the outlet grow upstream by
+    exactly one reach each: χ(i) = χ(r) + step·(A0/A_i)^θ, d(i) = d(r) + step (definition,
+    Perron & Royden 2013)."""
+    fm = route(terrain_from_array(fractal_dem(40, seed=seed), cellsize=25))
+    outlet = int(np.nanargmax(fm.d8_upstream_area_flat()))
+    net = extract_channels(fm, 20 * 625.0, geometry=False)
+    nodes = P.channel_profiles(fm, net, outlet, min_order=1, concavity=theta)
+    by_cell = nodes.set_index("cell")
+    inner = nodes[nodes["downstream_cell"] >= 0]
+    down = by_cell.loc[inner["downstream_cell"]]
+    step = fm.receiver_distance()[inner["cell"]]
+    np.testing.assert_allclose(inner["distance_from_outlet_m"].to_numpy(),
+                               down["distance_from_outlet_m"].to_numpy() + step, rtol=1e-12)
+    np.testing.assert_allclose(inner["chi_m"].to_numpy(), down["chi_m"].to_numpy()
+                               + step * inner["upstream_area_m2"].to_numpy() ** -theta,
+                               rtol=1e-10)
 
 
 def test_jacksboro_hack_exponent(jacksboro):
