@@ -5,7 +5,6 @@ per-catchment table and the polygons all follow from that label grid."""
 from __future__ import annotations
 
 import warnings as _warnings
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -187,25 +186,6 @@ def _outlet_tree(fm, cells):
     return labels, lut, new_size, new_down
 
 
-def _polygonize_window(labels, lo, hi, box, transform, seg):
-    from affine import Affine
-
-    from .polygons import labels_to_polygons
-
-    r0, r1, c0, c1 = box
-    sub = labels[r0:r1 + 1, c0:c1 + 1]
-    m = _catchments.range_mask(sub, lo, hi)
-    tr = transform @ Affine.translation(c0, r0)
-    with _warnings.catch_warnings():
-        _warnings.simplefilter("ignore")
-        g = labels_to_polygons(m, tr).get(1)
-    if g is not None and seg:
-        import shapely
-
-        g = shapely.segmentize(g, seg)
-    return g
-
-
 def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None,
               polygons=True, workers=2, id_column=None, progress=None,
               fraction_callback=None) -> Delineation:
@@ -228,7 +208,7 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     polygons : bool
         Build the cell-boundary polygons and the perimeter (default True).
     workers : int
-        Threads for the polygons (shapely 2 releases the GIL).
+        Worker processes for the polygons (forked; 1 = in this process).
     id_column : str, optional
         Id column of an outlet file.
     progress : callable, optional
@@ -382,61 +362,127 @@ def _contributing(fm, tab, msgs, progress, callback):
         msgs.append(f"contributing areas for {fm.method} routing are not available in this "
                     "installation (basinkit.contributing is missing); D8 areas reported")
         return np.full(len(tab), np.nan)
+    cells = tab["cell"].to_numpy(np.int64)
+    if callback is None:
+        return np.atleast_1d(np.asarray(contributing.contributing_area_m2(fm, cells),
+                                        dtype=np.float64))
     out = np.empty(len(tab))
+    area = fm.terrain.cell_area().ravel()
     it = range(len(tab))
     if progress is not None:
-        it = progress(it, total=len(tab), desc="contributing areas")
+        it = progress(it, total=len(tab), desc="contributing fractions")
     for i in it:
-        cell = int(tab["cell"].iloc[i])
-        if callback is not None:
-            frac = contributing.contributing_fraction(fm, cell)
-            callback(tab.iloc[i], frac)
-            out[i] = float(np.nansum(frac.astype(np.float64).ravel()
-                                     * fm.terrain.cell_area().ravel()))
+        frac = contributing.contributing_fraction(fm, int(cells[i]))
+        callback(tab.iloc[i], frac)
+        out[i] = float(np.nansum(frac.astype(np.float64).ravel() * area))
+    return out
+
+
+# below this many window cells in all, forking workers costs more than it saves
+FORK_MIN_CELLS = 8_000_000
+# state shared with forked polygon workers (inherited copy-on-write, never pickled)
+_SHARED: dict = {}
+
+
+def _window_job(job):
+    """Polygonize one job in a window of the shared label grid; returns WKB.
+
+    ``("range", lo, hi, box)``: one full catchment (labels lo..hi dissolved);
+    ``("labels", lo, hi, box)``: every label lo..hi as its own polygon."""
+    import shapely
+    from affine import Affine
+
+    from .polygons import labels_to_polygons
+
+    kind, lo, hi, box = job
+    labels, transform, seg = _SHARED["labels"], _SHARED["transform"], _SHARED["seg"]
+    r0, r1, c0, c1 = box
+    sub = labels[r0:r1 + 1, c0:c1 + 1]
+    tr = transform @ Affine.translation(c0, r0)
+    with _warnings.catch_warnings():
+        _warnings.simplefilter("ignore")
+        if kind == "range":
+            got = labels_to_polygons(_catchments.range_mask(sub, lo, hi), tr)
+            got = {lo: got.get(1)}
         else:
-            out[i] = float(contributing.contributing_area_m2(fm, cell))
+            win = np.where(_catchments.range_mask(sub, lo, hi) > 0, sub, 0)
+            got = labels_to_polygons(win, tr)
+    keys = [k for k, g in got.items() if g is not None]
+    geoms = np.array([got[k] for k in keys], dtype=object)
+    if seg and geoms.size:
+        geoms = shapely.segmentize(geoms, seg)
+    return kind, keys, list(shapely.to_wkb(geoms)) if geoms.size else []
+
+
+def _run_jobs(jobs, workers, progress):
+    """Run polygon jobs in forked processes (GDAL's polygonize holds the GIL, so
+    threads would not use the second core); in this process when workers == 1 or fork
+    is unavailable."""
+    import multiprocessing as mp
+
+    import shapely
+
+    cells = sum((j[3][1] - j[3][0] + 1) * (j[3][3] - j[3][2] + 1) for j in jobs)
+    use_fork = (workers > 1 and len(jobs) > 1 and cells >= FORK_MIN_CELLS
+                and "fork" in mp.get_all_start_methods())
+    if use_fork:
+        ctx = mp.get_context("fork")
+        pool = ctx.Pool(min(workers, len(jobs)))
+        it = pool.imap_unordered(_window_job, jobs, chunksize=1)
+    else:
+        pool = None
+        it = map(_window_job, jobs)
+    if progress is not None:
+        it = progress(it, total=len(jobs), desc="polygons")
+    out = {"range": {}, "labels": {}}
+    try:
+        for kind, keys, wkbs in it:
+            geoms = shapely.from_wkb(np.array(wkbs, dtype=object)) if wkbs else []
+            out[kind].update(zip(keys, geoms))
+    finally:
+        if pool is not None:
+            pool.close()
+            pool.join()
     return out
 
 
 def _polygons(t, labels, n, L, size, rmin, rmax, cmin, cmax, workers, progress):
-    """Sub-catchment polygons (one polygonize of the label grid) and full-catchment
-    polygons (a leaf's is its sub-catchment; others polygonize their label range in the
-    catchment's bounding-box window, in threads)."""
+    """Sub-catchment polygons and full-catchment polygons from cell boundaries.
+
+    Sub-catchments are polygonized in ``workers`` bands of the label range (each over the
+    bounding box of its labels); a leaf's full catchment is its sub-catchment; any other
+    full catchment is its label range polygonized in the catchment's bounding box. The
+    jobs run in forked worker processes, largest windows first."""
     import shapely
 
-    from .polygons import ground_area_perimeter, labels_to_polygons
+    from .polygons import ground_area_perimeter
 
     seg = None
     if t.crs.is_geographic:
         seg = min(abs(t.transform.a), abs(t.transform.e)) * 1.0000001
-    with _warnings.catch_warnings():
-        _warnings.simplefilter("ignore")
-        subs = labels_to_polygons(labels, t.transform, workers=workers)
-    if seg:
-        keys = list(subs)
-        segd = shapely.segmentize(np.array([subs[k] for k in keys], dtype=object), seg)
-        subs = dict(zip(keys, segd))
-    full = {}
-    inner = [lab for lab in L if size[lab] > 1]
-    for lab in L:
-        if size[lab] == 1:
-            full[lab] = subs.get(lab)
-
-    def job(lab):
-        box = (rmin[lab], rmax[lab], cmin[lab], cmax[lab])
-        return lab, _polygonize_window(labels, lab, lab + size[lab] - 1, box, t.transform,
-                                       seg)
-
-    # largest windows first so the threads finish together
-    inner.sort(key=lambda k: -(rmax[k] - rmin[k] + 1) * (cmax[k] - cmin[k] + 1))
-    if inner:
-        with ThreadPoolExecutor(max(1, int(workers))) as ex:
-            it = ex.map(job, inner)
-            if progress is not None:
-                it = progress(it, total=len(inner), desc="catchment polygons")
-            for lab, g in it:
-                full[lab] = g
-    polys = [full.get(lab) for lab in L]
+    _SHARED.update(labels=labels, transform=t.transform, seg=seg)
+    try:
+        jobs = []
+        nb = max(1, min(int(workers), n))
+        bounds = np.linspace(1, n + 1, nb + 1).astype(np.int64)
+        for lo, hi in zip(bounds[:-1], bounds[1:] - 1):
+            if hi < lo:
+                continue
+            box = (int(rmin[lo:hi + 1].min()), int(rmax[lo:hi + 1].max()),
+                   int(cmin[lo:hi + 1].min()), int(cmax[lo:hi + 1].max()))
+            jobs.append(("labels", int(lo), int(hi), box))
+        for lab in L:
+            if size[lab] > 1:
+                jobs.append(("range", int(lab), int(lab + size[lab] - 1),
+                             (int(rmin[lab]), int(rmax[lab]), int(cmin[lab]),
+                              int(cmax[lab]))))
+        jobs.sort(key=lambda j: -(j[3][1] - j[3][0] + 1) * (j[3][3] - j[3][2] + 1))
+        res = _run_jobs(jobs, int(workers), progress)
+    finally:
+        _SHARED.clear()
+    subs = res["labels"]
+    full = res["range"]
+    polys = [full.get(lab) if size[lab] > 1 else subs.get(lab) for lab in L]
     subpolys = [subs.get(lab) for lab in L]
     if t.crs.is_geographic:
         perim = np.array([ground_area_perimeter(g, t.crs)[1] if g is not None else np.nan
@@ -445,6 +491,5 @@ def _polygons(t, labels, n, L, size, rmin, rmax, cmin, cmax, workers, progress):
         from .geometry import _linear_unit_to_metres
 
         k = _linear_unit_to_metres(t.crs)
-        arr = np.array(polys, dtype=object)
-        perim = shapely.length(arr) * k
+        perim = shapely.length(np.array(polys, dtype=object)) * k
     return polys, subpolys, perim

@@ -15,7 +15,8 @@ Timed (same DEM, same process, same run):
   the whole label step of ``delineate`` (labels, outlet tree, depth-first relabelling);
 - table: ``delineate(..., polygons=False)`` for N outlets (snapping, tree, per-catchment
   table);
-- polygons + table: ``delineate(..., polygons=True, workers=2)`` for M outlets;
+- polygons + table: ``delineate(..., polygons=True)`` for M outlets, with 1 and 2
+  worker processes (forked only for big jobs; see catchments.FORK_MIN_CELLS);
 - pysheds 0.5 ``Grid.catchment`` per outlet on a sample, extrapolated to N outlets; its
   masks are checked against ours on the sample.
 """
@@ -104,10 +105,11 @@ def main(argv=None):
           f"{t_table:.2f} s")
     m = min(args.catchments, len(pts))
     sel = rng.choice(len(pts), m, replace=False)
-    d2, t_poly = timed(delineate, fm, [pts[i] for i in np.sort(sel)], snap_radius_m=0,
-                       polygons=True, workers=2)
-    print(f"delineate with polygons and table, {len(d2.table)} catchments, 2 threads: "
-          f"{t_poly:.2f} s")
+    for w in (1, 2):
+        d2, t_poly = timed(delineate, fm, [pts[i] for i in np.sort(sel)], snap_radius_m=0,
+                           polygons=True, workers=w)
+        print(f"delineate with polygons and table, {len(d2.table)} catchments, "
+              f"workers={w}: {t_poly:.2f} s")
 
     try:
         from pysheds.grid import Grid

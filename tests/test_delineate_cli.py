@@ -173,3 +173,27 @@ def test_fraction_rasters_on_d8_warns(flowdir, tmp_path, capsys):
                 "--fraction-rasters"]) == 0
     assert "D8" in capsys.readouterr().err
     assert not (tmp_path / "f" / "contributing_fraction").exists()
+
+
+def test_fraction_rasters_on_dinf_folder(tmp_path):
+    """A D∞ flow folder: one contributing-fraction GeoTIFF per outlet, named by its
+    sanitised id, whose fractions × cell area sum to the contributing area in the table
+    (rasterio reads them back)."""
+    pytest.importorskip("basinkit.contributing")
+    z = fractal_dem(50, seed=13)
+    fm = route(terrain_from_array(z, cellsize=10, crs="EPSG:32632"), method="dinf")
+    fm.save(tmp_path / "flow")
+    out = tmp_path / "out"
+    code = run(["-q", "delineate", tmp_path / "flow", "--outlet", "../a b=255,255",
+                "--outlet", "205,105", "-o", out, "--fraction-rasters"])
+    assert code == 0
+    t = pd.read_csv(out / "catchments.csv")
+    assert "contributing_area_m2" in t
+    files = sorted(p.name for p in (out / "contributing_fraction").iterdir())
+    assert files == ["a_b.tif", "outlet_2.tif"]
+    for fid, a in zip(t["file_id"], t["contributing_area_m2"]):
+        with rasterio.open(out / "contributing_fraction" / f"{fid}.tif") as ds:
+            f = ds.read(1).astype(float)
+        assert abs(np.nansum(f) * 100.0 - a) <= 1e-4 * a
+    meta = json.loads((out / "delineation.json").read_text())
+    assert set(meta["contributing_fraction_rasters"]) == {"../a b", "outlet_2"}
