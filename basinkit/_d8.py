@@ -12,6 +12,71 @@ from ._fill import DCOL, DROW
 NO_FLOW = -3  # internal: a cell with no downslope neighbour that is not an exit (a flat)
 
 
+@njit(cache=True, nogil=True, inline='always')
+def _steeper(zc, zn, dk, best, bk, k):
+    # a neighbour not lower (or NaN, nodata) gives s <= 0 or NaN, never above best >= 0,
+    # so no separate test is needed; the choice compiles to selects rather than branches
+    s = (zc - zn) / dk
+    up = s > best
+    return (s if up else best), (k if up else bk)
+
+
+@njit(cache=True, nogil=True)
+def _d8_row(r, zf, vf, sf, bf, dist, rec, nr, nc):
+    """Receivers of one row (see :func:`d8_receivers`); returns its number of flat cells."""
+    o0 = -nc
+    o1 = -nc + 1
+    o3 = nc + 1
+    o4 = nc
+    o5 = nc - 1
+    o7 = -nc - 1
+    d0 = dist[r, 0]
+    d1 = dist[r, 1]
+    d2 = dist[r, 2]
+    d3 = dist[r, 3]
+    d4 = dist[r, 4]
+    d5 = dist[r, 5]
+    d6 = dist[r, 6]
+    d7 = dist[r, 7]
+    interior_row = r > 0 and r < nr - 1
+    nrow_flat = 0
+    for c in range(nc):
+        i = r * nc + c
+        if not vf[i]:
+            rec[i] = -2
+            continue
+        if bf[i]:
+            rec[i] = -1
+            continue
+        zc = zf[i]
+        best = 0.0
+        bk = -1
+        if interior_row and c > 0 and c < nc - 1:
+            best, bk = _steeper(zc, zf[i + o0], d0, best, bk, 0)
+            best, bk = _steeper(zc, zf[i + o1], d1, best, bk, 1)
+            best, bk = _steeper(zc, zf[i + 1], d2, best, bk, 2)
+            best, bk = _steeper(zc, zf[i + o3], d3, best, bk, 3)
+            best, bk = _steeper(zc, zf[i + o4], d4, best, bk, 4)
+            best, bk = _steeper(zc, zf[i + o5], d5, best, bk, 5)
+            best, bk = _steeper(zc, zf[i - 1], d6, best, bk, 6)
+            best, bk = _steeper(zc, zf[i + o7], d7, best, bk, 7)
+        else:
+            for k in range(8):
+                rr = r + DROW[k]
+                cc = c + DCOL[k]
+                if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
+                    continue
+                best, bk = _steeper(zc, zf[rr * nc + cc], dist[r, k], best, bk, k)
+        if bk >= 0:
+            rec[i] = (r + DROW[bk]) * nc + c + DCOL[bk]
+        elif sf[i]:
+            rec[i] = -1
+        else:
+            rec[i] = NO_FLOW
+            nrow_flat += 1
+    return nrow_flat
+
+
 @njit(cache=True, nogil=True, parallel=True)
 def d8_receivers(z, valid, seeds, base_level, dist):
     """Steepest-descent receiver of every cell (O'Callaghan & Mark 1984).
@@ -20,47 +85,19 @@ def d8_receivers(z, valid, seeds, base_level, dist):
     (``dist[row, k]``). Ties go to the first neighbour in the order N, NE, E, SE, S, SW, W,
     NW. Exits (``seeds``) without a lower neighbour get -1, base-level cells always -1;
     other cells without a lower neighbour get NO_FLOW (they lie on a flat).
-    Rows are processed in parallel.
+    Rows are processed in parallel; interior cells take a path without bounds checks, on
+    flat indices with the neighbour offsets worked out once.
     """
     nr, nc = z.shape
-    rec = np.empty(nr * nc, dtype=np.int32)
+    n = nr * nc
+    zf = z.ravel()
+    vf = valid.ravel()
+    sf = seeds.ravel()
+    bf = base_level.ravel()
+    rec = np.empty(n, dtype=np.int32)
     flats_in_row = np.zeros(nr, dtype=np.int64)
     for r in prange(nr):
-        d = dist[r]
-        interior_row = r > 0 and r < nr - 1
-        nrow_flat = 0
-        for c in range(nc):
-            i = r * nc + c
-            if not valid[r, c]:
-                rec[i] = -2
-                continue
-            if base_level[r, c]:
-                rec[i] = -1
-                continue
-            zc = z[r, c]
-            best = 0.0
-            bk = -1
-            inside = interior_row and c > 0 and c < nc - 1
-            for k in range(8):
-                rr = r + DROW[k]
-                cc = c + DCOL[k]
-                if not inside:
-                    if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
-                        continue
-                zn = z[rr, cc]
-                if zn < zc:  # NaN (nodata) compares False
-                    s = (zc - zn) / d[k]
-                    if s > best:
-                        best = s
-                        bk = k
-            if bk >= 0:
-                rec[i] = (r + DROW[bk]) * nc + c + DCOL[bk]
-            elif seeds[r, c]:
-                rec[i] = -1
-            else:
-                rec[i] = NO_FLOW
-                nrow_flat += 1
-        flats_in_row[r] = nrow_flat
+        flats_in_row[r] = _d8_row(r, zf, vf, sf, bf, dist, rec, nr, nc)
     return rec, flats_in_row.sum()
 
 
@@ -389,17 +426,92 @@ def accumulate_count(rec, stack, n):
 
 
 @njit(cache=True, nogil=True)
+def _row_of(i, ncols, inv):
+    """``i // ncols`` by a floating-point estimate and one correction step (exact for
+    flat indices below 2**52); cheaper than an integer division in random-order passes."""
+    q = np.int64(i * inv)
+    if q * ncols > i:
+        q -= 1
+    elif (q + 1) * ncols <= i:
+        q += 1
+    return q
+
+
+@njit(cache=True, nogil=True)
 def accumulate_area(rec, stack, ncols, row_area):
     """Upstream area (m²) from the per-row cell area, float64."""
     n = rec.shape[0]
     acc = np.zeros(n, dtype=np.float64)
+    inv = 1.0 / ncols
     for t in range(stack.shape[0] - 1, -1, -1):
         i = stack[t]
-        acc[i] += row_area[i // ncols]
+        acc[i] += row_area[_row_of(i, ncols, inv)]
         r = rec[i]
         if r >= 0:
             acc[r] += acc[i]
     return acc
+
+
+@njit(cache=True, nogil=True)
+def stack_count_area(rec, ncols, row_area):
+    """The stack, the cell count and the upstream area (m²) in one sweep.
+
+    The same sweep as :func:`stack_and_count` (Braun & Willett 2013 order), which visits the
+    cells in exactly the order of a backward pass over the stack, so the area sums equal
+    those of :func:`accumulate_area` bit for bit.
+
+    Returns (stack int32, count int32 per cell, area float64 per cell; 0 on nodata).
+    """
+    n = rec.shape[0]
+    pending = np.zeros(n, dtype=np.uint8)
+    nvalid = 0
+    for i in range(n):
+        r = rec[i]
+        if r >= 0:
+            pending[r] += 1
+        if r != -2:
+            nvalid += 1
+    count = np.zeros(n, dtype=np.int32)
+    area = np.zeros(n, dtype=np.float64)
+    stack = np.empty(nvalid, dtype=np.int32)
+    pos = nvalid
+    by_offset = ncols >= 3  # the row step follows from the index step to a neighbour
+    row = 0
+    col = -1
+    for i in range(n):
+        col += 1
+        if col == ncols:
+            col = 0
+            row += 1
+        if pending[i] != 0 or rec[i] == -2 or count[i] != 0:
+            continue
+        j = i
+        rj = row
+        while True:
+            count[j] += 1
+            area[j] += row_area[rj]
+            pos -= 1
+            stack[pos] = j
+            r = rec[j]
+            if r < 0:
+                break
+            count[r] += count[j]
+            area[r] += area[j]
+            pending[r] -= 1
+            if pending[r] != 0:
+                break
+            if by_offset:
+                d = r - j
+                if d > 1:
+                    rj += 1
+                elif d < -1:
+                    rj -= 1
+            else:
+                rj = r // ncols
+            j = r
+    if pos != 0:
+        stack = stack[pos:].copy()
+    return stack, count, area
 
 
 @njit(cache=True, nogil=True)
