@@ -190,10 +190,15 @@ def dinf_kernel(z, rec8, dist):
                 frac[i, 0] = 1.0
             else:
                 fc = np.float32(1.0 - pd)
-                rec[i, 0] = jc
-                rec[i, 1] = jd
-                frac[i, 0] = fc
-                frac[i, 1] = np.float32(1.0 - np.float64(fc))
+                fd = np.float32(1.0 - np.float64(fc))
+                if fd <= 0.0:  # the diagonal share is below float32 resolution
+                    rec[i, 0] = jc
+                    frac[i, 0] = 1.0
+                else:
+                    rec[i, 0] = jc
+                    rec[i, 1] = jd
+                    frac[i, 0] = fc
+                    frac[i, 1] = fd
             a = CARD_AZIMUTH[bf] + FACET_SIGN[bf] * math.degrees(br)
             if a >= 360.0:
                 a -= 360.0
@@ -257,15 +262,19 @@ def mfd_kernel(z, rec8, dist, exponent):
                 rec[i, 0] = d8
                 frac[i, 0] = 1.0
                 continue
+            big = 0
+            for t in range(1, m):
+                if w[t] > w[big]:
+                    big = t
             acc = 0.0
             for t in range(m):
                 rec[i, t] = js[t]
-                if t < m - 1:
+                if t != big:
                     f32 = np.float32(w[t] / tot)
                     frac[i, t] = f32
                     acc += np.float64(f32)
-                else:  # the last share closes the sum
-                    frac[i, t] = np.float32(max(1.0 - acc, 0.0))
+            # the largest share (>= 1/8) closes the sum, so no share rounds to zero
+            frac[i, big] = np.float32(1.0 - acc)
     return rec, frac
 
 

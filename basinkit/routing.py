@@ -130,15 +130,13 @@ class FlowModel:
                 acc = _d8.accumulate_area(self.receiver, self.stack, self.ncols,
                                           self.terrain.geometry.area)
         else:
-            from ._multi import accumulate_multi
+            from ._multi import accumulate_multi, multi_for
 
-            if self.multi is None or self.parameters.get("method") != method:
-                self.multi = self._multi_for(method)
             if w is None:
                 w = (np.ones(n) if unit == "cells"
                      else np.repeat(self.terrain.geometry.area, self.ncols))
                 w = np.where(self.terrain.valid.ravel(), w, 0.0)
-            rec, frac, order = self.multi
+            rec, frac, order = multi_for(self, method)
             acc = accumulate_multi(rec, frac, order, w)
         acc = acc.reshape(self.shape)
         if acc.dtype.kind == "f":
@@ -146,11 +144,6 @@ class FlowModel:
         if key is not None:
             self._cache[key] = acc
         return acc
-
-    def _multi_for(self, method):
-        from ._multi import multi_receivers
-
-        return multi_receivers(self, method, self.parameters.get("mfd_exponent", 1.1))
 
     def receiver_distance(self) -> np.ndarray:
         """Distance (m, on the ground) from each cell centre to its D8 receiver, flat."""
@@ -378,11 +371,11 @@ def load_flow(folder) -> FlowModel:
     if (p / FILES["input"]).exists():
         fm.input_elevation = _read_band(p / FILES["input"])[0].astype(np.float32)
     if fm.method in ("dinf", "mfd"):
-        from ._multi import multi_receivers
+        from ._multi import dinf_azimuth, multi_receivers
 
         fm.multi = multi_receivers(fm, fm.method, params.get("mfd_exponent", 1.1))
-        if (p / FILES["dinf"]).exists():
-            fm.dinf_azimuth = _read_band(p / FILES["dinf"])[0]
+        if fm.method == "dinf":  # same kernel, same surface: equals the saved raster
+            fm.dinf_azimuth = dinf_azimuth(fm)
     fm.parameters["flow_folder"] = str(p.resolve())
     fm.meta = meta
     return fm
