@@ -39,8 +39,10 @@ class Delineation:
         y_snapped`` and ``lon_snapped, lat_snapped`` in EPSG:4326), ``snap_distance_m``,
         ``upstream_area_given_cell_m2``, full-catchment ``area_m2, area_km2, area_ha,
         area_acres, area_mi2, cell_count, perimeter_m``, ``subcatchment_area_m2``,
-        ``upstream_outlet_count``, ``upstream_outlet_ids`` (``;``-separated),
-        ``downstream_outlet_id``, ``elevation_min_m, elevation_max_m, elevation_mean_m,
+        ``upstream_outlet_count`` and ``upstream_outlet_ids`` (``;``-separated: every
+        outlet inside the catchment, nested at any depth), ``downstream_outlet_id`` (the
+        next outlet downstream, empty at a root of the outlet tree),
+        ``subcatchment_cell_count``, ``elevation_min_m, elevation_max_m, elevation_mean_m,
         relief_m``, ``touches_edge`` and ``warning``. With D∞/MFD routing also
         ``contributing_area_m2``.
     errors : pandas.DataFrame
@@ -379,7 +381,7 @@ def _contributing(fm, tab, msgs, progress, callback):
 
 
 # below this many window cells in all, forking workers costs more than it saves
-FORK_MIN_CELLS = 8_000_000
+FORK_MIN_CELLS = 30_000_000
 # state shared with forked polygon workers (inherited copy-on-write, never pickled)
 _SHARED: dict = {}
 
@@ -426,6 +428,8 @@ def _run_jobs(jobs, workers, progress):
     use_fork = (workers > 1 and len(jobs) > 1 and cells >= FORK_MIN_CELLS
                 and "fork" in mp.get_all_start_methods())
     if use_fork:
+        # compile/load the kernel here so that the forked workers inherit it
+        _catchments.range_mask(np.zeros((1, 1), dtype=np.int32), 1, 1)
         ctx = mp.get_context("fork")
         pool = ctx.Pool(min(workers, len(jobs)))
         it = pool.imap_unordered(_window_job, jobs, chunksize=1)
