@@ -9,9 +9,9 @@ pond, a borrow pit and a small sinkhole) are pressed in, and a road embankment i
 across the main valley; the culvert that is meant to pass the stream under it is written as
 a line layer so that it can be burned into the DEM.
 
-Run from anywhere (the outputs land beside this script)::
+Run from anywhere (the outputs land beside this script, or in the folder given)::
 
-    python demo_rasters/make_demo.py
+    python demo_rasters/make_demo.py [OUTPUT_FOLDER]
 
 The output is deterministic: the same seed gives byte-identical files.
 
@@ -281,14 +281,18 @@ def sampling_points(z, info, rng):
     return rows
 
 
-def main():
+def main(out_dir=None):
+    """Write the demo files into ``out_dir`` (default: beside this script)."""
     import pandas as pd
+
+    out = Path(out_dir) if out_dir is not None else HERE
+    out.mkdir(parents=True, exist_ok=True)
 
     z, info = build()
     rng = np.random.default_rng(SEED + 1)
-    write_geotiff(HERE / "upland_valley.tif", z, TRANSFORM, CRS, nodata=float("nan"))
+    write_geotiff(out / "upland_valley.tif", z, TRANSFORM, CRS, nodata=float("nan"))
     outlets = sampling_points(z, info, rng)
-    write_csv(HERE / "outlets.csv", pd.DataFrame(outlets))
+    write_csv(out / "outlets.csv", pd.DataFrame(outlets))
     crs_obj = {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}}
     culverts = {"type": "FeatureCollection", "crs": crs_obj, "features": [{
         "type": "Feature",
@@ -301,13 +305,15 @@ def main():
         "properties": {"id": "proposed_road", "crest_elevation_m": round(info["crest"], 2)},
         "geometry": {"type": "LineString",
                      "coordinates": [[round(a, 2), round(b, 2)] for a, b in info["road"]]}}]}
-    write_json(HERE / "culverts.geojson", culverts)
-    write_json(HERE / "road.geojson", road)
-    print(f"wrote {HERE / 'upland_valley.tif'}: {z.shape[0]} x {z.shape[1]} cells of "
+    write_json(out / "culverts.geojson", culverts)
+    write_json(out / "road.geojson", road)
+    print(f"wrote {out / 'upland_valley.tif'}: {z.shape[0]} x {z.shape[1]} cells of "
           f"{CELL:g} m, elevation {np.nanmin(z):.1f}-{np.nanmax(z):.1f} m; "
           f"{len(outlets)} outlets; embankment {info['embankment_cells']} cells, crest "
           f"{info['crest']:.1f} m over a valley floor of {info['floor']:.1f} m")
 
 
 if __name__ == "__main__":
-    main()
+    import sys
+
+    main(sys.argv[1] if len(sys.argv) > 1 else None)

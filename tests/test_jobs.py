@@ -1,0 +1,215 @@
+"""Job files: validation of bad job files (each message names the key), defaults, path
+resolution, units, and a small job run end to end on a synthetic valley.
+
+Sources: TOML 1.0 (toml.io) for the file syntax, read with the standard library's tomllib;
+SI definitions of the hectare (10^4 m²) and the square kilometre (10^6 m²); the rest is
+common practice (no source) for command-line tools: one clear message, non-zero exit, no
+traceback.
+"""
+
+import textwrap
+
+import numpy as np
+import pytest
+
+from basinkit.errors import BasinkitError, InputError
+from basinkit.jobs import JobFileError, job_from_dict, read_job, run_job
+
+
+@pytest.fixture(scope="module")
+def valley(tmp_path_factory):
+    """A small V-shaped valley draining south (60 × 40 cells of 10 m) written as a GeoTIFF,
+    an outlets CSV (one good point, one off the grid) and a culvert line."""
+    from affine import Affine
+
+    from basinkit.writers import write_geotiff
+
+    d = tmp_path_factory.mktemp("valley")
+    nr, nc = 60, 40
+    rows = np.arange(nr)[:, None]
+    cols = np.arange(nc)[None, :]
+    z = 100.0 + 0.5 * (nr - 1 - rows) + 0.8 * np.abs(cols - nc // 2)
+    t = Affine(10.0, 0, 500000.0, 0, -10.0, 5000600.0)
+    write_geotiff(d / "dem.tif", z.astype(np.float32), t, "EPSG:32633", nodata=float("nan"))
+    x_out, y_out = 500000.0 + 20.5 * 10, 5000600.0 - 55.5 * 10
+    (d / "outlets.csv").write_text(
+        "id,x,y,description\n"
+        f"gauge,{x_out},{y_out},the valley outlet\n"
+        "far_away,900000,100,off the grid\n")
+    return d
+
+
+def _write(path, text):
+    path.write_text(textwrap.dedent(text), encoding="utf-8")
+    return path
+
+
+def test_unknown_key_is_named_with_a_suggestion(valley):
+    job = _write(valley / "j1.toml", """
+        [inputs]
+        dem = "dem.tif"
+        [channels]
+        min_aera = "2ha"
+        """)
+    with pytest.raises(JobFileError) as e:
+        read_job(job)
+    msg = str(e.value)
+    assert "min_aera" in msg and "[channels]" in msg and "did you mean 'min_area'" in msg
+
+
+def test_unknown_section_is_named(valley):
+    job = _write(valley / "j2.toml", """
+        [inputs]
+        dem = "dem.tif"
+        [chanels]
+        min_area = 1
+        """)
+    with pytest.raises(JobFileError, match=r"unknown section \[chanels\].*'channels'"):
+        read_job(job)
+
+
+@pytest.mark.parametrize("section,key,value,expect", [
+    ("outlets", "snap_radius_m", '"forty"', "must be a number"),
+    ("channels", "min_order", "1.5", "must be a whole number"),
+    ("channels", "min_order", "true", "must be a whole number"),
+    ("outputs", "report", '"yes"', "must be true or false"),
+    ("conditioning", "method", '"flood"', "must be one of fill, breach, none"),
+    ("channels", "min_area", '"2 acres"', "cannot read"),
+    ("inputs", "burn_lines", "[1, 2]", "must be a list of file paths"),
+])
+def test_wrong_types_name_the_key(valley, section, key, value, expect):
+    body = f'[inputs]\ndem = "dem.tif"\n' if section != "inputs" else ""
+    if section == "inputs":
+        body = f'[inputs]\ndem = "dem.tif"\n{key} = {value}\n'
+    else:
+        body += f"[{section}]\n{key} = {value}\n"
+    job = _write(valley / "jt.toml", body)
+    with pytest.raises(JobFileError) as e:
+        read_job(job)
+    assert key in str(e.value) and expect in str(e.value)
+
+
+def test_missing_required_and_missing_files(valley):
+    with pytest.raises(JobFileError, match=r"\[inputs\] dem is required"):
+        read_job(_write(valley / "j3.toml", "[outputs]\nreport = false\n"))
+    with pytest.raises(JobFileError, match=r"\[inputs\] dem: the file .*nope.tif.* does not "
+                                           r"exist"):
+        read_job(_write(valley / "j4.toml", '[inputs]\ndem = "nope.tif"\n'))
+    with pytest.raises(JobFileError, match=r"\[inputs\] burn_lines: the file"):
+        read_job(_write(valley / "j5.toml",
+                        '[inputs]\ndem = "dem.tif"\nburn_lines = ["gone.geojson"]\n'))
+    with pytest.raises(JobFileError, match="does not exist"):
+        read_job(valley / "no_such_job.toml")
+
+
+def test_bad_toml_syntax_and_ranges(valley):
+    with pytest.raises(JobFileError, match="cannot read the job file"):
+        read_job(_write(valley / "j6.toml", '[inputs\ndem = "dem.tif"\n'))
+    with pytest.raises(JobFileError, match=r"\[outlets\] snap_radius_m must be zero or "
+                                           "positive"):
+        job_from_dict({"inputs": {"dem": "dem.tif"}, "outlets": {"snap_radius_m": -5}},
+                      base=valley)
+    with pytest.raises(JobFileError, match=r"\[profiles\] concavity must lie between"):
+        job_from_dict({"inputs": {"dem": "dem.tif"}, "profiles": {"concavity": 3}},
+                      base=valley)
+    # every job-file error is a user error (InputError) and so prints without a traceback
+    assert issubclass(JobFileError, InputError) and issubclass(JobFileError, BasinkitError)
+
+
+def test_defaults_units_and_relative_paths(valley, tmp_path, monkeypatch):
+    """Paths resolve against the job file's folder, not the working directory; areas
+    accept m2, ha and km2 (SI: 1 ha = 1e4 m², 1 km² = 1e6 m²)."""
+    job = _write(valley / "j7.toml", """
+        [inputs]
+        dem = "dem.tif"
+        [channels]
+        min_area = "2ha"
+        [profiles]
+        reference_area = "0.5km2"
+        [outlets]
+        snap_min_area = 300
+        """)
+    monkeypatch.chdir(tmp_path)  # somewhere else entirely
+    j = read_job(job)
+    assert j["inputs"]["dem"] == valley / "dem.tif"
+    assert j["channels"]["min_area"] == pytest.approx(2e4)
+    assert j["profiles"]["reference_area"] == pytest.approx(5e5)
+    assert j["outlets"]["snap_min_area"] == pytest.approx(300.0)  # bare number: m²
+    # defaults filled in
+    assert j["conditioning"]["method"] == "fill"
+    assert j["routing"]["method"] == "d8"
+    assert j["outputs"]["folder"] == valley / "basinkit-output"
+
+
+def test_small_job_runs_and_carries_on_past_a_bad_outlet(valley, tmp_path):
+    """A job on the synthetic valley: the good outlet is delineated, the one off the grid
+    is recorded with its reason and the run carries on (batch rule). The valley's outlet
+    drains the whole V above it: the cells from its row up, 56 rows × 40 columns of
+    100 m² each, minus the cells that drain sideways off the east and west edges — so the
+    area lies between the V's central strip and the full width (geometry of the surface,
+    common practice)."""
+    job = _write(valley / "j8.toml", """
+        [job]
+        name = "synthetic valley"
+        [inputs]
+        dem = "dem.tif"
+        outlets = "outlets.csv"
+        [outlets]
+        snap_radius_m = 20
+        snap_min_area = "0.1ha"
+        [channels]
+        min_area = "0.5ha"
+        [outputs]
+        report = false
+        """)
+    res = run_job(job, output=tmp_path / "out")
+    assert res.stages["delineate"]["status"] == "done"
+    bad = res.outlets[res.outlets["outlet_id"] == "far_away"]
+    assert len(bad) == 1 and "outside the grid" in bad["error"].iloc[0]
+    good = res.outlets[res.outlets["outlet_id"] == "gauge"].iloc[0]
+    area_m2 = good["area_km2"] * 1e6
+    assert 56 * 100.0 < area_m2 <= 56 * 40 * 100.0
+    assert (tmp_path / "out" / "outlet_errors.csv").exists()
+    assert (tmp_path / "out" / "provenance.json").exists()
+    assert "report" not in res.stages and not (tmp_path / "out" / "report.html").exists()
+
+
+def test_job_without_outlets_skips_outlet_stages(valley, tmp_path):
+    job = _write(valley / "j9.toml", """
+        [inputs]
+        dem = "dem.tif"
+        [outputs]
+        report = false
+        """)
+    res = run_job(job, output=tmp_path / "o")
+    assert res.stages["condition and route"]["status"] == "done"
+    assert res.stages["channels"]["status"] == "done"
+    for stage in ("delineate", "profiles", "morphometry"):
+        assert res.stages[stage]["status"] == "skipped"
+        assert res.stages[stage]["note"]
+
+
+def test_cli_prints_one_message_and_exits_nonzero(valley, capsys):
+    from basinkit.cli import main
+
+    job = _write(valley / "j10.toml", '[inputs]\ndem = "dem.tif"\n[routing]\nmethod = 8\n')
+    with pytest.raises(SystemExit) as e:
+        main(["run", str(job)])
+    assert e.value.code == 2
+    err = capsys.readouterr().err
+    assert "[routing] method must be one of d8, dinf, mfd" in err
+    assert "Traceback" not in err
+
+
+def test_cli_check_prints_the_job_with_defaults(valley, capsys):
+    import json
+
+    from basinkit.cli import main
+
+    job = _write(valley / "j11.toml", '[inputs]\ndem = "dem.tif"\n')
+    with pytest.raises(SystemExit) as e:
+        main(["run", str(job), "--check"])
+    assert e.value.code == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["inputs"]["dem"].endswith("dem.tif")
+    assert out["channels"]["min_area"] == 1e4
