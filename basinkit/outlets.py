@@ -246,7 +246,8 @@ def _read_vector(p, crs, id_column):
 def sanitize_ids(ids):
     """File-name-safe, unique versions of outlet ids.
 
-    Characters other than letters, digits, ``.``, ``-`` and ``_`` become ``_``; leading
+    Accented letters lose their accents (NFKD); characters other than ASCII letters,
+    digits, ``.``, ``-`` and ``_`` become ``_``; leading
     dots and separators are dropped (no hidden files, no ``..``, no path separators);
     reserved device names get a leading ``_``; names are cut to 80 characters. Ids that
     end up equal (ignoring case, for case-insensitive file systems) get ``_2``, ``_3``, ...
@@ -261,12 +262,15 @@ def sanitize_ids(ids):
 
     Examples
     --------
-    >>> sanitize_ids(["../etc/passwd", "a b", "A_B", ""])
-    ['etc_passwd', 'a_b', 'A_B_2', 'outlet']
+    >>> sanitize_ids(["../etc/passwd", "a b", "A_B", "", "Zürich Süd"])
+    ['etc_passwd', 'a_b', 'A_B_2', 'outlet', 'Zurich_Sud']
     """
+    import unicodedata
+
     out, seen = [], set()
     for raw in ids:
-        s = re.sub(r"[^A-Za-z0-9._-]+", "_", str(raw))
+        s = unicodedata.normalize("NFKD", str(raw)).encode("ascii", "ignore").decode()
+        s = re.sub(r"[^A-Za-z0-9._-]+", "_", s)
         s = re.sub(r"_+", "_", s)
         s = s.lstrip("._-").rstrip("._ ")
         s = re.sub(r"\.{2,}", ".", s)[:80] or "outlet"
