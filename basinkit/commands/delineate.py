@@ -54,7 +54,7 @@ _DROP = ["given_crs", "row_given", "col_given", "cell_given", "upstream_area_m2"
               help="D-infinity/MFD flow folders: write each outlet's contributing-fraction "
                    "raster (share of each cell's flow reaching the outlet).")
 @click.option("--workers", type=int, default=2, show_default=True,
-              help="Threads used to build the polygons.")
+              help="Worker processes for the polygons (forked on large jobs only).")
 @overwrite_option
 @click.pass_obj
 def command(console, flowdir, outlet_values, outlet_file, outlet_crs, id_column,
