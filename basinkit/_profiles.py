@@ -378,3 +378,82 @@ def knickpoints_one(x, y, min_nodes, noise_var, min_ratio, min_relief, max_break
     order = np.argsort(ks[:nk])
     return (ks[:nk][order], kb[:nk][order], ka[:nk][order], kd[:nk][order],
             kr[:nk][order])
+
+
+@njit(cache=True, nogil=True)
+def donor_lists(rec):
+    """Donors of every cell in compressed form: the donors of cell i are
+    ``donors[offsets[i]:offsets[i + 1]]`` (increasing cell index). One O(N) pass."""
+    n = rec.shape[0]
+    offsets = np.zeros(n + 1, dtype=np.int64)
+    for i in range(n):
+        r = rec[i]
+        if r >= 0:
+            offsets[r + 1] += 1
+    for i in range(n):
+        offsets[i + 1] += offsets[i]
+    fill = offsets[:-1].copy()
+    donors = np.empty(offsets[n], dtype=np.int32)
+    for i in range(n):
+        r = rec[i]
+        if r >= 0:
+            donors[fill[r]] = i
+            fill[r] += 1
+    return offsets, donors
+
+
+@njit(cache=True, nogil=True)
+def upstream_cells(offsets, donors, starts, mask, use_mask, stop):
+    """Cells upstream of each start cell (itself included), breadth first, so that every
+    cell comes after its receiver; with ``use_mask`` only through cells where ``mask`` is
+    True. Cells where ``stop`` is True (other outlets) are not entered. Work is
+    proportional to the cells visited, not to the grid.
+
+    Returns (cells int64, owner int64: index of the start cell each was reached from,
+    parent int64: position of each cell's receiver in ``cells``, -1 for start cells).
+    """
+    cap = 1024
+    out = np.empty(cap, dtype=np.int64)
+    own = np.empty(cap, dtype=np.int64)
+    par = np.empty(cap, dtype=np.int64)
+    m = 0
+    for s in range(starts.shape[0]):
+        c0 = starts[s]
+        if use_mask and not mask[c0]:
+            continue
+        if m == cap:
+            cap *= 2
+            out = _grow(out, cap)
+            own = _grow(own, cap)
+            par = _grow(par, cap)
+        out[m] = c0
+        own[m] = s
+        par[m] = -1
+        m += 1
+        head = m - 1
+        while head < m:
+            c = out[head]
+            for t in range(offsets[c], offsets[c + 1]):
+                d = donors[t]
+                if use_mask and not mask[d]:
+                    continue
+                if stop[d]:
+                    continue
+                if m == cap:
+                    cap *= 2
+                    out = _grow(out, cap)
+                    own = _grow(own, cap)
+                    par = _grow(par, cap)
+                out[m] = d
+                own[m] = s
+                par[m] = head
+                m += 1
+            head += 1
+    return out[:m].copy(), own[:m].copy(), par[:m].copy()
+
+
+@njit(cache=True, nogil=True)
+def _grow(a, cap):
+    b = np.empty(cap, dtype=a.dtype)
+    b[:a.shape[0]] = a
+    return b

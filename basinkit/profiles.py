@@ -78,6 +78,10 @@ def _upstream_length_flat(fm):
     return _cached(fm, "uplen", lambda: fm.upstream_length().ravel())
 
 
+def _donor_lists(fm):
+    return _cached(fm, "donors", lambda: _profiles.donor_lists(fm.receiver))
+
+
 def _elevations(fm):
     zc = fm.terrain.elevation.ravel()
     zr = zc if fm.input_elevation is None else np.asarray(fm.input_elevation).ravel()
@@ -452,6 +456,8 @@ def _outlet_arrays(fm, outlet_cell, outlet_ids):
     cells = np.atleast_1d(np.asarray(outlet_cell, dtype=np.int64)).ravel()
     for c in cells:
         _check_cell(fm, c)
+    if np.unique(cells).size != cells.size:
+        raise InputError("two outlets lie on the same cell; give each cell once")
     ids = (np.arange(1, cells.size + 1, dtype=np.int32) if outlet_ids is None
            else np.atleast_1d(np.asarray(outlet_ids, dtype=np.int32)).ravel())
     if ids.shape != cells.shape:
@@ -480,19 +486,20 @@ def _build_tree(fm, network, outlet_cell, min_order, outlet_ids=None) -> _Tree:
     cells_o, ids = _outlet_arrays(fm, outlet_cell, outlet_ids)
     keep = strahler >= k
     if cells_o is not None:
-        lab = fm.label_outlets(cells_o, ids).ravel()
-        keep &= lab > 0
-    sel = fm.stack[keep[fm.stack]].astype(np.int64)
-    loc = np.full(n, -1, dtype=np.int32)
-    loc[sel] = np.arange(sel.size, dtype=np.int32)
-    r = rec[sel].astype(np.int64)
-    lrec = np.where(r >= 0, loc[np.maximum(r, 0)], -1).astype(np.int64)
-    if cells_o is not None:
-        is_out = np.zeros(n, dtype=bool)
-        is_out[cells_o] = True
-        lrec[is_out[sel]] = -1
-        oid = lab[sel].astype(np.int32)
+        # breadth-first from each outlet through the channel cells: work in proportion to
+        # the catchment's channel cells, not the grid; other outlets are not entered
+        offsets, donors = _donor_lists(fm)
+        stop = np.zeros(n, dtype=bool)
+        stop[cells_o] = True
+        sel, owner, lrec = _profiles.upstream_cells(offsets, donors, cells_o, keep, True,
+                                                    stop)
+        oid = ids[owner].astype(np.int32)
     else:
+        sel = fm.stack[keep[fm.stack]].astype(np.int64)
+        loc = np.full(n, -1, dtype=np.int32)
+        loc[sel] = np.arange(sel.size, dtype=np.int32)
+        r = rec[sel].astype(np.int64)
+        lrec = np.where(r >= 0, loc[np.maximum(r, 0)], -1).astype(np.int64)
         oid = np.ones(sel.size, dtype=np.int32)
     step = fm.receiver_distance()[sel].astype(np.float64)
     area = _area_flat(fm)[sel]
@@ -561,18 +568,18 @@ def chi_transform(fm, outlet_cell=None, concavity=DEFAULT_CONCAVITY, reference_a
         if m.shape[0] != n:
             raise InputError("the mask is not on the flow model's grid")
         keep &= m
-    cells_o, ids = _outlet_arrays(fm, outlet_cell, None)
+    cells_o, _ = _outlet_arrays(fm, outlet_cell, None)
     if cells_o is not None:
-        keep &= fm.label_outlets(cells_o, ids).ravel() > 0
-    sel = fm.stack[keep[fm.stack]].astype(np.int64)
-    loc = np.full(n, -1, dtype=np.int32)
-    loc[sel] = np.arange(sel.size, dtype=np.int32)
-    r = fm.receiver[sel].astype(np.int64)
-    lrec = np.where(r >= 0, loc[np.maximum(r, 0)], -1).astype(np.int64)
-    if cells_o is not None:
-        is_out = np.zeros(n, dtype=bool)
-        is_out[cells_o] = True
-        lrec[is_out[sel]] = -1
+        offsets, donors = _donor_lists(fm)
+        stop = np.zeros(n, dtype=bool)
+        stop[cells_o] = True
+        sel, _, lrec = _profiles.upstream_cells(offsets, donors, cells_o, keep, True, stop)
+    else:
+        sel = fm.stack[keep[fm.stack]].astype(np.int64)
+        loc = np.full(n, -1, dtype=np.int32)
+        loc[sel] = np.arange(sel.size, dtype=np.int32)
+        r = fm.receiver[sel].astype(np.int64)
+        lrec = np.where(r >= 0, loc[np.maximum(r, 0)], -1).astype(np.int64)
     step = fm.receiver_distance()[sel]
     chi_sel = _profiles.chi_local(lrec, step, np.log(_area_flat(fm)[sel] / a0), theta)
     out = np.full(n, np.nan)
@@ -1289,9 +1296,16 @@ def hack_law_fit(fm, network, outlet_cell=None, confidence=0.95) -> HackFit:
     nc = fm.ncols
     bottom = (seg["bottom_row"].to_numpy(np.int64) * nc + seg["bottom_col"].to_numpy(np.int64))
     if outlet_cell is not None:
-        cells_o, ids = _outlet_arrays(fm, outlet_cell, None)
-        lab = fm.label_outlets(cells_o, ids).ravel()
-        bottom = bottom[lab[bottom] > 0]
+        cells_o, _ = _outlet_arrays(fm, outlet_cell, None)
+        offsets, donors = _donor_lists(fm)
+        n = fm.receiver.shape[0]
+        stop = np.zeros(n, dtype=bool)
+        stop[cells_o] = True
+        mask = np.asarray(network.mask).ravel()
+        cells, _, _ = _profiles.upstream_cells(offsets, donors, cells_o, mask, True, stop)
+        inside = np.zeros(n, dtype=bool)
+        inside[cells] = True
+        bottom = bottom[inside[bottom]]
     L = _upstream_length_flat(fm)[bottom]
     A = _area_flat(fm)[bottom]
     ok = (L > 0) & (A > 0) & np.isfinite(A)
