@@ -92,19 +92,40 @@ def _direction_azimuth(k, r, dist):
     return a
 
 
+@njit(cache=True, nogil=True)
+def _facet_geometry(r, nr, dist, d1, d2, alpha, diag):
+    """Per facet of row ``r``: d1 (centre to cardinal neighbour), d2 (cardinal to diagonal
+    neighbour, at right angles), the facet's opening angle α = atan2(d2, d1) and the
+    diagonal length sqrt(d1² + d2²), all from the true spacings of the rows involved."""
+    for f in range(8):
+        kc = FACET_CARD[f]
+        kd = FACET_DIAG[f]
+        a = dist[r, kc]
+        if kc == 0 or kc == 4:  # e1 north or south: e1 -> e2 is that row's dx
+            r2 = r + DROW[kd]
+            b = dist[r2, 2] if r2 >= 0 and r2 < nr else dist[r, 2]
+        else:  # e1 east or west: e1 -> e2 is the spacing to the row above / below
+            b = dist[r, 0] if kd == 1 or kd == 7 else dist[r, 4]
+        d1[f] = a
+        d2[f] = b
+        alpha[f] = math.atan2(b, a)
+        diag[f] = math.sqrt(a * a + b * b)
+
+
 @njit(cache=True, nogil=True, parallel=True)
 def dinf_kernel(z, rec8, dist):
     """D∞ receivers, proportions and flow azimuth of every cell (Tarboton 1997).
 
-    For each of the 8 triangular facets (centre, cardinal neighbour e1 at distance d1,
+    For each of the 8 triangular facets (centre e0, cardinal neighbour e1 at distance d1,
     diagonal neighbour e2 at distance d2 from e1, at right angles) the facet plane gives
     ``s1 = (e0 - e1) / d1``, ``s2 = (e1 - e2) / d2``, direction ``r = atan2(s2, s1)`` and
-    slope ``hypot(s1, s2)``; a direction outside ``[0, atan2(d2, d1)]`` is set to the nearer
-    facet edge with that edge's slope. A facet with one neighbour missing (edge, nodata)
-    keeps only the edge to the other. The steepest facet wins (ties: the first clockwise
-    from north) and the flow is split between e1 and e2 in proportion to the angles,
-    ``r / α`` to the diagonal and ``1 - r / α`` to the cardinal neighbour. d1 and d2 are the
-    true spacings of the rows involved (per row on geographic grids).
+    slope ``hypot(s1, s2)``; a direction outside ``[0, α]``, ``α = atan2(d2, d1)``, is set to
+    the nearer facet edge with that edge's slope. A facet with one neighbour missing (grid
+    edge, nodata) keeps only the edge to the other. The steepest facet wins (ties: the first
+    clockwise from north) and the flow is split between e1 and e2 in proportion to the
+    angles: ``r / α`` to the diagonal, ``1 - r / α`` to the cardinal neighbour. d1 and d2 are
+    the true spacings of the rows involved (per row on geographic grids). Slopes are compared
+    squared and the angle is computed for the winning facet only.
 
     Returns (rec (n, 2) int32, frac (n, 2) float32, azimuth (n,) float32 degrees, NaN where
     there is no outflow).
@@ -115,58 +136,70 @@ def dinf_kernel(z, rec8, dist):
     frac = np.zeros((n, 2), dtype=np.float32)
     az = np.full(n, np.nan, dtype=np.float32)
     for r in prange(nr):
+        d1 = np.empty(8)
+        d2 = np.empty(8)
+        alpha = np.empty(8)
+        diag = np.empty(8)
+        _facet_geometry(r, nr, dist, d1, d2, alpha, diag)
+        e = np.empty(8)
         for c in range(nc):
             i = r * nc + c
             d8 = rec8[i]
             if d8 < 0:
                 continue
             z0 = np.float64(z[r, c])
-            best = 0.0
-            bf = -1
-            br = 0.0
-            balpha = 1.0
-            for f in range(8):
-                kc = FACET_CARD[f]
-                kd = FACET_DIAG[f]
-                r1 = r + DROW[kc]
-                c1 = c + DCOL[kc]
-                r2 = r + DROW[kd]
-                c2 = c + DCOL[kd]
-                ok1 = _inside(r1, c1, nr, nc) and np.isfinite(z[r1, c1])
-                ok2 = _inside(r2, c2, nr, nc) and np.isfinite(z[r2, c2])
-                if not (ok1 or ok2):
-                    continue
-                d1 = dist[r, kc]
-                if kc == 0 or kc == 4:  # e1 north or south: e1 -> e2 is that row's dx
-                    d2 = dist[r2, 2] if _inside(r2, 0, nr, nc) else dist[r, 2]
-                else:  # e1 east or west: e1 -> e2 is the spacing to the row above / below
-                    d2 = dist[r, 0] if kd == 1 or kd == 7 else dist[r, 4]
-                alpha = math.atan2(d2, d1)
-                if ok1 and ok2:
-                    e1 = np.float64(z[r1, c1])
-                    e2 = np.float64(z[r2, c2])
-                    s1 = (z0 - e1) / d1
-                    s2 = (e1 - e2) / d2
-                    ang = math.atan2(s2, s1)
-                    if ang <= 0.0:
-                        ang = 0.0
-                        s = s1
-                    elif ang >= alpha:
-                        ang = alpha
-                        s = (z0 - e2) / math.sqrt(d1 * d1 + d2 * d2)
-                    else:
-                        s = math.sqrt(s1 * s1 + s2 * s2)
-                elif ok1:
-                    ang = 0.0
-                    s = (z0 - np.float64(z[r1, c1])) / d1
+            for k in range(8):  # neighbour elevations, NaN outside the grid or on nodata
+                rr = r + DROW[k]
+                cc = c + DCOL[k]
+                if rr >= 0 and rr < nr and cc >= 0 and cc < nc:
+                    e[k] = z[rr, cc]
                 else:
-                    ang = alpha
-                    s = (z0 - np.float64(z[r2, c2])) / math.sqrt(d1 * d1 + d2 * d2)
-                if s > best:
-                    best = s
+                    e[k] = np.nan
+            best = 0.0  # squared slope of the steepest facet so far
+            bf = -1
+            bkind = 0  # 0: along the cardinal edge, 1: inside the facet, 2: diagonal edge
+            bs1 = 0.0
+            bs2 = 0.0
+            for f in range(8):
+                e1 = e[FACET_CARD[f]]
+                e2 = e[FACET_DIAG[f]]
+                ok1 = e1 == e1
+                ok2 = e2 == e2
+                kind = -1
+                s_sq = 0.0
+                s1 = 0.0
+                s2 = 0.0
+                if ok1 and ok2:
+                    s1 = (z0 - e1) / d1[f]
+                    s2 = (e1 - e2) / d2[f]
+                    if s2 <= 0.0:  # direction at or before the cardinal edge
+                        if s1 > 0.0:
+                            kind = 0
+                            s_sq = s1 * s1
+                    elif s2 * d1[f] >= s1 * d2[f]:  # at or beyond the diagonal edge
+                        if z0 > e2:
+                            kind = 2
+                            t = (z0 - e2) / diag[f]
+                            s_sq = t * t
+                    else:  # strictly inside: s1 > 0 and s2 > 0
+                        kind = 1
+                        s_sq = s1 * s1 + s2 * s2
+                elif ok1:
+                    if z0 > e1:
+                        kind = 0
+                        t = (z0 - e1) / d1[f]
+                        s_sq = t * t
+                elif ok2:
+                    if z0 > e2:
+                        kind = 2
+                        t = (z0 - e2) / diag[f]
+                        s_sq = t * t
+                if kind >= 0 and s_sq > best:
+                    best = s_sq
                     bf = f
-                    br = ang
-                    balpha = alpha
+                    bkind = kind
+                    bs1 = s1
+                    bs2 = s2
             if bf < 0:  # no lower neighbour: a drained flat cell follows its D8 receiver
                 rec[i, 0] = d8
                 frac[i, 0] = 1.0
@@ -181,17 +214,24 @@ def dinf_kernel(z, rec8, dist):
             kd = FACET_DIAG[bf]
             jc = (r + DROW[kc]) * nc + c + DCOL[kc]
             jd = (r + DROW[kd]) * nc + c + DCOL[kd]
-            pd = br / balpha
-            if pd <= 0.0:
+            if bkind == 0:
+                br = 0.0
                 rec[i, 0] = jc
                 frac[i, 0] = 1.0
-            elif pd >= 1.0:
+            elif bkind == 2:
+                br = alpha[bf]
                 rec[i, 0] = jd
                 frac[i, 0] = 1.0
             else:
-                fc = np.float32(1.0 - pd)
+                br = math.atan2(bs2, bs1)
+                if br > alpha[bf]:
+                    br = alpha[bf]
+                fc = np.float32(1.0 - br / alpha[bf])
                 fd = np.float32(1.0 - np.float64(fc))
-                if fd <= 0.0:  # the diagonal share is below float32 resolution
+                if fc <= 0.0:  # a share below float32 resolution goes with the other
+                    rec[i, 0] = jd
+                    frac[i, 0] = 1.0
+                elif fd <= 0.0:
                     rec[i, 0] = jc
                     frac[i, 0] = 1.0
                 else:
@@ -253,7 +293,7 @@ def mfd_kernel(z, rec8, dist, exponent):
                         L = 0.5 * dy
                     else:
                         L = 0.25 * dist[r, k]
-                    wk = tanb ** exponent * L
+                    wk = (tanb if exponent == 1.0 else tanb ** exponent) * L
                     w[m] = wk
                     js[m] = rr * nc + cc
                     tot += wk
