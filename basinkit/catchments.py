@@ -217,7 +217,8 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
         ``progress(iterable, total=, desc=)`` wrapper (e.g. a tqdm-like bar).
     fraction_callback : callable, optional
         For D∞/MFD models: called as ``fraction_callback(table_row, fraction_grid)`` for
-        each outlet (``table_row`` a pandas Series with ``outlet_id`` and ``file_id``) (to write contributing-fraction rasters without keeping them all).
+        each outlet (``table_row`` a pandas Series with ``outlet_id`` and ``file_id``),
+        to write contributing-fraction rasters without keeping them all in memory.
 
     Returns
     -------

@@ -90,8 +90,13 @@ def test_v_valley_closed_form():
     np.testing.assert_allclose(d.table["area_m2"], (rows + 1) * nc * 200.0, rtol=1e-12)
     np.testing.assert_allclose(d.table["area_km2"], (rows + 1) * nc * 200.0 / 1e6)
     np.testing.assert_allclose(d.table["area_ha"], (rows + 1) * nc * 200.0 / 1e4)
-    np.testing.assert_allclose(d.table["area_acres"], d.table["area_m2"] / ACRE_M2)
-    np.testing.assert_allclose(d.table["area_mi2"], d.table["area_m2"] / SQUARE_MILE_M2)
+    # international acre = 4046.8564224 m² and square mile = 2 589 988.110336 m², exact
+    # (1959 international yard = 0.9144 m; value from memory of that definition)
+    np.testing.assert_allclose(d.table["area_acres"], d.table["area_m2"] / 4046.8564224,
+                               rtol=1e-12)
+    np.testing.assert_allclose(d.table["area_mi2"], d.table["area_m2"] / 2589988.110336,
+                               rtol=1e-12)
+    assert ACRE_M2 * 640 == pytest.approx(SQUARE_MILE_M2, rel=1e-15)  # 640 acres a mile²
     # sub-catchments: the rows between consecutive outlets (analytic)
     np.testing.assert_allclose(d.table["subcatchment_area_m2"],
                                np.diff(np.r_[-1, rows]) * nc * 200.0)
