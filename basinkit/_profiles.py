@@ -403,15 +403,17 @@ def donor_lists(rec):
 
 
 @njit(cache=True, nogil=True)
-def upstream_cells(offsets, donors, starts, mask, use_mask, stop):
+def upstream_cells(offsets, donors, starts, level, threshold, stops):
     """Cells upstream of each start cell (itself included), breadth first, so that every
-    cell comes after its receiver; with ``use_mask`` only through cells where ``mask`` is
-    True. Cells where ``stop`` is True (other outlets) are not entered. Work is
-    proportional to the cells visited, not to the grid.
+    cell comes after its receiver, only through cells with ``level >= threshold`` (e.g.
+    Strahler order ≥ k, or a mask viewed as uint8 with threshold 1). Cells listed in
+    ``stops`` (sorted; other outlets) are not entered. Work is proportional to the cells
+    visited, not to the grid.
 
     Returns (cells int64, owner int64: index of the start cell each was reached from,
     parent int64: position of each cell's receiver in ``cells``, -1 for start cells).
     """
+    nstop = stops.shape[0]
     cap = 1024
     out = np.empty(cap, dtype=np.int64)
     own = np.empty(cap, dtype=np.int64)
@@ -419,7 +421,7 @@ def upstream_cells(offsets, donors, starts, mask, use_mask, stop):
     m = 0
     for s in range(starts.shape[0]):
         c0 = starts[s]
-        if use_mask and not mask[c0]:
+        if level[c0] < threshold:
             continue
         if m == cap:
             cap *= 2
@@ -435,10 +437,12 @@ def upstream_cells(offsets, donors, starts, mask, use_mask, stop):
             c = out[head]
             for t in range(offsets[c], offsets[c + 1]):
                 d = donors[t]
-                if use_mask and not mask[d]:
+                if level[d] < threshold:
                     continue
-                if stop[d]:
-                    continue
+                if nstop > 1:
+                    j = np.searchsorted(stops, d)
+                    if j < nstop and stops[j] == d:
+                        continue
                 if m == cap:
                     cap *= 2
                     out = _grow(out, cap)

@@ -484,17 +484,15 @@ def _build_tree(fm, network, outlet_cell, min_order, outlet_ids=None) -> _Tree:
         raise InputError("the channel network is not on the flow model's grid")
     rec = fm.receiver
     cells_o, ids = _outlet_arrays(fm, outlet_cell, outlet_ids)
-    keep = strahler >= k
     if cells_o is not None:
         # breadth-first from each outlet through the channel cells: work in proportion to
         # the catchment's channel cells, not the grid; other outlets are not entered
         offsets, donors = _donor_lists(fm)
-        stop = np.zeros(n, dtype=bool)
-        stop[cells_o] = True
-        sel, owner, lrec = _profiles.upstream_cells(offsets, donors, cells_o, keep, True,
-                                                    stop)
+        sel, owner, lrec = _profiles.upstream_cells(offsets, donors, cells_o, strahler, k,
+                                                    np.sort(cells_o))
         oid = ids[owner].astype(np.int32)
     else:
+        keep = strahler >= k
         sel = fm.stack[keep[fm.stack]].astype(np.int64)
         loc = np.full(n, -1, dtype=np.int32)
         loc[sel] = np.arange(sel.size, dtype=np.int32)
@@ -571,9 +569,8 @@ def chi_transform(fm, outlet_cell=None, concavity=DEFAULT_CONCAVITY, reference_a
     cells_o, _ = _outlet_arrays(fm, outlet_cell, None)
     if cells_o is not None:
         offsets, donors = _donor_lists(fm)
-        stop = np.zeros(n, dtype=bool)
-        stop[cells_o] = True
-        sel, _, lrec = _profiles.upstream_cells(offsets, donors, cells_o, keep, True, stop)
+        sel, _, lrec = _profiles.upstream_cells(offsets, donors, cells_o, keep.view(np.uint8),
+                                                1, np.sort(cells_o))
     else:
         sel = fm.stack[keep[fm.stack]].astype(np.int64)
         loc = np.full(n, -1, dtype=np.int32)
@@ -1298,14 +1295,10 @@ def hack_law_fit(fm, network, outlet_cell=None, confidence=0.95) -> HackFit:
     if outlet_cell is not None:
         cells_o, _ = _outlet_arrays(fm, outlet_cell, None)
         offsets, donors = _donor_lists(fm)
-        n = fm.receiver.shape[0]
-        stop = np.zeros(n, dtype=bool)
-        stop[cells_o] = True
-        mask = np.asarray(network.mask).ravel()
-        cells, _, _ = _profiles.upstream_cells(offsets, donors, cells_o, mask, True, stop)
-        inside = np.zeros(n, dtype=bool)
-        inside[cells] = True
-        bottom = bottom[inside[bottom]]
+        mask = np.ascontiguousarray(network.mask, dtype=bool).ravel().view(np.uint8)
+        cells, _, _ = _profiles.upstream_cells(offsets, donors, cells_o, mask, 1,
+                                               np.sort(cells_o))
+        bottom = bottom[np.isin(bottom, cells)]
     L = _upstream_length_flat(fm)[bottom]
     A = _area_flat(fm)[bottom]
     ok = (L > 0) & (A > 0) & np.isfinite(A)

@@ -384,6 +384,14 @@ def test_channel_profile_table(landscape):
     ms = P.main_stem(syn, outlet)
     main_cells = nodes.loc[nodes["is_main_stem"], "cell"].to_numpy()
     np.testing.assert_array_equal(main_cells, ms.cells[:main_cells.size])
+    # nested outlets: each node belongs to the nearest outlet downstream, as labelled by the
+    # flow model's own one-pass labelling (a different code path)
+    inner = int(main_cells[main_cells.size // 2])
+    both = P.channel_profiles(syn, net, [outlet, inner], min_order=2, outlet_ids=[1, 2])
+    lab = syn.label_outlets([outlet, inner], [1, 2]).ravel()
+    np.testing.assert_array_equal(both["outlet_id"].to_numpy(), lab[both["cell"]])
+    assert len(both) == len(nodes)
+    assert both.loc[both["cell"] == inner, "distance_from_outlet_m"].item() == 0.0
 
 
 def test_bad_input_raises(landscape):
