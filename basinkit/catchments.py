@@ -76,13 +76,18 @@ class Delineation:
     _subtree_size: np.ndarray = field(default=None, repr=False)
     _fm: object = field(default=None, repr=False)
     _fractions: dict = field(default_factory=dict, repr=False)
+    _index: dict = field(default=None, repr=False)
 
     def _label_of(self, outlet_id):
-        hit = self.table.index[self.table["outlet_id"] == str(outlet_id)]
-        if not len(hit):
+        index = self._index
+        if index is None or len(index) != len(self.table):
+            index = {str(k): (int(lab), i) for i, (k, lab) in
+                     enumerate(zip(self.table["outlet_id"], self.table["label"]))}
+            self._index = index
+        hit = index.get(str(outlet_id))
+        if hit is None:
             raise OutletError(f"no delineated outlet has the id {outlet_id!r}")
-        row = int(hit[0])
-        return int(self.table.at[row, "label"]), row
+        return hit
 
     def catchment_mask(self, outlet_id) -> np.ndarray:
         """Boolean grid of the full (nested) catchment of an outlet."""
@@ -148,7 +153,7 @@ class Delineation:
             return self.catchment_mask(outlet_id).astype(np.float32)
         from . import contributing
 
-        cell = int(self.table.at[row, "cell"])
+        cell = int(self.table["cell"].iloc[row])
         return contributing.contributing_fraction(self._fm, cell)
 
     def _crs(self):
