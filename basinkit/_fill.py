@@ -5,11 +5,35 @@ azimuth 45·k degrees clockwise from grid north.
 """
 
 import numpy as np
-from numba import njit
+from llvmlite import ir
+from numba import njit, types
+from numba.core import cgutils
+from numba.extending import intrinsic
 
 # row and column offsets of the 8 neighbours, in azimuth order N, NE, E, SE, S, SW, W, NW
 DROW = np.array([-1, -1, 0, 1, 1, 1, 0, -1], dtype=np.int64)
 DCOL = np.array([0, 1, 1, 1, 0, -1, -1, -1], dtype=np.int64)
+
+
+@intrinsic
+def _prefetch(typingctx, arr, idx):
+    """Hint the processor to fetch ``arr[idx]`` into cache (LLVM prefetch; no effect on
+    results). ``idx`` must lie inside the array."""
+    sig = types.void(arr, idx)
+
+    def codegen(context, builder, signature, args):
+        aty = signature.args[0]
+        ary = context.make_array(aty)(context, builder, args[0])
+        ptr = cgutils.get_item_pointer(context, builder, aty, ary, [args[1]])
+        i8p = ir.IntType(8).as_pointer()
+        fnty = ir.FunctionType(ir.VoidType(), [i8p, ir.IntType(32), ir.IntType(32),
+                                               ir.IntType(32)])
+        fn = cgutils.get_or_insert_function(builder.module, fnty, "llvm.prefetch.p0")
+        builder.call(fn, [builder.bitcast(ptr, i8p), ir.Constant(ir.IntType(32), 0),
+                          ir.Constant(ir.IntType(32), 3), ir.Constant(ir.IntType(32), 1)])
+        return context.get_dummy_value()
+
+    return sig, codegen
 
 
 @njit(cache=True, nogil=True)
@@ -66,9 +90,10 @@ def _key(bits, i):
 
 @njit(cache=True, inline='always')
 def _push(heap, hs, item):
+    """Insert into a 4-ary min-heap (children of j at 4j+1 .. 4j+4)."""
     j = hs
     while j > 0:
-        p = (j - 1) >> 1
+        p = (j - 1) >> 2
         if heap[p] <= item:
             break
         heap[j] = heap[p]
@@ -84,15 +109,23 @@ def _pop(heap, hs):
         item = heap[hs]
         j = 0
         while True:
-            c = 2 * j + 1
+            c = 4 * j + 1
             if c >= hs:
                 break
-            if c + 1 < hs and heap[c + 1] < heap[c]:
-                c += 1
-            if heap[c] >= item:
+            m = c
+            v = heap[c]
+            e = c + 4
+            if e > hs:
+                e = hs
+            for q in range(c + 1, e):
+                w = heap[q]
+                if w < v:
+                    v = w
+                    m = q
+            if v >= item:
                 break
-            heap[j] = heap[c]
-            j = c
+            heap[j] = v
+            j = m
         heap[j] = item
     return hs, np.int64(top & np.uint64(0xFFFFFFFF))
 
@@ -136,6 +169,17 @@ def fill_exact(z, valid, seeds):
                 ph = 0; pt = 0
         else:
             hs, cell = _pop(heap, hs)
+            if hs > 0:
+                # the next cell out of the heap is usually far away: start fetching its
+                # neighbourhood while this one is processed
+                nxt = np.int64(heap[0] & np.uint64(0xFFFFFFFF))
+                if nxt >= nc and nxt < n - nc:
+                    _prefetch(zf, nxt - nc)
+                    _prefetch(zf, nxt + nc)
+                    _prefetch(closed, nxt - nc)
+                    _prefetch(closed, nxt + nc)
+                _prefetch(zf, nxt)
+                _prefetch(closed, nxt)
         r = cell // nc
         c0 = cell - r * nc
         zc = zf[cell]
