@@ -422,22 +422,23 @@ def _window_job(job):
     return kind, keys, list(shapely.to_wkb(geoms)) if geoms.size else []
 
 
-def _run_jobs(jobs, workers, progress):
-    """Run polygon jobs in forked processes (GDAL's polygonize holds the GIL, so
-    threads would not use the second core); in this process when workers == 1 or fork
-    is unavailable."""
+def _fork_available():
     import multiprocessing as mp
 
+    return "fork" in mp.get_all_start_methods()
+
+
+def _run_jobs(jobs, use_fork, workers, progress):
+    """Run polygon jobs in forked processes (GDAL's polygonize holds the GIL, so
+    threads would not use the second core) or in this process."""
     import shapely
 
-    cells = sum((j[3][1] - j[3][0] + 1) * (j[3][3] - j[3][2] + 1) for j in jobs)
-    use_fork = (workers > 1 and len(jobs) > 1 and cells >= FORK_MIN_CELLS
-                and "fork" in mp.get_all_start_methods())
     if use_fork:
+        import multiprocessing as mp
+
         # compile/load the kernel here so that the forked workers inherit it
         _catchments.range_mask(np.zeros((1, 1), dtype=np.int32), 1, 1)
-        ctx = mp.get_context("fork")
-        pool = ctx.Pool(min(workers, len(jobs)))
+        pool = mp.get_context("fork").Pool(min(workers, len(jobs)))
         it = pool.imap_unordered(_window_job, jobs, chunksize=1)
     else:
         pool = None
@@ -459,10 +460,11 @@ def _run_jobs(jobs, workers, progress):
 def _polygons(t, labels, n, L, size, rmin, rmax, cmin, cmax, workers, progress):
     """Sub-catchment polygons and full-catchment polygons from cell boundaries.
 
-    Sub-catchments are polygonized in ``workers`` bands of the label range (each over the
-    bounding box of its labels); a leaf's full catchment is its sub-catchment; any other
-    full catchment is its label range polygonized in the catchment's bounding box. The
-    jobs run in forked worker processes, largest windows first."""
+    Sub-catchments are polygonized together (in ``workers`` bands of the label range,
+    each over the bounding box of its labels, when forking); a leaf's full catchment is
+    its sub-catchment; any other full catchment is its label range polygonized in the
+    catchment's bounding box. Jobs of at least FORK_MIN_CELLS window cells in all run in
+    forked worker processes, largest windows first; smaller ones in this process."""
     import shapely
 
     from .polygons import ground_area_perimeter
@@ -470,24 +472,29 @@ def _polygons(t, labels, n, L, size, rmin, rmax, cmin, cmax, workers, progress):
     seg = None
     if t.crs.is_geographic:
         seg = min(abs(t.transform.a), abs(t.transform.e)) * 1.0000001
+
+    def cells_of(box):
+        return (box[1] - box[0] + 1) * (box[3] - box[2] + 1)
+
+    def band_box(lo, hi):
+        return (int(rmin[lo:hi + 1].min()), int(rmax[lo:hi + 1].max()),
+                int(cmin[lo:hi + 1].min()), int(cmax[lo:hi + 1].max()))
+
+    jobs = [("range", int(lab), int(lab + size[lab] - 1),
+             (int(rmin[lab]), int(rmax[lab]), int(cmin[lab]), int(cmax[lab])))
+            for lab in L if size[lab] > 1]
+    workers = max(1, int(workers))
+    total = sum(cells_of(j[3]) for j in jobs) + workers * cells_of(band_box(1, n))
+    use_fork = workers > 1 and total >= FORK_MIN_CELLS and _fork_available()
+    nb = min(workers, n) if use_fork else 1
+    bounds = np.linspace(1, n + 1, nb + 1).astype(np.int64)
+    for lo, hi in zip(bounds[:-1], bounds[1:] - 1):
+        if hi >= lo:
+            jobs.append(("labels", int(lo), int(hi), band_box(lo, hi)))
+    jobs.sort(key=lambda j: -cells_of(j[3]))
     _SHARED.update(labels=labels, transform=t.transform, seg=seg)
     try:
-        jobs = []
-        nb = max(1, min(int(workers), n))
-        bounds = np.linspace(1, n + 1, nb + 1).astype(np.int64)
-        for lo, hi in zip(bounds[:-1], bounds[1:] - 1):
-            if hi < lo:
-                continue
-            box = (int(rmin[lo:hi + 1].min()), int(rmax[lo:hi + 1].max()),
-                   int(cmin[lo:hi + 1].min()), int(cmax[lo:hi + 1].max()))
-            jobs.append(("labels", int(lo), int(hi), box))
-        for lab in L:
-            if size[lab] > 1:
-                jobs.append(("range", int(lab), int(lab + size[lab] - 1),
-                             (int(rmin[lab]), int(rmax[lab]), int(cmin[lab]),
-                              int(cmax[lab]))))
-        jobs.sort(key=lambda j: -(j[3][1] - j[3][0] + 1) * (j[3][3] - j[3][2] + 1))
-        res = _run_jobs(jobs, int(workers), progress)
+        res = _run_jobs(jobs, use_fork and len(jobs) > 1, workers, progress)
     finally:
         _SHARED.clear()
     subs = res["labels"]
