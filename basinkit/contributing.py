@@ -20,47 +20,148 @@ __all__ = ["contributing_fraction", "contributing_fractions", "contributing_area
 
 
 @njit(cache=True, nogil=True)
-def _fraction_pass(rec, frac, order, outlet, value):
-    """One reverse pass over the topological order: ``value[outlet] = 1`` and, downstream
-    cells first, ``value[i] = Σ_k frac[i, k] · value[rec[i, k]]``. Only cells before the
-    outlet in ``order`` can reach it; ``value`` must be zero on entry (it is left as the
-    fraction, float64). Returns the outlet's position in ``order`` (-1: not there)."""
-    pos = -1
-    for t in range(order.shape[0]):
-        if order[t] == outlet:
-            pos = t
-            break
-    if pos < 0:
-        return pos
-    value[outlet] = 1.0
-    m = rec.shape[1]
-    for t in range(pos - 1, -1, -1):
-        i = order[t]
-        s = 0.0
+def donor_graph(rec):
+    """Donors of every cell, in compressed rows: ``donors[start[j]:start[j + 1]]`` send part
+    of their flow to ``j``."""
+    n, m = rec.shape
+    start = np.zeros(n + 1, dtype=np.int64)
+    for i in range(n):
         for k in range(m):
             j = rec[i, k]
             if j < 0:
                 break
-            s += np.float64(frac[i, k]) * value[j]
-        value[i] = s
-    return pos
+            start[j + 1] += 1
+    for j in range(n):
+        start[j + 1] += start[j]
+    fill = start[:-1].copy()
+    donors = np.empty(start[n], dtype=np.int32)
+    for i in range(n):
+        for k in range(m):
+            j = rec[i, k]
+            if j < 0:
+                break
+            donors[fill[j]] = i
+            fill[j] += 1
+    return start, donors
 
 
 @njit(cache=True, nogil=True)
-def _areas(rec, frac, order, outlets, ncols, row_area):
-    """Σ fraction × cell area (m²) for each outlet, reusing one work array."""
+def _fraction_upstream(rec, frac, start, donors, outlet, value, seen, stamp, pending):
+    """Contributing fractions of the cells that can reach ``outlet``.
+
+    The cells that send any flow to the outlet are found by a breadth-first walk up the
+    donor graph; taken receivers first (topological order within the set), each
+    gets ``value[i] = Σ_k frac[i, k] · value[rec[i, k]]`` with ``value[outlet] = 1``: the
+    reverse pass, restricted to those cells (receivers outside the set have value 0).
+    ``value`` must be 0 outside the set on entry; ``seen``/``stamp`` mark visited cells
+    without clearing; ``pending`` (uint8) is work space. Returns the cells, receivers first
+    (their values left in ``value``).
+    """
+    cells = np.empty(16, dtype=np.int32)
+    cells[0] = outlet
+    seen[outlet] = stamp
+    tail = 1
+    head = 0
+    while head < tail:
+        j = cells[head]
+        head += 1
+        for t in range(start[j], start[j + 1]):
+            i = donors[t]
+            if seen[i] != stamp:
+                seen[i] = stamp
+                if tail == cells.shape[0]:
+                    bigger = np.empty(2 * tail, dtype=np.int32)
+                    bigger[:tail] = cells
+                    cells = bigger
+                cells[tail] = i
+                tail += 1
+    # receivers first: a cell is ready once all its receivers inside the set are done
+    # (Kahn 1962 on the set; receivers outside it have value 0)
+    m = rec.shape[1]
+    for t in range(tail):
+        i = cells[t]
+        p = 0
+        for k in range(m):
+            j = rec[i, k]
+            if j < 0:
+                break
+            if seen[j] == stamp:
+                p += 1
+        pending[i] = p
+    out = np.empty(tail, dtype=np.int32)
+    out[0] = outlet
+    value[outlet] = 1.0
+    otail = 1
+    ohead = 0
+    while ohead < otail:
+        j = out[ohead]
+        ohead += 1
+        if j != outlet:
+            s = 0.0
+            for k in range(m):
+                r = rec[j, k]
+                if r < 0:
+                    break
+                s += np.float64(frac[j, k]) * value[r]
+            value[j] = s
+        for t in range(start[j], start[j + 1]):
+            i = donors[t]
+            if i == outlet:
+                continue
+            pending[i] -= 1
+            if pending[i] == 0:
+                out[otail] = i
+                otail += 1
+    return out[:otail]
+
+
+@njit(cache=True, nogil=True)
+def _fraction_grids(rec, frac, start, donors, outlets, out):
     n = rec.shape[0]
     value = np.zeros(n, dtype=np.float64)
-    out = np.empty(outlets.shape[0], dtype=np.float64)
+    seen = np.zeros(n, dtype=np.int32)
+    pending = np.zeros(n, dtype=np.uint8)
     for q in range(outlets.shape[0]):
-        pos = _fraction_pass(rec, frac, order, outlets[q], value)
+        cells = _fraction_upstream(rec, frac, start, donors, outlets[q], value, seen, q + 1,
+                                   pending)
+        for t in range(cells.shape[0]):
+            i = cells[t]
+            out[q, i] = np.float32(value[i])
+            value[i] = 0.0
+
+
+@njit(cache=True, nogil=True)
+def _areas(rec, frac, start, donors, outlets, ncols, row_area):
+    """Σ fraction × cell area (m²) for each outlet."""
+    n = rec.shape[0]
+    value = np.zeros(n, dtype=np.float64)
+    seen = np.zeros(n, dtype=np.int32)
+    pending = np.zeros(n, dtype=np.uint8)
+    res = np.empty(outlets.shape[0], dtype=np.float64)
+    for q in range(outlets.shape[0]):
+        cells = _fraction_upstream(rec, frac, start, donors, outlets[q], value, seen, q + 1,
+                                   pending)
         tot = 0.0
-        for t in range(max(pos, -1) + 1):
-            i = order[t]
+        for t in range(cells.shape[0]):
+            i = cells[t]
             tot += value[i] * row_area[i // ncols]
             value[i] = 0.0
-        out[q] = tot
-    return out
+        res[q] = tot
+    return res
+
+
+def _graph(fm, method):
+    """(rec, frac, donor start, donors) for ``method``, the donor graph built once
+    per model and method."""
+    from ._multi import multi_for
+
+    rec, frac, _ = multi_for(fm, method)
+    key = ("donors", method)
+    g = fm._cache.get(key)
+    if g is None or g[0].shape[0] != rec.shape[0] + 1:
+        g = donor_graph(rec)
+        fm._cache[key] = g
+    return (rec, frac) + tuple(g)
 
 
 def _method_of(fm, method):
@@ -118,14 +219,7 @@ def contributing_fractions(fm, outlet_cells, method=None) -> np.ndarray:
         for q, c in enumerate(cells):
             out[q] = fm.upstream_mask(int(c))
     else:
-        from ._multi import multi_for
-
-        rec, frac, order = multi_for(fm, method)
-        value = np.zeros(rec.shape[0], dtype=np.float64)
-        for q, c in enumerate(cells):
-            value[:] = 0.0
-            _fraction_pass(rec, frac, order, int(c), value)
-            out[q] = value.reshape(fm.shape)
+        _fraction_grids(*_graph(fm, method), cells, out.reshape(cells.size, -1))
     out[:, ~valid] = np.nan
     return out
 
@@ -153,7 +247,9 @@ def contributing_fraction(fm, outlet_cell, method=None) -> np.ndarray:
     -----
     One reverse pass over the topological order of the multi-receiver graph (receivers
     before donors): the outlet gets 1 and every other cell the proportion-weighted sum of its
-    receivers' values, ``f_i = Σ_k p_ik · f_{r_ik}``. The result summed with the cell areas
+    receivers' values, ``f_i = Σ_k p_ik · f_{r_ik}``. The pass is restricted to the cells
+    that send any flow to the outlet, found by walking up the donor graph (built once per
+    model), so the work per outlet grows with its catchment, not with the grid. The result summed with the cell areas
     equals the D∞/MFD upstream area at the outlet (:func:`contributing_area_m2`). Fractions
     are computed in float64 and stored as float32.
 
@@ -181,7 +277,7 @@ def contributing_fraction(fm, outlet_cell, method=None) -> np.ndarray:
     return contributing_fractions(fm, [outlet_cell], method)[0]
 
 
-def contributing_area_m2(fm, outlet_cell, method=None):
+def contributing_area_m2(fm, outlet_cell, method=None, from_fractions=True):
     """Σ contributing fraction × cell area (m², true on the ground) at one or more outlets.
 
     Parameters
@@ -191,6 +287,12 @@ def contributing_area_m2(fm, outlet_cell, method=None):
         Flat index (or indices) ``row * ncols + col``.
     method : {"d8", "dinf", "mfd"}, optional
         Routing to follow; defaults to the model's.
+    from_fractions : bool
+        True (default): sum the fractions of :func:`contributing_fraction` times the cell
+        areas, outlet by outlet (work grows with each catchment; MFD catchments are wide).
+        False: read the model's upstream area at the outlets, which is the same sum (each
+        cell's area reaches the outlet times the share of its flow that gets there; the
+        tests check the two agree to 1e-9) at no cost per outlet — for large batches.
 
     Returns
     -------
@@ -216,10 +318,9 @@ def contributing_area_m2(fm, outlet_cell, method=None):
     if method == "d8":
         area = fm.d8_upstream_area_flat()
         res = area[cells].astype(np.float64)
+    elif not from_fractions:
+        res = fm.accumulation(unit="m2", method=method).ravel()[cells].astype(np.float64)
     else:
-        from ._multi import multi_for
-
-        rec, frac, order = multi_for(fm, method)
-        res = _areas(rec, frac, order, cells, fm.ncols,
+        res = _areas(*_graph(fm, method), cells, fm.ncols,
                      np.ascontiguousarray(fm.terrain.geometry.area, dtype=np.float64))
     return float(res[0]) if scalar else res

@@ -287,6 +287,8 @@ def test_contributing_fraction_sums_to_upstream_area(method):
     outlets = np.concatenate([big, rng.choice(valid, 5, replace=False)])
     got = contributing_area_m2(fm, outlets)
     np.testing.assert_allclose(got, area[outlets], rtol=1e-9)
+    np.testing.assert_allclose(contributing_area_m2(fm, outlets, from_fractions=False), got,
+                               rtol=1e-9)
     stack = contributing_fractions(fm, outlets[:3])
     rec, frac, _ = fm.multi
     for q, o in enumerate(outlets[:3]):
