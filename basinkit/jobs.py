@@ -259,7 +259,7 @@ def job_from_dict(data: dict, base=".", path=None) -> JobSpec:
                                    f"{', '.join(schema)}")
         vals = {}
         for key, spec in schema.items():
-            if key in given:
+            if key in given and given[key] is not None:  # None (from JSON): not given
                 vals[key] = _check_value(sec, key, given[key], spec, base)
             elif spec.get("required"):
                 raise JobFileError(f"[{sec}] {key} is required in the job file: "
@@ -522,6 +522,13 @@ def run_job(job, output=None, overwrite: bool = False, console=None) -> JobResul
         "outputs": {},
     }
     if job["outputs"]["report"]:
+        known = set() if res.outlets is None else set(res.outlets["outlet_id"])
+        unknown = [i for i in job["outputs"]["report_outlets"] if i not in known]
+        if unknown:
+            res.warnings["job"].append(
+                f"[outputs] report_outlets names outlets that were not delineated: "
+                f"{', '.join(unknown)}")
+            console.warn(res.warnings["job"][-1])
         with _Stage(res, "report", console) as st:
             try:
                 from .report import write_report

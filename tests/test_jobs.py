@@ -213,3 +213,43 @@ def test_cli_check_prints_the_job_with_defaults(valley, capsys):
     out = json.loads(capsys.readouterr().out)
     assert out["inputs"]["dem"].endswith("dem.tif")
     assert out["channels"]["min_area"] == 1e4
+
+
+def test_report_command_rewrites_the_report_of_a_run(valley, tmp_path, capsys):
+    """``basinkit report RUN`` re-runs the recorded job and writes report.html for the
+    chosen outlet; a changed input is refused (its SHA-256 differs)."""
+    import json
+    import shutil
+
+    from basinkit.cli import main
+
+    d = tmp_path / "inputs"
+    shutil.copytree(valley, d)
+    job = _write(d / "jr.toml", """
+        [inputs]
+        dem = "dem.tif"
+        outlets = "outlets.csv"
+        [outlets]
+        snap_radius_m = 20
+        snap_min_area = "0.1ha"
+        [channels]
+        min_area = "0.5ha"
+        [outputs]
+        report = false
+        """)
+    run = tmp_path / "run"
+    run_job(job, output=run)
+    assert not (run / "report.html").exists()
+    with pytest.raises(SystemExit) as e:
+        main(["-q", "report", str(run), "--outlet", "gauge"])
+    assert e.value.code == 0
+    text = (run / "report.html").read_text(encoding="utf-8")
+    assert 'id="outlet-gauge"' in text
+    prov = json.loads((run / "provenance.json").read_text())
+    assert prov["parameters"]["outputs"]["report"] is False  # the run's record is untouched
+    # change an input: refused with one message
+    (d / "outlets.csv").write_text("id,x,y\ngauge,500205,5000045\n")
+    with pytest.raises(SystemExit) as e:
+        main(["report", str(run), "-o", str(tmp_path / "again.html")])
+    assert e.value.code == 2
+    assert "changed since the run" in capsys.readouterr().err
