@@ -116,14 +116,10 @@ def _fraction_upstream(rec, frac, start, donors, outlet, value, seen, stamp, pen
 
 
 @njit(cache=True, nogil=True)
-def _fraction_grids(rec, frac, start, donors, outlets, out):
-    n = rec.shape[0]
-    value = np.zeros(n, dtype=np.float64)
-    seen = np.zeros(n, dtype=np.int32)
-    pending = np.zeros(n, dtype=np.uint8)
+def _fraction_grids(rec, frac, start, donors, outlets, out, value, seen, pending, base):
     for q in range(outlets.shape[0]):
-        cells = _fraction_upstream(rec, frac, start, donors, outlets[q], value, seen, q + 1,
-                                   pending)
+        cells = _fraction_upstream(rec, frac, start, donors, outlets[q], value, seen,
+                                   base + q + 1, pending)
         for t in range(cells.shape[0]):
             i = cells[t]
             out[q, i] = np.float32(value[i])
@@ -131,16 +127,12 @@ def _fraction_grids(rec, frac, start, donors, outlets, out):
 
 
 @njit(cache=True, nogil=True)
-def _areas(rec, frac, start, donors, outlets, ncols, row_area):
+def _areas(rec, frac, start, donors, outlets, ncols, row_area, value, seen, pending, base):
     """Σ fraction × cell area (m²) for each outlet."""
-    n = rec.shape[0]
-    value = np.zeros(n, dtype=np.float64)
-    seen = np.zeros(n, dtype=np.int32)
-    pending = np.zeros(n, dtype=np.uint8)
     res = np.empty(outlets.shape[0], dtype=np.float64)
     for q in range(outlets.shape[0]):
-        cells = _fraction_upstream(rec, frac, start, donors, outlets[q], value, seen, q + 1,
-                                   pending)
+        cells = _fraction_upstream(rec, frac, start, donors, outlets[q], value, seen,
+                                   base + q + 1, pending)
         tot = 0.0
         for t in range(cells.shape[0]):
             i = cells[t]
@@ -148,6 +140,22 @@ def _areas(rec, frac, start, donors, outlets, ncols, row_area):
             value[i] = 0.0
         res[q] = tot
     return res
+
+
+def _workspace(fm, n, count):
+    """Work arrays kept with the model so that outlet-by-outlet calls do not allocate and
+    clear three grids each: values (0 between calls), visit stamps, pending counts. Not
+    shared between threads: use one model per thread."""
+    w = fm._cache.get("contributing_work")
+    if w is None or w[0].shape[0] != n:
+        w = [np.zeros(n, np.float64), np.zeros(n, np.int32), np.zeros(n, np.uint8), 0]
+        fm._cache["contributing_work"] = w
+    if w[3] + count >= 2 ** 31 - 2:
+        w[1][:] = 0
+        w[3] = 0
+    base = w[3]
+    w[3] += count
+    return w[0], w[1], w[2], base
 
 
 def _graph(fm, method):
@@ -219,7 +227,8 @@ def contributing_fractions(fm, outlet_cells, method=None) -> np.ndarray:
         for q, c in enumerate(cells):
             out[q] = fm.upstream_mask(int(c))
     else:
-        _fraction_grids(*_graph(fm, method), cells, out.reshape(cells.size, -1))
+        _fraction_grids(*_graph(fm, method), cells, out.reshape(cells.size, -1),
+                        *_workspace(fm, fm.receiver.shape[0], cells.size))
     out[:, ~valid] = np.nan
     return out
 
@@ -322,5 +331,6 @@ def contributing_area_m2(fm, outlet_cell, method=None, from_fractions=True):
         res = fm.accumulation(unit="m2", method=method).ravel()[cells].astype(np.float64)
     else:
         res = _areas(*_graph(fm, method), cells, fm.ncols,
-                     np.ascontiguousarray(fm.terrain.geometry.area, dtype=np.float64))
+                     np.ascontiguousarray(fm.terrain.geometry.area, dtype=np.float64),
+                     *_workspace(fm, fm.receiver.shape[0], cells.size))
     return float(res[0]) if scalar else res
