@@ -610,9 +610,11 @@ def _warning_box(msgs, title="Warnings"):
 def _provenance_html(prov):
     rows = []
     for name, st in prov.get("stages", {}).items():
-        rows.append(f"<tr><td>{_esc(name)}</td><td>{_esc(st['status'])}</td>"
+        status = "writing this report" if st["status"] == "running" else st["status"]
+        rows.append(f"<tr><td>{_esc(name)}</td><td>{_esc(status)}</td>"
                     f"<td class=\"num\">{st['seconds']:.2f}</td><td>{_esc(st['note'])}</td></tr>")
-    stages = ("<table><thead><tr><th>Stage</th><th>Status</th><th>Seconds</th><th>Note</th>"
+    stages = ("<table><thead><tr><th>Stage</th><th>Status</th><th style=\"text-align:right\">"
+              "Seconds</th><th>Note</th>"
               "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
     ins = []
     for key, v in prov.get("inputs", {}).items():
