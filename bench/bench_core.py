@@ -11,8 +11,11 @@ bench/out/. Figures go to stdout; copy them to bench/RESULTS.md.
 What is compared (same DEM, same machine, same run):
 - conditioning: basinkit fill + flat resolution vs pysheds fill_pits + fill_depressions +
   resolve_flats;
-- routing: basinkit D8 receivers + stack + accumulation (cells and m²) vs pysheds flowdir +
-  accumulation.
+- routing: basinkit D8 receivers + stack + accumulation (cells and m², one sweep:
+  ``stack_count_area``) vs pysheds flowdir + accumulation.
+
+``route()`` is also run on its own (public API, with both accumulations) for its peak memory
+and for the time per cell across sizes.
 """
 
 from __future__ import annotations
@@ -76,6 +79,7 @@ def child_basinkit(n):
     fm = flow_from_conditioned(fill_depressions(tiny), "d8", {})
     fm.accumulation()
     fm.upstream_area()
+    _d8.stack_count_area(fm.receiver, 32, tiny.geometry.area)
     compile_s = time.perf_counter() - t
     base = current_rss_mb()
     z = np.load(dem_path(n))
@@ -94,8 +98,8 @@ def child_basinkit(n):
     if nflat:
         _d8.resolve_flats(zc, filled.valid, rec, dist)
     t3 = time.perf_counter()
-    stack, cells = _d8.stack_and_count(rec)
-    area = _d8.accumulate_area(rec, stack, zc.shape[1], filled.geometry.area)
+    # stack, cell count and upstream area (m²) in one sweep
+    stack, cells, area = _d8.stack_count_area(rec, zc.shape[1], filled.geometry.area)
     t4 = time.perf_counter()
     del cells, area, stack, rec, zc, filled
     return {"compile_s": compile_s, "fill_s": t1 - t0, "d8_s": t2 - t1, "flats_s": t3 - t2,
