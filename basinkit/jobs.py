@@ -536,7 +536,8 @@ def run_job(job, output=None, overwrite: bool = False, console=None) -> JobResul
                 st.skip("the report module is not available in this version")
             else:
                 res.provenance["seconds_total"] = round(time.perf_counter() - t_start, 3)
-                res.files["report.html"] = write_report(res, folder / "report.html")
+                res.files["report.html"] = write_report(
+                    res, folder / "report.html", progress=getattr(console, "progress", None))
     res.provenance["seconds_total"] = round(time.perf_counter() - t_start, 3)
     res.provenance["outputs"] = _output_hashes(res)
     res.files["provenance.json"] = write_json(folder / "provenance.json", res.provenance)
@@ -762,7 +763,8 @@ def _stage_delineate(job, res, console):
             min_area = job["channels"]["min_area"]
         fm, t = res.flow, res.flow.terrain
         d = delineate(fm, job["inputs"]["outlets"], snap_radius_m=oc["snap_radius_m"],
-                      snap_to_channel_m2=min_area, id_column=oc["id_column"])
+                      snap_to_channel_m2=min_area, id_column=oc["id_column"],
+                      progress=getattr(console, "progress", None))
         res.catchments = d
         tab = d.table
         desc = _descriptions(job["inputs"]["outlets"])

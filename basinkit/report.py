@@ -663,7 +663,7 @@ def _outlet_figures(oid):
     return oid, out
 
 
-def _render_all(ids, workers):
+def _render_all(ids, workers, progress=None):
     """Figures of every outlet: in ``workers`` forked processes when that is possible
     (figures are independent and matplotlib draws on one core), else one by one."""
     import os
@@ -681,14 +681,20 @@ def _render_all(ids, workers):
         if ctx is not None:
             try:
                 with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-                    return dict(pool.map(_outlet_figures, ids, timeout=600))
+                    it = pool.map(_outlet_figures, ids, timeout=600)
+                    if progress is not None:
+                        it = progress(it, total=len(ids), desc="report figures")
+                    return dict(it)
             except Exception:  # noqa: BLE001 - fall back to drawing in this process
                 pass
-    return dict(_outlet_figures(i) for i in ids)
+    it = (_outlet_figures(i) for i in ids)
+    if progress is not None:
+        it = progress(it, total=len(ids), desc="report figures")
+    return dict(it)
 
 
 # ----------------------------------------------------------------------------- public
-def render_report(res, workers: int | None = None) -> str:
+def render_report(res, workers: int | None = None, progress=None) -> str:
     """The report of a job run as one HTML string.
 
     Parameters
@@ -698,6 +704,8 @@ def render_report(res, workers: int | None = None) -> str:
     workers : int, optional
         Processes drawing the figures (default: up to 2; 1 draws in this process). The
         output does not depend on it.
+    progress : callable, optional
+        ``progress(iterable, total=, desc=)`` wrapper (e.g. a tqdm-like bar).
 
     Returns
     -------
@@ -747,7 +755,7 @@ def render_report(res, workers: int | None = None) -> str:
     olook = res.outlets.set_index("outlet_id") if res.outlets is not None else None
     _STATE.update(ctx=ctx, res=res, tabs=tabs)
     try:
-        figures = _render_all(chosen, workers)
+        figures = _render_all(chosen, workers, progress)
     finally:
         _STATE.clear()
     for oid in chosen:
@@ -799,11 +807,11 @@ def _input_name(prov, key):
     return Path(v["path"]).name if v else "?"
 
 
-def write_report(res, path) -> Path:
+def write_report(res, path, workers: int | None = None, progress=None) -> Path:
     """Write :func:`render_report` to ``path`` (temporary file, then rename)."""
     from .writers import atomic_path
 
-    text = render_report(res)
+    text = render_report(res, workers=workers, progress=progress)
     with atomic_path(path) as tmp:
         Path(tmp).write_text(text, encoding="utf-8")
     return Path(path)
