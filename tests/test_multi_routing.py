@@ -423,3 +423,34 @@ def test_docstring_examples(module):
 
     res = doctest.testmod(importlib.import_module(module))
     assert res.attempted > 0 and res.failed == 0
+
+
+@pytest.mark.parametrize("method", ["dinf", "mfd"])
+def test_real_dem_routes_and_conserves(method):
+    """The real 3-arc-second Jacksboro fault DEM shipped in matplotlib's sample data
+    (geographic; rows run north to south, its ymin/ymax are swapped in the file), a 160×160
+    window: D∞/MFD routing is valid (receivers lower or the flat's D8 receiver, order
+    topological), every valid cell is in the order, and the exits collect the ellipsoidal
+    area of all cells, whose sum is checked against pyproj Geod polygon areas
+    (Karney 2013)."""
+    from matplotlib import cbook
+    from pyproj import Geod
+
+    with cbook.get_sample_data("jacksboro_fault_dem.npz") as d:
+        z = np.asarray(d["elevation"], dtype=np.float64)[100:260, 150:310]
+        dx, dy = float(d["dx"]), float(d["dy"])
+        west = float(d["xmin"]) + 150 * dx
+        north = max(float(d["ymin"]), float(d["ymax"])) - 100 * dy
+    tr = Affine(dx, 0, west, 0, -dy, north)
+    fm = route(terrain_from_array(z, transform=tr, crs="EPSG:4326"), method=method)
+    rec, frac, order = fm.multi
+    _graph_checks(fm, rec, frac, order)
+    area = fm.upstream_area().ravel()
+    exits = fm.terrain.valid.ravel() & (rec[:, 0] < 0)
+    south, east = north - 160 * dy, west + 160 * dx
+    geo = abs(Geod(ellps="WGS84").polygon_area_perimeter(
+        [west, east, east, west], [south, south, north, north])[0])
+    assert area[exits].sum() == pytest.approx(geo, rel=1e-6)
+    o = int(np.nanargmax(area))
+    f = contributing_fraction(fm, o)
+    assert np.nansum(f * fm.terrain.cell_area()) == pytest.approx(area[o], rel=1e-5)
