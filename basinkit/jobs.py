@@ -2,7 +2,8 @@
 morphometry → report) described in one TOML file and run in one call.
 
 A job file names its inputs, the parameters of every stage and the outputs. Paths in it are
-relative to the job file's folder. Example (the bundled demo, ``demo_rasters/demo_job.toml``)::
+relative to the job file's folder. Example (abridged from the bundled demo,
+``demo_rasters/demo_job.toml``)::
 
     [inputs]
     dem = "upland_valley.tif"
@@ -14,7 +15,7 @@ relative to the job file's folder. Example (the bundled demo, ``demo_rasters/dem
     burn_depth_m = 1.0
 
     [outlets]
-    snap_radius_m = 40
+    snap_radius_m = 30
     snap_min_area = "1ha"
 
     [channels]
@@ -24,9 +25,10 @@ relative to the job file's folder. Example (the bundled demo, ``demo_rasters/dem
     concavity = 0.45
 
     [outputs]
-    folder = "demo-output"
+    folder = "../basinkit-demo-output"
 
-Running a job writes everything into the output folder plus ``provenance.json`` (basinkit
+Every key, its type and default is listed in :data:`JOB_SCHEMA`; ``basinkit run JOB --check``
+prints a job with the defaults filled in. Running a job writes everything into the output folder plus ``provenance.json`` (basinkit
 version, every parameter with its default filled in, SHA-256 of every input, timings per
 stage). Two runs of the same job give byte-identical tables (CSV) and rasters (GeoTIFF).
 """
@@ -593,6 +595,14 @@ def _stage_route(job, res, console):
                     _add(res, p)
 
 
+def _raster_tags(job, what):
+    """Provenance tags of a raster (deterministic: no timings)."""
+    from . import __version__
+
+    return {"software": f"basinkit {__version__}", "content": what,
+            "job_parameters": job.parameters()}
+
+
 def _write_gpkg(path, layers):
     """Write GeoDataFrames as layers of one GeoPackage (temporary file, then rename)."""
     from .writers import atomic_path
@@ -628,7 +638,9 @@ def _stage_channels(job, res, console):
             order = np.where(net.strahler >= ch["min_order"], net.strahler, 0).astype(np.int16)
             order[~fm.terrain.valid] = -1
             write_geotiff(_add(res, res.folder / "strahler_order.tif"), order,
-                          fm.terrain.transform, fm.terrain.crs, nodata=-1)
+                          fm.terrain.transform, fm.terrain.crs, nodata=-1,
+                          tags=_raster_tags(job, "Strahler order of channel cells (0: not a "
+                                                 "channel)"))
 
 
 def _stage_morphometry(job, res, console):
@@ -803,7 +815,10 @@ def _stage_delineate(job, res, console):
         if job["outputs"]["rasters"]:
             lab = np.where(t.valid, d.labels, -1).astype(np.int32)
             write_geotiff(_add(res, res.folder / "catchment_labels.tif"), lab, t.transform,
-                          t.crs, nodata=-1)
+                          t.crs, nodata=-1,
+                          tags=_raster_tags(job, "sub-catchment label of every cell (0: "
+                                                 "drains to no outlet); labels in "
+                                                 "catchments.csv"))
         console.info(f"  {len(tab)} of {len(out)} outlets delineated")
 
 
