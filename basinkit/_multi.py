@@ -366,11 +366,20 @@ def accumulate_kernel(rec, frac, order, weight):
         a = acc[i]
         if a == 0.0:
             continue
+        # shares renormalised in float64: float32 shares sum to 1 only within ~1e-7, an
+        # error that would compound along long flow paths
+        tot = 0.0
+        nk = 0
         for k in range(m):
-            j = rec[i, k]
-            if j < 0:
+            if rec[i, k] < 0:
                 break
-            acc[j] += np.float64(frac[i, k]) * a
+            tot += np.float64(frac[i, k])
+            nk += 1
+        if nk == 0:
+            continue
+        a /= tot
+        for k in range(nk):
+            acc[rec[i, k]] += np.float64(frac[i, k]) * a
     return acc
 
 
@@ -392,6 +401,8 @@ def accumulate_multi(rec, frac, order, weight):
     -------
     ndarray of float64 (ncells,)
         Weight of each cell plus the shares of all weight upstream that pass through it.
+        Each cell's shares are renormalised to sum to 1 in float64, so the totals at the
+        exits equal the total weight to float64 rounding.
 
     Examples
     --------

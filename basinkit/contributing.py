@@ -96,14 +96,16 @@ def _fraction_upstream(rec, frac, start, donors, outlet, value, seen, stamp, pen
     while ohead < otail:
         j = out[ohead]
         ohead += 1
-        if j != outlet:
+        if j != outlet:  # shares renormalised in float64, as in accumulate_multi
             s = 0.0
+            tot = 0.0
             for k in range(m):
                 r = rec[j, k]
                 if r < 0:
                     break
                 s += np.float64(frac[j, k]) * value[r]
-            value[j] = s
+                tot += np.float64(frac[j, k])
+            value[j] = s / tot
         for t in range(start[j], start[j + 1]):
             i = donors[t]
             if i == outlet:
