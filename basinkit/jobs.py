@@ -596,11 +596,13 @@ def _stage_route(job, res, console):
 
 
 def _raster_tags(job, what):
-    """Provenance tags of a raster (deterministic: no timings)."""
+    """Provenance tags of a raster: what it holds and the parameters that made it (no
+    timings, no output settings, so that reruns are byte-identical)."""
     from . import __version__
 
+    params = {k: v for k, v in job.parameters().items() if k not in ("outputs", "job")}
     return {"software": f"basinkit {__version__}", "content": what,
-            "job_parameters": job.parameters()}
+            "job_parameters": params}
 
 
 def _write_gpkg(path, layers):
