@@ -307,14 +307,22 @@ def mfd_kernel(z, rec8, dist, exponent):
                 if w[t] > w[big]:
                     big = t
             acc = 0.0
+            slot = 0
+            bslot = 0
             for t in range(m):
-                rec[i, t] = js[t]
-                if t != big:
-                    f32 = np.float32(w[t] / tot)
-                    frac[i, t] = f32
+                if t == big:
+                    rec[i, slot] = js[t]
+                    bslot = slot
+                    slot += 1
+                    continue
+                f32 = np.float32(w[t] / tot)
+                if f32 > 0.0:  # a share below float32 range joins the largest
+                    rec[i, slot] = js[t]
+                    frac[i, slot] = f32
                     acc += np.float64(f32)
+                    slot += 1
             # the largest share (>= 1/8) closes the sum, so no share rounds to zero
-            frac[i, big] = np.float32(1.0 - acc)
+            frac[i, bslot] = np.float32(1.0 - acc)
     return rec, frac
 
 

@@ -260,9 +260,10 @@ def contributing_fraction(fm, outlet_cell, method=None) -> np.ndarray:
     before donors): the outlet gets 1 and every other cell the proportion-weighted sum of its
     receivers' values, ``f_i = Σ_k p_ik · f_{r_ik}``. The pass is restricted to the cells
     that send any flow to the outlet, found by walking up the donor graph (built once per
-    model), so the work per outlet grows with its catchment, not with the grid. The result summed with the cell areas
-    equals the D∞/MFD upstream area at the outlet (:func:`contributing_area_m2`). Fractions
-    are computed in float64 and stored as float32.
+    model), so the work per outlet grows with its catchment, not with the grid. The result
+    summed with the cell areas equals the D∞/MFD upstream area at the outlet
+    (:func:`contributing_area_m2`). Fractions are computed in float64 and stored as
+    float32.
 
     Like every DEM-derived boundary, the result is an estimate: culverts, storm sewers and
     diversions are not represented unless burned in; verify in the field and defer to local

@@ -218,17 +218,20 @@ def _reference_accumulation(rec, frac, weight):
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(seed=st.integers(0, 10_000), n=st.integers(3, 28), m=st.integers(3, 28),
        holes=st.integers(0, 3), method=st.sampled_from(["dinf", "mfd"]),
-       conditioning=st.sampled_from(["fill", "none"]), integer=st.booleans())
+       conditioning=st.sampled_from(["fill", "none"]), integer=st.booleans(),
+       exponent=st.sampled_from([0.0, 1.0, 1.1, 8.0, 60.0]))
 def test_conservation_and_order_on_random_dems(seed, n, m, holes, method, conditioning,
-                                               integer):
+                                               integer, exponent):
     """CHECKS.md properties: accumulation at exits sums to the total weight (cells, area,
     random weights), shares sum to 1, the order is topological; and the accumulation equals
     an independent sparse solve of its defining equations. Random fractal DEMs with nodata
-    holes; unfilled ones keep pits (exits inside the grid); integer DEMs have flats."""
+    holes; unfilled ones keep pits (exits inside the grid); integer DEMs have flats; MFD
+    exponents from 0 (contour length only) to 60 (shares far below float32 range)."""
     z = fractal_dem(n, m, seed=seed, relief=50, holes=holes, integer=integer)
     if not np.isfinite(z).any():
         return
-    fm = route(terrain_from_array(z, cellsize=5.0), method=method, conditioning=conditioning)
+    fm = route(terrain_from_array(z, cellsize=5.0), method=method, conditioning=conditioning,
+               mfd_exponent=exponent)
     rec, frac, order = fm.multi
     _graph_checks(fm, rec, frac, order)
     valid = fm.terrain.valid.ravel()
