@@ -490,6 +490,17 @@ def run_job(job, output=None, overwrite: bool = False, console=None) -> JobResul
     ``profiles/``, ``morphometry.csv``, ``hypsometry/``, ``report.html`` and
     ``provenance.json``. Every table and raster is deterministic; ``provenance.json`` and
     the report also hold timings, which are not.
+
+    A stage whose module is missing, or that has nothing to work on (no outlets), is
+    skipped with a note in ``stages`` and ``provenance.json``; outlets that cannot be used
+    are listed in ``outlet_errors.csv`` and the job carries on.
+
+    Examples
+    --------
+    >>> from basinkit.jobs import demo_job_path, run_job
+    >>> res = run_job(demo_job_path(), output="demo-out", overwrite=True)  # doctest: +SKIP
+    >>> res.outlets.set_index("outlet_id").loc["crossing", "area_km2"]  # doctest: +SKIP
+    2.7346
     """
     from . import __version__
     from .writers import prepare_output_dir, write_json

@@ -712,6 +712,23 @@ def render_report(res, workers: int | None = None, progress=None) -> str:
     str
         A complete, self-contained HTML document (UTF-8): figures are base64 PNG data URIs,
         the CSS is inline and nothing refers to the network.
+
+    References
+    ----------
+    Strahler, A. N. (1952). Hypsometric (area-altitude) analysis of erosional topography.
+    GSA Bulletin 63:1117-1142 (the hypsometric curve).
+    Perron, J. T., Royden, L. (2013). An integral approach to bedrock river profile
+    analysis. Earth Surface Processes and Landforms 38:570-576 (the χ plot).
+
+    Examples
+    --------
+    >>> from basinkit.jobs import demo_job_path, read_job, run_job
+    >>> job = read_job(demo_job_path())
+    >>> job["outputs"]["report"] = False
+    >>> res = run_job(job, output="demo-out", overwrite=True)  # doctest: +SKIP
+    >>> html = render_report(res)  # doctest: +SKIP
+    >>> html.startswith("<!DOCTYPE html>")  # doctest: +SKIP
+    True
     """
     job = res.job
     title = job["job"]["name"] if job is not None else "basinkit report"
