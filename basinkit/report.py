@@ -329,7 +329,7 @@ def _draw_map(ctx, ax, window, polygons, outlets, title=None, label_outlets=Fals
         for ring in _rings(poly):
             ax.plot(ring[:, 0], ring[:, 1], color=DIVIDE, lw=1.8 if k == 0 else 1.0,
                     zorder=4)
-    for o in outlets:
+    for k, o in enumerate(outlets):
         if np.isfinite(o["x_given"]):
             ax.plot(o["x_given"], o["y_given"], marker="o", mfc="none", mec=GIVEN, mew=1.3,
                     ms=7, ls="none", zorder=6)
@@ -337,8 +337,11 @@ def _draw_map(ctx, ax, window, polygons, outlets, title=None, label_outlets=Fals
             ax.plot(o["x_snapped"], o["y_snapped"], marker="^", color=SNAPPED, mec="white",
                     mew=0.6, ms=7, ls="none", zorder=7)
             if label_outlets:
+                # alternate sides so that labels of neighbouring outlets do not overlap
+                right = k % 2 == 0
                 ax.annotate(o["outlet_id"], (o["x_snapped"], o["y_snapped"]),
-                            xytext=(5, 3), textcoords="offset points", fontsize=7,
+                            xytext=(7 if right else -7, 2), textcoords="offset points",
+                            ha="left" if right else "right", va="center", fontsize=7,
                             color=INK, zorder=8,
                             bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none",
                                       alpha=0.75))
