@@ -372,8 +372,10 @@ def _contributing(fm, tab, msgs, progress, callback):
         return np.full(len(tab), np.nan)
     cells = tab["cell"].to_numpy(np.int64)
     if callback is None:
-        return np.atleast_1d(np.asarray(contributing.contributing_area_m2(fm, cells),
-                                        dtype=np.float64))
+        # no fraction rasters wanted: the upstream area at the outlet is the same figure
+        return np.atleast_1d(np.asarray(
+            contributing.contributing_area_m2(fm, cells, from_fractions=False),
+            dtype=np.float64))
     out = np.empty(len(tab))
     area = fm.terrain.cell_area().ravel()
     it = range(len(tab))

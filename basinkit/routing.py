@@ -11,13 +11,15 @@ import numpy as np
 from . import _d8
 from .conditioning import ConditionSummary, condition, exit_cells
 from .errors import InputError
-from .terrain import Terrain, check_memory
+from .terrain import ROUTE_BYTES_PER_CELL, Terrain, check_memory
 
 __all__ = ["FlowModel", "route", "load_flow", "D8_NODATA", "D8_NO_OUTFLOW"]
 
 D8_NODATA = -32768
 D8_NO_OUTFLOW = -1
 ROUTING_METHODS = ("d8", "dinf", "mfd")
+# working memory D∞ and MFD need on top of D8 (two or eight receivers and shares per cell)
+EXTRA_BYTES_PER_CELL = {"dinf": 32, "mfd": 75}
 
 # file names inside a flow folder
 FILES = {
@@ -281,7 +283,7 @@ def route(terrain: Terrain, method: str = "d8", conditioning: str = "fill",
     """
     if method not in ROUTING_METHODS:
         raise InputError(f"unknown routing method {method!r}; use d8, dinf or mfd")
-    check_memory(terrain.size)
+    check_memory(terrain.size, ROUTE_BYTES_PER_CELL + EXTRA_BYTES_PER_CELL.get(method, 0))
     raw = terrain.elevation
     cond, summary = condition(terrain, method=conditioning, **condition_options)
     params = {"method": method, "conditioning": conditioning,
