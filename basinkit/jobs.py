@@ -110,7 +110,8 @@ JOB_SCHEMA = {
     "profiles": {
         "concavity": _S(kind="float", default=0.45,
                         help="Reference concavity θ for χ and k_sn."),
-        "reference_area": _S(kind="area", default=1e6, help="Reference area A0 for χ."),
+        "reference_area": _S(kind="area", default=1.0,
+                             help="Reference area A0 for χ (default 1 m², as on the CLI)."),
         "enabled": _S(kind="bool", default=True, help="Compute profiles."),
     },
     "morphometry": {
