@@ -180,6 +180,21 @@ def fill_exact(z, valid, seeds):
                     _prefetch(closed, nxt + nc)
                 _prefetch(zf, nxt)
                 _prefetch(closed, nxt)
+                # and the one after it: the least of the top cell's children
+                if hs > 2:
+                    e = 5 if hs > 5 else hs
+                    v = heap[1]
+                    for q in range(2, e):
+                        if heap[q] < v:
+                            v = heap[q]
+                    nx2 = np.int64(v & np.uint64(0xFFFFFFFF))
+                    if nx2 >= nc and nx2 < n - nc:
+                        _prefetch(zf, nx2 - nc)
+                        _prefetch(zf, nx2 + nc)
+                        _prefetch(closed, nx2 - nc)
+                        _prefetch(closed, nx2 + nc)
+                    _prefetch(zf, nx2)
+                    _prefetch(closed, nx2)
         r = cell // nc
         c0 = cell - r * nc
         zc = zf[cell]
