@@ -27,6 +27,10 @@ RAW_COLUMNS = ["outlet_id", "source", "x_given", "y_given", "given_crs"]
 LONG_SNAP_FRACTION = 0.5
 LONG_SNAP_CELLS = 5.0
 AREA_JUMP_FACTOR = 10.0
+# a point already on a drainage line (>= 100 cells) whose snap changes the area by > 1.5x
+# has probably moved across a confluence: the catchment is then not the one asked for
+ON_CHANNEL_CELLS = 100
+CONFLUENCE_FACTOR = 1.5
 DEFAULT_RADIUS_CELLS = 3
 DEFAULT_CHANNEL_RADIUS_CELLS = 10
 MAX_WINDOW_CELLS = 4_000_000  # candidate cells per outlet (a radius of ~1000 cells)
@@ -425,6 +429,7 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     g = t.geometry
     mid = nr // 2
     cell_m = float(max(g.dx[mid], g.dy_down[mid]))
+    cell_area = float(g.area[mid])
     channel = channel_area_m2 is not None
     if radius_m is None:
         radius_m = (DEFAULT_CHANNEL_RADIUS_CELLS if channel else DEFAULT_RADIUS_CELLS) * cell_m
@@ -500,6 +505,10 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
         if a1 >= AREA_JUMP_FACTOR * a0:
             w.append(f"upstream area jumps {a1 / a0:.0f}x from the given cell: the snap may "
                      "have landed on another branch")
+        elif a0 >= ON_CHANNEL_CELLS * cell_area and a1 > CONFLUENCE_FACTOR * a0:
+            w.append(f"the given point already drains {a0 / 1e6:.3g} km2 but the snap moved "
+                     f"it to {a1 / 1e6:.3g} km2, probably across a confluence; check the "
+                     "position or use a smaller --snap-radius")
         warn.append("; ".join(w))
     out["snap_warning"] = warn
     out["snap_radius_m"] = radius_m

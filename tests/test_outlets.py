@@ -265,3 +265,27 @@ def test_huge_snap_radius_refused(flow, monkeypatch):
         snap_outlets(flow, loc, radius_m=300)
     s, _ = snap_outlets(flow, loc, radius_m=100)  # 11 x 11 cells each side: fine
     assert len(s) == 1
+
+
+def test_snap_across_a_confluence_is_flagged():
+    """A point on a stream just above a confluence, snapped by greatest area within a radius
+    that reaches the junction, doubles its catchment: that must be flagged (common practice,
+    no source: the snapped catchment is not the one asked for)."""
+    import numpy as np
+
+    from basinkit import route, terrain_from_array
+    from basinkit.outlets import prepare_outlets
+
+    # two parallel valleys (columns 5 and 7) joining at row 30, draining south
+    nr, nc = 40, 13
+    r, c = np.mgrid[0:nr, 0:nc]
+    z = 200.0 - r * 1.0 + np.minimum(np.abs(c - 5), np.abs(c - 7)) * 3.0
+    below = r >= 30
+    z[below] = 200.0 - r[below] * 1.0 + np.abs(c[below] - 6) * 3.0
+    fm = route(terrain_from_array(z, cellsize=10))
+    t = fm.terrain
+    x, y = t.xy_of(28, 5)  # on the western stream, two cells above the junction
+    snapped, errors = prepare_outlets(fm, [("a", float(x), float(y))], radius_m=40)
+    row = snapped.iloc[0]
+    assert row["upstream_area_m2"] > 1.5 * row["upstream_area_given_cell_m2"]
+    assert "confluence" in row["snap_warning"]
