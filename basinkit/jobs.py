@@ -92,12 +92,21 @@ JOB_SCHEMA = {
         "mfd_exponent": _S(kind="float", default=1.1, help="MFD partition exponent."),
     },
     "outlets": {
-        "snap_radius_m": _S(kind="float", default=50.0,
-                            help="Move each outlet up to this far onto the channel."),
+        "snap_radius_m": _S(kind="float", default=None,
+                            help="Snap search radius in metres, as basinkit delineate "
+                                 "--snap-radius (default: 3 cells; 10 cells with "
+                                 "snap_min_area; 0: no snapping)."),
         "snap_min_area": _S(kind="area", default=None,
-                            help="Snap only onto cells with at least this upstream area "
-                                 "(default: the channel threshold)."),
-        "id_column": _S(kind="str", default="id", help="Outlet id column."),
+                            help="Snap to the nearest cell with at least this upstream "
+                                 "area, as basinkit delineate --snap-to-channel (default: "
+                                 "to the cell of greatest upstream area within the "
+                                 "radius)."),
+        "crs": _S(kind="str", default=None,
+                  help="CRS of CSV x/y columns, as --outlet-crs (default: the DEM's; "
+                       "lon/lat columns: EPSG:4326; vector files carry their own)."),
+        "id_column": _S(kind="str", default=None,
+                        help="Outlet id column (default: the first of outlet_id, id, name, "
+                             "...; else the row number)."),
         "x_column": _S(kind="str", default="x", help="Easting / longitude column."),
         "y_column": _S(kind="str", default="y", help="Northing / latitude column."),
     },
@@ -286,7 +295,7 @@ def job_from_dict(data: dict, base=".", path=None) -> JobSpec:
                                f"(paths are relative to {str(base)!r})")
     for sec, key in (("conditioning", "burn_depth_m"), ("outlets", "snap_radius_m"),
                      ("conditioning", "epsilon"), ("routing", "mfd_exponent")):
-        if sections[sec][key] < 0:
+        if sections[sec][key] is not None and sections[sec][key] < 0:
             raise JobFileError(f"[{sec}] {key} must be zero or positive, got "
                                f"{sections[sec][key]!r}")
     c = sections["profiles"]["concavity"]
@@ -784,12 +793,13 @@ def _stage_delineate(job, res, console):
         from .catchments import delineate
 
         oc = job["outlets"]
-        min_area = oc["snap_min_area"]
-        if min_area is None:
-            min_area = job["channels"]["min_area"]
         fm, t = res.flow, res.flow.terrain
-        d = delineate(fm, job["inputs"]["outlets"], snap_radius_m=oc["snap_radius_m"],
-                      snap_to_channel_m2=min_area, id_column=oc["id_column"],
+        # outlets are placed with basinkit.outlets.prepare_outlets and the same settings as
+        # the delineate/profile/morphometry commands; the profile and morphometry stages
+        # use the cells placed here
+        d = delineate(fm, job["inputs"]["outlets"], crs=oc["crs"],
+                      snap_radius_m=oc["snap_radius_m"],
+                      snap_to_channel_m2=oc["snap_min_area"], id_column=oc["id_column"],
                       progress=getattr(console, "progress", None))
         res.catchments = d
         tab = d.table

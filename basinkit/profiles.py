@@ -47,7 +47,7 @@ from .errors import InputError, OutletError
 __all__ = [
     "Profile", "FlowPath", "ConcavityFit", "SlopeAreaFit", "HackFit",
     "longest_flow_path", "main_stem", "channel_profiles", "chi_transform", "fit_concavity",
-    "steepness", "find_knickpoints", "slope_area_fit", "hack_law_fit", "snap_outlet",
+    "steepness", "find_knickpoints", "slope_area_fit", "hack_law_fit",
     "plot_long_profile", "plot_chi", "plot_slope_area", "DEFAULT_CONCAVITY",
     "DEFAULT_SLOPE_WINDOW_M",
 ]
@@ -130,44 +130,6 @@ def _slope_mode(slope_window_m, slope_drop_m):
         raise InputError(f"the slope window must be a positive length in m, got "
                          f"{slope_window_m!r}")
     return 0, w / 2.0
-
-
-def snap_outlet(fm, x, y, search_radius_cells: int = 2) -> int:
-    """Flat index of the cell of greatest D8 upstream area near map point (x, y).
-
-    Parameters
-    ----------
-    fm : FlowModel
-    x, y : float
-        Map coordinates in the DEM's CRS.
-    search_radius_cells : int
-        Cells searched around the cell containing the point (0: that cell only).
-
-    Returns
-    -------
-    int
-        Flat cell index ``row * ncols + col``.
-
-    Raises
-    ------
-    OutletError
-        The point lies off the grid or only on nodata.
-    """
-    r, c = fm.terrain.rowcol_of(x, y)
-    r, c = int(r), int(c)
-    nr, nc = fm.shape
-    if not (0 <= r < nr and 0 <= c < nc):
-        raise OutletError(f"the outlet ({x}, {y}) lies outside the DEM; give coordinates in "
-                          "the DEM's CRS inside its extent")
-    k = max(int(search_radius_cells), 0)
-    r0, r1 = max(r - k, 0), min(r + k + 1, nr)
-    c0, c1 = max(c - k, 0), min(c + k + 1, nc)
-    area = _area_flat(fm).reshape(fm.shape)[r0:r1, c0:c1]
-    if not np.isfinite(area).any():
-        raise OutletError(f"the outlet ({x}, {y}) lies on nodata; move it onto the DEM")
-    a = np.where(np.isfinite(area), area, -1.0)
-    i = int(np.argmax(a))  # first maximum: deterministic
-    return (r0 + i // a.shape[1]) * nc + c0 + i % a.shape[1]
 
 
 # ---------------------------------------------------------------------- paths

@@ -315,7 +315,7 @@ def test_morphometry_command(tmp_path, capsys):
     out = tmp_path / "m"
     with pytest.raises(SystemExit) as exc:
         main(["morphometry", str(tmp_path / "flow"), "--outlet", pts[0], "--outlet", pts[1],
-              "--outlet", "off=1,2", "--snap-distance", "0m", "--min-area", "0.02km2",
+              "--outlet", "off=1,2", "--snap-radius", "0m", "--min-area", "0.02km2",
               "-o", str(out)])
     err = capsys.readouterr().err
     assert (exc.value.code or 0) == 0, err

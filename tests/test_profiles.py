@@ -244,18 +244,6 @@ def test_10_85_and_window_slopes_on_a_plane():
         np.testing.assert_allclose(nodes["slope_m_per_m"], s, rtol=1e-4)
 
 
-def test_snap_outlet_to_greatest_area():
-    """A point one cell beside the valley axis moves onto the axis (greatest area within two
-    cells; common practice, no source)."""
-    z = np.add.outer(np.arange(20.0, 0, -1), np.abs(np.arange(11.0) - 5))
-    fm = route(terrain_from_array(z, cellsize=10))
-    x, y = fm.terrain.xy_of(15, 6)
-    cell = P.snap_outlet(fm, float(x), float(y), search_radius_cells=2)
-    assert divmod(cell, 11) == (17, 5)
-    with pytest.raises(OutletError):
-        P.snap_outlet(fm, -500.0, 50.0)
-
-
 # ---------------------------------------------------------------------- real DEM
 @pytest.fixture(scope="module")
 def jacksboro():

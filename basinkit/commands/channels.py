@@ -3,7 +3,7 @@ folder; optionally choose the channel threshold by the constant-drop test."""
 
 import click
 
-from ._common import overwrite_option, parse_area
+from ._common import outlet_options, overwrite_option, parse_area
 
 
 def _parse_range(text):
@@ -92,20 +92,20 @@ def _write_gpkg(path, net, atomic_path):
               help="Number of thresholds (log spaced) tried by --choose-threshold.")
 @click.option("--critical-t", type=float, default=2.0, show_default=True,
               help="Largest |t| of the constant-drop test that passes.")
-@click.option("--outlet", "outlets", multiple=True, metavar="[NAME=]X,Y",
-              help="Also split segments at this point (map coordinates of the DEM's CRS, "
-                   "snapped like basinkit delineate does); repeat for more.")
-@click.option("--outlets", "outlets_file", type=click.Path(), default=None,
-              help="CSV (id, x, y columns) or point layer of outlets at which to split "
-                   "segments.")
+@outlet_options(purpose="An outlet at which to split segments")
 @overwrite_option
 @click.pass_obj
 def command(console, flowdir, output, min_area, slope_area_exponent, slope_area_constant,
-            choose, threshold_steps, critical_t, outlets, outlets_file, overwrite):
+            choose, threshold_steps, critical_t, outlets, overwrite):
     """Extract the channel network: segments with Strahler order, Shreve magnitude,
     length, drop, slope, upstream areas and sinuosity; junctions; a Strahler order raster.
 
-    Example: basinkit channels flow/ --min-area 0.5km2 -o channels/
+    With --outlet/--outlets, segments are also split at the outlets, snapped as in every
+    basinkit command (see --snap-radius and --snap-to-channel).
+
+    \b
+    Example: basinkit channels flow/ --min-area 2ha --outlets demo_rasters/outlets.csv \\
+        --snap-radius 30m --snap-to-channel 1ha -o channels/
     """
     import time
 
@@ -113,7 +113,6 @@ def command(console, flowdir, output, min_area, slope_area_exponent, slope_area_
     from ..errors import InputError
     from ..routing import load_flow
     from ..writers import prepare_output_dir
-    from .morphometry import outlet_cells_from_options
 
     t0 = time.perf_counter()
     if min_area is None and choose is None:
@@ -146,8 +145,9 @@ def command(console, flowdir, output, min_area, slope_area_exponent, slope_area_
             raise InputError("no threshold in the range passes the constant-drop test; "
                              "widen --choose-threshold or give --min-area")
     cells = None
-    if outlets or outlets_file:
-        cells, _, errors = outlet_cells_from_options(fm, outlets, outlets_file)
+    if outlets:
+        snapped, errors = outlets.snap(fm)
+        cells = snapped["cell"].to_numpy(dtype="int64")
         for r in errors.itertuples():
             console.warn(f"outlet {r.outlet_id} not used: {r.reason}")
     net = extract_channels(fm, min_area_m2, slope_area=slope_area, outlet_cells=cells)
@@ -158,7 +158,7 @@ def command(console, flowdir, output, min_area, slope_area_exponent, slope_area_
     params = {"min_area_m2": min_area_m2, "slope_area_exponent": slope_area_exponent,
               "slope_area_constant": slope_area_constant, "choose_threshold": choose,
               "threshold_steps": threshold_steps, "critical_t": critical_t,
-              "outlets": list(outlets), "outlets_file": outlets_file}
+              **(outlets.parameters() if outlets else {})}
     write_network(output, fm, net, drop, params,
                   {"seconds": round(time.perf_counter() - t0, 3)})
     console.info(f"wrote {output} ({time.perf_counter() - t0:.1f} s)")

@@ -22,7 +22,9 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
             burn, burn_depth, band, crs, sea_level, base_level, overwrite, summary_path):
     """Condition a DEM so that every cell drains to an exit.
 
-    Example: basinkit condition dem.tif -o dem_filled.tif --burn culverts.gpkg
+    \b
+    Example: basinkit condition demo_rasters/upland_valley.tif \\
+        --burn demo_rasters/culverts.geojson --burn-depth 1m -o upland_valley_filled.tif
     """
     from pathlib import Path
 

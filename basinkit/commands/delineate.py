@@ -2,7 +2,7 @@
 
 import click
 
-from ._common import overwrite_option, parse_area, parse_length
+from ._common import outlet_options, overwrite_option
 
 # files written into the output folder
 OUTPUT_FILES = {
@@ -28,22 +28,7 @@ _DROP = ["given_crs", "row_given", "col_given", "cell_given", "upstream_area_m2"
 
 @click.command("delineate")
 @click.argument("flowdir", type=click.Path())
-@click.option("--outlet", "outlet_values", multiple=True, metavar="[NAME=]X,Y",
-              help="An outlet position (repeatable), in --outlet-crs.")
-@click.option("--outlets", "outlet_file", type=click.Path(), default=None,
-              help="CSV (id column and x/y or lon/lat columns), GeoJSON or GeoPackage "
-                   "points (vector files carry their own CRS).")
-@click.option("--outlet-crs", default=None,
-              help="CRS of --outlet values and CSV x/y columns, e.g. EPSG:4326 "
-                   "[default: the DEM's; lon/lat columns: EPSG:4326].")
-@click.option("--id-column", default=None, help="Column of --outlets holding the ids.")
-@click.option("--snap-radius", default=None, metavar="LENGTH",
-              help="Move each outlet to the cell of greatest upstream area within this "
-                   "distance (e.g. 30m, 0.1km; 0 = no snapping) [default: 3 cells; "
-                   "10 cells with --snap-to-channel].")
-@click.option("--snap-to-channel", default=None, metavar="AREA",
-              help="Instead, move each outlet to the nearest cell whose upstream area is "
-                   "at least this (e.g. 0.5km2, 20ha) within --snap-radius.")
+@outlet_options
 @click.option("-o", "--output", required=True, type=click.Path(),
               help="Output folder.")
 @click.option("--labels-raster", is_flag=True,
@@ -57,8 +42,7 @@ _DROP = ["given_crs", "row_given", "col_given", "cell_given", "upstream_area_m2"
               help="Worker processes for the polygons (forked on large jobs only).")
 @overwrite_option
 @click.pass_obj
-def command(console, flowdir, outlet_values, outlet_file, outlet_crs, id_column,
-            snap_radius, snap_to_channel, output, labels_raster, web_geojson,
+def command(console, flowdir, outlets, output, labels_raster, web_geojson,
             fraction_rasters, workers, overwrite):
     """Delineate the catchments of outlets on a flow folder written by 'basinkit route'.
 
@@ -67,7 +51,13 @@ def command(console, flowdir, outlet_values, outlet_file, outlet_crs, id_column,
     label GeoTIFF and a WGS 84 GeoJSON. Exits with status 1 when any outlet failed (the
     others are still delineated and written).
 
-    Example: basinkit delineate flow/ --outlet 512300,6841200 --snap-radius 50m -o basin/
+    Outlets are snapped as in every basinkit command (see --snap-radius and
+    --snap-to-channel), so the same options put an outlet on the same cell in delineate,
+    channels, profile and morphometry.
+
+    \b
+    Example: basinkit delineate flow/ --outlets demo_rasters/outlets.csv \\
+        --snap-radius 30m --snap-to-channel 1ha -o basin/
     """
     import time
     from pathlib import Path
@@ -75,34 +65,18 @@ def command(console, flowdir, outlet_values, outlet_file, outlet_crs, id_column,
     import pandas as pd
 
     from ..catchments import delineate
-    from ..errors import InputError
-    from ..outlets import (ERROR_COLUMNS, outlets_from_text, read_outlet_file,
-                           require_outlets)
+    from ..outlets import ERROR_COLUMNS, require_outlets
     from ..routing import load_flow
     from ..writers import prepare_output_dir
 
     t0 = time.perf_counter()
-    if not outlet_values and not outlet_file:
-        raise InputError("no outlets given; pass --outlet X,Y (repeatable) or --outlets FILE")
+    outlets.require()
     if Path(output).exists():  # refuse a used folder before doing the work
         prepare_output_dir(output, overwrite)
-    radius = parse_length(snap_radius, "--snap-radius") if snap_radius is not None else None
-    channel = (parse_area(snap_to_channel, "--snap-to-channel")
-               if snap_to_channel is not None else None)
     fm = load_flow(flowdir)
     console.info(f"read flow folder {flowdir}: {fm.shape[0]} x {fm.shape[1]} cells, "
                  f"{fm.method} routing")
-    raws, errs = [], []
-    if outlet_values:
-        r, e = outlets_from_text(outlet_values, crs=outlet_crs)
-        raws.append(r)
-        errs.append(e)
-    if outlet_file:
-        r, e = read_outlet_file(outlet_file, crs=outlet_crs, id_column=id_column)
-        raws.append(r)
-        errs.append(e)
-    raw = pd.concat(raws, ignore_index=True)
-    given_errors = pd.concat(errs, ignore_index=True)
+    raw, given_errors = outlets.read()
     n_given = len(raw) + len(given_errors)
     if not len(raw):
         require_outlets(raw, given_errors)
@@ -129,16 +103,14 @@ def command(console, flowdir, outlet_values, outlet_file, outlet_crs, id_column,
         return console.progress(it, total=total, desc=desc)
 
     prepare_output_dir(out, overwrite)
-    res = delineate(fm, raw, crs=outlet_crs, snap_radius_m=radius,
-                    snap_to_channel_m2=channel, workers=workers, progress=progress,
+    # catchments.delineate places the outlets with prepare_outlets and the same settings
+    # as OutletRequest.snap (used by profile and channels)
+    res = delineate(fm, raw, **outlets.snap_kwargs(), workers=workers, progress=progress,
                     fraction_callback=callback)
     errors = pd.concat([given_errors, res.errors], ignore_index=True)[ERROR_COLUMNS]
     res.errors = errors
-    _write_outputs(console, res, fm, out, outlet_file, labels_raster, web_geojson,
-                   fraction_paths, dict(flowdir=str(flowdir), outlets=list(outlet_values),
-                                        outlet_file=outlet_file, outlet_crs=outlet_crs,
-                                        id_column=id_column, snap_radius=snap_radius,
-                                        snap_to_channel=snap_to_channel))
+    _write_outputs(console, res, fm, out, outlets.file, labels_raster, web_geojson,
+                   fraction_paths, dict(flowdir=str(flowdir), **outlets.parameters()))
     _report(console, res, n_given)
     console.info(f"wrote {out} ({time.perf_counter() - t0:.1f} s)")
     return 1 if len(errors) else 0

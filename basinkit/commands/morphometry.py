@@ -3,45 +3,7 @@ one or more outlets; hypsometric curves as CSV and PNG."""
 
 import click
 
-from ._common import overwrite_option, parse_area, parse_length
-
-
-def raw_outlets(outlets=(), outlets_file=None, crs=None):
-    """Outlet frame and errors from ``--outlet [NAME=]X,Y`` values and/or an outlet file
-    (CSV or point layer), read with :mod:`basinkit.outlets`."""
-    import pandas as pd
-
-    from ..errors import InputError
-    from ..outlets import outlets_from_text, read_outlet_file
-
-    frames, errors = [], []
-    if outlets:
-        f, e = outlets_from_text(outlets, crs=crs)
-        frames.append(f)
-        errors.append(e)
-    if outlets_file:
-        f, e = read_outlet_file(outlets_file, crs=crs)
-        frames.append(f)
-        errors.append(e)
-    if not frames:
-        raise InputError("give at least one outlet: --outlet X,Y or --outlets FILE")
-    return (pd.concat(frames, ignore_index=True),
-            pd.concat([e for e in errors if len(e)] or errors[:1], ignore_index=True))
-
-
-def outlet_cells_from_options(fm, outlets=(), outlets_file=None, snap_m=None, crs=None):
-    """Snapped flat outlet cells and their ids (for splitting channel segments).
-
-    Returns (cells int64, ids list of str, errors DataFrame)."""
-    import pandas as pd
-
-    from ..outlets import prepare_outlets, require_outlets
-
-    raw, errors = raw_outlets(outlets, outlets_file, crs)
-    snapped, e2 = prepare_outlets(fm, raw, crs=crs, radius_m=snap_m)
-    errors = pd.concat([e for e in (errors, e2) if len(e)] or [e2], ignore_index=True)
-    require_outlets(snapped, errors)
-    return snapped["cell"].to_numpy(dtype="int64"), snapped["outlet_id"].tolist(), errors
+from ._common import outlet_options, overwrite_option, parse_area
 
 
 @click.command("morphometry")
@@ -49,16 +11,7 @@ def outlet_cells_from_options(fm, outlets=(), outlets_file=None, snap_m=None, cr
 @click.option("-o", "--output", required=True, type=click.Path(),
               help="Folder to write morphometry.csv, morphometry.json and hypsometric "
                    "curves.")
-@click.option("--outlet", "outlets", multiple=True, metavar="[NAME=]X,Y",
-              help="Outlet in map coordinates (the DEM's CRS unless --outlet-crs); repeat "
-                   "for more.")
-@click.option("--outlets", "outlets_file", type=click.Path(), default=None,
-              help="CSV (id, x, y or lon, lat columns) or point layer of outlets.")
-@click.option("--outlet-crs", default=None,
-              help="CRS of --outlet coordinates and of CSV files (default: the DEM's).")
-@click.option("--snap-distance", default=None,
-              help="Move each outlet to the cell of largest upstream area within this "
-                   "ground distance (e.g. 60m; default 3 cells; 0m: no snapping).")
+@outlet_options
 @click.option("--min-area", default=None,
               help="Channel threshold (e.g. 0.5km2) for the network measures (stream "
                    "counts, Horton ratios, drainage density); without it they are left "
@@ -71,14 +24,19 @@ def outlet_cells_from_options(fm, outlets=(), outlets_file=None, snap_m=None, cr
               help="Write a PNG of each hypsometric curve.")
 @overwrite_option
 @click.pass_obj
-def command(console, flowdir, output, outlets, outlets_file, outlet_crs, snap_distance,
-            min_area, slope_area_exponent, slope_area_constant, figures, overwrite):
+def command(console, flowdir, output, outlets, min_area, slope_area_exponent,
+            slope_area_constant, figures, overwrite):
     """Measure the catchments above the outlets: area, perimeter, lengths, elongation,
     circularity, relief, hypsometry, slope, aspect and (with --min-area) the channel
     network's orders, Horton ratios and drainage density. Nested outlets each get their
     full catchment.
 
-    Example: basinkit morphometry flow/ --outlet 512300,4901250 --min-area 0.5km2 -o morph/
+    Outlets are snapped as in every basinkit command (see --snap-radius and
+    --snap-to-channel).
+
+    \b
+    Example: basinkit morphometry flow/ --outlets demo_rasters/outlets.csv \\
+        --snap-radius 30m --snap-to-channel 1ha --min-area 2ha -o morph/
     """
     import time
 
@@ -96,12 +54,17 @@ def command(console, flowdir, output, outlets, outlets_file, outlet_crs, snap_di
     if (slope_area_exponent is None) != (slope_area_constant is None):
         raise InputError("the slope–area criterion needs both --slope-area-exponent and "
                          "--slope-area-constant")
-    snap_m = parse_length(snap_distance, "--snap-distance") if snap_distance else None
+    outlets.require()
     min_area_m2 = parse_area(min_area, "--min-area") if min_area is not None else None
     out = prepare_output_dir(output, overwrite)
     fm = load_flow(flowdir)
-    raw, read_errors = raw_outlets(outlets, outlets_file, outlet_crs)
-    d = delineate(fm, raw, crs=outlet_crs, snap_radius_m=snap_m, polygons=False)
+    raw, read_errors = outlets.read()
+    if not len(raw):
+        from ..outlets import require_outlets
+
+        require_outlets(raw, read_errors)
+    # placed with prepare_outlets and the same settings as OutletRequest.snap
+    d = delineate(fm, raw, **outlets.snap_kwargs(), polygons=False)
     tab = d.table
     cells = tab["cell"].to_numpy(np.int64)
     net = None
@@ -147,9 +110,8 @@ def command(console, flowdir, output, outlets, outlets_file, outlet_crs, snap_di
         files.append(f"hypsometry/{base.name}.csv")
         if figures:
             files.append(f"hypsometry/{base.name}.png")
-    params = {"outlets": list(outlets), "outlets_file": outlets_file,
-              "outlet_crs": outlet_crs, "snap_distance_m": snap_m,
-              "min_area_m2": min_area_m2, "slope_area_exponent": slope_area_exponent,
+    params = {**outlets.parameters(), "min_area_m2": min_area_m2,
+              "slope_area_exponent": slope_area_exponent,
               "slope_area_constant": slope_area_constant}
     t = fm.terrain
     records = table.astype(object).where(table.notna(), None).to_dict(orient="records")

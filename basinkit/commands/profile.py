@@ -19,7 +19,7 @@ from pathlib import Path
 
 import click
 
-from ._common import overwrite_option, parse_area, parse_length
+from ._common import LENGTH, outlet_options, overwrite_option, parse_area, parse_length
 
 CAUTIONS = [
     "Profiles, flow paths and steepness values are estimates derived from a DEM; their "
@@ -52,21 +52,12 @@ def _write_gpkg(path, layers):
 @click.argument("flowdir", type=click.Path())
 @click.option("-o", "--output", required=True, type=click.Path(),
               help="Output folder (profile.csv, profiles.gpkg, PNG figures, summary.json).")
-@click.option("--outlet", "outlet_xy", multiple=True,
-              help="Outlet as X,Y or NAME=X,Y (DEM's CRS unless --outlet-crs); may be "
-                   "given several times.")
-@click.option("--outlets", "outlets_file", type=click.Path(),
-              help="CSV (id, x/y or lon/lat columns) or point layer of outlets.")
-@click.option("--id-column", default=None, help="Column of the outlets file with outlet ids.")
-@click.option("--outlet-crs", default=None,
-              help="CRS of outlet coordinates without one (default: the DEM's).")
-@click.option("--snap-radius", default=None,
-              help="Move each outlet to the nearest channel cell (upstream area >= "
-                   "--min-area) within this distance [default: 10 cells]; 0 keeps it.")
+@outlet_options
 @click.option("--min-order", type=int, default=2, show_default=True,
               help="Lowest Strahler order of the channels profiled.")
 @click.option("--min-area", default="0.5km2", show_default=True,
-              help="Channel initiation threshold (upstream area, e.g. 0.5km2, 20ha).")
+              help="Channel initiation threshold (upstream area, e.g. 0.5km2, 20ha). "
+                   "Outlets are snapped by --snap-radius/--snap-to-channel only.")
 @click.option("--concavity", type=float, default=None,
               help="Concavity θ for χ and k_sn [default: 0.45].")
 @click.option("--fit-concavity", is_flag=True,
@@ -77,16 +68,22 @@ def _write_gpkg(path, layers):
               help="Length of the window local slope is measured over [default: 20m].")
 @click.option("--slope-drop", default=None,
               help="Measure local slope over this vertical interval instead (e.g. 5m).")
-@click.option("--vertical-precision", type=float, default=1.0, show_default=True,
-              help="Vertical precision of the DEM (m), for knickpoint detection.")
+@click.option("--vertical-precision", type=LENGTH, default=1.0, show_default=True,
+              help="Vertical precision of the DEM (e.g. 0.5m; bare numbers are metres), "
+                   "for knickpoint detection.")
 @overwrite_option
 @click.pass_obj
-def command(console, flowdir, output, outlet_xy, outlets_file, id_column, outlet_crs,
-            snap_radius, min_order, min_area, concavity, fit_concavity, reference_area,
+def command(console, flowdir, output, outlets, min_order, min_area, concavity, fit_concavity, reference_area,
             slope_window, slope_drop, vertical_precision, overwrite):
     """Longitudinal profiles, χ, channel steepness and knickpoints upstream of outlets.
 
-    Example: basinkit profile flow/ --outlet 512300,4712850 --min-area 0.5km2 -o prof/
+    Outlets are snapped as in every basinkit command (greatest upstream area within
+    --snap-radius, or the nearest channel cell with --snap-to-channel), so the same options
+    put an outlet on the same cell as in delineate and morphometry.
+
+    \b
+    Example: basinkit profile flow/ --outlet crossing=513534.15,5204332.62 \\
+        --snap-radius 30m --snap-to-channel 1ha --min-area 2ha --min-order 1 -o prof/
     """
     import time
 
@@ -96,18 +93,13 @@ def command(console, flowdir, output, outlet_xy, outlets_file, id_column, outlet
     from .. import profiles as P
     from ..channels import extract_channels
     from ..errors import BasinkitError, InputError, OutletError
-    from ..outlets import (outlets_from_text, prepare_outlets, read_outlet_file,
-                           require_outlets)
     from ..routing import load_flow
     from ..writers import prepare_output_dir, provenance, write_csv, write_json
 
     t0 = time.perf_counter()
     if concavity is not None and fit_concavity:
         raise InputError("give either --concavity or --fit-concavity, not both")
-    if not outlet_xy and not outlets_file:
-        raise InputError("say where the outlet is: --outlet X,Y or --outlets FILE")
-    if outlet_xy and outlets_file:
-        raise InputError("give either --outlet or --outlets, not both")
+    outlets.require()
     theta0 = P.DEFAULT_CONCAVITY if concavity is None else concavity
     P._check_theta(theta0)
     a0 = parse_area(reference_area, "--reference-area")
@@ -124,19 +116,11 @@ def command(console, flowdir, output, outlet_xy, outlets_file, id_column, outlet
     fm = load_flow(flowdir)
     console.info(f"read flow folder {flowdir}: {fm.shape[0]} x {fm.shape[1]} cells")
     crs_wkt = fm.terrain.crs.to_wkt() if fm.terrain.crs is not None else None
-    snap_m = parse_length(snap_radius, "--snap-radius") if snap_radius is not None else None
-    if outlets_file:
-        raw, errs0 = read_outlet_file(outlets_file, crs=outlet_crs, id_column=id_column)
-    else:
-        raw, errs0 = outlets_from_text(outlet_xy, crs=outlet_crs)
-    snapped, errs = prepare_outlets(fm, raw, crs=outlet_crs, radius_m=snap_m,
-                                    channel_area_m2=min_area_m2)
-    errs = pd.concat([e for e in (errs0, errs) if len(e)] or [errs], ignore_index=True)
+    snapped, errs = outlets.snap(fm)
     failures = [{"outlet_id": str(r.outlet_id), "stage": "outlet", "error": str(r.reason)}
                 for r in errs.itertuples()]
     for f in failures:
         console.warn(f"outlet {f['outlet_id']}: {f['error']}")
-    require_outlets(snapped, errs)
     for r in snapped.itertuples():
         if r.snap_warning:
             console.warn(f"outlet {r.outlet_id}: {r.snap_warning}")
@@ -184,8 +168,7 @@ def command(console, flowdir, output, outlet_xy, outlets_file, id_column, outlet
     params = {"min_order": min_order, "min_area_m2": min_area_m2,
               "concavity": None if fit_concavity else theta0, "fit_concavity": fit_concavity,
               "reference_area_m2": a0, "slope_window_m": sw, "slope_drop_m": sd,
-              "vertical_precision_m": vertical_precision, "snap_radius_m": snap_m,
-              "outlet_crs": outlet_crs}
+              "vertical_precision_m": vertical_precision, **outlets.parameters()}
     meta = provenance(params, {"flow_folder": str(Path(flowdir).resolve()),
                                "dem": fm.terrain.source}, crs=fm.terrain.crs,
                       shape=fm.shape, outlets=summaries, failures=failures,
@@ -208,8 +191,9 @@ def _one_outlet(P, fm, net, oid, name, cell, min_order, theta0, fit, a0, sw, sd,
     order_here = int(np.asarray(net.strahler).ravel()[cell])
     if order_here < min_order:
         raise OutletError(f"the outlet lies on a channel of Strahler order {order_here}, below "
-                          f"--min-order {min_order}; move it onto a larger channel, lower "
-                          "--min-order or lower --min-area")
+                          f"--min-order {min_order}; move it onto a larger channel, snap it "
+                          "onto one (--snap-to-channel AREA), lower --min-order or lower "
+                          "--min-area")
     summary = {"outlet_id": oid}
     theta = theta0
     if fit:

@@ -25,7 +25,9 @@ def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
             base_level, overwrite):
     """Route flow over a DEM and write the flow folder later commands read.
 
-    Example: basinkit route dem.tif -o flow/ --method d8 --sea-level 0
+    \b
+    Example: basinkit route demo_rasters/upland_valley.tif \\
+        --burn demo_rasters/culverts.geojson --burn-depth 1m -o flow/
     """
     import time
     from pathlib import Path
