@@ -108,7 +108,9 @@ def cli(ctx, quiet, log_json, debug):
 
 def main(argv=None):
     """Entry point: user errors print one message and exit non-zero, no traceback."""
-    debug = "--debug" in (argv if argv is not None else sys.argv[1:])
+    args = argv if argv is not None else sys.argv[1:]
+    debug = "--debug" in args
+    console = Console(quiet="--quiet" in args or "-q" in args, log_json="--log-json" in args)
     try:
         rv = cli.main(args=argv, prog_name="basinkit", standalone_mode=False)
         sys.exit(rv if isinstance(rv, int) else 0)
@@ -121,13 +123,13 @@ def main(argv=None):
     except BasinkitError as exc:
         if debug:
             raise
-        click.secho(f"error: {exc}", err=True, fg="red")
+        console.error(str(exc), kind=type(exc).__name__)
         sys.exit(exc.exit_code)
     except KeyboardInterrupt:
         click.echo("interrupted", err=True)
         sys.exit(130)
     except MemoryError:
-        click.secho("error: out of memory; clip or coarsen the DEM", err=True, fg="red")
+        console.error("out of memory; clip the DEM to the area of interest or coarsen it")
         sys.exit(3)
 
 

@@ -270,3 +270,21 @@ def test_snap_distance_is_gone_from_morphometry(flow, tmp_path, capsys):
         for opt in ("--outlet ", "--outlets", "--outlet-crs", "--id-column", "--snap-radius",
                     "--snap-to-channel"):
             assert opt in text, (name, opt)
+
+
+def test_user_error_is_a_json_line_with_log_json(tmp_path):
+    """With --log-json a user error is one JSON log line too (scripts parse stderr;
+    common practice, no source), and the exit status is still non-zero."""
+    import json
+    import subprocess
+    import sys
+
+    out = subprocess.run([sys.executable, "-m", "basinkit.cli", "--log-json", "route",
+                          str(tmp_path / "missing.tif"), "-o", str(tmp_path / "flow")],
+                         capture_output=True, text=True)
+    assert out.returncode == 2
+    lines = [ln for ln in out.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1
+    rec = json.loads(lines[0])
+    assert rec["level"] == "error" and "does not exist" in rec["message"]
+    assert "Traceback" not in out.stderr
