@@ -6,7 +6,7 @@ azimuth 45·k degrees clockwise from grid north.
 
 import numpy as np
 from llvmlite import ir
-from numba import njit, types
+from numba import njit, prange, types
 from numba.core import cgutils
 from numba.extending import intrinsic
 
@@ -140,7 +140,11 @@ def fill_exact(z, valid, seeds):
     not higher than itself (a possible spill point). The result is identical to the plain
     Priority-Flood; far fewer cells pass through the priority queue.
     Keys are the float32 elevation mapped to an order-preserving uint32, packed with the
-    cell index into one uint64, so ties pop in cell order.
+    cell index into one uint64, so ties pop in cell order. The priority queue is a 4-ary
+    heap (fewer levels, and the children of an entry share a cache line; a d-ary heap,
+    Johnson 1975, Information Processing Letters 4:53-57). Cells leave the heap at places
+    far apart on large grids, so the neighbourhoods of the next two cells to leave are
+    prefetched while the current one is processed; this changes nothing in the result.
     """
     nr, nc = z.shape
     n = nr * nc
@@ -242,22 +246,41 @@ def fill_exact(z, valid, seeds):
 
 
 @njit(cache=True, nogil=True)
+def _seed_row(valid, base_level, out, r, full):
+    nr, nc = valid.shape
+    edge_row = r == 0 or r == nr - 1
+    for c in range(nc):
+        if not valid[r, c]:
+            continue
+        if base_level[r, c] or edge_row or c == 0 or c == nc - 1:
+            out[r, c] = True
+            continue
+        if full:
+            continue  # rows r-1, r, r+1 hold no nodata
+        for k in range(8):
+            if not valid[r + DROW[k], c + DCOL[k]]:
+                out[r, c] = True
+                break
+
+
+@njit(cache=True, nogil=True, parallel=True)
 def seed_mask(valid, base_level):
     """Cells where water leaves the grid: valid cells on the grid edge, next to nodata, or
-    marked as base level."""
+    marked as base level. Rows in parallel; a row whose neighbourhood holds no nodata
+    skips the neighbour checks."""
     nr, nc = valid.shape
     out = np.zeros((nr, nc), dtype=np.bool_)
-    for r in range(nr):
+    row_full = np.empty(nr, dtype=np.bool_)
+    for r in prange(nr):
+        f = True
         for c in range(nc):
             if not valid[r, c]:
-                continue
-            if base_level[r, c] or r == 0 or c == 0 or r == nr - 1 or c == nc - 1:
-                out[r, c] = True
-                continue
-            for k in range(8):
-                if not valid[r + DROW[k], c + DCOL[k]]:
-                    out[r, c] = True
-                    break
+                f = False
+                break
+        row_full[r] = f
+    for r in prange(nr):
+        full = r > 0 and r < nr - 1 and row_full[r - 1] and row_full[r] and row_full[r + 1]
+        _seed_row(valid, base_level, out, r, full)
     return out
 
 
