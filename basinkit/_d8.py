@@ -125,7 +125,7 @@ def resolve_flats(z, valid, rec, dist):
     low edge shared by two flats that it reaches as the seed joins them into one.
     Known limitation (kept from the first version, so results stay the same): a flat whose
     only low edges were all claimed by another flat first (flats that touch one outlet
-    cell diagonally from both sides) stays unlabelled and gets -1, counted as unresolved.
+    cell from two sides) stays unlabelled and gets -1, counted as unresolved.
 
     Returns the flat mask (int32 per cell: the combined gradient on labelled flat cells,
     2 on their low edges, 0 elsewhere) and the number of flat cells left without a receiver
