@@ -121,11 +121,9 @@ def resolve_flats(z, valid, rec, dist):
     Work is proportional to the number of flat cells: one sweep over the flat cells finds
     the high and low edges, one flood labels the flats, and then each flat is finished on
     its own (both gradients and the drainage directions), the flats in parallel. Flats are
-    labelled by flooding from the low edges in the order of their first flat neighbour; a
-    low edge shared by two flats that it reaches as the seed joins them into one.
-    Known limitation (kept from the first version, so results stay the same): a flat whose
-    only low edges were all claimed by another flat first (flats that touch one outlet
-    cell from two sides) stays unlabelled and gets -1, counted as unresolved.
+    labelled by flooding from the low edges in the order of their first flat neighbour,
+    through flat cells and low edges of the same elevation, so flats that share an outlet
+    cell are labelled as one (as flooding over equal elevations does in Barnes et al.).
 
     Returns the flat mask (int32 per cell: the combined gradient on labelled flat cells,
     2 on their low edges, 0 elsewhere) and the number of flat cells left without a receiver
@@ -212,8 +210,7 @@ def resolve_flats(z, valid, rec, dist):
             i = members[head]
             head += 1
             is_flat = labels[i] > 0
-            if not is_flat and i != s0:
-                continue  # another low edge: labelled, not spread from
+            # low edges spread too: flats that share an outlet cell become one flat
             r = i // nc
             c = i - r * nc
             inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1

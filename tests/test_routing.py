@@ -128,3 +128,20 @@ def test_tiny_grids(shape):
     fm = route(terrain_from_array(z))
     assert fm.accumulation().sum() >= z.size
     assert (fm.receiver.reshape(shape) >= -1).all()
+
+
+def test_two_flats_sharing_one_outlet_cell_both_drain():
+    """Two flats that touch the same outlet cell from two sides: every flat cell must get a
+    receiver (Barnes, Lehman & Mulla 2014b label flats by flooding equal elevations, so the
+    shared outlet joins them). Grid from a case found in review."""
+    z = np.full((7, 7), 10.0)
+    for r, c in [(0, 1), (1, 1), (1, 2), (1, 4), (2, 3)]:
+        z[r, c] = 5.0
+    for k, v in enumerate([4.0, 3.0, 2.0, 1.0]):
+        z[3 + k, 3] = v
+    fm = route(terrain_from_array(z), conditioning="none")
+    assert "cells_without_outlet" not in fm.parameters
+    rec = fm.receiver.reshape(7, 7)
+    # every interior cell drains somewhere and reaches an exit
+    assert (rec[1:-1, 1:-1] >= 0).all()
+    assert fm.stack.size == 49
