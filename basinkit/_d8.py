@@ -537,7 +537,8 @@ def receivers_to_azimuth(rec, ncols):
 
 @njit(cache=True, nogil=True)
 def azimuth_to_receivers(code, ncols, nrows):
-    """Inverse of :func:`receivers_to_azimuth`; raises on unknown codes (returns -9 there)."""
+    """Inverse of :func:`receivers_to_azimuth`. Unknown codes give -9 and are counted;
+    a direction off the grid or into a nodata cell becomes an exit (-1)."""
     n = code.shape[0]
     rec = np.empty(n, dtype=np.int32)
     bad = 0
@@ -551,8 +552,8 @@ def azimuth_to_receivers(code, ncols, nrows):
             k = v // 45
             r = i // ncols + DROW[k]
             c = i % ncols + DCOL[k]
-            if r < 0 or r >= nrows or c < 0 or c >= ncols:
-                rec[i] = -1
+            if r < 0 or r >= nrows or c < 0 or c >= ncols or code[r * ncols + c] == -32768:
+                rec[i] = -1  # pointing off the grid or into nodata: the water leaves here
             else:
                 rec[i] = r * ncols + c
         else:

@@ -368,6 +368,10 @@ def load_flow(folder) -> FlowModel:
                       cell_geometry(transform, z.shape, pcrs), None,
                       meta.get("inputs", {}).get("dem", {}))
     stack = _d8.build_stack(rec)
+    if stack.size != int(valid.sum()):
+        raise InputError(f"{FILES['d8']} in {str(p)!r} has directions that loop back on "
+                         f"themselves ({int(valid.sum()) - stack.size} cells never reach an "
+                         "exit); it was edited outside basinkit: run route again")
     params = meta.get("parameters", {})
     fm = FlowModel(terrain, rec, stack, params.get("method", "d8"), parameters=params)
     if (p / FILES["input"]).exists():

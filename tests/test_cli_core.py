@@ -295,3 +295,32 @@ def test_breach_method_option(tmp_path, capsys):
     assert run(["route", dem, "--condition", "breach", "-o", flow], capsys)[0] == 0
     with rasterio.open(flow / "accumulation_cells.tif") as ds:
         assert ds.read(1)[-1, 10] == z.size
+
+
+def test_load_flow_refuses_looping_directions_and_exits_into_nodata(tmp_path):
+    """A direction raster edited by hand: a two-cell loop is refused with a clear message;
+    a direction into nodata is read as an exit (common practice, no source)."""
+    import numpy as np
+    import rasterio
+    import pytest
+
+    from basinkit import InputError, load_flow, route, terrain_from_array
+    from basinkit.routing import FILES
+
+    z = np.add.outer(np.arange(6.0, 0, -1), np.zeros(5))
+    z[0, 0] = np.nan
+    route(terrain_from_array(z, cellsize=10)).save(tmp_path / "flow")
+    path = tmp_path / "flow" / FILES["d8"]
+    with rasterio.open(path) as ds:
+        d = ds.read(1)
+        prof = ds.profile
+    d[1, 0] = 0  # north, into the nodata cell (0, 0)
+    with rasterio.open(path, "w", **prof) as ds:
+        ds.write(d, 1)
+    fm = load_flow(tmp_path / "flow")
+    assert fm.receiver[1 * 5 + 0] == -1
+    d[2, 2], d[3, 2] = 180, 0  # (2,2) -> (3,2) -> (2,2)
+    with rasterio.open(path, "w", **prof) as ds:
+        ds.write(d, 1)
+    with pytest.raises(InputError, match="loop"):
+        load_flow(tmp_path / "flow")
