@@ -131,13 +131,8 @@ def burn_lines(terrain: Terrain, lines, depth: float):
     end with the lower (burned) elevation, the elevation is made non-increasing (a running
     minimum), so the burned path falls all the way through an embankment instead of
     climbing over it. Lines are handled in their input order; where lines cross, the lower
-    value wins. This is the usual stream-burning practice (common practice, e.g. the
-    "burning" of hydrography into DEMs, Saunders 1999).
-
-    References
-    ----------
-    Saunders, W. (1999). Preparation of DEMs for use in environmental modeling analysis.
-    ESRI User Conference, San Diego.
+    value wins. This is the usual practice of burning known hydrography and culverts into a
+    DEM (common practice, no source).
 
     Examples
     --------
