@@ -313,9 +313,13 @@ def flow_from_conditioned(cond: Terrain, method: str, params: dict) -> FlowModel
             params = {**params, "cells_without_outlet": int(unresolved)}
     flat_mask_for_multi = flat_mask if method in ("dinf", "mfd") else None
     del flat_mask
-    stack, count = _d8.stack_and_count(rec)
+    # the stack, the cell count and the upstream area come out of one sweep
+    stack, count, area = _d8.stack_count_area(rec, cond.shape[1], cond.geometry.area)
     fm = FlowModel(cond, rec, stack, method, parameters=params)
     fm._cache[("d8", "cells")] = count.reshape(cond.shape)
+    area = area.reshape(cond.shape)
+    area[~valid] = np.nan
+    fm._cache[("d8", "m2")] = area
     if method in ("dinf", "mfd"):
         from ._multi import multi_receivers
 
