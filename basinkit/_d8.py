@@ -8,6 +8,7 @@ import numpy as np
 from numba import njit, prange
 
 from ._fill import DCOL, DROW
+from ._jit import parallel_for_large_grids
 
 NO_FLOW = -3  # internal: a cell with no downslope neighbour that is not an exit (a flat)
 
@@ -77,7 +78,7 @@ def _d8_row(r, zf, vf, sf, bf, dist, rec, nr, nc):
     return nrow_flat
 
 
-@njit(cache=True, nogil=True, parallel=True)
+@parallel_for_large_grids(cache=True, nogil=True)
 def d8_receivers(z, valid, seeds, base_level, dist):
     """Steepest-descent receiver of every cell (O'Callaghan & Mark 1984).
 
@@ -107,7 +108,7 @@ _TOUCHED = np.uint8(4)  # non-flat valid neighbour of a flat, already listed
 _REACHED = np.uint8(8)  # reached by the breadth-first pass toward lower terrain
 
 
-@njit(cache=True, nogil=True, parallel=True)
+@parallel_for_large_grids(cache=True, nogil=True)
 def resolve_flats(z, valid, rec, dist):
     """Give every flat cell a receiver, in place, without changing elevations.
 

@@ -10,6 +10,8 @@ from numba import njit, prange, types
 from numba.core import cgutils
 from numba.extending import intrinsic
 
+from ._jit import parallel_for_large_grids
+
 # row and column offsets of the 8 neighbours, in azimuth order N, NE, E, SE, S, SW, W, NW
 DROW = np.array([-1, -1, 0, 1, 1, 1, 0, -1], dtype=np.int64)
 DCOL = np.array([0, 1, 1, 1, 0, -1, -1, -1], dtype=np.int64)
@@ -263,7 +265,7 @@ def _seed_row(valid, base_level, out, r, full):
                 break
 
 
-@njit(cache=True, nogil=True, parallel=True)
+@parallel_for_large_grids(cache=True, nogil=True)
 def seed_mask(valid, base_level):
     """Cells where water leaves the grid: valid cells on the grid edge, next to nodata, or
     marked as base level. Rows in parallel; a row whose neighbourhood holds no nodata

@@ -61,6 +61,7 @@ import numpy as np
 from numba import njit, prange
 
 from ._fill import DCOL, DROW
+from ._jit import parallel_for_large_grids
 from .errors import InputError
 
 __all__ = ["multi_receivers", "accumulate_multi", "dinf_azimuth", "multi_for",
@@ -112,7 +113,7 @@ def _facet_geometry(r, nr, dist, d1, d2, alpha, diag):
         diag[f] = math.sqrt(a * a + b * b)
 
 
-@njit(cache=True, nogil=True, parallel=True)
+@parallel_for_large_grids(cache=True, nogil=True)
 def dinf_kernel(z, rec8, dist):
     """D∞ receivers, proportions and flow azimuth of every cell (Tarboton 1997).
 
@@ -249,7 +250,7 @@ def dinf_kernel(z, rec8, dist):
     return rec, frac, az
 
 
-@njit(cache=True, nogil=True, parallel=True)
+@parallel_for_large_grids(cache=True, nogil=True)
 def mfd_kernel(z, rec8, dist, exponent):
     """MFD receivers and proportions of every cell (Freeman 1991; Quinn et al. 1991).
 
