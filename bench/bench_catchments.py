@@ -32,29 +32,16 @@ from pathlib import Path
 import numpy as np
 
 HERE = Path(__file__).resolve().parent
-OUT = HERE / "out"
 
 if not hasattr(np, "in1d"):  # pysheds 0.5 still calls np.in1d (removed in NumPy 2.4)
     np.in1d = np.isin
 
 
-def fractal(n, seed=0, beta=1.6, relief=1000.0):
-    """Same surface as bench_core.fractal."""
-    rng = np.random.default_rng(seed)
-    f = np.fft.fftfreq(n)
-    k = np.sqrt(f[:, None] ** 2 + f[None, :] ** 2)
-    k[0, 0] = 1.0
-    spec = (rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))) / k ** beta
-    z = np.real(np.fft.ifft2(spec))
-    return ((z - z.min()) / np.ptp(z) * relief).astype(np.float32)
-
-
 def load_dem(n):
-    OUT.mkdir(exist_ok=True)
-    p = OUT / f"fractal_{n}.npy"
-    if not p.exists():
-        np.save(p, fractal(n))
-    return np.load(p)
+    """The cached fractal DEM of bench_core.py (same surface, same file)."""
+    from bench_core import dem_path
+
+    return np.load(dem_path(n))
 
 
 def timed(f, *a, **k):

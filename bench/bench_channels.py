@@ -32,14 +32,7 @@ sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parent))
 
 
-def fractal(n, seed=0, beta=1.6, relief=1000.0):
-    rng = np.random.default_rng(seed)
-    f = np.fft.fftfreq(n)
-    k = np.sqrt(f[:, None] ** 2 + f[None, :] ** 2)
-    k[0, 0] = 1.0
-    spec = (rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))) / k ** beta
-    z = np.real(np.fft.ifft2(spec))
-    return ((z - z.min()) / np.ptp(z) * relief).astype(np.float32)
+from bench_core import dem_path, fractal  # noqa: E402  (the same surface and cache)
 
 
 def timed(f, *a, **k):
@@ -69,7 +62,7 @@ def main():
     morphometry_table(w, w.label_outlets([int(np.argmax(w.accumulation()))]),
                       [int(np.argmax(w.accumulation()))], network=wn)
 
-    z = fractal(n)
+    z = np.load(dem_path(n))
     fm, t_route = timed(route, terrain_from_array(z, cellsize=cs))
     print(f"grid {n} x {n}, cell {cs} m; route (not part of the comparison) {t_route:.2f} s")
     th = args.threshold_cells * cs * cs
