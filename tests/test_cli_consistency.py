@@ -25,7 +25,7 @@ from basinkit.errors import BasinkitError
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "demo_rasters"
-CROSSING = (513534.15, 5204332.62)  # the proposed road crossing in demo_rasters/outlets.csv
+CROSSING = (513544.15, 5204342.62)  # the proposed road crossing in demo_rasters/outlets.csv
 OUTLET = f"crossing={CROSSING[0]},{CROSSING[1]}"
 # the two snapping modes, with the demo job's settings for the channel mode
 MODES = {

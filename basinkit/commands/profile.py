@@ -82,7 +82,7 @@ def command(console, flowdir, output, outlets, min_order, min_area, concavity, f
     put an outlet on the same cell as in delineate and morphometry.
 
     \b
-    Example: basinkit profile flow/ --outlet crossing=513534.15,5204332.62 \\
+    Example: basinkit profile flow/ --outlet crossing=513544.15,5204342.62 \\
         --snap-radius 30m --snap-to-channel 1ha --min-area 2ha --min-order 1 -o prof/
     """
     import time
