@@ -84,7 +84,9 @@ class Console:
         """A progress bar on stderr (hidden when quiet or logging JSON)."""
         from tqdm.auto import tqdm
 
-        return tqdm(iterable, total=total, desc=desc, disable=self.quiet or self.log_json,
+        # no bars in logs (stderr not a terminal), under --quiet or --log-json
+        hidden = self.quiet or self.log_json or not sys.stderr.isatty()
+        return tqdm(iterable, total=total, desc=desc, disable=hidden,
                     file=sys.stderr, leave=False, mininterval=0.5)
 
 
