@@ -362,36 +362,7 @@ def stack_and_count(rec):
 
     Returns (stack int32, count int32 per cell, 0 on nodata).
     """
-    n = rec.shape[0]
-    pending = np.zeros(n, dtype=np.uint8)
-    nvalid = 0
-    for i in range(n):
-        r = rec[i]
-        if r >= 0:
-            pending[r] += 1
-        if r != -2:
-            nvalid += 1
-    count = np.zeros(n, dtype=np.int32)
-    stack = np.empty(nvalid, dtype=np.int32)
-    pos = nvalid
-    for i in range(n):
-        if pending[i] != 0 or rec[i] == -2 or count[i] != 0:
-            continue
-        j = i
-        while True:
-            count[j] += 1
-            pos -= 1
-            stack[pos] = j
-            r = rec[j]
-            if r < 0:
-                break
-            count[r] += count[j]
-            pending[r] -= 1
-            if pending[r] != 0:
-                break
-            j = r
-    if pos != 0:
-        stack = stack[pos:].copy()
+    stack, count, _ = _sweep(rec, 1, np.zeros(1), False)
     return stack, count
 
 
@@ -463,6 +434,12 @@ def stack_count_area(rec, ncols, row_area):
 
     Returns (stack int32, count int32 per cell, area float64 per cell; 0 on nodata).
     """
+    return _sweep(rec, ncols, row_area, True)
+
+
+@njit(cache=True, nogil=True)
+def _sweep(rec, ncols, row_area, with_area):
+    """The sweep behind :func:`stack_and_count` and :func:`stack_count_area`."""
     n = rec.shape[0]
     pending = np.zeros(n, dtype=np.uint8)
     nvalid = 0
@@ -473,7 +450,7 @@ def stack_count_area(rec, ncols, row_area):
         if r != -2:
             nvalid += 1
     count = np.zeros(n, dtype=np.int32)
-    area = np.zeros(n, dtype=np.float64)
+    area = np.zeros(n if with_area else 1, dtype=np.float64)
     stack = np.empty(nvalid, dtype=np.int32)
     pos = nvalid
     by_offset = ncols >= 3  # the row step follows from the index step to a neighbour
@@ -490,15 +467,21 @@ def stack_count_area(rec, ncols, row_area):
         rj = row
         while True:
             count[j] += 1
-            area[j] += row_area[rj]
+            if with_area:
+                area[j] += row_area[rj]
             pos -= 1
             stack[pos] = j
             r = rec[j]
             if r < 0:
                 break
             count[r] += count[j]
-            area[r] += area[j]
             pending[r] -= 1
+            if not with_area:
+                if pending[r] != 0:
+                    break
+                j = r
+                continue
+            area[r] += area[j]
             if pending[r] != 0:
                 break
             if by_offset:
