@@ -288,23 +288,17 @@ def seed_mask(valid, base_level):
 
 @njit(cache=True, nogil=True)
 def priority_flood_fill(z, valid, seeds, epsilon):
-    """Fill depressions in place (Barnes, Lehman & Mulla 2014, "improved Priority-Flood":
+    """Priority-Flood+ε in place (Barnes, Lehman & Mulla 2014, "improved Priority-Flood":
     cells inside a depression go to a plain FIFO queue instead of the priority queue).
 
-    With ``epsilon == 0`` the result is exactly the depression-filled surface (equal to
-    morphological reconstruction by erosion). With ``epsilon > 0`` every filled cell is
-    raised just above the cell it was reached from (Priority-Flood+ε), using the next
-    representable float32 when ``z + epsilon`` rounds back to ``z``.
-    Returns the number of cells raised.
+    Every filled cell is raised at least ``epsilon`` (> 0) above the cell it was reached
+    from, using the next representable float32 when ``z + epsilon`` rounds back to ``z``,
+    so every cell has a strictly lower neighbour. For the exact filled surface use
+    :func:`fill_exact`. Returns the number of cells raised.
     """
     nr, nc = z.shape
     n = nr * nc
     closed = ~valid  # invalid cells are never entered
-    nseed = 0
-    for r in range(nr):
-        for c in range(nc):
-            if seeds[r, c]:
-                nseed += 1
     cap = n + 1
     keys = np.empty(cap, dtype=np.float32)
     vals = np.empty(cap, dtype=np.int32)
@@ -330,6 +324,9 @@ def priority_flood_fill(z, valid, seeds, epsilon):
         r = cell // nc
         c = cell - r * nc
         zc = z[r, c]
+        target = np.float32(zc + epsilon)
+        if target <= zc:
+            target = np.nextafter(zc, np.float32(np.inf))
         for k in range(8):
             rr = r + DROW[k]
             cc = c + DCOL[k]
@@ -337,21 +334,9 @@ def priority_flood_fill(z, valid, seeds, epsilon):
                 continue
             closed[rr, cc] = True
             zn = z[rr, cc]
-            if epsilon > 0.0:
-                target = np.float32(zc + epsilon)
-                if target <= zc:
-                    target = np.nextafter(zc, np.float32(np.inf))
-                if zn <= target:
-                    if zn < target:
-                        z[rr, cc] = target
-                        raised += 1
-                    pit[ptail] = rr * nc + cc
-                    ptail += 1
-                else:
-                    hsize = _heap_push(keys, vals, hsize, zn, rr * nc + cc)
-            elif zn <= zc:
-                if zn < zc:
-                    z[rr, cc] = zc
+            if zn <= target:
+                if zn < target:
+                    z[rr, cc] = target
                     raised += 1
                 pit[ptail] = rr * nc + cc
                 ptail += 1
