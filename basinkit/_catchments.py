@@ -55,25 +55,6 @@ def label_summary(lab, nlab, ncols, z, row_area, edge):
 
 
 @njit(cache=True, nogil=True)
-def edge_cells(valid):
-    """Valid cells on the grid border or with a nodata cell among their 8 neighbours."""
-    nr, nc = valid.shape
-    out = np.zeros((nr, nc), dtype=np.bool_)
-    for r in range(nr):
-        for c in range(nc):
-            if not valid[r, c]:
-                continue
-            if r == 0 or c == 0 or r == nr - 1 or c == nc - 1:
-                out[r, c] = True
-                continue
-            for dr in range(-1, 2):
-                for dc in range(-1, 2):
-                    if not valid[r + dr, c + dc]:
-                        out[r, c] = True
-    return out
-
-
-@njit(cache=True, nogil=True)
 def remap(lab, lut):
     """``lut[lab]`` for a flat int32 label grid (0 stays 0)."""
     out = np.empty_like(lab)

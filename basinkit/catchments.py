@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from . import _catchments
+from . import _catchments, _fill
 from .errors import OutletError
 from .outlets import ERROR_COLUMNS, prepare_outlets, require_outlets
 
@@ -282,7 +282,8 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
 
     z = fm.input_elevation if fm.input_elevation is not None else t.elevation
     z = np.where(t.valid, z, np.nan).astype(np.float64).ravel()
-    edge = _catchments.edge_cells(t.valid).ravel()
+    # the grid edge and cells next to nodata: the exits of conditioning without base level
+    edge = _fill.seed_mask(t.valid, np.zeros(t.shape, dtype=bool)).ravel()
     (count, area, zsum, zcount, zmin, zmax, touches, rmin, rmax, cmin,
      cmax) = _catchments.label_summary(labels.ravel(), n, nc, z, t.geometry.area, edge)
     sub_area, sub_count = area.copy(), count.copy()
