@@ -117,9 +117,7 @@ class FlowModel:
                 raise InputError(f"the weight raster has shape {w.shape}, the DEM "
                                  f"{self.shape}; put it on the DEM's grid first")
             w = np.where(self.terrain.valid & np.isfinite(w), w, 0.0).ravel()
-        elif unit == "cells":
-            w = None
-        elif unit == "m2":
+        elif unit in ("cells", "m2"):
             w = None
         else:
             raise InputError(f"unknown accumulation unit {unit!r}; use cells or m2")
