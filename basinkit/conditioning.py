@@ -6,7 +6,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from . import _fill
+from . import _fill, _tiled_fill
 from .errors import InputError
 from .terrain import Terrain
 
@@ -78,11 +78,16 @@ def fill_depressions(terrain: Terrain, epsilon: float = 0.0) -> Terrain:
     Terrain
         A new Terrain with the filled elevation.
 
+    Grids larger than 512 × 512 cells are filled by tiles in parallel threads (Barnes 2016);
+    the result is the same surface.
+
     References
     ----------
     Barnes, R., Lehman, C., Mulla, D. (2014). Priority-Flood: An optimal depression-filling
     and watershed-labeling algorithm for digital elevation models. Computers & Geosciences
     62:117-127.
+    Barnes, R. (2016). Parallel Priority-Flood depression filling for trillion cell digital
+    elevation models. Computers & Geosciences 96:56-68.
 
     Examples
     --------
@@ -96,7 +101,7 @@ def fill_depressions(terrain: Terrain, epsilon: float = 0.0) -> Terrain:
         raise InputError("epsilon must be zero or positive")
     z = np.ascontiguousarray(terrain.elevation, dtype=np.float32).copy()
     if epsilon == 0:
-        _fill.fill_exact(z, terrain.valid, exit_cells(terrain))
+        _tiled_fill.fill_exact_any(z, terrain.valid, exit_cells(terrain))
     else:
         _fill.priority_flood_fill(z, terrain.valid, exit_cells(terrain), np.float32(epsilon))
     return terrain.with_elevation(z)
