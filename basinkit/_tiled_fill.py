@@ -24,9 +24,9 @@ filled surface of the whole grid exactly. Tiles are independent, so they run in 
 keeps the time per cell nearly constant as grids grow.
 """
 
-import os
 from concurrent.futures import ThreadPoolExecutor
 
+import numba
 import numpy as np
 from numba import njit
 
@@ -309,7 +309,9 @@ def raise_tile(z, labels, r0, r1, c0, c1, level, base_t):
 
 
 def _workers():
-    return max(1, min(os.cpu_count() or 1, 8))
+    """Threads for the tiles: numba's thread count (NUMBA_NUM_THREADS, by default the
+    number of processors), as for the parallel kernels."""
+    return max(1, int(numba.config.NUMBA_NUM_THREADS))
 
 
 def fill_exact_any(z, valid, seeds):
@@ -323,8 +325,8 @@ def fill_exact_any(z, valid, seeds):
 
 def fill_exact_tiled(z, valid, seeds, tile=TILE, workers=None):
     """Exact depression filling of ``z`` (float32, C order) in place, by tiles of
-    ``tile`` × ``tile`` cells run in ``workers`` threads (default: the number of
-    processors). The result is identical to :func:`basinkit._fill.fill_exact`."""
+    ``tile`` × ``tile`` cells run in ``workers`` threads (default: NUMBA_NUM_THREADS,
+    normally the number of processors). The result is identical to :func:`basinkit._fill.fill_exact`."""
     nr, nc = z.shape
     if not 2 <= tile <= 16000:  # border labels must fit below _NODATA
         raise ValueError("tile must be between 2 and 16000 cells")
