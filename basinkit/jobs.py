@@ -520,6 +520,7 @@ def run_job(job, output=None, overwrite: bool = False, console=None) -> JobResul
         job = read_job(job)
     folder = Path(output) if output is not None else job["outputs"]["folder"]
     folder = prepare_output_dir(folder, overwrite)
+    earlier = _files_of_earlier_run(folder)
     res = JobResult(folder=folder, job=job)
     t_start = time.perf_counter()
     inputs = _hashes(job)
@@ -563,9 +564,44 @@ def run_job(job, output=None, overwrite: bool = False, console=None) -> JobResul
                     res, folder / "report.html", progress=getattr(console, "progress", None))
     res.provenance["seconds_total"] = round(time.perf_counter() - t_start, 3)
     res.provenance["outputs"] = _output_hashes(res)
+    res.provenance["files"] = sorted(set(res.files) | {"provenance.json"})
     res.files["provenance.json"] = write_json(folder / "provenance.json", res.provenance)
+    stale = _remove_stale(folder, earlier, set(res.provenance["files"]))
+    if stale:
+        console.info(f"removed {stale} file(s) left from an earlier run of a job in {folder}")
     console.info(f"wrote {folder} ({res.provenance['seconds_total']:.1f} s)")
     return res
+
+
+def _files_of_earlier_run(folder):
+    """Files an earlier job wrote into ``folder``, as listed in its provenance.json (only
+    those are ever removed, never anything else a user keeps there)."""
+    import json
+
+    p = Path(folder) / "provenance.json"
+    try:
+        listed = json.loads(p.read_text(encoding="utf-8")).get("files", [])
+    except (OSError, ValueError, AttributeError):
+        return set()
+    return {str(f) for f in listed if isinstance(f, str)}
+
+
+def _remove_stale(folder, earlier, current):
+    """Remove files of an earlier run that this run did not write again (an outlet dropped
+    from the job, a stage turned off), and folders left empty by that. Returns the count."""
+    root = Path(folder).resolve()
+    removed = 0
+    for name in sorted(earlier - current):
+        p = (root / name).resolve()
+        if root not in p.parents or not p.is_file():
+            continue  # only plain files inside the output folder
+        p.unlink()
+        removed += 1
+        d = p.parent
+        while d != root and d.is_dir() and not any(d.iterdir()):
+            d.rmdir()
+            d = d.parent
+    return removed
 
 
 def _output_hashes(res):

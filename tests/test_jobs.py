@@ -253,3 +253,44 @@ def test_report_command_rewrites_the_report_of_a_run(valley, tmp_path, capsys):
         main(["report", str(run), "-o", str(tmp_path / "again.html")])
     assert e.value.code == 2
     assert "changed since the run" in capsys.readouterr().err
+
+
+def test_rerun_with_overwrite_removes_only_its_own_stale_files(valley, tmp_path):
+    """Rerunning a job into the same folder with fewer outputs removes the files the first
+    run listed in its provenance.json and this run did not write again; a file the user
+    put there is kept (common practice for tools that own an output folder, no source)."""
+    import json
+
+    first = _write(valley / "j10.toml", """
+        [inputs]
+        dem = "dem.tif"
+        outlets = "outlets.csv"
+        [outlets]
+        snap_radius_m = 20
+        snap_min_area = "0.1ha"
+        [channels]
+        min_area = "0.5ha"
+        [outputs]
+        report = false
+        """)
+    out = tmp_path / "out"
+    run_job(first, output=out)
+    listed = set(json.loads((out / "provenance.json").read_text())["files"])
+    per_outlet = {f for f in listed if "gauge" in f}
+    assert per_outlet and "outlet_errors.csv" in listed
+    (out / "my_notes.txt").write_text("field visit 3 May")
+    second = _write(valley / "j11.toml", """
+        [inputs]
+        dem = "dem.tif"
+        [outputs]
+        report = false
+        """)
+    res = run_job(second, output=out, overwrite=True)
+    now = set(json.loads((out / "provenance.json").read_text())["files"])
+    for f in listed - now:
+        assert not (out / f).exists(), f
+    for f in now:
+        assert (out / f).exists(), f
+    assert (out / "my_notes.txt").read_text() == "field visit 3 May"
+    assert not any("gauge" in p.name for p in out.rglob("*"))
+    assert res.stages["delineate"]["status"] == "skipped"
