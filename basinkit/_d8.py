@@ -4,27 +4,67 @@ Receivers are flat indices ``r * ncols + c``; ``-1`` means the water leaves the 
 (grid edge, next to nodata, base level) and ``-2`` marks invalid cells.
 """
 
+import numba
 import numpy as np
 from numba import njit, prange
 
 from ._fill import DCOL, DROW
-from ._jit import parallel_for_large_grids
+from ._jit import PARALLEL_MIN_CELLS, parallel_for_large_grids
 
 NO_FLOW = -3  # internal: a cell with no downslope neighbour that is not an exit (a flat)
 
 
 @njit(cache=True, nogil=True, inline='always')
-def _steeper(zc, zn, dk, best, bk, k):
+def _steeper(zc, zn, dk, best, bt, t):
     # a neighbour not lower (or NaN, nodata) gives s <= 0 or NaN, never above best >= 0,
     # so no separate test is needed; the choice compiles to selects rather than branches
     s = (zc - zn) / dk
     up = s > best
-    return (s if up else best), (k if up else bk)
+    return (s if up else best), (t if up else bt)
+
+
+@njit(cache=True, nogil=True)
+def _d8_cell(r, c, zf, vf, sf, bf, dist, rec, nr, nc):
+    """Receiver of one cell, with bounds checks; returns 1 for a flat cell, else 0."""
+    i = r * nc + c
+    if not vf[i]:
+        rec[i] = -2
+        return 0
+    if bf[i]:
+        rec[i] = -1
+        return 0
+    zc = zf[i]
+    best = 0.0
+    bt = -1
+    for k in range(8):
+        rr = r + DROW[k]
+        cc = c + DCOL[k]
+        if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
+            continue
+        j = rr * nc + cc
+        best, bt = _steeper(zc, zf[j], dist[r, k], best, bt, j)
+    if bt >= 0:
+        rec[i] = bt
+        return 0
+    if sf[i]:
+        rec[i] = -1
+        return 0
+    rec[i] = NO_FLOW
+    return 1
 
 
 @njit(cache=True, nogil=True)
 def _d8_row(r, zf, vf, sf, bf, dist, rec, nr, nc):
-    """Receivers of one row (see :func:`d8_receivers`); returns its number of flat cells."""
+    """Receivers of one row (see :func:`d8_receivers`); returns its number of flat cells.
+
+    Interior cells go through a loop without branches (selects only, on flat indices with
+    the neighbour offsets worked out once), which the compiler turns into SIMD code; the
+    first and last column and the first and last row take the checked path."""
+    if r == 0 or r == nr - 1 or nc < 3:
+        nflat = 0
+        for c in range(nc):
+            nflat += _d8_cell(r, c, zf, vf, sf, bf, dist, rec, nr, nc)
+        return nflat
     o0 = -nc
     o1 = -nc + 1
     o3 = nc + 1
@@ -39,46 +79,58 @@ def _d8_row(r, zf, vf, sf, bf, dist, rec, nr, nc):
     d5 = dist[r, 5]
     d6 = dist[r, 6]
     d7 = dist[r, 7]
-    interior_row = r > 0 and r < nr - 1
-    nrow_flat = 0
-    for c in range(nc):
-        i = r * nc + c
-        if not vf[i]:
-            rec[i] = -2
-            continue
-        if bf[i]:
-            rec[i] = -1
-            continue
+    no_flow = np.int64(NO_FLOW)
+    leaves = np.int64(-1)
+    invalid = np.int64(-2)
+    start = r * nc
+    nflat = 0
+    for i in range(start + 1, start + nc - 1):
         zc = zf[i]
         best = 0.0
-        bk = -1
-        if interior_row and c > 0 and c < nc - 1:
-            best, bk = _steeper(zc, zf[i + o0], d0, best, bk, 0)
-            best, bk = _steeper(zc, zf[i + o1], d1, best, bk, 1)
-            best, bk = _steeper(zc, zf[i + 1], d2, best, bk, 2)
-            best, bk = _steeper(zc, zf[i + o3], d3, best, bk, 3)
-            best, bk = _steeper(zc, zf[i + o4], d4, best, bk, 4)
-            best, bk = _steeper(zc, zf[i + o5], d5, best, bk, 5)
-            best, bk = _steeper(zc, zf[i - 1], d6, best, bk, 6)
-            best, bk = _steeper(zc, zf[i + o7], d7, best, bk, 7)
-        else:
-            for k in range(8):
-                rr = r + DROW[k]
-                cc = c + DCOL[k]
-                if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
-                    continue
-                best, bk = _steeper(zc, zf[rr * nc + cc], dist[r, k], best, bk, k)
-        if bk >= 0:
-            rec[i] = (r + DROW[bk]) * nc + c + DCOL[bk]
-        elif sf[i]:
-            rec[i] = -1
-        else:
-            rec[i] = NO_FLOW
-            nrow_flat += 1
-    return nrow_flat
+        bt = np.int64(-1)
+        best, bt = _steeper(zc, zf[i + o0], d0, best, bt, i + o0)
+        best, bt = _steeper(zc, zf[i + o1], d1, best, bt, i + o1)
+        best, bt = _steeper(zc, zf[i + 1], d2, best, bt, i + 1)
+        best, bt = _steeper(zc, zf[i + o3], d3, best, bt, i + o3)
+        best, bt = _steeper(zc, zf[i + o4], d4, best, bt, i + o4)
+        best, bt = _steeper(zc, zf[i + o5], d5, best, bt, i + o5)
+        best, bt = _steeper(zc, zf[i - 1], d6, best, bt, i - 1)
+        best, bt = _steeper(zc, zf[i + o7], d7, best, bt, i + o7)
+        # the same decisions as _d8_cell, as selects: nodata, base level, a lower
+        # neighbour, an exit, else a flat
+        alt = leaves if sf[i] else no_flow
+        res = bt if bt >= 0 else alt
+        res = leaves if bf[i] else res
+        res = res if vf[i] else invalid
+        nflat += res == no_flow
+        rec[i] = res
+    nflat += _d8_cell(r, 0, zf, vf, sf, bf, dist, rec, nr, nc)
+    nflat += _d8_cell(r, nc - 1, zf, vf, sf, bf, dist, rec, nr, nc)
+    return nflat
 
 
 @parallel_for_large_grids(cache=True, nogil=True)
+def _d8_into(z, valid, seeds, base_level, dist, rec):
+    nr, nc = z.shape
+    zf = z.ravel()
+    vf = valid.ravel()
+    sf = seeds.ravel()
+    bf = base_level.ravel()
+    flats_in_row = np.zeros(nr, dtype=np.int64)
+    for r in prange(nr):
+        flats_in_row[r] = _d8_row(r, zf, vf, sf, bf, dist, rec, nr, nc)
+    return flats_in_row.sum()
+
+
+def _receivers_with(kernel):
+    def run(z, valid, seeds, base_level, dist):
+        # allocated by NumPy, which asks for huge pages for large blocks: a fresh array
+        # faults in several times faster than one allocated inside a kernel
+        rec = np.empty(z.size, dtype=np.int32)
+        return rec, kernel(z, valid, seeds, base_level, dist, rec)
+    return run
+
+
 def d8_receivers(z, valid, seeds, base_level, dist):
     """Steepest-descent receiver of every cell (O'Callaghan & Mark 1984).
 
@@ -86,20 +138,14 @@ def d8_receivers(z, valid, seeds, base_level, dist):
     (``dist[row, k]``). Ties go to the first neighbour in the order N, NE, E, SE, S, SW, W,
     NW. Exits (``seeds``) without a lower neighbour get -1, base-level cells always -1;
     other cells without a lower neighbour get NO_FLOW (they lie on a flat).
-    Rows are processed in parallel; interior cells take a path without bounds checks, on
-    flat indices with the neighbour offsets worked out once.
+    Rows are processed in parallel on large grids (``.serial`` and ``.parallel`` give the
+    two versions; identical results). Returns (rec int32, number of flat cells).
     """
-    nr, nc = z.shape
-    n = nr * nc
-    zf = z.ravel()
-    vf = valid.ravel()
-    sf = seeds.ravel()
-    bf = base_level.ravel()
-    rec = np.empty(n, dtype=np.int32)
-    flats_in_row = np.zeros(nr, dtype=np.int64)
-    for r in prange(nr):
-        flats_in_row[r] = _d8_row(r, zf, vf, sf, bf, dist, rec, nr, nc)
-    return rec, flats_in_row.sum()
+    return _receivers_with(_d8_into)(z, valid, seeds, base_level, dist)
+
+
+d8_receivers.serial = _receivers_with(_d8_into.serial)
+d8_receivers.parallel = _receivers_with(_d8_into.parallel)
 
 
 _HIGH = np.uint8(1)     # flat cell with a higher valid neighbour
@@ -350,7 +396,6 @@ def _finish_flat(lab, members, a, b, queue, labels, mark, mask, rec, dist, offs,
             rec[i] = -1
 
 
-@njit(cache=True, nogil=True)
 def stack_and_count(rec):
     """The stack (Braun & Willett 2013) and the D8 cell-count accumulation in one sweep.
 
@@ -362,11 +407,10 @@ def stack_and_count(rec):
 
     Returns (stack int32, count int32 per cell, 0 on nodata).
     """
-    stack, count, _ = _sweep(rec, 1, np.zeros(1), False)
+    stack, count, _ = _sweep(rec, max(rec.shape[0], 1), None)
     return stack, count
 
 
-@njit(cache=True, nogil=True)
 def build_stack(rec):
     """The stack alone (see :func:`stack_and_count`)."""
     return stack_and_count(rec)[0]
@@ -424,78 +468,256 @@ def accumulate_area(rec, stack, ncols, row_area):
     return acc
 
 
-@njit(cache=True, nogil=True)
 def stack_count_area(rec, ncols, row_area):
     """The stack, the cell count and the upstream area (m²) in one sweep.
 
-    The same sweep as :func:`stack_and_count` (Braun & Willett 2013 order), which visits the
-    cells in exactly the order of a backward pass over the stack, so the area sums equal
-    those of :func:`accumulate_area` bit for bit.
+    The same sweep as :func:`stack_and_count` (Braun & Willett 2013 order). On a grid swept
+    as one band the cells are visited in exactly the order of a backward pass over the
+    stack, so the area sums equal those of :func:`accumulate_area` bit for bit; swept in
+    bands (large grids), the sums at cells fed from two bands may differ from it in the
+    last bits (another order of the same additions).
 
     Returns (stack int32, count int32 per cell, area float64 per cell; 0 on nodata).
     """
-    return _sweep(rec, ncols, row_area, True)
+    return _sweep(rec, ncols, np.asarray(row_area, dtype=np.float64))
+
+
+#: horizontal bands of rows swept at the same time on large grids. A fixed number, not
+#: the number of threads, so that the stack and the sums do not depend on the machine.
+SWEEP_BANDS = 8
+#: pending-donor count of a cell that a walk reached, finished and emitted
+_DONE = np.uint8(255)
+
+
+def sweep_bands_for(nrows, ncols):
+    """Number of bands the sweep uses for a grid: one below PARALLEL_MIN_CELLS (the
+    serial sweep, as on small grids always), else SWEEP_BANDS (bands of 4 rows at least).
+    """
+    if nrows * ncols < PARALLEL_MIN_CELLS or nrows < 4 * SWEEP_BANDS:
+        return 1
+    return SWEEP_BANDS
+
+
+def _sweep(rec, ncols, row_area):
+    n = rec.shape[0]
+    nrows = n // ncols if ncols > 0 else 0
+    return sweep_in_bands(rec, ncols, row_area, sweep_bands_for(nrows, ncols))
+
+
+def sweep_in_bands(rec, ncols, row_area, nbands, parallel=None):
+    """The sweep of :func:`stack_count_area` (``row_area`` None: no area, as for
+    :func:`stack_and_count`) over ``nbands`` horizontal bands of rows.
+
+    Every band is swept like the whole grid (pending donors, a scan, walks downstream),
+    the bands at the same time, except that a walk stops where the receiver lies in another
+    band. Donor counts come from a first pass in which each band counts only donors in the
+    band, so that bands never write each other's cells; donors in another band are listed
+    (D8 receivers are neighbours, so they lie in the first and last row of a band) and
+    counted afterwards. Once all bands are done, the listed cells that are finished hand
+    their count and area over to their receivers and the walks go on from there, across
+    bands, in one sequential pass. Stack: the cells of that pass first (written back to
+    front as they are emitted), then the cells of band 0, 1, ... as each band emitted
+    them; a cell of a band never drains to a cell emitted in the last pass, nor to a cell
+    of another band emitted by that band, so every cell still comes after its receiver.
+
+    ``parallel`` None takes the parallel kernels from PARALLEL_MIN_CELLS cells on; True or
+    False forces one version (same results).
+    """
+    n = rec.shape[0]
+    with_area = row_area is not None
+    if parallel is None:
+        parallel = n >= PARALLEL_MIN_CELLS
+    count_donors = _count_donors.parallel if parallel else _count_donors.serial
+    sweep = _sweep_bands.parallel if parallel else _sweep_bands.serial
+    nrows = n // ncols if ncols > 0 else 0
+    nbands = max(1, min(int(nbands), nrows))
+    bands = (np.arange(nbands + 1, dtype=np.int64) * nrows) // nbands
+    # a band's donors in another band lie in its first and last row
+    cap = 0 if nbands == 1 else 2 * ncols
+    # arrays allocated by NumPy, which asks for huge pages for large blocks: a fresh array
+    # faults in several times faster than one allocated inside a kernel
+    pending = np.zeros(n, dtype=np.uint8)
+    nvalid = np.zeros(nbands, dtype=np.int64)
+    ncross = np.zeros(nbands, dtype=np.int64)
+    cross = np.empty(nbands * cap, dtype=np.int32)
+    count_donors(rec, bands, ncols, pending, nvalid, cross, ncross)
+    if nbands > 1 and ncross.max() > cap:  # receivers that are not neighbours: one band
+        return sweep_in_bands(rec, ncols, row_area, 1, parallel)
+    soff = np.zeros(nbands + 1, dtype=np.int64)
+    np.cumsum(nvalid, out=soff[1:])
+    count = np.zeros(n, dtype=np.int32)
+    if with_area:
+        area = np.zeros(n, dtype=np.float64)
+        uniform = bool(row_area.size and (row_area == row_area[0]).all())
+        if row_area.size == 0:
+            row_area = np.zeros(1, dtype=np.float64)
+    else:
+        area = np.zeros(1, dtype=np.float64)
+        row_area = np.zeros(1, dtype=np.float64)
+        uniform = True
+    stack = np.empty(soff[-1], dtype=np.int32)
+    old = numba.set_parallel_chunksize(1)  # bands handed out one at a time to free threads
+    try:
+        pos = sweep(rec, ncols, row_area, with_area, uniform, bands, pending, count, area,
+                    stack, soff, cross, ncross)
+    finally:
+        numba.set_parallel_chunksize(old)
+    del pending
+    if pos != 0:  # cells on receiver cycles are left out
+        stack = stack[pos:].copy()
+    return stack, count, (area if with_area else None)
+
+
+@parallel_for_large_grids(cache=True, nogil=True)
+def _count_donors(rec, bands, ncols, pending, nvalid, cross, ncross):
+    """Donors of every cell from the same band (each band writes only its own cells), the
+    valid cells of each band, and the cells draining to another band: all counted, at most
+    ``cross.size // nbands`` per band listed."""
+    nb = bands.shape[0] - 1
+    cap = cross.shape[0] // nb
+    for b in prange(nb):
+        ia = bands[b] * ncols
+        ib = bands[b + 1] * ncols
+        nv = 0
+        nx = 0
+        for j in range(ia, ib):
+            r = rec[j]
+            if r >= 0:
+                if r >= ia and r < ib:
+                    pending[r] += 1
+                else:
+                    if nx < cap:
+                        cross[b * cap + nx] = j
+                    nx += 1
+            if r != -2:
+                nv += 1
+        nvalid[b] = nv
+        ncross[b] = nx
+
+
+@parallel_for_large_grids(cache=True, nogil=True)
+def _sweep_bands(rec, ncols, row_area, with_area, uniform, bands, pending, count, area,
+                 stack, soff, cross, ncross):
+    """The bands at the same time, then the pass across bands (see :func:`sweep_in_bands`).
+    Returns the stack position of the first cell emitted (0 unless cycles)."""
+    nb = bands.shape[0] - 1
+    cap = cross.shape[0] // nb
+    for b in range(nb):  # donors in another band, now that no band writes any more
+        for t in range(min(ncross[b], cap)):
+            pending[rec[cross[b * cap + t]]] += 1
+    emitted = np.zeros(nb, dtype=np.int64)
+    for b in prange(nb):
+        end = soff[b + 1]
+        emitted[b] = end - _sweep_band(rec, ncols, row_area, with_area, uniform, bands[b],
+                                       bands[b + 1], pending, count, area, stack, end)
+    # the bands' cells together at the end of the stack, in band order (moved towards the
+    # end, so copying back to front never overwrites cells still to be moved)
+    end = stack.shape[0]
+    for b in range(nb - 1, -1, -1):
+        m = emitted[b]
+        src = soff[b + 1]
+        if src != end:
+            for t in range(1, m + 1):
+                stack[end - t] = stack[src - t]
+        end -= m
+    # finished cells that drain to another band: the listed ones not waiting for donors
+    nd = 0
+    for b in range(nb):
+        for t in range(min(ncross[b], cap)):
+            j = cross[b * cap + t]
+            p = pending[j]
+            if p == 0 or p == _DONE:
+                cross[nd] = j
+                nd += 1
+    inv = 1.0 / ncols
+    a0 = row_area[0]
+    pos = end
+    for t in range(nd):
+        j = cross[t]
+        cj = count[j]
+        aj = area[j] if with_area else 0.0
+        r = rec[j]
+        while True:
+            cr = count[r] + cj
+            count[r] = cr
+            if with_area:
+                ar = area[r] + aj
+                area[r] = ar
+            p = pending[r] - 1
+            if p != 0:
+                pending[r] = p
+                break
+            pending[r] = _DONE
+            cj = cr + 1
+            count[r] = cj
+            if with_area:
+                aj = ar + (a0 if uniform else row_area[_row_of(r, ncols, inv)])
+                area[r] = aj
+            pos -= 1
+            stack[pos] = r
+            r = rec[r]
+            if r < 0:
+                break
+    return pos
 
 
 @njit(cache=True, nogil=True)
-def _sweep(rec, ncols, row_area, with_area):
-    """The sweep behind :func:`stack_and_count` and :func:`stack_count_area`."""
-    n = rec.shape[0]
-    pending = np.zeros(n, dtype=np.uint8)
-    nvalid = 0
-    for i in range(n):
-        r = rec[i]
-        if r >= 0:
-            pending[r] += 1
-        if r != -2:
-            nvalid += 1
-    count = np.zeros(n, dtype=np.int32)
-    area = np.zeros(n if with_area else 1, dtype=np.float64)
-    stack = np.empty(nvalid, dtype=np.int32)
-    pos = nvalid
+def _sweep_band(rec, ncols, row_area, with_area, uniform, r0, r1, pending, count, area,
+                stack, pos):
+    """Sweep of the rows r0..r1-1, emitting into ``stack`` back to front from ``pos``;
+    walks stop at receivers outside the band. Returns the position of the last cell."""
+    ia = r0 * ncols
+    ib = r1 * ncols
+    a0 = row_area[0]
     by_offset = ncols >= 3  # the row step follows from the index step to a neighbour
-    row = 0
+    row = r0
     col = -1
-    for i in range(n):
+    for i in range(ia, ib):
         col += 1
         if col == ncols:
             col = 0
             row += 1
-        if pending[i] != 0 or rec[i] == -2 or count[i] != 0:
+        # no donor left to wait for, not emitted yet (_DONE), valid
+        if pending[i] != 0:
+            continue
+        r = rec[i]
+        if r == -2:
             continue
         j = i
         rj = row
+        cj = count[j] + 1
+        aj = 0.0
         while True:
-            count[j] += 1
+            count[j] = cj
             if with_area:
-                area[j] += row_area[rj]
+                aj = area[j] + (a0 if uniform else row_area[rj])
+                area[j] = aj
             pos -= 1
             stack[pos] = j
-            r = rec[j]
-            if r < 0:
+            if r < ia or r >= ib:  # leaves the grid or the band
                 break
-            count[r] += count[j]
-            pending[r] -= 1
-            if not with_area:
-                if pending[r] != 0:
-                    break
-                j = r
-                continue
-            area[r] += area[j]
-            if pending[r] != 0:
+            cr = count[r] + cj
+            count[r] = cr
+            if with_area:
+                area[r] += aj
+            p = pending[r] - 1
+            if p != 0:
+                pending[r] = p
                 break
-            if by_offset:
-                d = r - j
-                if d > 1:
-                    rj += 1
-                elif d < -1:
-                    rj -= 1
-            else:
-                rj = r // ncols
+            pending[r] = _DONE
+            if with_area and not uniform:
+                if by_offset:
+                    d = r - j
+                    if d > 1:
+                        rj += 1
+                    elif d < -1:
+                        rj -= 1
+                else:
+                    rj = r // ncols
             j = r
-    if pos != 0:
-        stack = stack[pos:].copy()
-    return stack, count, area
+            cj = cr + 1
+            r = rec[j]
+    return pos
 
 
 @njit(cache=True, nogil=True)
