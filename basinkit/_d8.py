@@ -4,6 +4,8 @@ Receivers are flat indices ``r * ncols + c``; ``-1`` means the water leaves the 
 (grid edge, next to nodata, base level) and ``-2`` marks invalid cells.
 """
 
+import math
+
 import numba
 import numpy as np
 from numba import njit, prange
@@ -546,26 +548,66 @@ def sweep_in_bands(rec, ncols, row_area, nbands, parallel=None):
     soff = np.zeros(nbands + 1, dtype=np.int64)
     np.cumsum(nvalid, out=soff[1:])
     count = np.zeros(n, dtype=np.int32)
-    if with_area:
+    uniform = not with_area or bool(row_area.size and (row_area == row_area[0]).all())
+    # equal cell areas whose sums are all exact: the area is the count times the cell
+    # area, bit for bit, and the sweep need not carry it
+    by_count = with_area and uniform and _sums_exact(row_area[0] if row_area.size else 0.0,
+                                                     n)
+    if with_area and not by_count:
         area = np.zeros(n, dtype=np.float64)
-        uniform = bool(row_area.size and (row_area == row_area[0]).all())
-        if row_area.size == 0:
-            row_area = np.zeros(1, dtype=np.float64)
     else:
         area = np.zeros(1, dtype=np.float64)
+    if not with_area or row_area.size == 0:
         row_area = np.zeros(1, dtype=np.float64)
-        uniform = True
     stack = np.empty(soff[-1], dtype=np.int32)
+    summed = with_area and not by_count
+    emitted = np.zeros(nbands, dtype=np.int64)
     old = numba.set_parallel_chunksize(1)  # bands handed out one at a time to free threads
     try:
-        pos = sweep(rec, ncols, row_area, with_area, uniform, bands, pending, count, area,
-                    stack, soff, cross, ncross)
+        sweep(rec, ncols, row_area, summed, uniform, bands, pending, count, area, stack, soff,
+              cross, ncross, emitted)
     finally:
         numba.set_parallel_chunksize(old)
+    # the bands' cells together at the end of the stack, in band order (memmove)
+    end = stack.shape[0]
+    for b in range(nbands - 1, -1, -1):
+        m = int(emitted[b])
+        src = int(soff[b + 1])
+        if src != end and m:
+            stack[end - m:end] = stack[src - m:src]
+        end -= m
+    pos = end
+    if nbands > 1:
+        pos = _sweep_across(rec, ncols, row_area, summed, uniform, bands, pending, count,
+                            area, stack, end, cross, ncross)
     del pending
     if pos != 0:  # cells on receiver cycles are left out
         stack = stack[pos:].copy()
+    if by_count:
+        area = np.empty(n, dtype=np.float64)
+        (_times.parallel if parallel else _times.serial)(count, row_area[0], area)
     return stack, count, (area if with_area else None)
+
+
+def _sums_exact(a, n):
+    """True when every sum of up to ``n`` terms equal to ``a`` is exact in float64: ``a``
+    is m·2^e with an odd integer m such that n·m < 2^53, so every partial sum k·a is a
+    float64 and each addition is exact, whatever the order (and equals the product)."""
+    a = float(a)
+    if not math.isfinite(a) or a < 0:
+        return False
+    if a == 0.0:
+        return True
+    m = int(math.frexp(a)[0] * 2.0 ** 53)
+    while m % 2 == 0:
+        m //= 2
+    return m * max(n, 1) < 2 ** 53
+
+
+@parallel_for_large_grids(cache=True, nogil=True)
+def _times(count, a, out):
+    for i in prange(count.shape[0]):
+        out[i] = count[i] * a
 
 
 @parallel_for_large_grids(cache=True, nogil=True)
@@ -597,29 +639,27 @@ def _count_donors(rec, bands, ncols, pending, nvalid, cross, ncross):
 
 @parallel_for_large_grids(cache=True, nogil=True)
 def _sweep_bands(rec, ncols, row_area, with_area, uniform, bands, pending, count, area,
-                 stack, soff, cross, ncross):
-    """The bands at the same time, then the pass across bands (see :func:`sweep_in_bands`).
-    Returns the stack position of the first cell emitted (0 unless cycles)."""
+                 stack, soff, cross, ncross, emitted):
+    """The bands at the same time (see :func:`sweep_in_bands`); ``emitted[b]``: the number
+    of cells band b emitted, back to front from ``soff[b + 1]``."""
     nb = bands.shape[0] - 1
     cap = cross.shape[0] // nb
     for b in range(nb):  # donors in another band, now that no band writes any more
         for t in range(min(ncross[b], cap)):
             pending[rec[cross[b * cap + t]]] += 1
-    emitted = np.zeros(nb, dtype=np.int64)
     for b in prange(nb):
         end = soff[b + 1]
         emitted[b] = end - _sweep_band(rec, ncols, row_area, with_area, uniform, bands[b],
                                        bands[b + 1], pending, count, area, stack, end)
-    # the bands' cells together at the end of the stack, in band order (moved towards the
-    # end, so copying back to front never overwrites cells still to be moved)
-    end = stack.shape[0]
-    for b in range(nb - 1, -1, -1):
-        m = emitted[b]
-        src = soff[b + 1]
-        if src != end:
-            for t in range(1, m + 1):
-                stack[end - t] = stack[src - t]
-        end -= m
+
+
+@njit(cache=True, nogil=True)
+def _sweep_across(rec, ncols, row_area, with_area, uniform, bands, pending, count, area,
+                  stack, end, cross, ncross):
+    """The pass across bands, emitting back to front from ``end`` (see
+    :func:`sweep_in_bands`). Returns the stack position of the first cell emitted."""
+    nb = bands.shape[0] - 1
+    cap = cross.shape[0] // nb
     # finished cells that drain to another band: the listed ones not waiting for donors
     nd = 0
     for b in range(nb):

@@ -111,6 +111,24 @@ def test_banded_sweep_equals_one_band_sweep(seed, nbands):
     # equal cell areas: exact (sums of integers)
     _, _, a_eq = _d8.sweep_in_bands(rec, nc, np.full(nr, 100.0), nbands)
     assert np.array_equal(a_eq, 100.0 * ref_count)
+    # equal cell areas whose sums round (0.1 is no short binary fraction): summed as
+    # before, bit for bit on one band
+    tenth = np.full(nr, 0.1)
+    _, _, ref_tenth = reference_sweep(rec, nc, tenth)
+    assert np.array_equal(_d8.sweep_in_bands(rec, nc, tenth, 1)[2], ref_tenth)
+    np.testing.assert_allclose(_d8.sweep_in_bands(rec, nc, tenth, nbands)[2], ref_tenth,
+                               rtol=1e-13, atol=0)
+
+
+def test_sums_exact_follows_the_float64_significand():
+    """IEEE 754 binary64 has a 53-bit significand: k·a is exact for every k <= n when
+    a = m·2^e (m odd) and n·m < 2^53."""
+    assert _d8._sums_exact(100.0, 10**9)          # m = 25
+    assert _d8._sums_exact(0.375, 10**12)         # 3·2^-3
+    assert not _d8._sums_exact(0.1, 10)           # m has 53 bits
+    assert not _d8._sums_exact(2.0 ** 52 + 1, 2)  # m = 2^52 + 1: 2m >= 2^53
+    assert _d8._sums_exact(2.0 ** 52 + 1, 1)
+    assert not _d8._sums_exact(float("nan"), 1)
 
 
 def test_banded_sweep_on_a_routed_dem_matches_pysheds():
