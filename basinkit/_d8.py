@@ -477,7 +477,8 @@ def stack_count_area(rec, ncols, row_area):
     as one band the cells are visited in exactly the order of a backward pass over the
     stack, so the area sums equal those of :func:`accumulate_area` bit for bit; swept in
     bands (large grids), the sums at cells fed from two bands may differ from it in the
-    last bits (another order of the same additions).
+    last bits (another order of the same additions), except with equal cell areas whose
+    sums are exact (e.g. 100 m²: count × area, see :func:`_sums_exact`).
 
     Returns (stack int32, count int32 per cell, area float64 per cell; 0 on nodata).
     """
@@ -487,7 +488,8 @@ def stack_count_area(rec, ncols, row_area):
 #: horizontal bands of rows swept at the same time on large grids. A fixed number, not
 #: the number of threads, so that the stack and the sums do not depend on the machine.
 SWEEP_BANDS = 8
-#: pending-donor count of a cell that a walk reached, finished and emitted
+#: pending-donor count of a cell that a walk reached, finished and emitted (a D8 cell has
+#: at most 8 donors)
 _DONE = np.uint8(255)
 
 
