@@ -60,6 +60,13 @@ def _note(hk, hv, key, w):
         j = (j + 1) & mask
 
 
+@njit(cache=True, nogil=True, inline='always')
+def _meet(hk, hv, la, lb, w):
+    """Labels ``la`` and ``lb`` meet at level ``w``: note it under the ordered pair."""
+    key = (np.uint32(min(la, lb)) << np.uint32(16)) | np.uint32(max(la, lb))
+    return _note(hk, hv, key, w)
+
+
 @njit(cache=True, nogil=True)
 def flood_tile(z, valid, seeds, labels, r0, r1, c0, c1, cap):
     """Stage 1 for the tile rows r0..r1-1, columns c0..c1-1: fill it locally in place, write
@@ -129,10 +136,7 @@ def flood_tile(z, valid, seeds, labels, r0, r1, c0, c1, cap):
             ln = lab[nb]
             if ln != 0:
                 if ln != lc and ln != _NODATA:
-                    a = min(lc, ln)
-                    b = max(lc, ln)
-                    nedges += _note(hk, hv, (np.uint32(a) << np.uint32(16)) | np.uint32(b),
-                                    max(zc, zt[nb]))
+                    nedges += _meet(hk, hv, lc, ln, max(zc, zt[nb]))
                     if 2 * nedges > cap:
                         return ea, ea, ew, nlab, False
                 continue
@@ -164,11 +168,7 @@ def flood_tile(z, valid, seeds, labels, r0, r1, c0, c1, cap):
                     lu = lab[u]
                     if lu != 0:
                         if lu != lc and lu != _NODATA:
-                            a = min(lc, lu)
-                            b = max(lc, lu)
-                            nedges += _note(hk, hv,
-                                            (np.uint32(a) << np.uint32(16)) | np.uint32(b),
-                                            max(zz, zt[u]))
+                            nedges += _meet(hk, hv, lc, lu, max(zz, zt[u]))
                             if 2 * nedges > cap:
                                 return ea, ea, ew, nlab, False
                         continue
