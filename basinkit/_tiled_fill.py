@@ -213,7 +213,7 @@ def solve_levels(z, valid, labels, tile, ntc, base, nnodes, ga, gb, gw):
     nodes. Returns the level of every node (float32; -inf for the outside)."""
     nr, nc = z.shape
     # edges across tile borders: each border cell with its neighbours in the next tile
-    cap = 8 * (nr + nc) * (nr // tile + nc // tile + 2)
+    cap = 3 * nr * ((nc - 1) // tile) + 3 * nc * ((nr - 1) // tile)
     xa = np.empty(cap, dtype=np.int64)
     xb = np.empty(cap, dtype=np.int64)
     xw = np.empty(cap, dtype=np.float32)
@@ -314,6 +314,15 @@ def _workers():
     return max(1, int(numba.config.NUMBA_NUM_THREADS))
 
 
+def _each(fn, items, workers):
+    """``[fn(x) for x in items]``, in ``workers`` threads when there is more than one."""
+    items = list(items)
+    if workers > 1 and len(items) > 1:
+        with ThreadPoolExecutor(workers) as pool:
+            return list(pool.map(fn, items))
+    return [fn(x) for x in items]
+
+
 def fill_exact_any(z, valid, seeds):
     """Exact depression filling in place: by tiles in threads for grids larger than one
     tile, else :func:`basinkit._fill.fill_exact` directly (same result)."""
@@ -326,7 +335,8 @@ def fill_exact_any(z, valid, seeds):
 def fill_exact_tiled(z, valid, seeds, tile=TILE, workers=None):
     """Exact depression filling of ``z`` (float32, C order) in place, by tiles of
     ``tile`` × ``tile`` cells run in ``workers`` threads (default: NUMBA_NUM_THREADS,
-    normally the number of processors). The result is identical to :func:`basinkit._fill.fill_exact`."""
+    normally the number of processors). The result is identical to
+    :func:`basinkit._fill.fill_exact`."""
     nr, nc = z.shape
     if not 2 <= tile <= 16000:  # border labels must fit below _NODATA
         raise ValueError("tile must be between 2 and 16000 cells")
@@ -345,11 +355,7 @@ def fill_exact_tiled(z, valid, seeds, tile=TILE, workers=None):
                 return ea, eb, ew, nlab
             cap *= 4
 
-    if workers > 1 and len(boxes) > 1:
-        with ThreadPoolExecutor(workers) as pool:
-            parts = list(pool.map(stage1, boxes))
-    else:
-        parts = [stage1(b) for b in boxes]
+    parts = _each(stage1, boxes, workers)
     # graph node of tile t's label l (l >= 2): base[t] + l - 1; node 0 is the outside
     base = np.zeros(len(boxes), dtype=np.int64)
     total = 1
@@ -366,9 +372,4 @@ def fill_exact_tiled(z, valid, seeds, tile=TILE, workers=None):
     def stage3(t):
         raise_tile(z, labels, *boxes[t], level, base[t])
 
-    if workers > 1 and len(boxes) > 1:
-        with ThreadPoolExecutor(workers) as pool:
-            list(pool.map(stage3, range(len(boxes))))
-    else:
-        for t in range(len(boxes)):
-            stage3(t)
+    _each(stage3, range(len(boxes)), workers)
