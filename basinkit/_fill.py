@@ -5,37 +5,13 @@ azimuth 45·k degrees clockwise from grid north.
 """
 
 import numpy as np
-from llvmlite import ir
-from numba import njit, prange, types
-from numba.core import cgutils
-from numba.extending import intrinsic
+from numba import njit, prange
 
 from ._jit import parallel_for_large_grids
 
 # row and column offsets of the 8 neighbours, in azimuth order N, NE, E, SE, S, SW, W, NW
 DROW = np.array([-1, -1, 0, 1, 1, 1, 0, -1], dtype=np.int64)
 DCOL = np.array([0, 1, 1, 1, 0, -1, -1, -1], dtype=np.int64)
-
-
-@intrinsic
-def _prefetch(typingctx, arr, idx):
-    """Hint the processor to fetch ``arr[idx]`` into cache (LLVM prefetch; no effect on
-    results). ``idx`` must lie inside the array."""
-    sig = types.void(arr, idx)
-
-    def codegen(context, builder, signature, args):
-        aty = signature.args[0]
-        ary = context.make_array(aty)(context, builder, args[0])
-        ptr = cgutils.get_item_pointer(context, builder, aty, ary, [args[1]])
-        i8p = ir.IntType(8).as_pointer()
-        fnty = ir.FunctionType(ir.VoidType(), [i8p, ir.IntType(32), ir.IntType(32),
-                                               ir.IntType(32)])
-        fn = cgutils.get_or_insert_function(builder.module, fnty, "llvm.prefetch.p0")
-        builder.call(fn, [builder.bitcast(ptr, i8p), ir.Constant(ir.IntType(32), 0),
-                          ir.Constant(ir.IntType(32), 3), ir.Constant(ir.IntType(32), 1)])
-        return context.get_dummy_value()
-
-    return sig, codegen
 
 
 @njit(cache=True, nogil=True)
@@ -144,9 +120,8 @@ def fill_exact(z, valid, seeds):
     Keys are the float32 elevation mapped to an order-preserving uint32, packed with the
     cell index into one uint64, so ties pop in cell order. The priority queue is a 4-ary
     heap (fewer levels, and the children of an entry share a cache line; a d-ary heap,
-    Johnson 1975, Information Processing Letters 4:53-57). Cells leave the heap at places
-    far apart on large grids, so the neighbourhoods of the next two cells to leave are
-    prefetched while the current one is processed; this changes nothing in the result.
+    Johnson 1975, Information Processing Letters 4:53-57). ``fill_depressions`` calls it
+    for grids of up to one tile (see :mod:`basinkit._tiled_fill`), which stay in cache.
     """
     nr, nc = z.shape
     n = nr * nc
@@ -175,32 +150,6 @@ def fill_exact(z, valid, seeds):
                 ph = 0; pt = 0
         else:
             hs, cell = _pop(heap, hs)
-            if hs > 0:
-                # the next cell out of the heap is usually far away: start fetching its
-                # neighbourhood while this one is processed
-                nxt = np.int64(heap[0] & np.uint64(0xFFFFFFFF))
-                if nxt >= nc and nxt < n - nc:
-                    _prefetch(zf, nxt - nc)
-                    _prefetch(zf, nxt + nc)
-                    _prefetch(closed, nxt - nc)
-                    _prefetch(closed, nxt + nc)
-                _prefetch(zf, nxt)
-                _prefetch(closed, nxt)
-                # and the one after it: the least of the top cell's children
-                if hs > 2:
-                    e = 5 if hs > 5 else hs
-                    v = heap[1]
-                    for q in range(2, e):
-                        if heap[q] < v:
-                            v = heap[q]
-                    nx2 = np.int64(v & np.uint64(0xFFFFFFFF))
-                    if nx2 >= nc and nx2 < n - nc:
-                        _prefetch(zf, nx2 - nc)
-                        _prefetch(zf, nx2 + nc)
-                        _prefetch(closed, nx2 - nc)
-                        _prefetch(closed, nx2 + nc)
-                    _prefetch(zf, nx2)
-                    _prefetch(closed, nx2)
         r = cell // nc
         c0 = cell - r * nc
         zc = zf[cell]
