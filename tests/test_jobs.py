@@ -39,6 +39,21 @@ def valley(tmp_path_factory):
     return d
 
 
+# the valley with its outlets, snapped within 20 m, channels from 0.5 ha, no report
+VALLEY_OUTLET_JOB = textwrap.dedent("""
+    [inputs]
+    dem = "dem.tif"
+    outlets = "outlets.csv"
+    [outlets]
+    snap_radius_m = 20
+    snap_min_area = "0.1ha"
+    [channels]
+    min_area = "0.5ha"
+    [outputs]
+    report = false
+    """)
+
+
 def _write(path, text):
     path.write_text(textwrap.dedent(text), encoding="utf-8")
     return path
@@ -148,20 +163,8 @@ def test_small_job_runs_and_carries_on_past_a_bad_outlet(valley, tmp_path):
     100 m² each, minus the cells that drain sideways off the east and west edges — so the
     area lies between the V's central strip and the full width (geometry of the surface,
     common practice)."""
-    job = _write(valley / "j8.toml", """
-        [job]
-        name = "synthetic valley"
-        [inputs]
-        dem = "dem.tif"
-        outlets = "outlets.csv"
-        [outlets]
-        snap_radius_m = 20
-        snap_min_area = "0.1ha"
-        [channels]
-        min_area = "0.5ha"
-        [outputs]
-        report = false
-        """)
+    job = _write(valley / "j8.toml",
+                 '[job]\nname = "synthetic valley"\n' + VALLEY_OUTLET_JOB)
     res = run_job(job, output=tmp_path / "out")
     assert res.stages["delineate"]["status"] == "done"
     bad = res.outlets[res.outlets["outlet_id"] == "far_away"]
@@ -225,18 +228,7 @@ def test_report_command_rewrites_the_report_of_a_run(valley, tmp_path, capsys):
 
     d = tmp_path / "inputs"
     shutil.copytree(valley, d)
-    job = _write(d / "jr.toml", """
-        [inputs]
-        dem = "dem.tif"
-        outlets = "outlets.csv"
-        [outlets]
-        snap_radius_m = 20
-        snap_min_area = "0.1ha"
-        [channels]
-        min_area = "0.5ha"
-        [outputs]
-        report = false
-        """)
+    job = _write(d / "jr.toml", VALLEY_OUTLET_JOB)
     run = tmp_path / "run"
     run_job(job, output=run)
     assert not (run / "report.html").exists()
@@ -261,18 +253,7 @@ def test_rerun_with_overwrite_removes_only_its_own_stale_files(valley, tmp_path)
     put there is kept (common practice for tools that own an output folder, no source)."""
     import json
 
-    first = _write(valley / "j10.toml", """
-        [inputs]
-        dem = "dem.tif"
-        outlets = "outlets.csv"
-        [outlets]
-        snap_radius_m = 20
-        snap_min_area = "0.1ha"
-        [channels]
-        min_area = "0.5ha"
-        [outputs]
-        report = false
-        """)
+    first = _write(valley / "j10.toml", VALLEY_OUTLET_JOB)
     out = tmp_path / "out"
     run_job(first, output=out)
     listed = set(json.loads((out / "provenance.json").read_text())["files"])
