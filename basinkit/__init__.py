@@ -14,38 +14,38 @@ licensed professional practice.
 __version__ = "0.1.0"
 
 from .conditioning import ConditionSummary, condition, fill_depressions  # noqa: E402
-from .errors import (BasinkitError, InputError, MemoryBudgetError,  # noqa: E402
-                     OutletError, OutputExistsError)
-from .routing import FlowModel, load_flow, route  # noqa: E402
-from .terrain import Terrain, read_dem, terrain_from_array  # noqa: E402
+from .errors import (BasinkitError, InputError, MemoryBudgetError, OutletError,
+                     OutputExistsError)
+from .routing.flow_model import FlowModel, load_flow, route  # noqa: E402
+from .terrain.model import Terrain, read_dem, terrain_from_array  # noqa: E402
 
 # loaded on first use, so that importing basinkit (and starting the CLI) stays quick
 _LAZY = {
-    "breach_depressions": "breaching",
-    "burn_lines": "burning",
-    "delineate": "catchments",
-    "Delineation": "catchments",
-    "prepare_outlets": "outlets",
-    "read_outlet_file": "outlets",
-    "contributing_fraction": "contributing",
-    "contributing_area_m2": "contributing",
-    "extract_channels": "channels",
-    "ChannelNetwork": "channels",
-    "constant_drop_test": "channels",
-    "basin_morphometry": "morphometry",
-    "morphometry_table": "morphometry",
-    "longest_flow_path": "profiles",
-    "main_stem": "profiles",
-    "channel_profiles": "profiles",
-    "chi_transform": "profiles",
-    "fit_concavity": "profiles",
-    "steepness": "profiles",
-    "find_knickpoints": "profiles",
-    "slope_area_fit": "profiles",
-    "hack_law_fit": "profiles",
-    "read_job": "jobs",
-    "run_job": "jobs",
-    "write_report": "report",
+    "breach_depressions": "conditioning.breach",
+    "burn_lines": "conditioning.burn",
+    "delineate": "analysis.catchments",
+    "Delineation": "analysis.catchments",
+    "prepare_outlets": "analysis.outlets",
+    "read_outlet_file": "analysis.outlets",
+    "contributing_fraction": "routing.contributing",
+    "contributing_area_m2": "routing.contributing",
+    "extract_channels": "analysis.channels",
+    "ChannelNetwork": "analysis.channels",
+    "constant_drop_test": "analysis.channels",
+    "basin_morphometry": "analysis.morphometry",
+    "morphometry_table": "analysis.morphometry",
+    "longest_flow_path": "analysis.profiles",
+    "main_stem": "analysis.profiles",
+    "channel_profiles": "analysis.profiles",
+    "chi_transform": "analysis.profiles",
+    "fit_concavity": "analysis.profiles",
+    "steepness": "analysis.profiles",
+    "find_knickpoints": "analysis.profiles",
+    "slope_area_fit": "analysis.profiles",
+    "hack_law_fit": "analysis.profiles",
+    "read_job": "workflow.jobs",
+    "run_job": "workflow.jobs",
+    "write_report": "report.html",
 }
 
 

@@ -60,7 +60,7 @@ def main(argv=None):
     args = ap.parse_args(argv)
 
     from basinkit import route, terrain_from_array
-    from basinkit.catchments import _outlet_tree, delineate
+    from basinkit.analysis.catchments import _outlet_tree, delineate
 
     n = args.size
     z = load_dem(n)

@@ -51,8 +51,8 @@ def main():
     args = ap.parse_args()
 
     from basinkit import route, terrain_from_array
-    from basinkit.channels import extract_channels
-    from basinkit.morphometry import morphometry_table
+    from basinkit.analysis.channels import extract_channels
+    from basinkit.analysis.morphometry import morphometry_table
 
     n = args.size
     cs = args.cellsize

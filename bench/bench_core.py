@@ -70,7 +70,8 @@ def current_rss_mb():
 
 def warm_tiled_fill():
     """Load the kernels of the tiled fill (used above one 512² tile) on a small grid."""
-    from basinkit import _fill, _tiled_fill
+    from basinkit.conditioning import _fill
+    from basinkit.conditioning import _tiled_fill
 
     z = fractal(32)
     valid = np.ones(z.shape, bool)
@@ -81,7 +82,7 @@ def warm_tiled_fill():
 def warm_parallel_routing():
     """Load the parallel versions of the routing kernels (large grids) here, outside the
     timed stages, like the serial versions on the tiny grid."""
-    from basinkit import _d8
+    from basinkit.routing import _d8
 
     z = fractal(32)
     valid = np.ones(z.shape, bool)
@@ -91,10 +92,10 @@ def warm_parallel_routing():
 
 
 def child_basinkit(n):
-    from basinkit import _d8
-    from basinkit.conditioning import exit_cells, fill_depressions
-    from basinkit.routing import flow_from_conditioned
-    from basinkit.terrain import terrain_from_array
+    from basinkit.routing import _d8
+    from basinkit.conditioning.fill import exit_cells, fill_depressions
+    from basinkit.routing.flow_model import flow_from_conditioned
+    from basinkit.terrain.model import terrain_from_array
 
     # compile (cached on disk after the first run) on a tiny grid, timed separately
     t = time.perf_counter()
@@ -136,8 +137,8 @@ def child_basinkit(n):
 
 def child_route(n):
     """Only the public route() + both accumulations: its peak memory per cell."""
-    from basinkit.routing import route
-    from basinkit.terrain import terrain_from_array
+    from basinkit.routing.flow_model import route
+    from basinkit.terrain.model import terrain_from_array
 
     tiny = route(terrain_from_array(fractal(32), cellsize=10.0))
     tiny.upstream_area()

@@ -7,9 +7,9 @@ Run by hand (not part of the tests):
 
 The DEM is the spectral-synthesis fractal surface of bench_core.py (fixed seed, cached under
 bench/out/), 30 m cells. Routing and channel extraction are timed but are not part of the
-profile budget; the budget covers :func:`basinkit.profiles.channel_profiles` (Hack-style
+profile budget; the budget covers :func:`basinkit.analysis.profiles.channel_profiles` (Hack-style
 profile decomposition, distance from base level, χ, windowed slope, the node table) and
-:func:`basinkit.profiles.steepness` (k_sn per segment). Every grid exit is base level.
+:func:`basinkit.analysis.profiles.steepness` (k_sn per segment). Every grid exit is base level.
 """
 
 from __future__ import annotations
@@ -40,8 +40,8 @@ def main(argv=None):
     from bench_core import dem_path
 
     from basinkit import route, terrain_from_array
-    from basinkit import profiles as P
-    from basinkit.channels import extract_channels
+    from basinkit.analysis import profiles as P
+    from basinkit.analysis.channels import extract_channels
 
     # warm-up: numba kernels (cached on disk) on a tiny grid
     zz = np.add.outer(np.arange(20.0, 0, -1), np.abs(np.arange(15.0) - 7))

@@ -34,7 +34,7 @@ from affine import Affine
 from numba import njit
 
 from basinkit import route, terrain_from_array
-from basinkit.writers import write_csv, write_geotiff, write_json
+from basinkit.io.writers import write_csv, write_geotiff, write_json
 
 HERE = Path(__file__).resolve().parent
 SEED = 20261201

@@ -21,7 +21,7 @@ from pyproj import Geod
 from scipy import ndimage
 
 from basinkit import route, terrain_from_array
-from basinkit.catchments import ACRE_M2, SQUARE_MILE_M2, delineate
+from basinkit.analysis.catchments import ACRE_M2, SQUARE_MILE_M2, delineate
 from basinkit.errors import OutletError
 
 warnings.filterwarnings("ignore", message=".*geotransform.*")
@@ -188,8 +188,8 @@ def test_polygon_keeps_hole_and_edge_flag():
     7x7 grid, everything drains south then along the bottom row to (6, 3), except the
     centre cell (an exit of its own); the outlet's polygon is the square minus one cell
     (one interior ring, area 48 cells). Common practice (no source)."""
-    from basinkit import _d8
-    from basinkit.routing import FlowModel
+    from basinkit.routing import _d8
+    from basinkit.routing.flow_model import FlowModel
 
     n = 7
     t = terrain_from_array(np.zeros((n, n)), cellsize=2.0)
@@ -309,12 +309,12 @@ def test_bad_outlets_go_to_errors_rest_complete():
 
 
 def test_contributing_area_for_multiple_flow_models():
-    """D∞/MFD flow models get a contributing-area column from basinkit.contributing. On a
+    """D∞/MFD flow models get a contributing-area column from basinkit.routing.contributing. On a
     south-dipping plane D∞ sends all flow straight down the column, so the contributing
     area equals the D8 area (analytic, Tarboton 1997); on a fractal DEM the MFD
     contributing area at each outlet equals the MFD upstream area there (accumulation, a
     separate pass; common practice, no source)."""
-    pytest.importorskip("basinkit.contributing")
+    pytest.importorskip("basinkit.routing.contributing")
     r, c = np.mgrid[0:20, 0:15]
     fm = route(terrain_from_array(100.0 - r, cellsize=10), method="dinf")
     got = []
@@ -338,7 +338,7 @@ def test_contributing_area_for_multiple_flow_models():
 def test_worker_processes_give_identical_polygons(monkeypatch):
     """Polygons built in forked worker processes equal those built in this process,
     vertex for vertex (determinism; common practice, no source)."""
-    import basinkit.catchments as mod
+    import basinkit.analysis.catchments as mod
 
     z = fractal_dem(120, seed=21)
     fm = route(terrain_from_array(z, cellsize=10))

@@ -18,9 +18,9 @@ import pytest
 from affine import Affine
 
 from basinkit import InputError, route, terrain_from_array
-from basinkit._d8 import build_stack
-from basinkit.channels import constant_drop_test, extract_channels, threshold_range
-from basinkit.routing import FlowModel
+from basinkit.routing._d8 import build_stack
+from basinkit.analysis.channels import constant_drop_test, extract_channels, threshold_range
+from basinkit.routing.flow_model import FlowModel
 from conftest import PYSHEDS_DIRMAP, fractal_dem, pysheds_fdir, pysheds_grid
 
 
@@ -97,7 +97,7 @@ def test_strahler_matches_pysheds(fractal_flow):
     interior = np.zeros(net.mask.shape, bool)
     interior[1:-1, 1:-1] = True
     # cells at or below a confluence of >= 3 channels with mixed orders
-    from basinkit import _channels
+    from basinkit.analysis import _channels
 
     s, _, ndon = _channels.stream_orders(fm.receiver, fm.stack, net.mask.ravel())
     rec = fm.receiver
@@ -357,7 +357,7 @@ def test_constant_drop_stream_drops_add_up():
 
 # ------------------------------------------------------------------ command line
 def _cli(argv, capsys):
-    from basinkit.cli import main
+    from basinkit.cli.main import main
 
     with pytest.raises(SystemExit) as exc:
         main([str(a) for a in argv])
@@ -446,10 +446,10 @@ def test_channels_command_clean_failures(flow_folder, capsys):
 
 
 def test_docstring_examples():
-    """The Examples in basinkit.channels run as written (common practice)."""
+    """The Examples in basinkit.analysis.channels run as written (common practice)."""
     import doctest
 
-    import basinkit.channels
+    import basinkit.analysis.channels
 
-    res = doctest.testmod(basinkit.channels)
+    res = doctest.testmod(basinkit.analysis.channels)
     assert res.attempted > 0 and res.failed == 0

@@ -5,7 +5,7 @@ worked example; --quiet and --log-json are honoured; user errors are one line.
 External checks: the snapped cell is recomputed here by brute force over the whole grid from
 the definition of the two snapping modes (greatest D8 upstream area among the cells whose
 centre lies within the radius; or the nearest cell whose upstream area reaches the channel
-threshold) -- common practice (no source) -- independently of basinkit.outlets' windowed
+threshold) -- common practice (no source) -- independently of basinkit.analysis.outlets' windowed
 search. JSON log lines are parsed with the standard library's json (RFC 8259).
 
 The demo DEM (300 x 300 cells) is larger than the usual test grids, but agreement *on the
@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from basinkit.cli import SUBCOMMANDS, cli, main
+from basinkit.cli.main import SUBCOMMANDS, cli, main
 from basinkit.errors import BasinkitError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -50,7 +50,7 @@ def run(argv, capsys=None):
 @pytest.fixture(scope="module")
 def flow(tmp_path_factory):
     """The demo DEM routed with the culvert burned (as the demo job does, 1 m deep)."""
-    from basinkit.routing import load_flow
+    from basinkit.routing.flow_model import load_flow
 
     base = tmp_path_factory.mktemp("consistency")
     code, _, _ = run(["-q", "route", DEMO / "upland_valley.tif", "--burn",
@@ -120,7 +120,7 @@ def test_the_two_modes_differ_on_the_crossing(flow):
 def test_job_runner_places_outlets_like_the_commands(flow, tmp_path):
     """basinkit run with the same settings puts the crossing on the same cell, and its
     profile stage starts from that cell."""
-    from basinkit.jobs import job_from_dict, run_job
+    from basinkit.workflow.jobs import job_from_dict, run_job
 
     _, fm = flow
     pts = tmp_path / "outlets.csv"

@@ -19,7 +19,7 @@ from shapely.geometry import LineString
 
 import basinkit
 from basinkit import load_flow, read_dem, route
-from basinkit.cli import main
+from basinkit.cli.main import main
 
 from test_conditioning_extras import dam_valley, embankment_valley
 
@@ -305,7 +305,7 @@ def test_load_flow_refuses_looping_directions_and_exits_into_nodata(tmp_path):
     import pytest
 
     from basinkit import InputError, load_flow, route, terrain_from_array
-    from basinkit.routing import FILES
+    from basinkit.routing.flow_model import FILES
 
     z = np.add.outer(np.arange(6.0, 0, -1), np.zeros(5))
     z[0, 0] = np.nan

@@ -20,8 +20,8 @@ from hypothesis.extra.numpy import arrays
 from shapely.geometry import LineString, Polygon
 
 from basinkit import InputError, condition, fill_depressions, route, terrain_from_array
-from basinkit.breaching import breach_depressions
-from basinkit.burning import burn_lines, line_cell_paths
+from basinkit.conditioning.breach import breach_depressions
+from basinkit.conditioning.burn import burn_lines, line_cell_paths
 
 from conftest import fractal_dem
 
@@ -284,7 +284,7 @@ def test_burn_bad_inputs(tmp_path):
         burn_lines(t, text, 2.0)
 
 
-@pytest.mark.parametrize("module", ["basinkit.breaching", "basinkit.burning"])
+@pytest.mark.parametrize("module", ["basinkit.conditioning.breach", "basinkit.conditioning.burn"])
 def test_docstring_examples(module):
     """The Examples sections run as written (hand-worked small grids; no source)."""
     import doctest

@@ -17,8 +17,9 @@ import numpy as np
 import pytest
 from numba import njit
 
-from basinkit import _d8, route, terrain_from_array
-from basinkit.conditioning import exit_cells, fill_depressions
+from basinkit import route, terrain_from_array
+from basinkit.routing import _d8
+from basinkit.conditioning.fill import exit_cells, fill_depressions
 
 from conftest import PYSHEDS_DIRMAP, fractal_dem, pysheds_fdir, pysheds_grid
 

@@ -20,7 +20,7 @@ from conftest import fractal_dem
 from pyproj import Geod
 
 from basinkit import route, terrain_from_array
-from basinkit.cli import main
+from basinkit.cli.main import main
 
 
 @pytest.fixture(scope="module")
@@ -179,7 +179,7 @@ def test_fraction_rasters_on_dinf_folder(tmp_path):
     """A D∞ flow folder: one contributing-fraction GeoTIFF per outlet, named by its
     sanitised id, whose fractions × cell area sum to the contributing area in the table
     (rasterio reads them back)."""
-    pytest.importorskip("basinkit.contributing")
+    pytest.importorskip("basinkit.routing.contributing")
     z = fractal_dem(50, seed=13)
     fm = route(terrain_from_array(z, cellsize=10, crs="EPSG:32632"), method="dinf")
     fm.save(tmp_path / "flow")

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from basinkit.jobs import demo_job_path, read_job, run_job
+from basinkit.workflow.jobs import demo_job_path, read_job, run_job
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_rasters"
 
@@ -138,7 +138,7 @@ def test_burned_culvert_drains_the_embankment(runs):
     burned = res.flow
     # the cells within 80 m upstream of the culvert inlet, along the stream (main stem of
     # the burned model from the crossing: its first 9 nodes, 10 m cells)
-    from basinkit.profiles import main_stem
+    from basinkit.analysis.profiles import main_stem
 
     cell = int(res.outlets.set_index("outlet_id").loc["crossing", "cell"])
     stem = main_stem(burned, cell).cells[:9]
@@ -183,7 +183,7 @@ def test_two_runs_are_byte_identical(runs):
 def test_demo_command(tmp_path, capsys):
     """``basinkit demo -o DIR`` refuses a non-empty folder without --overwrite (one message,
     exit 2), then runs with it."""
-    from basinkit.cli import main
+    from basinkit.cli.main import main
 
     out = tmp_path / "demo"
     out.mkdir()

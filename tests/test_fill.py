@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from basinkit import fill_depressions, terrain_from_array
-from basinkit.conditioning import exit_cells
+from basinkit.conditioning.fill import exit_cells
 
 from conftest import fractal_dem
 
@@ -103,7 +103,7 @@ def test_fill_properties(z):
 def test_tiled_fill_equals_reconstruction(tile, seed, holes):
     """Tiles of any size, with depressions and nodata holes across tile borders, against
     reconstruction by erosion (scikit-image; Vincent 1993)."""
-    from basinkit._tiled_fill import fill_exact_tiled
+    from basinkit.conditioning._tiled_fill import fill_exact_tiled
 
     z = fractal_dem(90, 77, seed=seed, holes=holes)
     t = terrain_from_array(z)
@@ -118,8 +118,8 @@ def test_tiled_fill_equals_reconstruction(tile, seed, holes):
 def test_tiled_fill_integer_dem_and_base_level(seed):
     """Integer DEM (many equal elevations) with a lake as base level, tiled and whole-grid
     fill identical; whole-grid fill is checked against reconstruction above."""
-    from basinkit._fill import fill_exact
-    from basinkit._tiled_fill import fill_exact_tiled
+    from basinkit.conditioning._fill import fill_exact
+    from basinkit.conditioning._tiled_fill import fill_exact_tiled
 
     z = fractal_dem(70, 64, seed=seed, relief=40, integer=True)
     lake = np.zeros(z.shape, bool)
@@ -139,7 +139,7 @@ def test_tiled_fill_integer_dem_and_base_level(seed):
        st.integers(2, 6))
 def test_tiled_fill_properties(z, tile):
     """Hypothesis: tiled fill equals reconstruction by erosion on any small grid and tiling."""
-    from basinkit._tiled_fill import fill_exact_tiled
+    from basinkit.conditioning._tiled_fill import fill_exact_tiled
 
     t = terrain_from_array(z)
     ours = np.ascontiguousarray(t.elevation, dtype=np.float32).copy()
@@ -149,7 +149,7 @@ def test_tiled_fill_properties(z, tile):
 
 def test_tiled_fill_large_grid_uses_tiles():
     """fill_depressions on a grid of several tiles equals the whole-grid kernel."""
-    from basinkit._fill import fill_exact
+    from basinkit.conditioning._fill import fill_exact
 
     z = fractal_dem(1100, 600, seed=5, holes=3)
     t = terrain_from_array(z)
@@ -161,7 +161,7 @@ def test_tiled_fill_large_grid_uses_tiles():
 def test_tiled_fill_grows_its_edge_table(monkeypatch):
     """A tile with more label edges than its first table holds is flooded again with a
     larger table; the surface is unchanged (checked against reconstruction by erosion)."""
-    from basinkit import _tiled_fill
+    from basinkit.conditioning import _tiled_fill
 
     monkeypatch.setattr(_tiled_fill, "FIRST_EDGE_TABLE", 4)
     z = fractal_dem(60, 60, seed=7, holes=2)

@@ -15,7 +15,7 @@ from affine import Affine
 from pyproj import Geod
 
 from basinkit import read_dem, route, terrain_from_array
-from basinkit.geometry import cell_geometry
+from basinkit.terrain.geometry import cell_geometry
 
 
 def geod_cell_area(geod, lon0, lat_n, dlon, dlat, m=400):

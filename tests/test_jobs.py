@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from basinkit.errors import BasinkitError, InputError
-from basinkit.jobs import JobFileError, job_from_dict, read_job, run_job
+from basinkit.workflow.jobs import JobFileError, job_from_dict, read_job, run_job
 
 
 @pytest.fixture(scope="module")
@@ -22,7 +22,7 @@ def valley(tmp_path_factory):
     an outlets CSV (one good point, one off the grid) and a culvert line."""
     from affine import Affine
 
-    from basinkit.writers import write_geotiff
+    from basinkit.io.writers import write_geotiff
 
     d = tmp_path_factory.mktemp("valley")
     nr, nc = 60, 40
@@ -193,7 +193,7 @@ def test_job_without_outlets_skips_outlet_stages(valley, tmp_path):
 
 
 def test_cli_prints_one_message_and_exits_nonzero(valley, capsys):
-    from basinkit.cli import main
+    from basinkit.cli.main import main
 
     job = _write(valley / "j10.toml", '[inputs]\ndem = "dem.tif"\n[routing]\nmethod = 8\n')
     with pytest.raises(SystemExit) as e:
@@ -207,7 +207,7 @@ def test_cli_prints_one_message_and_exits_nonzero(valley, capsys):
 def test_cli_check_prints_the_job_with_defaults(valley, capsys):
     import json
 
-    from basinkit.cli import main
+    from basinkit.cli.main import main
 
     job = _write(valley / "j11.toml", '[inputs]\ndem = "dem.tif"\n')
     with pytest.raises(SystemExit) as e:
@@ -224,7 +224,7 @@ def test_report_command_rewrites_the_report_of_a_run(valley, tmp_path, capsys):
     import json
     import shutil
 
-    from basinkit.cli import main
+    from basinkit.cli.main import main
 
     d = tmp_path / "inputs"
     shutil.copytree(valley, d)

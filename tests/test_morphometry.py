@@ -13,10 +13,10 @@ import pytest
 from affine import Affine
 
 from basinkit import route, terrain_from_array
-from basinkit.channels import extract_channels
+from basinkit.analysis.channels import extract_channels
 from basinkit.errors import InputError
-from basinkit.morphometry import (basin_morphometry, hypsometric_curve, morphometry_table,
-                                  write_hypsometric_curve)
+from basinkit.analysis.morphometry import (basin_morphometry, hypsometric_curve,
+                                           morphometry_table, write_hypsometric_curve)
 from conftest import fractal_dem
 from test_channels import binary_tree_model
 
@@ -114,7 +114,7 @@ def test_hypsometric_integral_inclined_plane():
 def test_horn_slope_and_aspect_of_planes():
     """Horn's (1981) finite difference is exact for a plane: slope = |∇z| and aspect = the
     downslope azimuth (closed form), also with unequal dx and dy."""
-    from basinkit._channels import horn_slope_aspect
+    from basinkit.analysis._channels import horn_slope_aspect
 
     a, b = 0.3, -0.4  # dz/dx (east), dz/dy (north)
     dx, dy = 10.0, 25.0
@@ -186,7 +186,7 @@ def test_jacksboro_bifurcation_ratio():
     parallels)."""
     from matplotlib import cbook
 
-    from basinkit.polygons import ground_area_perimeter, mask_to_polygon
+    from basinkit.analysis.polygons import ground_area_perimeter, mask_to_polygon
 
     with cbook.get_sample_data("jacksboro_fault_dem.npz") as d:
         z = np.asarray(d["elevation"], dtype=np.float32)
@@ -294,7 +294,7 @@ def test_morphometry_command(tmp_path, capsys):
     import rasterio
 
     from basinkit import load_flow, read_dem
-    from basinkit.cli import main
+    from basinkit.cli.main import main
 
     z = fractal_dem(80, seed=12)
     with rasterio.open(tmp_path / "dem.tif", "w", driver="GTiff", width=80, height=80,
@@ -337,12 +337,12 @@ def test_morphometry_command(tmp_path, capsys):
 
 
 def test_docstring_examples():
-    """The Examples in basinkit.morphometry run as written (common practice)."""
+    """The Examples in basinkit.analysis.morphometry run as written (common practice)."""
     import doctest
 
-    import basinkit.morphometry
+    import basinkit.analysis.morphometry
 
-    res = doctest.testmod(basinkit.morphometry)
+    res = doctest.testmod(basinkit.analysis.morphometry)
     assert res.attempted > 0 and res.failed == 0
 
 

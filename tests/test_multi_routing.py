@@ -1,4 +1,4 @@
-"""D∞ and MFD routing (basinkit._multi) and contributing fractions (basinkit.contributing).
+"""D∞ and MFD routing (basinkit.routing._multi) and contributing fractions (basinkit.routing.contributing).
 
 External checks, named beside each test:
 - tilted planes: the D∞ angle equals the plane's aspect exactly for any aspect, because the
@@ -23,9 +23,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from basinkit import load_flow, route, terrain_from_array
-from basinkit._multi import accumulate_multi, dinf_azimuth, multi_receivers
-from basinkit.contributing import (contributing_area_m2, contributing_fraction,
-                                   contributing_fractions)
+from basinkit.routing._multi import accumulate_multi, dinf_azimuth, multi_receivers
+from basinkit.routing.contributing import (contributing_area_m2, contributing_fraction,
+                                           contributing_fractions)
 from basinkit.errors import InputError, OutletError
 
 from conftest import fractal_dem
@@ -403,7 +403,7 @@ def test_route_command_dinf(tmp_path, capsys):
     read back with rasterio its interior equals the plane's aspect (Tarboton 1997)."""
     import rasterio
 
-    from basinkit.cli import main
+    from basinkit.cli.main import main
 
     z = plane(33.0, n=20, m=20).astype(np.float32)
     tr = Affine(10, 0, 500000, 0, -10, 5000000)
@@ -419,7 +419,7 @@ def test_route_command_dinf(tmp_path, capsys):
     assert angle_diff(az[1:-1, 1:-1], 33.0).max() < 2e-3
 
 
-@pytest.mark.parametrize("module", ["basinkit._multi", "basinkit.contributing"])
+@pytest.mark.parametrize("module", ["basinkit.routing._multi", "basinkit.routing.contributing"])
 def test_docstring_examples(module):
     """The Examples in the docstrings run and give what they show (hand-computed cases:
     a plane dipping south, a split of 1/4 : 3/4; common practice, no source)."""

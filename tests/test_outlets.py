@@ -26,9 +26,9 @@ from shapely.geometry import LineString, Point
 
 from basinkit import route, terrain_from_array
 from basinkit.errors import InputError
-from basinkit.outlets import (locate_outlets, outlets_from_points, outlets_from_text,
-                              prepare_outlets, read_outlet_file, sanitize_ids,
-                              snap_outlets)
+from basinkit.analysis.outlets import (locate_outlets, outlets_from_points,
+                                       outlets_from_text, prepare_outlets, read_outlet_file,
+                                       sanitize_ids, snap_outlets)
 
 
 @pytest.fixture(scope="module")
@@ -257,7 +257,7 @@ def test_huge_snap_radius_refused(flow, monkeypatch):
     """A radius of thousands of cells would need a window of ~1e8 candidates per outlet:
     refused with a message naming a workable radius (common practice, no source). The
     limit is lowered here so that a small grid shows it."""
-    import basinkit.outlets as mod
+    import basinkit.analysis.outlets as mod
 
     monkeypatch.setattr(mod, "MAX_WINDOW_CELLS", 1000)
     loc, _ = locate_outlets(flow.terrain, outlets_from_points([500005], [405]))
@@ -274,7 +274,7 @@ def test_snap_across_a_confluence_is_flagged():
     import numpy as np
 
     from basinkit import route, terrain_from_array
-    from basinkit.outlets import prepare_outlets
+    from basinkit.analysis.outlets import prepare_outlets
 
     # two parallel valleys (columns 5 and 7) joining at row 30, draining south
     nr, nc = 40, 13

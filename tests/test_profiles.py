@@ -18,10 +18,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as hst
 
 from basinkit import route, terrain_from_array
-from basinkit import profiles as P
-from basinkit.channels import extract_channels
+from basinkit.analysis import profiles as P
+from basinkit.analysis.channels import extract_channels
 from basinkit.errors import InputError, OutletError
-from basinkit.routing import FlowModel
+from basinkit.routing.flow_model import FlowModel
 
 from conftest import fractal_dem
 
@@ -418,7 +418,7 @@ def test_profile_command(tmp_path, base_model):
     import geopandas as gpd
     from click.testing import CliRunner
 
-    from basinkit.cli import cli
+    from basinkit.cli.main import cli
 
     base_model.save(tmp_path / "flow")
     outlet = int(np.nanargmax(base_model.d8_upstream_area_flat()))

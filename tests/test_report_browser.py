@@ -23,7 +23,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from basinkit.jobs import demo_job_path, read_job, run_job
+from basinkit.workflow.jobs import demo_job_path, read_job, run_job
 
 REPORT_OUTLETS = ["crossing", "main_4", "tributary_1"]
 
@@ -90,7 +90,7 @@ def _tables(res):
 def _check_cells(cells, tables):
     """Every per-outlet figure cell equals the CSV value (CSV keeps 10 significant digits)
     and its text is that value formatted as the report's table says."""
-    from basinkit.report import FIGURE_ROWS
+    from basinkit.report.html.html import FIGURE_ROWS
 
     fmt = {f"{src}:{key}": f for _, src, key, _, f in FIGURE_ROWS if src != "outlet"}
     checked = 0

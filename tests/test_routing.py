@@ -151,8 +151,9 @@ def test_parallel_and_serial_kernels_agree():
     """Large grids run the parallel versions of the kernels, small ones the serial: both
     must give identical receivers, flat masks and exit cells (determinism; common
     practice, no source)."""
-    from basinkit import _d8, _fill
-    from basinkit.conditioning import fill_depressions
+    from basinkit.routing import _d8
+    from basinkit.conditioning import _fill
+    from basinkit.conditioning.fill import fill_depressions
 
     z = fractal_dem(150, 130, seed=7, holes=3, integer=True)  # integer: many flats
     t = terrain_from_array(z)

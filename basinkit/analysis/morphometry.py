@@ -1,0 +1,555 @@
+"""Basin morphometry: network, shape and relief descriptors of catchments.
+
+Each catchment is measured on its bounding-box window only, so a table of thousands of
+catchments costs about as much as the cells they cover, not thousands of full-grid passes.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from . import _channels
+from ..errors import InputError, OutletError
+
+__all__ = ["basin_morphometry", "morphometry_table", "hypsometric_curve",
+           "write_hypsometric_curve", "ASPECT_SECTORS", "CAUTIONS"]
+
+ASPECT_SECTORS = ("n", "ne", "e", "se", "s", "sw", "w", "nw")
+HYPSOMETRIC_LEVELS = 101
+CAUTIONS = ("Morphometry is derived from a DEM: boundaries, channels and lengths are "
+            "estimates that depend on the DEM's resolution and the channel threshold. "
+            "Culverts, storm sewers and diversions are not represented unless burned in. "
+            "Verify in the field and defer to local codes and licensed professional "
+            "practice for design or permitting.")
+
+
+class _Context:
+    """Full-grid arrays shared by every catchment of a table (computed once)."""
+
+    def __init__(self, fm, network):
+        t = fm.terrain
+        self.fm = fm
+        self.network = network
+        self.nc = t.shape[1]
+        # NaN marks nodata in both (Terrain and flow folders); windows re-apply validity
+        self.z = fm.input_elevation if fm.input_elevation is not None else t.elevation
+        self.valid = t.valid
+        g = t.geometry
+        self.row_area = g.area
+        nd = g.neighbour_distances()
+        self.dx = np.ascontiguousarray(g.dx, dtype=np.float64)
+        self.dy_up = np.ascontiguousarray(nd[:, 0], dtype=np.float64)
+        self.dy_down = np.ascontiguousarray(g.dy_down, dtype=np.float64)
+        self.cell_w = abs(t.transform.a)
+        self.cell_h = abs(t.transform.e)
+        self._dl = None
+        if network is not None and network.mask.shape != t.shape:
+            raise InputError("the channel network is not on the flow model's grid")
+
+    @property
+    def downstream_length(self):
+        if self._dl is None:
+            self._dl = self.fm.downstream_length().ravel()
+        return self._dl
+
+
+def _hypsometry(z, w, levels=HYPSOMETRIC_LEVELS):
+    """Relative heights, area above each (m²) and their elevations, as arrays."""
+    h = np.linspace(0.0, 1.0, int(levels))
+    if z.size == 0:
+        return h, np.full(h.shape, np.nan), np.full(h.shape, np.nan)
+    zmin, zmax = z.min(), z.max()
+    order = np.argsort(z, kind="stable")
+    zs = z[order]
+    above = np.concatenate([np.cumsum(w[order][::-1])[::-1], [0.0]])  # area with z >= zs[i]
+    elev = zmin + h * (zmax - zmin)
+    if zmax > zmin:
+        idx = np.searchsorted(zs, elev, side="left")
+        # guard the top level against rounding: the highest cells are at relative height 1
+        idx[-1] = np.searchsorted(zs, zmax, side="left")
+        a = above[idx]
+    else:
+        a = np.full(h.shape, above[0])
+    return h, a, elev
+
+
+def _curve_frame(h, a, elev):
+    import pandas as pd
+
+    return pd.DataFrame({"relative_height": h, "relative_area_above": a / a[0],
+                         "elevation_m": elev, "area_above_m2": a})
+
+
+def hypsometric_curve(elevation, weights=None, levels: int = HYPSOMETRIC_LEVELS):
+    """Hypsometric curve (Strahler 1952): share of the basin area above each relative height.
+
+    Parameters
+    ----------
+    elevation : array of float
+        Elevations (m) of the basin's cells (NaN ignored).
+    weights : array of float, optional
+        Cell areas (m²); equal areas when omitted.
+    levels : int
+        Number of relative heights from 0 to 1.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``relative_height``, ``relative_area_above``, ``elevation_m``, ``area_above_m2``.
+
+    References
+    ----------
+    Strahler, A. N. (1952). Hypsometric (area-altitude) analysis of erosional topography.
+    GSA Bulletin 63:1117-1142.
+
+    Examples
+    --------
+    >>> from basinkit.analysis.morphometry import hypsometric_curve
+    >>> c = hypsometric_curve([0.0, 1.0, 2.0, 3.0], levels=4)
+    >>> c["relative_area_above"].tolist()
+    [1.0, 0.75, 0.5, 0.25]
+    """
+    z = np.asarray(elevation, dtype=np.float64).ravel()
+    w = np.ones_like(z) if weights is None else np.asarray(weights, np.float64).ravel()
+    ok = np.isfinite(z)
+    return _curve_frame(*_hypsometry(z[ok], w[ok], levels))
+
+
+def _regress_ratio(orders, values, sign):
+    """Horton ratio from the slope of log10(value) on order: 10**(sign * slope)."""
+    ok = np.isfinite(values) & (values > 0)
+    if ok.sum() < 2:
+        return np.nan
+    b = np.polyfit(np.asarray(orders, float)[ok], np.log10(values[ok]), 1)[0]
+    return float(10.0 ** (sign * b))
+
+
+def _network_stats(ctx, win, rows, cols, mwin, area_m2, out):
+    net = ctx.network
+    fm = ctx.fm
+    nc = ctx.nc
+    chw = net.mask[win] & mwin
+    r_i, c_i = np.nonzero(chw)
+    cells = (rows[r_i] * nc + cols[c_i]).astype(np.int64)
+    out["channel_cells"] = int(cells.size)
+    if cells.size == 0:
+        for k in ("stream_count", "total_stream_length_m", "max_strahler_order",
+                  "bifurcation_ratio", "length_ratio", "area_ratio",
+                  "drainage_density_km_per_km2", "stream_frequency_per_km2",
+                  "channel_maintenance_km2_per_km", "overland_flow_length_m"):
+            out[k] = 0 if k in ("stream_count", "total_stream_length_m",
+                                "max_strahler_order") else np.nan
+        out["drainage_density_km_per_km2"] = 0.0
+        out["stream_frequency_per_km2"] = 0.0
+        return
+    rec = fm.receiver[cells]
+    rr, rc = np.divmod(np.where(rec >= 0, rec, 0), nc)
+    inside = (rec >= 0) & (rr >= rows[0]) & (rr <= rows[-1]) & (rc >= cols[0]) & (rc <= cols[-1])
+    inside[inside] = mwin[rr[inside] - rows[0], rc[inside] - cols[0]]
+    step = np.where(inside, fm.receiver_distance()[cells], 0.0)
+    stream = net.stream_id[win][chw]
+    order = net.strahler[win][chw].astype(np.int64)
+    area = fm.d8_upstream_area_flat()[cells]
+    u, inv = np.unique(stream, return_inverse=True)
+    s_len = np.bincount(inv, weights=step, minlength=u.size)
+    s_ord = np.zeros(u.size, np.int64)
+    s_ord[inv] = order
+    s_area = np.zeros(u.size)
+    np.maximum.at(s_area, inv, area)
+    kmax = int(s_ord.max())
+    ks = np.arange(1, kmax + 1)
+    n_k = np.bincount(s_ord, minlength=kmax + 1)[1:].astype(float)
+    l_k = np.bincount(s_ord, weights=s_len, minlength=kmax + 1)[1:]
+    a_k = np.bincount(s_ord, weights=s_area, minlength=kmax + 1)[1:]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_l = l_k / n_k
+        mean_a = a_k / n_k
+    total = float(step.sum())
+    out["max_strahler_order"] = kmax
+    out["stream_count"] = int(u.size)
+    out["total_stream_length_m"] = total
+    for k in ks:
+        out[f"stream_count_order_{k}"] = int(n_k[k - 1])
+        out[f"stream_length_order_{k}_m"] = float(l_k[k - 1])
+    out["bifurcation_ratio"] = _regress_ratio(ks, n_k, -1)
+    out["length_ratio"] = _regress_ratio(ks, mean_l, 1)
+    out["area_ratio"] = _regress_ratio(ks, mean_a, 1)
+    a_km2 = area_m2 / 1e6
+    dd = (total / 1e3) / a_km2 if a_km2 > 0 else np.nan
+    out["drainage_density_km_per_km2"] = dd
+    out["stream_frequency_per_km2"] = u.size / a_km2 if a_km2 > 0 else np.nan
+    out["channel_maintenance_km2_per_km"] = 1.0 / dd if dd > 0 else np.nan
+    out["overland_flow_length_m"] = 1e3 / (2.0 * dd) if dd > 0 else np.nan
+
+
+def _farthest_vertex(fm, poly, x0, y0):
+    """Largest ground distance (m) from (x0, y0) to a vertex of the catchment polygon
+    (cell corners on its boundary): planar on projected grids, geodesic on geographic."""
+    import shapely
+
+    xy = shapely.get_coordinates(shapely.get_exterior_ring(shapely.get_parts(poly)))
+    t = fm.terrain
+    if t.crs.is_geographic:
+        from pyproj import Geod
+
+        ell = t.crs.ellipsoid
+        f = 1.0 / ell.inverse_flattening if ell.inverse_flattening else 0.0
+        n = xy.shape[0]
+        _, _, d = Geod(a=ell.semi_major_metre, f=f).inv(np.full(n, x0), np.full(n, y0),
+                                                         xy[:, 0], xy[:, 1])
+        return float(np.max(np.abs(d)))
+    from ..terrain.geometry import _linear_unit_to_metres
+
+    k = _linear_unit_to_metres(t.crs)
+    return float(np.max(np.hypot(xy[:, 0] - x0, xy[:, 1] - y0)) * k)
+
+
+def _percentiles(v, qs):
+    """Linear-interpolation percentiles of a 1-D array (numpy's default rule)."""
+    s = np.sort(v)
+    pos = np.asarray(qs, dtype=float) / 100.0 * (s.size - 1)
+    lo = np.floor(pos).astype(np.int64)
+    hi = np.minimum(lo + 1, s.size - 1)
+    return s[lo] + (s[hi] - s[lo]) * (pos - lo)
+
+
+def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve, poly=None):
+    from affine import Affine
+
+    from .polygons import ground_area_perimeter, mask_to_polygon
+
+    fm = ctx.fm
+    t = fm.terrain
+    nc = ctx.nc
+    win = (slice(r0, r1 + 1), slice(c0, c1 + 1))
+    rows = np.arange(r0, r1 + 1)
+    cols = np.arange(c0, c1 + 1)
+    mwin = mwin & ctx.valid[win]  # nodata cells are never part of a catchment
+    outlet = int(outlet)
+    orow, ocol = divmod(outlet, nc)
+    if not (r0 <= orow <= r1 and c0 <= ocol <= c1 and mwin[orow - r0, ocol - c0]):
+        raise OutletError(f"the outlet cell (row {orow}, col {ocol}) is not inside its "
+                          "catchment; give the outlet the catchment was delineated from")
+    cell_area = np.broadcast_to(ctx.row_area[rows][:, None], mwin.shape)
+    am = cell_area[mwin]
+    area = float(am.sum())
+    ox, oy = t.xy_of(orow, ocol)
+    out = {"outlet_x": float(ox), "outlet_y": float(oy), "outlet_row": orow,
+           "outlet_col": ocol, "cell_count": int(mwin.sum()), "area_m2": area,
+           "area_km2": area / 1e6}
+    # ---- shape
+    if poly is None:
+        poly = mask_to_polygon(mwin, t.transform @ Affine.translation(c0, r0))
+    _, p_edges = ground_area_perimeter(poly, t.crs)
+    smooth = poly.simplify(max(ctx.cell_w, ctx.cell_h), preserve_topology=True)
+    _, perim = ground_area_perimeter(smooth, t.crs)
+    out["perimeter_m"] = perim
+    out["perimeter_cell_edges_m"] = p_edges
+    ri, ci = np.nonzero(mwin)
+    cells = (rows[ri] * nc + cols[ci]).astype(np.int64)
+    dl = ctx.downstream_length
+    out["longest_flow_path_m"] = float(dl[cells].max() - dl[outlet])
+    lstraight = _farthest_vertex(fm, poly, ox, oy)
+    out["basin_length_straight_m"] = lstraight
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out["elongation_ratio"] = (2.0 * math.sqrt(area / math.pi) / lstraight
+                                   if lstraight > 0 else np.nan)
+        out["circularity_ratio"] = 4.0 * math.pi * area / perim ** 2 if perim > 0 else np.nan
+        out["form_factor"] = area / lstraight ** 2 if lstraight > 0 else np.nan
+        out["compactness_coefficient"] = (perim / (2.0 * math.sqrt(math.pi * area))
+                                          if area > 0 else np.nan)
+    # ---- relief
+    zw = ctx.z[win]
+    zm = zw[mwin]
+    ok = np.isfinite(zm)
+    zmin = float(zm[ok].min())
+    zmax = float(zm[ok].max())
+    zmean = float(np.sum(zm[ok] * am[ok]) / am[ok].sum())
+    relief = zmax - zmin
+    zo = float(ctx.z[orow, ocol])
+    out.update(outlet_elevation_m=zo, min_elevation_m=zmin,
+               max_elevation_m=zmax, mean_elevation_m=zmean, relief_m=relief)
+    out["relief_ratio"] = relief / lstraight if lstraight > 0 else np.nan
+    out["melton_ruggedness"] = relief / math.sqrt(area) if area > 0 else np.nan
+    h, a_above, elev = _hypsometry(zm[ok].astype(np.float64), am[ok])
+    hi = float(np.trapezoid(a_above / a_above[0], h))
+    curve = _curve_frame(h, a_above, elev) if want_curve else None
+    out["hypsometric_integral"] = hi if relief > 0 else np.nan
+    out["elevation_relief_ratio"] = (zmean - zmin) / relief if relief > 0 else np.nan
+    # ---- slope and aspect (Horn 1981) on the window padded by one cell
+    pr0, pr1 = max(r0 - 1, 0), min(r1 + 1, t.shape[0] - 1)
+    pc0, pc1 = max(c0 - 1, 0), min(c1 + 1, t.shape[1] - 1)
+    zp = np.where(ctx.valid[pr0:pr1 + 1, pc0:pc1 + 1], ctx.z[pr0:pr1 + 1, pc0:pc1 + 1],
+                  np.nan).astype(np.float64)
+    s, asp = _channels.horn_slope_aspect(zp, ctx.dx[pr0:pr1 + 1], ctx.dy_up[pr0:pr1 + 1],
+                                         ctx.dy_down[pr0:pr1 + 1])
+    inner = (slice(r0 - pr0, r0 - pr0 + mwin.shape[0]),
+             slice(c0 - pc0, c0 - pc0 + mwin.shape[1]))
+    sm = s[inner][mwin]
+    good = np.isfinite(sm)
+    sw, aw = sm[good], am[good]
+    if sw.size:
+        out["mean_slope_m_per_m"] = float(np.sum(sw * aw) / aw.sum())
+        out["mean_slope_deg"] = float(np.degrees(np.arctan(out["mean_slope_m_per_m"])))
+        p10, p50, p90 = _percentiles(sw, [10, 50, 90])
+        out["median_slope_m_per_m"] = float(p50)
+        out["slope_std_m_per_m"] = float(np.std(sw))
+        out["slope_p10_m_per_m"] = float(p10)
+        out["slope_p90_m_per_m"] = float(p90)
+        out["max_slope_m_per_m"] = float(sw.max())
+    am_asp = asp[inner][mwin][good]
+    flat = ~np.isfinite(am_asp)
+    sector = np.floor(((np.where(flat, 0.0, am_asp) + 22.5) % 360.0) / 45.0).astype(np.int64)
+    tot = aw.sum()
+    fr = np.bincount(sector[~flat], weights=aw[~flat], minlength=8) / tot if tot else np.zeros(8)
+    for k, name in enumerate(ASPECT_SECTORS):
+        out[f"aspect_{name}_fraction"] = float(fr[k])
+    out["flat_fraction"] = float(aw[flat].sum() / tot) if tot else np.nan
+    # ---- network
+    if ctx.network is not None:
+        out["channel_min_area_m2"] = float(ctx.network.min_area_m2)
+        _network_stats(ctx, win, rows, cols, mwin, area, out)
+    return out, curve
+
+
+def basin_morphometry(fm, mask, outlet_cell, network=None, return_curve=False):
+    """Network, shape and relief descriptors of one catchment.
+
+    Parameters
+    ----------
+    fm : FlowModel
+    mask : ndarray of bool (nrows, ncols)
+        The catchment's cells (e.g. ``fm.upstream_mask(cell)``).
+    outlet_cell : int
+        Flat index of the outlet (inside ``mask``).
+    network : ChannelNetwork, optional
+        From :func:`basinkit.analysis.channels.extract_channels`; without it the network keys are
+        left out.
+    return_curve : bool
+        Also return the hypsometric curve (pandas.DataFrame).
+
+    Returns
+    -------
+    dict
+        Every key names its unit (dimensionless ratios have none). Shape:
+        ``area_km2``, ``perimeter_m`` (cell-boundary polygon simplified by one cell width,
+        Douglas & Peucker 1973, which removes the raster staircase),
+        ``perimeter_cell_edges_m``, ``longest_flow_path_m`` (D8, Hack 1957),
+        ``basin_length_straight_m`` (farthest boundary corner from the outlet centre),
+        ``elongation_ratio`` = 2√(A/π)/L (Schumm 1956), ``circularity_ratio`` = 4πA/P²
+        (Miller 1953), ``form_factor`` = A/L² (Horton 1932), ``compactness_coefficient`` =
+        P/(2√(πA)) (Gravelius 1914), all with L the straight basin length. Relief:
+        ``relief_m`` (highest minus lowest cell), ``relief_ratio`` = relief/L (Schumm 1956),
+        ``melton_ruggedness`` = relief/√A (Melton 1965), ``hypsometric_integral`` (area
+        under the hypsometric curve, Strahler 1952) and ``elevation_relief_ratio`` =
+        (mean − min)/(max − min) (Pike & Wilson 1971), slope statistics
+        ``*_slope_m_per_m`` (Horn 1981 with true per-row cell sizes, area weighted mean),
+        ``aspect_<sector>_fraction`` (share of the non-flat area facing each of 8 sectors
+        centred on N, NE, ...). Network (with ``network``): ``stream_count`` and
+        ``stream_count_order_k``, ``total_stream_length_m`` and ``stream_length_order_k_m``,
+        ``bifurcation_ratio``, ``length_ratio``, ``area_ratio`` (Horton ratios from the
+        least-squares slope of log10 count, mean length and mean area on order; Horton
+        1945, Strahler 1957), ``drainage_density_km_per_km2`` = ΣL/A (Horton 1945),
+        ``stream_frequency_per_km2`` (Strahler streams per km²),
+        ``channel_maintenance_km2_per_km`` = 1/D_d (Schumm 1956),
+        ``overland_flow_length_m`` = 1/(2 D_d) (Horton 1945).
+
+    Notes
+    -----
+    Relief, hypsometry and slope use the DEM as read (before conditioning) when the flow
+    model has it. Only the part of each stream inside the catchment counts (the stream
+    at the outlet is cut there). Stream lengths are D8 paths between cell centres, so
+    they run longer than the true channel on diagonal-rich networks.
+
+    References
+    ----------
+    Horton, R. E. (1932). Drainage-basin characteristics. Transactions AGU 13:350-361.
+    Horton, R. E. (1945). Erosional development of streams and their drainage basins.
+    Geological Society of America Bulletin 56:275-370.
+    Miller, V. C. (1953). A quantitative geomorphic study of drainage basin characteristics
+    in the Clinch Mountain area. Technical Report 3, Columbia University.
+    Schumm, S. A. (1956). Evolution of drainage systems and slopes in badlands at Perth
+    Amboy, New Jersey. GSA Bulletin 67:597-646.
+    Strahler, A. N. (1952). Hypsometric (area-altitude) analysis of erosional topography.
+    GSA Bulletin 63:1117-1142.
+    Strahler, A. N. (1957). Quantitative analysis of watershed geomorphology. Transactions
+    AGU 38:913-920.
+    Melton, M. A. (1965). The geomorphic and paleoclimatic significance of alluvial deposits
+    in southern Arizona. Journal of Geology 73:1-38.
+    Pike, R. J., Wilson, S. E. (1971). Elevation-relief ratio, hypsometric integral and
+    geomorphic area-altitude analysis. GSA Bulletin 82:1079-1084.
+    Gravelius, H. (1914). Flusskunde. Göschen, Berlin.
+    Horn, B. K. P. (1981). Hill shading and the reflectance map. Proceedings of the IEEE
+    69:14-47.
+    Douglas, D. H., Peucker, T. K. (1973). Algorithms for the reduction of the number of
+    points required to represent a digitized line. Cartographica 10:112-122.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> from basinkit.analysis.morphometry import basin_morphometry
+    >>> z = np.add.outer(np.arange(20.0, 0, -1), np.zeros(10))  # a plane sloping south
+    >>> fm = route(terrain_from_array(z, cellsize=10))
+    >>> outlet = 19 * 10 + 5
+    >>> m = basin_morphometry(fm, fm.upstream_mask(outlet), outlet)
+    >>> round(m["hypsometric_integral"], 2), m["cell_count"]
+    (0.5, 20)
+    """
+    mask = np.asarray(mask, dtype=bool)
+    if mask.shape != fm.shape:
+        raise InputError(f"the catchment mask has shape {mask.shape}, the grid {fm.shape}")
+    rr, cc = np.nonzero(mask)
+    if rr.size == 0:
+        raise InputError("the catchment mask is empty")
+    ctx = _Context(fm, network)
+    r0, r1, c0, c1 = rr.min(), rr.max(), cc.min(), cc.max()
+    out, curve = _measure(ctx, r0, r1, c0, c1, mask[r0:r1 + 1, c0:c1 + 1], outlet_cell, True)
+    return (out, curve) if return_curve else out
+
+
+def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
+                      return_curves=False):
+    """Morphometry of many catchments, one row each (see :func:`basin_morphometry`).
+
+    Parameters
+    ----------
+    fm : FlowModel
+    masks_or_labels : ndarray of int (nrows, ncols) or sequence of bool masks
+        A label grid (catchment ``ids[i]`` = cells labelled ``ids[i]``, as from
+        ``fm.label_outlets``), or one boolean grid per catchment.
+    outlet_cells : array of int
+        Flat outlet cell of each catchment.
+    ids : array of int, optional
+        Catchment ids; with a label grid, the labels (default 1, 2, ...).
+    network : ChannelNetwork, optional
+    return_curves : bool
+        Also return ``{id: hypsometric curve DataFrame}``.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Column ``catchment_id`` then the keys of :func:`basin_morphometry`; a catchment that
+        cannot be measured gets its message in ``error`` and NaN elsewhere (the batch
+        carries on).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> from basinkit.analysis.morphometry import morphometry_table
+    >>> z = np.add.outer(np.arange(20.0, 0, -1), np.zeros(10))  # a plane sloping south
+    >>> fm = route(terrain_from_array(z, cellsize=10))
+    >>> outlets = [19 * 10 + 2, 19 * 10 + 7]  # two cells of the southern row
+    >>> tab = morphometry_table(fm, fm.label_outlets(outlets), outlets)
+    >>> tab["area_m2"].tolist(), tab["error"].tolist()
+    ([2000.0, 2000.0], ['', ''])
+    """
+    import pandas as pd
+
+    outlets = np.asarray(outlet_cells, dtype=np.int64).ravel()
+    n = outlets.size
+    ids = np.arange(1, n + 1) if ids is None else np.asarray(ids).ravel()
+    if ids.size != n:
+        raise InputError(f"{ids.size} catchment ids for {n} outlets")
+    ctx = _Context(fm, network)
+    rows, curves = [], {}
+    labels = None
+    polys = {}
+    if isinstance(masks_or_labels, np.ndarray) and masks_or_labels.ndim == 2 \
+            and masks_or_labels.dtype.kind in "iu":
+        labels = masks_or_labels
+        if labels.shape != fm.shape:
+            raise InputError(f"the label grid has shape {labels.shape}, the grid {fm.shape}")
+        nlab = int(max(ids.max() if n else 0, 0)) + 1
+        lab32 = labels if labels.dtype == np.int32 else labels.astype(np.int64)
+        rmin, rmax, cmin, cmax = _channels.label_bounding_boxes(lab32, nlab)
+        # polygons: one polygonize of the whole label grid beats one call per window
+        # once there are many catchments (a call costs about as much as ~25 000 cells)
+        if n * 25_000 > labels.size:
+            from .polygons import labels_to_polygons
+
+            wanted = [int(i) for i in ids if 0 < int(i) < nlab]
+            polys = labels_to_polygons(lab32, fm.terrain.transform, ids=wanted)
+    else:
+        masks = list(masks_or_labels)
+        if len(masks) != n:
+            raise InputError(f"{len(masks)} catchment masks for {n} outlets")
+    import rasterio
+
+    with rasterio.Env():  # one GDAL environment for every polygon of the batch
+        for i in range(n):
+            cid = ids[i]
+            rec = {"catchment_id": cid.item() if hasattr(cid, "item") else cid}
+            try:
+                if labels is not None:
+                    if cid <= 0 or rmin[cid] > rmax[cid]:
+                        raise InputError(f"catchment {cid} has no cells in the label grid")
+                    r0, r1, c0, c1 = rmin[cid], rmax[cid], cmin[cid], cmax[cid]
+                    mwin = labels[r0:r1 + 1, c0:c1 + 1] == cid
+                else:
+                    m = np.asarray(masks[i], dtype=bool)
+                    if m.shape != fm.shape:
+                        raise InputError(f"mask {i} has shape {m.shape}, the grid {fm.shape}")
+                    rr = np.flatnonzero(m.any(axis=1))
+                    cc = np.flatnonzero(m.any(axis=0))
+                    if rr.size == 0:
+                        raise InputError(f"catchment {cid} is empty")
+                    r0, r1, c0, c1 = rr[0], rr[-1], cc[0], cc[-1]
+                    mwin = m[r0:r1 + 1, c0:c1 + 1]
+                out, curve = _measure(ctx, r0, r1, c0, c1, mwin, outlets[i], return_curves,
+                                      polys.get(int(cid)) if labels is not None else None)
+                rec.update(out)
+                rec["error"] = ""
+                if return_curves:
+                    curves[rec["catchment_id"]] = curve
+            except (InputError, OutletError) as exc:
+                rec["error"] = str(exc)
+            rows.append(rec)
+    table = pd.DataFrame(rows)
+    # per-order columns last, in order
+    order_cols = sorted([c for c in table.columns if "_order_" in c],
+                        key=lambda c: (c.split("_order_")[0],
+                                       int(c.split("_order_")[1].split("_")[0])))
+    other = [c for c in table.columns if c not in order_cols and c != "error"]
+    table = table[other + order_cols + ["error"]]
+    return (table, curves) if return_curves else table
+
+
+def write_hypsometric_curve(curve, csv_path, png_path=None, label="catchment",
+                            integral=None):
+    """Write a hypsometric curve as CSV and (optionally) a PNG figure.
+
+    The figure plots relative height h/H against relative area a/A (Strahler 1952) with
+    labelled axes and the integral in the legend.
+    """
+    from ..io.writers import atomic_path, write_csv
+
+    frame = curve.copy()
+    frame["area_above_km2"] = frame.pop("area_above_m2") / 1e6
+    write_csv(csv_path, frame)
+    if png_path is None:
+        return
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(5, 4.5), dpi=100)
+    text = f"{label}" + (f" (integral {integral:.3f})" if integral is not None
+                         and np.isfinite(integral) else "")
+    ax.plot(curve["relative_area_above"], curve["relative_height"], lw=2, label=text)
+    ax.plot([0, 1], [1, 0], ls=":", lw=1, color="0.5", label="integral 0.5 (reference)")
+    ax.set_xlabel("relative area above, a/A (–)")
+    ax.set_ylabel("relative height, h/H (–)")
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1)
+    ax.set_title("Hypsometric curve")
+    ax.legend(loc="upper right", fontsize=8)
+    ax.grid(alpha=0.3)
+    fig.tight_layout()
+    with atomic_path(png_path) as tmp:
+        fig.savefig(tmp, format="png", metadata={"Software": "basinkit"})
+    plt.close(fig)

@@ -1,0 +1,593 @@
+"""Outlets: reading points, placing them on the grid and snapping them to the flow network.
+
+An outlet table is a pandas DataFrame with one row per outlet. Outlets that cannot be used
+(unparseable or missing coordinates, duplicate id, outside the grid, on nodata, no channel
+within reach) are moved to an *errors* table with the reason; the rest carry on.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError, OutletError
+
+__all__ = ["outlets_from_text", "outlets_from_points", "read_outlet_file", "locate_outlets",
+           "snap_outlets", "prepare_outlets", "sanitize_ids", "ERROR_COLUMNS"]
+
+ERROR_COLUMNS = ["outlet_id", "source", "x_given", "y_given", "reason"]
+RAW_COLUMNS = ["outlet_id", "source", "x_given", "y_given", "given_crs"]
+
+# snapping warnings (common practice, no source): a snap longer than half the search radius
+# (and more than five cells), or an upstream area 10x that of the cell the point fell in
+LONG_SNAP_FRACTION = 0.5
+LONG_SNAP_CELLS = 5.0
+AREA_JUMP_FACTOR = 10.0
+# a point already on a drainage line (>= 100 cells) whose snap changes the area by > 1.5x
+# has probably moved across a confluence: the catchment is then not the one asked for
+ON_CHANNEL_CELLS = 100
+CONFLUENCE_FACTOR = 1.5
+DEFAULT_RADIUS_CELLS = 3
+DEFAULT_CHANNEL_RADIUS_CELLS = 10
+MAX_WINDOW_CELLS = 4_000_000  # candidate cells per outlet (a radius of ~1000 cells)
+
+_ID_COLUMNS = ("outlet_id", "id", "name", "outlet", "site", "station", "gauge")
+_XY_COLUMNS = (("x", "y"), ("easting", "northing"), ("east", "north"))
+_LONLAT_COLUMNS = (("lon", "lat"), ("longitude", "latitude"), ("lng", "lat"),
+                   ("long", "lat"))
+_WINDOWS_RESERVED = {"con", "prn", "aux", "nul", *(f"com{i}" for i in range(1, 10)),
+                     *(f"lpt{i}" for i in range(1, 10))}
+
+
+def _errors_frame(rows=()):
+    return pd.DataFrame(list(rows), columns=ERROR_COLUMNS)
+
+
+def _raw_frame(rows):
+    f = pd.DataFrame(list(rows), columns=RAW_COLUMNS)
+    f["x_given"] = f["x_given"].astype(float)
+    f["y_given"] = f["y_given"].astype(float)
+    f["outlet_id"] = f["outlet_id"].astype(str)
+    return f
+
+
+def _to_float(text):
+    try:
+        return float(str(text).strip())
+    except (TypeError, ValueError):
+        return None
+
+
+def outlets_from_text(values, crs=None, first_number=1):
+    """Outlets from command-line values ``"X,Y"`` or ``"NAME=X,Y"``.
+
+    Parameters
+    ----------
+    values : iterable of str
+    crs : str or pyproj.CRS, optional
+        CRS of the coordinates (None: the DEM's, decided later).
+    first_number : int
+        Unnamed outlets get ids ``outlet_<n>`` counting from here.
+
+    Returns
+    -------
+    (DataFrame, DataFrame)
+        The outlets (``outlet_id, source, x_given, y_given, given_crs``) and the errors
+        (``outlet_id, source, x_given, y_given, reason``).
+    """
+    rows, errs = [], []
+    for n, text in enumerate(values, start=first_number):
+        s = str(text).strip()
+        oid = f"outlet_{n}"
+        if "=" in s:
+            name, s = s.split("=", 1)
+            oid = name.strip() or oid
+        parts = [p for p in re.split(r"[,;\s]+", s.strip()) if p]
+        src = f"--outlet {text}"
+        if len(parts) != 2:
+            errs.append((oid, src, np.nan, np.nan,
+                         f"cannot read {text!r} as X,Y (two numbers separated by a comma)"))
+            continue
+        x, y = _to_float(parts[0]), _to_float(parts[1])
+        if x is None or y is None:
+            errs.append((oid, src, np.nan, np.nan,
+                         f"cannot read the coordinates in {text!r} as numbers"))
+            continue
+        rows.append((oid, src, x, y, None if crs is None else str(crs)))
+    return _raw_frame(rows), _errors_frame(errs)
+
+
+def outlets_from_points(x, y, ids=None, crs=None, source="points"):
+    """Outlets from coordinate arrays (Python API).
+
+    Parameters
+    ----------
+    x, y : array_like of float
+    ids : sequence of str, optional
+        Defaults to ``outlet_1, outlet_2, ...``.
+    crs : optional
+        CRS of the coordinates (None: the DEM's).
+
+    Returns
+    -------
+    DataFrame
+        Columns ``outlet_id, source, x_given, y_given, given_crs``.
+    """
+    x = np.atleast_1d(np.asarray(x, dtype=float))
+    y = np.atleast_1d(np.asarray(y, dtype=float))
+    if x.shape != y.shape:
+        raise InputError(f"x and y hold {x.size} and {y.size} values; give one pair per "
+                         "outlet")
+    if ids is None:
+        ids = [f"outlet_{i + 1}" for i in range(x.size)]
+    ids = [str(i) for i in ids]
+    if len(ids) != x.size:
+        raise InputError(f"{len(ids)} ids for {x.size} outlets")
+    return _raw_frame(zip(ids, [f"{source} {i + 1}" for i in range(x.size)], x, y,
+                          [None if crs is None else str(crs)] * x.size))
+
+
+def _find_column(columns, names):
+    low = {str(c).strip().lower(): c for c in columns}
+    for n in names:
+        if n in low:
+            return low[n]
+    return None
+
+
+def read_outlet_file(path, crs=None, id_column=None):
+    """Read outlets from a CSV table or a point layer (GeoJSON, GeoPackage, ...).
+
+    Parameters
+    ----------
+    path : str or Path
+        CSV: an id column (``outlet_id``, ``id``, ``name``, ...; else the row number) and
+        ``x``/``y`` (also ``easting``/``northing``) or ``lon``/``lat`` columns. Vector
+        files: point features in the layer's own CRS.
+    crs : optional
+        CRS of CSV coordinates. Default: the DEM's CRS for x/y columns, EPSG:4326 for
+        lon/lat columns. Ignored for vector files that declare their CRS.
+    id_column : str, optional
+        Column holding the outlet ids.
+
+    Returns
+    -------
+    (DataFrame, DataFrame)
+        Outlets and errors, as :func:`outlets_from_text`.
+    """
+    p = Path(path)
+    if not p.exists():
+        raise InputError(f"the outlet file {str(p)!r} does not exist")
+    if p.suffix.lower() in (".csv", ".txt", ".tsv"):
+        return _read_csv(p, crs, id_column)
+    return _read_vector(p, crs, id_column)
+
+
+def _read_csv(p, crs, id_column):
+    try:
+        df = pd.read_csv(p, dtype=str, keep_default_na=False,
+                         sep="\t" if p.suffix.lower() == ".tsv" else None, engine="python")
+    except Exception as exc:  # pandas raises several kinds for malformed tables
+        raise InputError(f"cannot read the outlet table {str(p)!r}: {exc}") from None
+    cols = list(df.columns)
+    idc = id_column if id_column is not None else _find_column(cols, _ID_COLUMNS)
+    if id_column is not None and id_column not in cols:
+        raise InputError(f"the outlet table {p.name!r} has no column {id_column!r}; its "
+                         f"columns are {', '.join(map(str, cols))}")
+    xc = yc = None
+    lonlat = False
+    for a, b in _XY_COLUMNS:
+        xc, yc = _find_column(cols, (a,)), _find_column(cols, (b,))
+        if xc is not None and yc is not None:
+            break
+    else:
+        for a, b in _LONLAT_COLUMNS:
+            xc, yc = _find_column(cols, (a,)), _find_column(cols, (b,))
+            if xc is not None and yc is not None:
+                lonlat = True
+                break
+    if xc is None or yc is None:
+        raise InputError(f"the outlet table {p.name!r} needs x and y (or lon and lat) "
+                         f"columns; its columns are {', '.join(map(str, cols))}")
+    given_crs = str(crs) if crs is not None else ("EPSG:4326" if lonlat else None)
+    rows, errs = [], []
+    for i, rec in enumerate(df.itertuples(index=False), start=2):
+        vals = dict(zip(cols, rec))
+        oid = str(vals[idc]).strip() if idc is not None else ""
+        oid = oid or f"{p.stem}_{i - 1}"
+        src = f"{p.name} line {i}"
+        xs, ys = str(vals[xc]).strip(), str(vals[yc]).strip()
+        x, y = _to_float(xs), _to_float(ys)
+        if x is None or y is None:
+            bad = xs if x is None else ys
+            reason = ("missing coordinate" if bad == "" else
+                      f"cannot read the coordinate {bad!r} as a number")
+            errs.append((oid, src, np.nan if x is None else x, np.nan if y is None else y,
+                         reason))
+            continue
+        rows.append((oid, src, x, y, given_crs))
+    return _raw_frame(rows), _errors_frame(errs)
+
+
+def _read_vector(p, crs, id_column):
+    import geopandas as gpd
+
+    try:
+        gdf = gpd.read_file(p)
+    except Exception as exc:  # pyogrio raises its own error classes
+        raise InputError(f"cannot read the outlet layer {str(p)!r}: {exc}") from None
+    cols = [c for c in gdf.columns if c != gdf.geometry.name]
+    idc = id_column if id_column is not None else _find_column(cols, _ID_COLUMNS)
+    if id_column is not None and id_column not in cols:
+        raise InputError(f"the outlet layer {p.name!r} has no column {id_column!r}")
+    if gdf.crs is not None:
+        given_crs = gdf.crs.to_string()
+    elif p.suffix.lower() in (".geojson", ".json"):
+        given_crs = "EPSG:4326"  # RFC 7946: GeoJSON coordinates are WGS 84 lon/lat
+    else:
+        given_crs = None if crs is None else str(crs)
+    rows, errs = [], []
+    for i, (geom, rec) in enumerate(zip(gdf.geometry, gdf[cols].itertuples(index=False))):
+        vals = dict(zip(cols, rec))
+        oid = str(vals[idc]).strip() if idc is not None and vals[idc] is not None else ""
+        oid = oid or f"{p.stem}_{i + 1}"
+        src = f"{p.name} feature {i + 1}"
+        if geom is None or geom.is_empty:
+            errs.append((oid, src, np.nan, np.nan, "feature without geometry"))
+            continue
+        if geom.geom_type != "Point":
+            errs.append((oid, src, np.nan, np.nan,
+                         f"outlets must be points, this feature is a {geom.geom_type}"))
+            continue
+        rows.append((oid, src, float(geom.x), float(geom.y), given_crs))
+    return _raw_frame(rows), _errors_frame(errs)
+
+
+def sanitize_ids(ids):
+    """File-name-safe, unique versions of outlet ids.
+
+    Accented letters lose their accents (NFKD); characters other than ASCII letters,
+    digits, ``.``, ``-`` and ``_`` become ``_``; leading
+    dots and separators are dropped (no hidden files, no ``..``, no path separators);
+    reserved device names get a leading ``_``; names are cut to 80 characters. Ids that
+    end up equal (ignoring case, for case-insensitive file systems) get ``_2``, ``_3``, ...
+
+    Parameters
+    ----------
+    ids : iterable of str
+
+    Returns
+    -------
+    list of str
+
+    Examples
+    --------
+    >>> sanitize_ids(["../etc/passwd", "a b", "A_B", "", "Zürich Süd"])
+    ['etc_passwd', 'a_b', 'A_B_2', 'outlet', 'Zurich_Sud']
+    """
+    import unicodedata
+
+    out, seen = [], set()
+    for raw in ids:
+        s = unicodedata.normalize("NFKD", str(raw)).encode("ascii", "ignore").decode()
+        s = re.sub(r"[^A-Za-z0-9._-]+", "_", s)
+        s = re.sub(r"_+", "_", s)
+        s = s.lstrip("._-").rstrip("._ ")
+        s = re.sub(r"\.{2,}", ".", s)[:80] or "outlet"
+        if s.split(".")[0].lower() in _WINDOWS_RESERVED:
+            s = "_" + s
+        cand, k = s, 2
+        while cand.lower() in seen:
+            cand = f"{s}_{k}"
+            k += 1
+        seen.add(cand.lower())
+        out.append(cand)
+    return out
+
+
+def _transformer(src, dst):
+    from pyproj import CRS, Transformer
+    from pyproj.exceptions import CRSError
+
+    try:
+        s = CRS.from_user_input(src)
+    except CRSError as exc:
+        raise InputError(f"cannot understand the outlet CRS {src!r}: {exc}") from None
+    if s == dst:
+        return None
+    return Transformer.from_crs(s, dst, always_xy=True)
+
+
+def locate_outlets(terrain, raw, crs=None):
+    """Reproject outlets to the DEM's CRS and find the cell each falls in.
+
+    Parameters
+    ----------
+    terrain : Terrain
+    raw : DataFrame
+        As returned by :func:`read_outlet_file`, :func:`outlets_from_text` or
+        :func:`outlets_from_points`.
+    crs : optional
+        CRS of rows whose ``given_crs`` is empty (default: the DEM's).
+
+    Returns
+    -------
+    (DataFrame, DataFrame)
+        Outlets with ``x, y`` (DEM CRS), ``row_given, col_given, cell_given`` added, and the
+        errors (NaN coordinates, duplicate ids, outside the grid, on nodata).
+    """
+    f = raw.copy().reset_index(drop=True)
+    f["given_crs"] = f["given_crs"].where(f["given_crs"].notna(),
+                                          None if crs is None else str(crs))
+    f["x"] = np.nan
+    f["y"] = np.nan
+    for g, idx in f.groupby(f["given_crs"].fillna(""), sort=True).groups.items():
+        idx = np.asarray(idx)
+        xs = f.loc[idx, "x_given"].to_numpy(float)
+        ys = f.loc[idx, "y_given"].to_numpy(float)
+        tr = _transformer(g, terrain.crs) if g else None
+        if tr is not None:
+            with np.errstate(invalid="ignore"):
+                xs, ys = tr.transform(xs, ys, errcheck=False)
+        f.loc[idx, "x"] = xs
+        f.loc[idx, "y"] = ys
+    reason = pd.Series([None] * len(f), dtype=object)
+    finite = (np.isfinite(f["x_given"]) & np.isfinite(f["y_given"])).to_numpy()
+    reason[~finite] = "coordinate is NaN or infinite"
+    proj_ok = (np.isfinite(f["x"]) & np.isfinite(f["y"])).to_numpy()
+    reason[finite & ~proj_ok] = "cannot reproject the point to the DEM's CRS"
+    dup = f["outlet_id"].duplicated(keep="first").to_numpy()
+    reason[dup & reason.isna().to_numpy()] = "duplicate id (an earlier outlet has the same id)"
+    nr, nc = terrain.shape
+    ok = reason.isna().to_numpy().copy()
+    row = np.full(len(f), -1, dtype=np.int64)
+    col = np.full(len(f), -1, dtype=np.int64)
+    if ok.any():
+        r, c = terrain.rowcol_of(f["x"].to_numpy()[ok], f["y"].to_numpy()[ok])
+        row[ok], col[ok] = r, c
+    inside = (row >= 0) & (row < nr) & (col >= 0) & (col < nc)
+    reason[ok & ~inside] = "outside the grid (check the coordinates and --outlet-crs)"
+    ok &= inside
+    cell = np.where(ok, row * nc + col, -1)
+    onvalid = np.zeros(len(f), bool)
+    onvalid[ok] = terrain.valid.ravel()[cell[ok]]
+    reason[ok & ~onvalid] = "on a nodata cell of the DEM"
+    ok &= onvalid
+    f["row_given"], f["col_given"], f["cell_given"] = row, col, cell
+    errs = f.loc[~ok, ["outlet_id", "source", "x_given", "y_given"]].copy()
+    errs["reason"] = reason[~ok].to_numpy()
+    return f.loc[ok].reset_index(drop=True), errs[ERROR_COLUMNS].reset_index(drop=True)
+
+
+def _metres_per_unit(crs):
+    from ..terrain.geometry import _linear_unit_to_metres
+
+    return _linear_unit_to_metres(crs)
+
+
+def _distances(terrain, x, y, cells):
+    """Ground distance (m) from points (x, y) (DEM CRS) to the centres of ``cells``."""
+    nc = terrain.shape[1]
+    xc, yc = terrain.xy_of(cells // nc, cells % nc)
+    if terrain.crs.is_geographic:
+        from pyproj import Geod
+
+        ell = terrain.crs.ellipsoid
+        f = 1.0 / ell.inverse_flattening if ell.inverse_flattening else 0.0
+        _, _, d = Geod(a=ell.semi_major_metre, f=f).inv(
+            np.broadcast_to(x, np.shape(xc)).ravel(), np.broadcast_to(y, np.shape(yc)).ravel(),
+            np.ravel(xc), np.ravel(yc))
+        return np.abs(np.asarray(d)).reshape(np.shape(xc))
+    k = _metres_per_unit(terrain.crs)
+    return np.hypot((xc - x) * k, (yc - y) * k)
+
+
+def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
+    """Snap outlets to the flow network, vectorised over all outlets.
+
+    Two modes:
+
+    - greatest upstream area (default): the outlet moves to the cell of greatest D8
+      upstream area whose centre lies within ``radius_m`` of the given point (the cell the
+      point falls in is always a candidate); ties go to the nearest cell, then the lowest
+      cell index.
+    - nearest channel (``channel_area_m2`` given): the outlet moves to the nearest cell
+      (centre within ``radius_m``) whose upstream area is at least ``channel_area_m2``;
+      outlets with no such cell go to the errors table.
+
+    Parameters
+    ----------
+    fm : FlowModel
+    located : DataFrame
+        As returned by :func:`locate_outlets`.
+    radius_m : float, optional
+        Search radius on the ground in metres. Default: 3 cells (10 in channel mode), the
+        cell size taken as the larger side of a cell in the grid's middle row. 0 keeps
+        every outlet on its own cell.
+    channel_area_m2 : float, optional
+        Minimum upstream area of a channel cell (m²).
+
+    Returns
+    -------
+    (DataFrame, DataFrame)
+        Outlets with ``row, col, cell, x_snapped, y_snapped, snap_distance_m,
+        upstream_area_m2, upstream_area_given_cell_m2, snap_warning`` added; errors.
+
+    Notes
+    -----
+    Distances are planar in metres on projected grids and geodesic (Karney 2013, through
+    pyproj) on geographic grids. The warnings (a snap longer than half the radius and five
+    cells; an upstream area at least 10 times the area at the given cell, which suggests a
+    different branch) are common practice (no source).
+    """
+    t = fm.terrain
+    nr, nc = t.shape
+    g = t.geometry
+    mid = nr // 2
+    cell_m = float(max(g.dx[mid], g.dy_down[mid]))
+    cell_area = float(g.area[mid])
+    channel = channel_area_m2 is not None
+    if radius_m is None:
+        radius_m = (DEFAULT_CHANNEL_RADIUS_CELLS if channel else DEFAULT_RADIUS_CELLS) * cell_m
+    radius_m = float(radius_m)
+    if not radius_m >= 0 or not math.isfinite(radius_m):
+        raise InputError(f"the snap radius must be a finite length >= 0, got {radius_m}")
+    area = fm.d8_upstream_area_flat()
+    valid = t.valid.ravel()
+    n = len(located)
+    rows0 = located["row_given"].to_numpy(np.int64)
+    cols0 = located["col_given"].to_numpy(np.int64)
+    x = located["x"].to_numpy(float)
+    y = located["y"].to_numpy(float)
+    # candidate window in cells, wide enough for the narrowest cells of the grid
+    kr = int(min(nr, math.ceil(radius_m / max(float(g.dy_down.min()), 1e-9)) + 1))
+    kc = int(min(nc, math.ceil(radius_m / max(float(g.dx.min()), 1e-9)) + 1))
+    if radius_m == 0:
+        kr = kc = 0
+    if (2 * kr + 1) * (2 * kc + 1) > MAX_WINDOW_CELLS:
+        raise InputError(f"a snap radius of {radius_m:g} m spans about {kr} x {kc} cells "
+                         "on each side; snapping searches that whole window, so use a "
+                         f"radius under {int(cell_m * 900):d} m here "
+                         "(an outlet should be placed near its stream, not kilometres "
+                         "away)")
+    dr, dc = np.meshgrid(np.arange(-kr, kr + 1), np.arange(-kc, kc + 1), indexing="ij")
+    dr, dc = dr.ravel(), dc.ravel()
+    K = dr.size
+    pick = np.empty(n, dtype=np.int64)
+    found = np.ones(n, dtype=bool)
+    dist_pick = np.empty(n)
+    chunk = max(1, int(2_000_000 // K))
+    for s in range(0, n, chunk):
+        e = min(n, s + chunk)
+        R = rows0[s:e, None] + dr[None, :]
+        C = cols0[s:e, None] + dc[None, :]
+        inside = (R >= 0) & (R < nr) & (C >= 0) & (C < nc)
+        cells = np.where(inside, R * nc + C, 0)
+        ok = inside & valid[cells]
+        dist = np.full(cells.shape, np.inf)
+        if ok.any():
+            dist[ok] = _distances(t, np.broadcast_to(x[s:e, None], cells.shape)[ok],
+                                  np.broadcast_to(y[s:e, None], cells.shape)[ok], cells[ok])
+        own = (dr == 0) & (dc == 0)
+        ok &= (dist <= radius_m) | own[None, :]
+        a = np.where(ok, area[cells], -np.inf)
+        if channel:
+            cand = ok & (a >= channel_area_m2)
+        else:
+            cand = ok & (a == a.max(axis=1, keepdims=True))
+        # nearest candidate, then lowest cell index (the window is in index order)
+        dsel = np.where(cand, dist, np.inf)
+        j = np.argmin(dsel, axis=1)
+        ii = np.arange(e - s)
+        pick[s:e] = cells[ii, j]
+        dist_pick[s:e] = dsel[ii, j]
+        found[s:e] = cand.any(axis=1)
+    out = located.copy()
+    out["row"] = pick // nc
+    out["col"] = pick % nc
+    out["cell"] = pick
+    xs, ys = t.xy_of(pick // nc, pick % nc)
+    out["x_snapped"], out["y_snapped"] = xs, ys
+    out["snap_distance_m"] = np.where(found, dist_pick, np.nan)
+    out["upstream_area_m2"] = np.where(found, area[pick], np.nan)
+    given_area = area[located["cell_given"].to_numpy(np.int64)] if n else np.zeros(0)
+    out["upstream_area_given_cell_m2"] = given_area
+    warn = []
+    long_snap = max(LONG_SNAP_FRACTION * radius_m, LONG_SNAP_CELLS * cell_m)
+    for d, a1, a0 in zip(out["snap_distance_m"], out["upstream_area_m2"], given_area):
+        w = []
+        if d > long_snap:
+            w.append(f"long snap ({d:.0f} m)")
+        if a1 >= AREA_JUMP_FACTOR * a0:
+            w.append(f"upstream area jumps {a1 / a0:.0f}x from the given cell: the snap may "
+                     "have landed on another branch")
+        elif a0 >= ON_CHANNEL_CELLS * cell_area and a1 > CONFLUENCE_FACTOR * a0:
+            w.append(f"the given point already drains {a0 / 1e6:.3g} km2 but the snap moved "
+                     f"it to {a1 / 1e6:.3g} km2, probably across a confluence; check the "
+                     "position or use a smaller --snap-radius")
+        warn.append("; ".join(w))
+    out["snap_warning"] = warn
+    out["snap_radius_m"] = radius_m
+    errs = out.loc[~found, ["outlet_id", "source", "x_given", "y_given"]].copy()
+    errs["reason"] = (f"no channel cell (upstream area >= {channel_area_m2:g} m2) within "
+                      f"{radius_m:g} m; raise --snap-radius or lower --snap-to-channel"
+                      if channel else "no valid cell within the snap radius")
+    out = out.loc[found].reset_index(drop=True)
+    # two outlets on one cell would share one catchment: keep the first, report the rest
+    dup = out["cell"].duplicated(keep="first").to_numpy()
+    if dup.any():
+        first = out.drop_duplicates("cell").set_index("cell")["outlet_id"]
+        d = out.loc[dup, ["outlet_id", "source", "x_given", "y_given"]].copy()
+        d["reason"] = [f"lands on the same cell as outlet {first[c]!r} (after snapping); "
+                       "move it or reduce the snap radius"
+                       for c in out.loc[dup, "cell"]]
+        errs = pd.concat([errs, d], ignore_index=True)
+        out = out.loc[~dup].reset_index(drop=True)
+    return out, errs[ERROR_COLUMNS].reset_index(drop=True)
+
+
+def prepare_outlets(fm, outlets, crs=None, radius_m=None, channel_area_m2=None,
+                    id_column=None):
+    """Read, locate and snap outlets in one call.
+
+    Parameters
+    ----------
+    fm : FlowModel
+    outlets : path, DataFrame, sequence of (x, y) or (id, x, y), or array (n, 2)
+        A file (CSV, GeoJSON, GeoPackage), an outlet frame from this module, or points.
+    crs : optional
+        CRS of the coordinates when they carry none (default: the DEM's).
+    radius_m, channel_area_m2 : float, optional
+        See :func:`snap_outlets`.
+    id_column : str, optional
+        Id column of an outlet file.
+
+    Returns
+    -------
+    (DataFrame, DataFrame)
+        Snapped outlets (with sanitised ``file_id``) and errors.
+    """
+    errs = [_errors_frame()]
+    if isinstance(outlets, (str, Path)):
+        raw, e = read_outlet_file(outlets, crs=crs, id_column=id_column)
+        errs.append(e)
+    elif isinstance(outlets, pd.DataFrame):
+        raw = outlets
+        if "given_crs" not in raw.columns:
+            raw = outlets_from_points(outlets["x_given"] if "x_given" in outlets else
+                                      outlets["x"],
+                                      outlets["y_given"] if "y_given" in outlets else
+                                      outlets["y"],
+                                      ids=outlets.get("outlet_id"), crs=crs)
+    else:
+        seq = list(outlets)
+        if seq and len(seq[0]) == 3:
+            ids = [s[0] for s in seq]
+            xs = [s[1] for s in seq]
+            ys = [s[2] for s in seq]
+        else:
+            arr = np.asarray(seq, dtype=float).reshape(-1, 2)
+            ids, xs, ys = None, arr[:, 0], arr[:, 1]
+        raw = outlets_from_points(xs, ys, ids=ids, crs=crs)
+    loc, e = locate_outlets(fm.terrain, raw, crs=crs)
+    errs.append(e)
+    snapped, e = snap_outlets(fm, loc, radius_m=radius_m, channel_area_m2=channel_area_m2)
+    errs.append(e)
+    snapped["file_id"] = sanitize_ids(snapped["outlet_id"])
+    errors = pd.concat([x for x in errs if len(x)] or [_errors_frame()], ignore_index=True)
+    return snapped, errors[ERROR_COLUMNS]
+
+
+def require_outlets(snapped, errors):
+    """Raise :class:`OutletError` when no outlet is usable (with the first reasons)."""
+    if len(snapped):
+        return
+    if len(errors):
+        why = "; ".join(f"{a}: {b}" for a, b in
+                        zip(errors["outlet_id"][:5], errors["reason"][:5]))
+        raise OutletError(f"none of the {len(errors)} outlets can be used ({why})")
+    raise OutletError("no outlets given; pass --outlet X,Y or --outlets FILE")

@@ -1,1 +1,0 @@
-"""Subcommands of the ``basinkit`` command line (one module each, loaded on demand)."""

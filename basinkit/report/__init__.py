@@ -1,0 +1,2 @@
+"""The report room: the self-contained HTML report, built from what the workflow steps
+wrote."""
