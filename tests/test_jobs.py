@@ -13,7 +13,8 @@ import numpy as np
 import pytest
 
 from basinkit.errors import BasinkitError, InputError
-from basinkit.workflow.jobs import JobFileError, job_from_dict, read_job, run_job
+from basinkit.errors import JobFileError
+from basinkit.workflow.jobs import job_from_dict, read_job, run_job
 
 
 @pytest.fixture(scope="module")

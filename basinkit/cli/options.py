@@ -5,6 +5,7 @@ from __future__ import annotations
 import click
 
 from ..errors import InputError
+from ..units import parse_area, parse_length  # noqa: F401 - used by the commands
 
 
 class LengthParam(click.ParamType):
@@ -62,39 +63,6 @@ def conditioning_options(f):
 def overwrite_option(f):
     return click.option("--overwrite", is_flag=True,
                         help="Replace outputs that already exist.")(f)
-
-
-_AREA = {"m2": 1.0, "ha": 1e4, "km2": 1e6}
-_LENGTH = {"m": 1.0, "km": 1e3}
-
-
-def _parse_quantity(text, units, what, default_unit):
-    s = str(text).strip().lower().replace(" ", "")
-    for u in sorted(units, key=len, reverse=True):
-        if s.endswith(u):
-            num = s[: -len(u)]
-            break
-    else:
-        num, u = s, default_unit
-    try:
-        v = float(num)
-    except ValueError:
-        raise InputError(f"cannot read {what} {text!r}; write a number with a unit, one of "
-                         f"{', '.join(units)} (e.g. {'0.5km2' if 'km2' in units else '200m'})"
-                         ) from None
-    if not v >= 0:
-        raise InputError(f"{what} must be zero or positive, got {text!r}")
-    return v * units[u]
-
-
-def parse_area(text, what="the area"):
-    """'0.5km2', '20ha', '5000m2' (bare numbers are m²) → square metres."""
-    return _parse_quantity(text, _AREA, what, "m2")
-
-
-def parse_length(text, what="the length"):
-    """'200m', '1.5km' (bare numbers are metres) → metres."""
-    return _parse_quantity(text, _LENGTH, what, "m")
 
 
 def read_dem_from_options(dem, band, crs, sea_level, base_level):

@@ -43,13 +43,9 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import BasinkitError, InputError
+from ..errors import BasinkitError, InputError, JobFileError
 
 __all__ = ["JobSpec", "JobResult", "read_job", "job_from_dict", "run_job", "JOB_SCHEMA"]
-
-
-class JobFileError(InputError):
-    """A job file cannot be read or holds a key, value or type that is not allowed."""
 
 
 # ----------------------------------------------------------------------------- schema
@@ -144,7 +140,7 @@ def _suggest(word, options):
 
 
 def _check_value(section, key, value, spec, base: Path):
-    from ..cli.options import parse_area, parse_length
+    from ..units import parse_area, parse_length
 
     where = f"[{section}] {key}"
     kind = spec["kind"]
