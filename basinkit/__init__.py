@@ -43,8 +43,11 @@ _LAZY = {
     "find_knickpoints": "analysis.profiles",
     "slope_area_fit": "analysis.profiles",
     "hack_law_fit": "analysis.profiles",
-    "read_job": "workflow.jobs",
-    "run_job": "workflow.jobs",
+    "read_job": "workflow.jobfile",
+    "job_from_dict": "workflow.jobfile",
+    "demo_job_path": "workflow.jobfile",
+    "JOB_SCHEMA": "workflow.jobfile",
+    "run_job": "workflow.runner",
     "write_report": "report.html",
 }
 

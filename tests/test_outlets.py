@@ -170,14 +170,14 @@ def test_snap_to_channel_nearest_cell(flow):
         assert r.cell == brute_force_snap(flow, r.x, r.y, 60, 5000)
         assert r.upstream_area_m2 >= 5000
     for r in e.itertuples():
-        if "same cell" not in r.reason:
-            assert brute_force_snap(flow, r.x_given, r.y_given, 60, 5000) is None
-            assert "no channel cell" in r.reason
+        assert brute_force_snap(flow, r.x_given, r.y_given, 60, 5000) is None
+        assert "no channel cell" in r.reason
 
 
 def test_snap_warnings_and_shared_cells(flow):
     """A long snap and a tenfold area jump are flagged; two outlets that land on one cell
-    keep the first and report the second (common practice, no source)."""
+    are both kept (they share its catchment), each with a note naming the other (common
+    practice, no source)."""
     area = flow.d8_upstream_area_flat().reshape(flow.shape)
     r, c = np.unravel_index(np.nanargmax(np.where(flow.terrain.valid, area, -1)),
                             flow.shape)
@@ -193,7 +193,10 @@ def test_snap_warnings_and_shared_cells(flow):
     s, e = snap_outlets(flow, loc, radius_m=80)
     # the grid's greatest upstream area is 60 m away: both snap onto it
     assert s["cell"][0] == r * flow.ncols + c
-    assert s["outlet_id"].tolist() == ["p"] and "same cell" in e["reason"][0]
+    assert s["outlet_id"].tolist() == ["p", "q"] and not len(e)
+    assert s["cell"][1] == s["cell"][0]
+    assert "shares its cell with outlet 'q'" in s["snap_warning"][0]
+    assert "shares its cell with outlet 'p'" in s["snap_warning"][1]
     # 60 m > max(half of 80 m, 5 cells of 10 m)
     assert "long snap" in s["snap_warning"][0]
     jump = area[r, c] >= 10 * s["upstream_area_given_cell_m2"][0]
@@ -226,9 +229,11 @@ def test_snap_geographic_uses_geodesic_distance():
 def test_sanitize_ids_examples():
     ids = ["../etc/passwd", "a b", "A_B", "", "..", "con", "x/../../y", "ok.tif", "a b"]
     out = sanitize_ids(ids)
-    assert out[:3] == ["etc_passwd", "a_b", "A_B_2"]
-    assert out[3] == "outlet" and out[4] == "outlet_2"
-    assert out[5] == "_con"
+    # "A_B" is already clean and keeps its name; "a b" cleans to the same name and gets a
+    # hash suffix, as do the second "a b" and the two ids that clean to "outlet"
+    assert out[:3] == ["etc_passwd", out[1], "A_B"] and out[1].startswith("a_b_")
+    assert out[3].startswith("outlet") and out[4].startswith("outlet_") and out[3] != out[4]
+    assert out[5] == "_con" and out[8].startswith("a_b_") and out[8] != out[1]
     assert len({o.lower() for o in out}) == len(out)
 
 
@@ -241,7 +246,7 @@ def test_sanitize_ids_safe_and_unique(ids):
     base = Path("/tmp/outdir")
     for o in out:
         assert o and "/" not in o and "\\" not in o and not o.startswith(".")
-        assert ".." not in o and len(o) <= 90
+        assert ".." not in o and len(o) <= 64
         assert os.path.normpath(base / o).startswith(str(base) + os.sep)
 
 

@@ -33,7 +33,9 @@ def report(tmp_path_factory):
     job = read_job(demo_job_path())
     job["outputs"]["report_outlets"] = REPORT_OUTLETS
     job["outputs"]["rasters"] = False
-    res = run_job(job, output=tmp_path_factory.mktemp("report") / "out")
+    from basinkit.report.html import write_report
+
+    res = run_job(job, output=tmp_path_factory.mktemp("report") / "out", report=write_report)
     return res
 
 
@@ -83,14 +85,14 @@ def _tables(res):
             .set_index("outlet_id"),
             "morphometry": pd.read_csv(f / "morphometry.csv", dtype={"outlet_id": str})
             .set_index("outlet_id"),
-            "path": pd.read_csv(f / "profiles" / "flow_paths.csv", dtype={"outlet_id": str})
-            .set_index("outlet_id")}
+            "path": pd.read_csv(f / "flow_paths.csv", dtype={"outlet_id": str})
+            .query("kind == 'longest_flow_path'").set_index("outlet_id")}
 
 
 def _check_cells(cells, tables):
     """Every per-outlet figure cell equals the CSV value (CSV keeps 10 significant digits)
     and its text is that value formatted as the report's table says."""
-    from basinkit.report.html.html import FIGURE_ROWS
+    from basinkit.report.html import FIGURE_ROWS
 
     fmt = {f"{src}:{key}": f for _, src, key, _, f in FIGURE_ROWS if src != "outlet"}
     checked = 0

@@ -270,16 +270,30 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     """
     t = fm.terrain
     nr, nc = t.shape
-    snapped, errors = prepare_outlets(fm, outlets, crs=crs, radius_m=snap_radius_m,
-                                      channel_area_m2=snap_to_channel_m2,
-                                      id_column=id_column)
+    if _is_placed(outlets):  # already placed (e.g. by basinkit.workflow): used as given
+        snapped = outlets.reset_index(drop=True)
+        errors = pd.DataFrame(columns=ERROR_COLUMNS)
+        if "file_id" not in snapped.columns:
+            from .outlets import sanitize_ids
+
+            snapped = snapped.assign(file_id=sanitize_ids(snapped["outlet_id"]))
+    else:
+        snapped, errors = prepare_outlets(fm, outlets, crs=crs, radius_m=snap_radius_m,
+                                          channel_area_m2=snap_to_channel_m2,
+                                          id_column=id_column)
     require_outlets(snapped, errors)
-    n = len(snapped)
-    cells = snapped["cell"].to_numpy(np.int64)
+    # outlets that share a cell share its catchment: the tree is built on the first
+    # outlet of each cell, and every outlet row takes the label of its cell
+    cells_all = snapped["cell"].to_numpy(np.int64)
+    _, first_idx, inverse = np.unique(cells_all, return_index=True, return_inverse=True)
+    primary_of_row = first_idx[inverse.ravel()]
+    prim_idx = np.flatnonzero(primary_of_row == np.arange(cells_all.size))
+    n = prim_idx.size
+    cells = cells_all[prim_idx]
     labels, lut, size, down = _outlet_tree(fm, cells)
-    lab_of_row = lut[1:].astype(np.int64)  # new label of each outlet row
-    row_of_lab = np.zeros(n + 1, dtype=np.int64)
-    row_of_lab[lab_of_row] = np.arange(n)
+    prim_rank = np.full(cells_all.size, -1, dtype=np.int64)
+    prim_rank[prim_idx] = np.arange(n)
+    lab_of_prim = lut[1:].astype(np.int64)  # new label of each primary outlet
 
     z = fm.input_elevation if fm.input_elevation is not None else t.elevation
     z = np.where(t.valid, z, np.nan).astype(np.float64).ravel()
@@ -304,12 +318,14 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
             cmin[p] = min(cmin[p], cmin[k])
             cmax[p] = max(cmax[p], cmax[k])
 
-    L = lab_of_row
+    L = lab_of_prim[prim_rank[primary_of_row]]  # label of every outlet row
     tab = snapped.copy()
     tab.insert(2, "label", L.astype(np.int32))
-    ids = tab["outlet_id"].to_numpy(object)
-    ids_by_lab = np.empty(n + 1, dtype=object)
-    ids_by_lab[L] = ids
+    ids = tab["outlet_id"].astype(str).to_numpy(object)
+    ids_by_lab = np.full(n + 1, "", dtype=object)
+    for lab, oid in zip(L, ids):  # outlets sharing a cell: "a;b"
+        ids_by_lab[lab] = f"{ids_by_lab[lab]};{oid}" if ids_by_lab[lab] else oid
+    per_label = np.concatenate([[0], np.cumsum(np.bincount(L, minlength=n + 1)[1:])])
     tab["area_m2"] = area[L]
     tab["area_km2"] = area[L] / 1e6
     tab["area_ha"] = area[L] / 1e4
@@ -318,7 +334,8 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     tab["cell_count"] = count[L]
     tab["subcatchment_area_m2"] = sub_area[L]
     tab["subcatchment_cell_count"] = sub_count[L]
-    tab["upstream_outlet_count"] = size[L] - 1
+    # outlets strictly upstream: labels lab+1 .. lab+size-1 (a contiguous range)
+    tab["upstream_outlet_count"] = per_label[L + size[L] - 1] - per_label[L]
     tab["upstream_outlet_ids"] = [";".join(ids_by_lab[lab + 1:lab + size[lab]])
                                   for lab in L]
     tab["downstream_outlet_id"] = [ids_by_lab[down[lab]] if down[lab] else ""
@@ -353,9 +370,12 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
 
     polys = subpolys = None
     if polygons:
-        polys, subpolys, perim = _polygons(t, labels, n, L, size, rmin, rmax, cmin, cmax,
-                                           workers, progress)
-        tab["perimeter_m"] = perim
+        polys, subpolys, perim = _polygons(t, labels, n, lab_of_prim, size, rmin, rmax,
+                                           cmin, cmax, workers, progress)
+        k = prim_rank[primary_of_row]
+        polys = [polys[i] for i in k]
+        subpolys = [subpolys[i] for i in k]
+        tab["perimeter_m"] = np.asarray(perim, dtype=float)[k]
     else:
         tab["perimeter_m"] = np.nan
     params = {"snap_radius_m": float(tab["snap_radius_m"].iloc[0]) if n else snap_radius_m,
@@ -363,6 +383,13 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
               None, "routing_method": fm.method}
     return Delineation(tab, errors[ERROR_COLUMNS], labels, polys, subpolys, t.transform,
                        t.crs, msgs, CAUTIONS, params, size, fm)
+
+
+def _is_placed(outlets):
+    """A frame of outlets already placed and snapped (by prepare_outlets)."""
+    return isinstance(outlets, pd.DataFrame) and {
+        "cell", "snap_distance_m", "x_snapped", "y_snapped", "snap_warning",
+        "upstream_area_given_cell_m2", "snap_radius_m"} <= set(outlets.columns)
 
 
 def _contributing(fm, tab, msgs, progress, callback):

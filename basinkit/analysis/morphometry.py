@@ -411,7 +411,7 @@ def basin_morphometry(fm, mask, outlet_cell, network=None, return_curve=False):
 
 
 def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
-                      return_curves=False):
+                      return_curves=False, progress=None):
     """Morphometry of many catchments, one row each (see :func:`basin_morphometry`).
 
     Parameters
@@ -419,7 +419,9 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
     fm : FlowModel
     masks_or_labels : ndarray of int (nrows, ncols) or sequence of bool masks
         A label grid (catchment ``ids[i]`` = cells labelled ``ids[i]``, as from
-        ``fm.label_outlets``), or one boolean grid per catchment.
+        ``fm.label_outlets``), or one boolean grid per catchment (a sequence with
+        ``len`` and indexing is read one mask at a time, so its masks may be made on
+        demand).
     outlet_cells : array of int
         Flat outlet cell of each catchment.
     ids : array of int, optional
@@ -427,6 +429,8 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
     network : ChannelNetwork, optional
     return_curves : bool
         Also return ``{id: hypsometric curve DataFrame}``.
+    progress : callable, optional
+        ``progress(iterable, total=, desc=)`` wrapper (e.g. a progress bar).
 
     Returns
     -------
@@ -474,13 +478,17 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
             wanted = [int(i) for i in ids if 0 < int(i) < nlab]
             polys = labels_to_polygons(lab32, fm.terrain.transform, ids=wanted)
     else:
-        masks = list(masks_or_labels)
+        masks = (masks_or_labels if hasattr(masks_or_labels, "__getitem__")
+                 and hasattr(masks_or_labels, "__len__") else list(masks_or_labels))
         if len(masks) != n:
             raise InputError(f"{len(masks)} catchment masks for {n} outlets")
     import rasterio
 
     with rasterio.Env():  # one GDAL environment for every polygon of the batch
-        for i in range(n):
+        todo = range(n)
+        if progress is not None:
+            todo = progress(todo, total=n, desc="morphometry")
+        for i in todo:
             cid = ids[i]
             rec = {"catchment_id": cid.item() if hasattr(cid, "item") else cid}
             try:

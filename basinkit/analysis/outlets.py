@@ -1,8 +1,9 @@
 """Outlets: reading points, placing them on the grid and snapping them to the flow network.
 
 An outlet table is a pandas DataFrame with one row per outlet. Outlets that cannot be used
-(unparseable or missing coordinates, duplicate id, outside the grid, on nodata, no channel
-within reach) are moved to an *errors* table with the reason; the rest carry on.
+(unparseable or missing coordinates, a repeated id, outside the grid, on nodata, no channel
+within reach) are moved to an *errors* table with the reason and the line or feature they
+came from; the rest carry on. :func:`sanitize_ids` turns ids into file names.
 """
 
 from __future__ import annotations
@@ -17,7 +18,8 @@ import pandas as pd
 from ..errors import InputError, OutletError
 
 __all__ = ["outlets_from_text", "outlets_from_points", "read_outlet_file", "locate_outlets",
-           "snap_outlets", "prepare_outlets", "sanitize_ids", "ERROR_COLUMNS"]
+           "snap_outlets", "prepare_outlets", "sanitize_ids", "ERROR_COLUMNS",
+           "FILE_ID_MAX_LENGTH"]
 
 ERROR_COLUMNS = ["outlet_id", "source", "x_given", "y_given", "reason"]
 RAW_COLUMNS = ["outlet_id", "source", "x_given", "y_given", "given_crs"]
@@ -247,14 +249,48 @@ def _read_vector(p, crs, id_column):
     return _raw_frame(rows), _errors_frame(errs)
 
 
+FILE_ID_MAX_LENGTH = 64  # longest file id (characters), hash suffix included
+_HASH_LENGTH = 8
+
+
+def _clean_id(raw) -> str:
+    import unicodedata
+
+    s = unicodedata.normalize("NFKD", str(raw)).encode("ascii", "ignore").decode()
+    s = re.sub(r"[^A-Za-z0-9._-]+", "_", s)
+    s = re.sub(r"_+", "_", s)
+    s = s.lstrip("._-").rstrip("._ ")
+    s = re.sub(r"\.{2,}", ".", s) or "outlet"
+    if s.split(".")[0].lower() in _WINDOWS_RESERVED:
+        s = "_" + s
+    return s
+
+
+def _hashed(clean, key) -> str:
+    """``clean`` cut to leave room for ``_`` and a hash of ``key`` (the raw id)."""
+    import hashlib
+
+    h = hashlib.sha256(str(key).encode("utf-8")).hexdigest()[:_HASH_LENGTH]
+    base = clean[:FILE_ID_MAX_LENGTH - _HASH_LENGTH - 1].rstrip("._-") or "outlet"
+    return f"{base}_{h}"
+
+
 def sanitize_ids(ids):
-    """File-name-safe, unique versions of outlet ids.
+    """File-name-safe, unique, length-bounded and stable versions of outlet ids.
+
+    The one sanitiser for every file name and HTML anchor built from an outlet id (the
+    ``file_id`` column of the output tables).
 
     Accented letters lose their accents (NFKD); characters other than ASCII letters,
-    digits, ``.``, ``-`` and ``_`` become ``_``; leading
-    dots and separators are dropped (no hidden files, no ``..``, no path separators);
-    reserved device names get a leading ``_``; names are cut to 80 characters. Ids that
-    end up equal (ignoring case, for case-insensitive file systems) get ``_2``, ``_3``, ...
+    digits, ``.``, ``-`` and ``_`` become ``_``; leading dots and separators are dropped
+    (no hidden files, no ``..``, no path separators); reserved device names get a leading
+    ``_``. An id that is already clean, unique (ignoring case, for case-insensitive file
+    systems) and at most :data:`FILE_ID_MAX_LENGTH` characters long is kept as it is.
+    Otherwise -- the cleaned name is too long, or several ids clean to one name -- the name
+    is cut and ends in ``_`` and the first 8 hex digits of the SHA-256 of the id itself, so
+    that each gets a name of its own that does not depend on the order of the ids: among
+    ids cleaning to one name, the one already equal to that name (if any) keeps it, and the
+    others get their hash suffix. Identical ids get one suffix per repetition.
 
     Parameters
     ----------
@@ -263,29 +299,39 @@ def sanitize_ids(ids):
     Returns
     -------
     list of str
+        Names of 1 to 64 characters from ``[A-Za-z0-9._-]``, unique ignoring case.
 
     Examples
     --------
     >>> sanitize_ids(["../etc/passwd", "a b", "A_B", "", "Zürich Süd"])
-    ['etc_passwd', 'a_b', 'A_B_2', 'outlet', 'Zurich_Sud']
+    ['etc_passwd', 'a_b_c8687a08', 'A_B', 'outlet', 'Zurich_Sud']
+    >>> len(sanitize_ids(["x" * 300])[0])
+    64
     """
-    import unicodedata
-
-    out, seen = [], set()
-    for raw in ids:
-        s = unicodedata.normalize("NFKD", str(raw)).encode("ascii", "ignore").decode()
-        s = re.sub(r"[^A-Za-z0-9._-]+", "_", s)
-        s = re.sub(r"_+", "_", s)
-        s = s.lstrip("._-").rstrip("._ ")
-        s = re.sub(r"\.{2,}", ".", s)[:80] or "outlet"
-        if s.split(".")[0].lower() in _WINDOWS_RESERVED:
-            s = "_" + s
-        cand, k = s, 2
-        while cand.lower() in seen:
-            cand = f"{s}_{k}"
+    raw = [str(i) for i in ids]
+    clean = [_clean_id(r) for r in raw]
+    groups: dict = {}
+    for i, c in enumerate(clean):
+        groups.setdefault(c.lower(), []).append(i)
+    out = [""] * len(raw)
+    for members in groups.values():
+        keeper = next((i for i in members if raw[i] == clean[i]
+                       and len(clean[i]) <= FILE_ID_MAX_LENGTH), None)
+        if keeper is None and len(members) == 1 and len(clean[members[0]]) <= \
+                FILE_ID_MAX_LENGTH:
+            keeper = members[0]
+        for i in members:
+            out[i] = clean[i] if i == keeper else _hashed(clean[i], raw[i])
+    # a hashed name may meet an id that is literally that name, and identical ids hash
+    # alike: later ones get the hash of the id and its repetition number
+    seen: set = set()
+    for i, name in enumerate(out):
+        k = 2
+        while name.lower() in seen:
+            name = _hashed(clean[i], f"{raw[i]}\x00{k}")
             k += 1
-        seen.add(cand.lower())
-        out.append(cand)
+        seen.add(name.lower())
+        out[i] = name
     return out
 
 
@@ -341,7 +387,11 @@ def locate_outlets(terrain, raw, crs=None):
     proj_ok = (np.isfinite(f["x"]) & np.isfinite(f["y"])).to_numpy()
     reason[finite & ~proj_ok] = "cannot reproject the point to the DEM's CRS"
     dup = f["outlet_id"].duplicated(keep="first").to_numpy()
-    reason[dup & reason.isna().to_numpy()] = "duplicate id (an earlier outlet has the same id)"
+    if dup.any():  # the first outlet of an id is used; later ones fail, naming the first
+        first_src = dict(zip(f["outlet_id"][::-1], f["source"][::-1]))
+        todo = dup & reason.isna().to_numpy()
+        reason[todo] = [f"duplicate id: {first_src[o]} already has the id {o!r}; give "
+                        "every outlet its own id" for o in f.loc[todo, "outlet_id"]]
     nr, nc = terrain.shape
     ok = reason.isna().to_numpy().copy()
     row = np.full(len(f), -1, dtype=np.int64)
@@ -416,6 +466,8 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     (DataFrame, DataFrame)
         Outlets with ``row, col, cell, x_snapped, y_snapped, snap_distance_m,
         upstream_area_m2, upstream_area_given_cell_m2, snap_warning`` added; errors.
+        Outlets that land on one cell are all kept (they share its catchment), each with
+        a note in ``snap_warning`` naming the others.
 
     Notes
     -----
@@ -510,23 +562,27 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
                      f"it to {a1 / 1e6:.3g} km2, probably across a confluence; check the "
                      "position or use a smaller --snap-radius")
         warn.append("; ".join(w))
-    out["snap_warning"] = warn
-    out["snap_radius_m"] = radius_m
     errs = out.loc[~found, ["outlet_id", "source", "x_given", "y_given"]].copy()
     errs["reason"] = (f"no channel cell (upstream area >= {channel_area_m2:g} m2) within "
                       f"{radius_m:g} m; raise --snap-radius or lower --snap-to-channel"
                       if channel else "no valid cell within the snap radius")
+    # outlets that land on one cell share its catchment: all are kept, each with a note
+    keep = np.flatnonzero(found)
+    shared = pd.Series(pick[keep]).duplicated(keep=False).to_numpy()
+    if shared.any():
+        ids_at = {}
+        for i in keep[shared]:
+            ids_at.setdefault(int(pick[i]), []).append(str(out["outlet_id"].iloc[i]))
+        for i in keep[shared]:
+            others = [o for o in ids_at[int(pick[i])] if o != str(out["outlet_id"].iloc[i])]
+            names = ", ".join(repr(o) for o in others[:5]) + (
+                f" and {len(others) - 5} more" if len(others) > 5 else "")
+            note = (f"shares its cell with outlet{'s' if len(others) > 1 else ''} {names} "
+                    "(after snapping): they get the same catchment")
+            warn[i] = f"{warn[i]}; {note}" if warn[i] else note
+    out["snap_warning"] = warn
+    out["snap_radius_m"] = radius_m
     out = out.loc[found].reset_index(drop=True)
-    # two outlets on one cell would share one catchment: keep the first, report the rest
-    dup = out["cell"].duplicated(keep="first").to_numpy()
-    if dup.any():
-        first = out.drop_duplicates("cell").set_index("cell")["outlet_id"]
-        d = out.loc[dup, ["outlet_id", "source", "x_given", "y_given"]].copy()
-        d["reason"] = [f"lands on the same cell as outlet {first[c]!r} (after snapping); "
-                       "move it or reduce the snap radius"
-                       for c in out.loc[dup, "cell"]]
-        errs = pd.concat([errs, d], ignore_index=True)
-        out = out.loc[~dup].reset_index(drop=True)
     return out, errs[ERROR_COLUMNS].reset_index(drop=True)
 
 

@@ -1,9 +1,11 @@
 """``basinkit channels``: channel network, Strahler order and segment table from a flow
-folder; optionally choose the channel threshold by the constant-drop test."""
+folder (the channels step of :mod:`basinkit.workflow.steps`); optionally choose the
+channel threshold by the constant-drop test."""
 
 import click
 
-from .options import outlet_options, overwrite_option, parse_area
+from .options import (finish, load_flow_folder, outlet_options, output_folder,
+                      overwrite_option, parse_area, place)
 
 
 def _parse_range(text):
@@ -17,59 +19,14 @@ def _parse_range(text):
             parse_area(parts[1], "the high end of --choose-threshold"))
 
 
-def write_network(folder, fm, net, drop=None, params=None, extra=None):
-    """Write a channel network: channels.gpkg (layers ``channels`` and ``junctions``),
-    strahler_order.tif, channel_segments.csv, constant_drop_test.csv (when given) and
-    channels.json (provenance). Returns the list of written paths."""
-    from pathlib import Path
+def slope_area_option(exponent, constant):
+    """The slope–area criterion of --slope-area-exponent/--slope-area-constant."""
+    from ..errors import InputError
 
-    import numpy as np
-
-    from ..analysis.morphometry import CAUTIONS
-    from ..io.writers import atomic_path, provenance, write_csv, write_geotiff, write_json
-
-    out = Path(folder)
-    written = []
-    gpkg = out / "channels.gpkg"
-    import pyogrio
-
-    # a fixed timestamp in the GeoPackage tables keeps the file byte-identical per input
-    old = pyogrio.get_gdal_config_option("OGR_CURRENT_DATE")
-    pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": "2000-01-01T00:00:00.000Z"})
-    try:
-        _write_gpkg(gpkg, net, atomic_path)
-    finally:
-        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": old})
-    written.append(gpkg)
-    t = fm.terrain
-    order = np.where(t.valid, net.strahler, -1).astype(np.int16)
-    written.append(write_geotiff(out / "strahler_order.tif", order, t.transform, t.crs,
-                                 nodata=-1))
-    written.append(write_csv(out / "channel_segments.csv",
-                             net.segments.drop(columns="geometry")))
-    if drop is not None:
-        written.append(write_csv(out / "constant_drop_test.csv", drop.table))
-    meta = provenance(params or {}, {"flow": fm.parameters.get("flow_folder"),
-                                     "dem": t.source}, crs=t.crs, shape=t.shape,
-                      network=net.summary(),
-                      constant_drop_test=(drop.to_dict() if drop is not None else None),
-                      files=[p.name for p in written], cautions=CAUTIONS, **(extra or {}))
-    written.append(write_json(out / "channels.json", meta))
-    return written
-
-
-def _write_gpkg(path, net, atomic_path):
-    with atomic_path(path) as tmp:
-        net.segments.to_file(tmp, layer="channels", driver="GPKG")
-        if len(net.junctions):
-            net.junctions.to_file(tmp, layer="junctions", driver="GPKG", mode="a")
-        else:  # an empty point layer still needs a schema
-            import geopandas as gpd
-            from shapely.geometry import Point
-
-            empty = gpd.GeoDataFrame({"junction_id": [0]}, geometry=[Point(0, 0)],
-                                     crs=net.junctions.crs).iloc[:0]
-            empty.to_file(tmp, layer="junctions", driver="GPKG", mode="a")
+    if (exponent is None) != (constant is None):
+        raise InputError("the slope–area criterion needs both --slope-area-exponent and "
+                         "--slope-area-constant")
+    return None if exponent is None else (exponent, constant)
 
 
 @click.command("channels")
@@ -80,6 +37,9 @@ def _write_gpkg(path, net, atomic_path):
               help="Upstream area at which channels begin, with a unit (e.g. 0.5km2, 20ha). "
                    "Required unless --choose-threshold picks it; with it, the fallback "
                    "when no threshold passes.")
+@click.option("--min-order", type=int, default=1, show_default=True,
+              help="Lowest Strahler order written (segments; the order raster holds 0 "
+                   "below it).")
 @click.option("--slope-area-exponent", type=float, default=None,
               help="Exponent α of the slope–area criterion A·S^α ≥ C (Montgomery & "
                    "Dietrich 1988 used 2).")
@@ -95,70 +55,38 @@ def _write_gpkg(path, net, atomic_path):
 @outlet_options(purpose="An outlet at which to split segments")
 @overwrite_option
 @click.pass_obj
-def command(console, flowdir, output, min_area, slope_area_exponent, slope_area_constant,
-            choose, threshold_steps, critical_t, outlets, overwrite):
+def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
+            slope_area_constant, choose, threshold_steps, critical_t, outlets, overwrite):
     """Extract the channel network: segments with Strahler order, Shreve magnitude,
     length, drop, slope, upstream areas and sinuosity; junctions; a Strahler order raster.
 
     With --outlet/--outlets, segments are also split at the outlets, snapped as in every
-    basinkit command (see --snap-radius and --snap-to-channel).
+    basinkit command (see --snap-radius and --snap-to-channel); exits with status 1 when
+    one of them could not be placed.
 
     \b
     Example: basinkit channels flow/ --min-area 2ha --outlets demo_rasters/outlets.csv \\
         --snap-radius 30m --snap-to-channel 1ha -o channels/
     """
-    import time
+    from ..workflow.steps import ChannelSettings, channels_step
 
-    from ..analysis.channels import constant_drop_test, extract_channels, threshold_range
-    from ..errors import InputError
-    from ..routing.flow_model import load_flow
-    from ..io.writers import prepare_output_dir
-
-    t0 = time.perf_counter()
-    if min_area is None and choose is None:
-        raise InputError("give --min-area (e.g. 0.5km2) or --choose-threshold LOW:HIGH")
-    if (slope_area_exponent is None) != (slope_area_constant is None):
-        raise InputError("the slope–area criterion needs both --slope-area-exponent and "
-                         "--slope-area-constant")
-    slope_area = (None if slope_area_exponent is None
-                  else (slope_area_exponent, slope_area_constant))
-    min_area_m2 = parse_area(min_area, "--min-area") if min_area is not None else None
-    prepare_output_dir(output, overwrite)
-    fm = load_flow(flowdir)
-    console.info(f"read flow folder {flowdir}: {fm.shape[0]} x {fm.shape[1]} cells")
-    drop = None
-    if choose is not None:
-        lo, hi = _parse_range(choose)
-        ths = threshold_range(lo, hi, threshold_steps)
-        drop = constant_drop_test(fm, ths, slope_area=slope_area, critical_t=critical_t)
-        for r in drop.table.itertuples():
-            console.info(f"  {r.min_area_km2:10.4f} km²  first-order streams "
-                         f"{r.first_order_streams:6d}  t = {r.t_statistic:7.2f}  "
-                         f"{'passes' if r.passes else 'fails'}")
-        if drop.chosen_min_area_m2 is not None:
-            min_area_m2 = drop.chosen_min_area_m2
-            console.info(f"constant-drop test: chose {min_area_m2 / 1e6:.4f} km²")
-        elif min_area_m2 is not None:
-            console.warn("no threshold in the range passes the constant-drop test; using "
-                         f"--min-area {min_area}")
-        else:
-            raise InputError("no threshold in the range passes the constant-drop test; "
-                             "widen --choose-threshold or give --min-area")
-    cells = None
-    if outlets:
-        snapped, errors = outlets.snap(fm)
-        cells = snapped["cell"].to_numpy(dtype="int64")
-        for r in errors.itertuples():
-            console.warn(f"outlet {r.outlet_id} not used: {r.reason}")
-    net = extract_channels(fm, min_area_m2, slope_area=slope_area, outlet_cells=cells)
-    s = net.summary()
-    console.info(f"{s['segments']:,} segments, {s['junctions']:,} junctions, highest "
-                 f"Strahler order {s['max_strahler_order']}, "
-                 f"{s['total_length_m'] / 1e3:,.1f} km of channels")
-    params = {"min_area_m2": min_area_m2, "slope_area_exponent": slope_area_exponent,
-              "slope_area_constant": slope_area_constant, "choose_threshold": choose,
-              "threshold_steps": threshold_steps, "critical_t": critical_t,
-              **(outlets.parameters() if outlets else {})}
-    write_network(output, fm, net, drop, params,
-                  {"seconds": round(time.perf_counter() - t0, 3)})
-    console.info(f"wrote {output} ({time.perf_counter() - t0:.1f} s)")
+    settings = ChannelSettings(
+        min_area_m2=parse_area(min_area, "--min-area") if min_area is not None else None,
+        slope_area=slope_area_option(slope_area_exponent, slope_area_constant),
+        choose_threshold=_parse_range(choose) if choose is not None else None,
+        threshold_steps=threshold_steps, critical_t=critical_t,
+        min_order=min_order).check()
+    out = output_folder(output, overwrite)
+    with console.stage("read"):
+        fm = load_flow_folder(console, flowdir)
+    placed = place(console, fm, outlets) if outlets else None
+    out.open()
+    with console.stage("channels"):
+        channels_step(out, fm, settings,
+                      outlet_cells=None if placed is None else placed.cells,
+                      reporter=console,
+                      parameters={"flowdir": str(flowdir),
+                                  **(outlets.parameters() if outlets else {})},
+                      inputs=outlets.inputs() if outlets else None)
+    console.info(f"wrote {out.folder}")
+    return finish(console, 0 if placed is None else len(placed.errors))

@@ -2,8 +2,8 @@
 
 import click
 
-from .options import (conditioning_options, dem_options, overwrite_option, parse_length,
-                      read_dem_from_options)
+from .options import (conditioning_options, dem_options, finish, overwrite_option,
+                      parse_length, read_dem_from_options)
 
 
 @click.command("condition")
@@ -29,22 +29,31 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
     from pathlib import Path
 
     from ..conditioning import condition
+    from ..conditioning.burn import read_lines
     from ..io.writers import check_output, provenance, write_geotiff, write_json
+    from ..workflow.cautions import CAUTION_TEXT
 
     out = check_output(output, overwrite)
     js = check_output(summary_path or Path(output).with_suffix(".json"), overwrite)
-    terrain = read_dem_from_options(dem, band, crs, sea_level, base_level)
-    console.info(f"read {dem}: {terrain.shape[0]} x {terrain.shape[1]} cells")
     mbl = parse_length(max_breach_length, "--max-breach-length") if max_breach_length else None
-    cond, summary = condition(terrain, method=method, epsilon=epsilon, burn=burn,
-                              burn_depth=burn_depth if burn else 0.0,
-                              max_breach_depth=max_breach_depth, max_breach_length=mbl)
-    write_geotiff(out, cond.elevation, cond.transform, cond.crs, nodata=float("nan"))
-    params = {"method": method, "epsilon": epsilon, "burn": burn, "burn_depth": burn_depth,
-              "max_breach_depth": max_breach_depth, "max_breach_length_m": mbl,
-              "sea_level": sea_level, "base_level": base_level}
+    with console.stage("read"):
+        terrain = read_dem_from_options(dem, band, crs, sea_level, base_level)
+        lines = [g for p in burn for g in read_lines(p, terrain.crs)]
+    console.info(f"read {dem}: {terrain.shape[0]} x {terrain.shape[1]} cells")
+    with console.stage("condition"):
+        cond, summary = condition(terrain, method=method, epsilon=epsilon,
+                                  burn=lines if burn else None,
+                                  burn_depth=burn_depth if burn else 0.0,
+                                  max_breach_depth=max_breach_depth, max_breach_length=mbl)
+    write_geotiff(out, cond.elevation, cond.transform, cond.crs, nodata=float("nan"),
+                  tags={"cautions": CAUTION_TEXT})
+    params = {"method": method, "epsilon": epsilon, "burn": [str(p) for p in burn],
+              "burn_depth": burn_depth, "max_breach_depth": max_breach_depth,
+              "max_breach_length_m": mbl, "sea_level": sea_level, "base_level": base_level}
     write_json(js, provenance(params, {"dem": terrain.source}, crs=terrain.crs,
-                              shape=terrain.shape, summary=summary.to_dict()))
+                              shape=terrain.shape, summary=summary.to_dict(),
+                              cautions=CAUTION_TEXT))
     for line in summary.lines():
         console.info(line)
     console.info(f"wrote {out} and {js}")
+    return finish(console)

@@ -1,20 +1,41 @@
-"""The ``basinkit`` command line: small wrappers over the library.
+"""The ``basinkit`` command line: parse options, call the workflow steps, print.
 
 Each subcommand lives in its own module under ``basinkit/cli/`` and is loaded only when
 it is called, so that ``basinkit --help`` starts quickly.
+
+Exit status (DESIGN.md, the output contract), the same for every command and ``run``:
+0 all done; 1 done, but some outlets failed (listed); 2 bad input or usage, nothing
+written; 3 an internal error (a bug: the traceback only with ``--debug``). The global
+options ``--quiet``, ``--debug`` and ``--log-json`` go before or after the subcommand.
 """
 
 from __future__ import annotations
 
 import importlib
-import json
 import sys
-import time
+import traceback
 
 import click
 
 from .. import __version__
 from ..errors import BasinkitError
+from .console import Console
+
+# the options of the group that may also be written after the subcommand
+GLOBAL_FLAGS = ("--quiet", "-q", "--debug", "--log-json")
+
+
+def hoist_global_options(args):
+    """Move the global flags to the front, wherever they were written (up to ``--``)."""
+    args = [str(a) for a in args]
+    front, rest = [], []
+    for i, a in enumerate(args):
+        if a == "--":
+            rest.extend(args[i:])
+            break
+        (front if a in GLOBAL_FLAGS else rest).append(a)
+    return front + rest
+
 
 # subcommand name -> module under basinkit.cli defining ``command``
 SUBCOMMANDS = {
@@ -31,6 +52,9 @@ SUBCOMMANDS = {
 
 
 class LazyGroup(click.Group):
+    def parse_args(self, ctx, args):
+        return super().parse_args(ctx, hoist_global_options(args))
+
     def list_commands(self, ctx):
         return [name for name, mod in SUBCOMMANDS.items() if _module(mod) is not None]
 
@@ -49,47 +73,6 @@ def _module(name):
         raise
 
 
-class Console:
-    """Messages for people (stderr) or JSON log lines (``--log-json``); silent with
-    ``--quiet`` except for errors."""
-
-    def __init__(self, quiet=False, log_json=False, debug=False):
-        self.quiet = quiet
-        self.log_json = log_json
-        self.debug = debug
-
-    def info(self, msg, **fields):
-        if self.log_json:
-            self._json("info", msg, fields)
-        elif not self.quiet:
-            click.echo(msg, err=True)
-
-    def warn(self, msg, **fields):
-        if self.log_json:
-            self._json("warning", msg, fields)
-        elif not self.quiet:
-            click.secho(f"warning: {msg}", err=True, fg="yellow")
-
-    def error(self, msg, **fields):
-        if self.log_json:
-            self._json("error", msg, fields)
-        else:
-            click.secho(f"error: {msg}", err=True, fg="red")
-
-    def _json(self, level, msg, fields):
-        rec = {"time": round(time.time(), 3), "level": level, "message": msg, **fields}
-        click.echo(json.dumps(rec, default=str), err=True)
-
-    def progress(self, iterable=None, total=None, desc=""):
-        """A progress bar on stderr (hidden when quiet or logging JSON)."""
-        from tqdm.auto import tqdm
-
-        # no bars in logs (stderr not a terminal), under --quiet or --log-json
-        hidden = self.quiet or self.log_json or not sys.stderr.isatty()
-        return tqdm(iterable, total=total, desc=desc, disable=hidden,
-                    file=sys.stderr, leave=False, mininterval=0.5)
-
-
 @click.group(cls=LazyGroup, context_settings={"help_option_names": ["-h", "--help"],
                                               "max_content_width": 100})
 @click.version_option(__version__, prog_name="basinkit")
@@ -104,35 +87,57 @@ def cli(ctx, quiet, log_json, debug):
 
     Typical job: basinkit route dem.tif -o flow/ ; basinkit delineate flow/ --outlet X,Y -o
     out/ . Or the whole job from a job file: basinkit run job.toml . Try basinkit demo .
+
+    --quiet, --log-json and --debug may also follow the subcommand. Exit status: 0 all
+    done; 1 done, but some outlets failed (listed); 2 bad input or usage, nothing written;
+    3 an internal error (a bug; please report it).
     """
     ctx.obj = Console(quiet=quiet, log_json=log_json, debug=debug)
 
 
 def main(argv=None):
-    """Entry point: user errors print one message and exit non-zero, no traceback."""
-    args = argv if argv is not None else sys.argv[1:]
+    """Entry point: runs a command and exits with the status of the output contract; a
+    user error prints one line (no traceback), a bug one line asking for a report."""
+    args = hoist_global_options(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in args
-    console = Console(quiet="--quiet" in args or "-q" in args, log_json="--log-json" in args)
+    console = Console(quiet="--quiet" in args or "-q" in args, log_json="--log-json" in args,
+                      debug=debug)
     try:
-        rv = cli.main(args=argv, prog_name="basinkit", standalone_mode=False)
-        sys.exit(rv if isinstance(rv, int) else 0)
+        rv = cli.main(args=args, prog_name="basinkit", standalone_mode=False)
+        code = rv if isinstance(rv, int) else 0
     except click.exceptions.Abort:
         click.echo("aborted", err=True)
-        sys.exit(130)
-    except click.ClickException as exc:
-        exc.show()
-        sys.exit(exc.exit_code)
+        code = 130
+    except click.exceptions.Exit as exc:
+        code = exc.exit_code
+    except click.ClickException as exc:  # usage: unknown option, bad value, ...
+        if console.log_json:
+            console.error(exc.format_message(), kind=type(exc).__name__)
+        else:
+            exc.show()
+        code = 2
     except BasinkitError as exc:
         if debug:
-            raise
+            traceback.print_exc()
         console.error(str(exc), kind=type(exc).__name__)
-        sys.exit(exc.exit_code)
+        code = exc.exit_code
     except KeyboardInterrupt:
         click.echo("interrupted", err=True)
-        sys.exit(130)
+        code = 130
     except MemoryError:
+        if debug:
+            traceback.print_exc()
         console.error("out of memory; clip the DEM to the area of interest or coarsen it")
-        sys.exit(3)
+        code = 3
+    except Exception as exc:  # noqa: BLE001 - anything else is a bug
+        if debug:
+            traceback.print_exc()
+        console.error(f"internal error ({type(exc).__name__}: {exc}); this is a bug in "
+                      "basinkit, please report it with the command you ran"
+                      + ("" if debug else " (run it again with --debug to see the "
+                                           "traceback)"), kind="InternalError")
+        code = 3
+    sys.exit(code)
 
 
 if __name__ == "__main__":

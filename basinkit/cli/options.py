@@ -46,9 +46,10 @@ def conditioning_options(f):
     f = click.option("--burn-depth", type=LENGTH, default=2.0, show_default=True,
                      help="How far to lower the cells under --burn lines (e.g. 2m; bare "
                           "numbers are metres).")(f)
-    f = click.option("--burn", type=click.Path(), default=None,
+    f = click.option("--burn", type=click.Path(), multiple=True,
                      help="Line layer (GeoPackage, GeoJSON, ...) of known channels or "
-                          "culverts to cut into the DEM before conditioning.")(f)
+                          "culverts to cut into the DEM before conditioning "
+                          "(repeatable).")(f)
     f = click.option("--max-breach-length", type=str, default=None,
                      help="Longest breach channel for --method breach (e.g. 200m, 1km).")(f)
     f = click.option("--max-breach-depth", type=LENGTH, default=None,
@@ -76,103 +77,18 @@ OUTLET_HELP_EXAMPLE = ("--outlets demo_rasters/outlets.csv --snap-radius 30m "
                        "--snap-to-channel 1ha")
 
 
-class OutletRequest:
-    """The outlet options of a subcommand, read once and snapped the same way everywhere.
+def outlet_spec(values=(), file=None, crs=None, id_column=None, snap_radius=None,
+                snap_to_channel=None):
+    """The outlet options as a :class:`basinkit.workflow.outlets.OutletSpec` (units parsed:
+    bad values are refused before any work)."""
+    from ..workflow.outlets import OutletSpec
 
-    Every subcommand that takes outlets (delineate, profile, morphometry, channels) gets one
-    of these from :func:`outlet_options`; :meth:`snap` places the outlets on the grid with
-    :func:`basinkit.analysis.outlets.prepare_outlets`, so one outlet given with the same options
-    lands on the same cell in every command (and in ``basinkit run``).
-
-    Snapping (see :func:`basinkit.analysis.outlets.snap_outlets`): by default each outlet moves to
-    the cell of greatest upstream area within ``--snap-radius`` (3 cells if not given);
-    with ``--snap-to-channel AREA`` it moves instead to the nearest cell whose upstream area
-    is at least AREA within ``--snap-radius`` (10 cells if not given).
-    """
-
-    def __init__(self, values=(), file=None, crs=None, id_column=None, snap_radius=None,
-                 snap_to_channel=None):
-        self.values = tuple(values or ())
-        self.file = file
-        self.crs = crs
-        self.id_column = id_column
-        self.snap_radius = snap_radius
-        self.snap_to_channel = snap_to_channel
-        self.radius_m = (parse_length(snap_radius, "--snap-radius")
-                         if snap_radius is not None else None)
-        self.channel_area_m2 = (parse_area(snap_to_channel, "--snap-to-channel")
-                                if snap_to_channel is not None else None)
-
-    def __bool__(self):
-        return bool(self.values or self.file)
-
-    def require(self):
-        """Raise InputError when no outlet option was given at all."""
-        if not self:
-            raise InputError("no outlets given; pass --outlet X,Y (repeatable) or "
-                             "--outlets FILE")
-
-    def read(self):
-        """Outlets as given (``outlet_id, source, x_given, y_given, given_crs``) and the
-        rows that could not be read; --outlet values come first, then the file."""
-        import pandas as pd
-
-        from ..analysis.outlets import ERROR_COLUMNS, outlets_from_text, read_outlet_file
-
-        self.require()
-        raws, errs = [], []
-        if self.values:
-            r, e = outlets_from_text(self.values, crs=self.crs)
-            raws.append(r)
-            errs.append(e)
-        if self.file:
-            r, e = read_outlet_file(self.file, crs=self.crs, id_column=self.id_column)
-            raws.append(r)
-            errs.append(e)
-        raw = pd.concat(raws, ignore_index=True)
-        errors = pd.concat([e for e in errs if len(e)] or errs[:1], ignore_index=True)
-        return raw, errors[ERROR_COLUMNS]
-
-    def snap_kwargs(self):
-        """Keyword arguments of :func:`basinkit.analysis.catchments.delineate` that place the
-        outlets exactly as :meth:`snap` does."""
-        return dict(crs=self.crs, snap_radius_m=self.radius_m,
-                    snap_to_channel_m2=self.channel_area_m2)
-
-    def snap(self, fm, raw=None, read_errors=None):
-        """Snapped outlets and all errors (reading, placing, snapping).
-
-        Returns
-        -------
-        (DataFrame, DataFrame)
-            As :func:`basinkit.analysis.outlets.prepare_outlets`; the errors table also holds the
-            rows that could not be read. Raises OutletError when no outlet is usable.
-        """
-        import pandas as pd
-
-        from ..analysis.outlets import ERROR_COLUMNS, prepare_outlets, require_outlets
-
-        if raw is None:
-            raw, read_errors = self.read()
-        if len(raw):
-            snapped, e = prepare_outlets(fm, raw, crs=self.crs, radius_m=self.radius_m,
-                                         channel_area_m2=self.channel_area_m2)
-        else:
-            snapped, e = raw.assign(cell=pd.Series(dtype="int64")), read_errors.iloc[:0]
-        parts = [x for x in (read_errors, e) if x is not None and len(x)]
-        errors = (pd.concat(parts, ignore_index=True) if parts else e)[ERROR_COLUMNS]
-        require_outlets(snapped, errors)
-        return snapped, errors.reset_index(drop=True)
-
-    def parameters(self):
-        """The outlet options for provenance records."""
-        return {"outlets": list(self.values), "outlets_file": self.file,
-                "outlet_crs": self.crs, "id_column": self.id_column,
-                "snap_radius": self.snap_radius, "snap_radius_m": self.radius_m,
-                "snap_to_channel": self.snap_to_channel,
-                "snap_to_channel_m2": self.channel_area_m2,
-                "snap_mode": ("nearest channel cell" if self.channel_area_m2 is not None
-                              else "greatest upstream area")}
+    return OutletSpec(
+        values=tuple(values or ()), file=file, crs=crs, id_column=id_column,
+        snap_radius_m=(parse_length(snap_radius, "--snap-radius")
+                       if snap_radius is not None else None),
+        snap_to_channel_m2=(parse_area(snap_to_channel, "--snap-to-channel")
+                            if snap_to_channel is not None else None))
 
 
 def outlet_options(f=None, *, purpose="An outlet position"):
@@ -180,18 +96,21 @@ def outlet_options(f=None, *, purpose="An outlet position"):
 
     Adds ``--outlet [NAME=]X,Y`` (repeatable), ``--outlets FILE``, ``--outlet-crs``,
     ``--id-column``, ``--snap-radius LENGTH`` and ``--snap-to-channel AREA``, and passes
-    the command one keyword argument ``outlets``: an :class:`OutletRequest` (units are
-    parsed, and bad values rejected, before the command body runs).
+    the command one keyword argument ``outlets``: a
+    :class:`basinkit.workflow.outlets.OutletSpec` (units are parsed, and bad values
+    rejected, before the command body runs). Every command places outlets with
+    :func:`basinkit.workflow.outlets.place_outlets`, so one outlet given with the same
+    options lands on the same cell in every command and in ``basinkit run``.
     """
     import functools
 
     def deco(fn):
         @functools.wraps(fn)
         def wrapper(*args, **kw):
-            req = OutletRequest(kw.pop("outlet_values"), kw.pop("outlet_file"),
-                                kw.pop("outlet_crs"), kw.pop("id_column"),
-                                kw.pop("snap_radius"), kw.pop("snap_to_channel"))
-            return fn(*args, outlets=req, **kw)
+            spec = outlet_spec(kw.pop("outlet_values"), kw.pop("outlet_file"),
+                               kw.pop("outlet_crs"), kw.pop("id_column"),
+                               kw.pop("snap_radius"), kw.pop("snap_to_channel"))
+            return fn(*args, outlets=spec, **kw)
 
         opts = [
             click.option("--outlet", "outlet_values", multiple=True, metavar="[NAME=]X,Y",
@@ -220,3 +139,58 @@ def outlet_options(f=None, *, purpose="An outlet position"):
         return wrapper
 
     return deco(f) if f is not None else deco
+
+
+def figure_options(f):
+    """``--figures-for ID`` (repeatable) and ``--figures/--no-figures``."""
+    f = click.option("--figures/--no-figures", default=True, show_default=True,
+                     help="Write PNG figures for the figure outlets.")(f)
+    f = click.option("--figures-for", "figures_for", multiple=True, metavar="ID",
+                     help="Outlet that gets figures (repeatable) [default: the first 20 "
+                          "outlets].")(f)
+    return f
+
+
+def output_folder(output, overwrite):
+    """The command's output folder, checked (refused when it holds files, unless
+    --overwrite) before any work is done; created at the first write."""
+    from ..workflow.output import OutputFolder
+
+    return OutputFolder(output, overwrite).check()
+
+
+def load_flow_folder(console, flowdir):
+    """Read a flow folder written by ``basinkit route``."""
+    from ..routing.flow_model import load_flow
+
+    fm = load_flow(flowdir)
+    console.info(f"read flow folder {flowdir}: {fm.shape[0]} x {fm.shape[1]} cells, "
+                 f"{fm.method} routing")
+    return fm
+
+
+def place(console, fm, outlets):
+    """Read and place the outlets (as every command does); failures are reported."""
+    from ..workflow.outlets import place_outlets
+
+    with console.stage("outlets"):
+        placed = place_outlets(fm, outlets, reporter=console)
+    console.info(f"{len(placed.table)} of {placed.given} outlet"
+                 f"{'s' if placed.given != 1 else ''} placed")
+    return placed
+
+
+def finish(console, failed=0):
+    """Print the cautions once and return the exit status (1 when outlets failed)."""
+    from ..workflow.cautions import CAUTION_TEXT
+
+    console.cautions(CAUTION_TEXT)
+    return 1 if failed else 0
+
+
+def report_writer():
+    """The report room's writer, handed to the job runner (the workflow room does not
+    import the report room)."""
+    from ..report.html import write_report
+
+    return write_report

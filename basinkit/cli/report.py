@@ -2,7 +2,7 @@
 
 import click
 
-from .options import overwrite_option
+from .options import finish, overwrite_option, report_writer
 
 
 @click.command("report")
@@ -29,7 +29,8 @@ def command(console, run_folder, output, outlets, overwrite):
     from pathlib import Path
 
     from ..errors import InputError
-    from ..workflow.jobs import job_from_dict, run_job
+    from ..workflow.jobfile import job_from_dict
+    from ..workflow.runner import run_job
     from ..terrain.model import file_sha256
     from ..io.writers import atomic_path, check_output
 
@@ -63,7 +64,7 @@ def command(console, run_folder, output, outlets, overwrite):
     job = job_from_dict(params, base=Path(job_file).parent if job_file else folder)
     tmp = Path(tempfile.mkdtemp(prefix="basinkit-report-"))
     try:
-        res = run_job(job, output=tmp / "run", console=console)
+        res = run_job(job, output=tmp / "run", console=console, report=report_writer())
         if "report.html" not in res.files:
             raise InputError("the report could not be written: "
                              f"{res.stages.get('report', {}).get('note', 'unknown reason')}")
@@ -72,3 +73,4 @@ def command(console, run_folder, output, outlets, overwrite):
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     console.info(f"wrote {out}")
+    return finish(console)

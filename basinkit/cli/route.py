@@ -1,9 +1,10 @@
-"""``basinkit route``: condition, route flow and accumulate; writes a flow folder."""
+"""``basinkit route``: condition, route flow and accumulate; writes a flow folder (the flow
+step of :mod:`basinkit.workflow.steps`)."""
 
 import click
 
-from .options import (conditioning_options, dem_options, overwrite_option, parse_length,
-                      read_dem_from_options)
+from .options import (conditioning_options, dem_options, finish, output_folder,
+                      overwrite_option, parse_length)
 
 
 @click.command("route")
@@ -29,31 +30,21 @@ def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
     Example: basinkit route demo_rasters/upland_valley.tif \\
         --burn demo_rasters/culverts.geojson --burn-depth 1m -o flow/
     """
-    import time
-    from pathlib import Path
+    from ..workflow.steps import FlowSettings, flow_step
+    from ..workflow.steps.flow import read_burn_lines, read_terrain
 
-    from ..routing.flow_model import route
-    from ..io.writers import prepare_output_dir
-
-    if Path(output).exists():  # refuse a used folder now; create it only when writing
-        prepare_output_dir(output, overwrite)
-    t0 = time.perf_counter()
-    terrain = read_dem_from_options(dem, band, crs, sea_level, base_level)
-    console.info(f"read {dem}: {terrain.shape[0]} x {terrain.shape[1]} cells, "
-                 f"{int(terrain.valid.sum()):,} valid")
-    mbl = parse_length(max_breach_length, "--max-breach-length") if max_breach_length else None
-    opts = dict(epsilon=epsilon, max_breach_depth=max_breach_depth, max_breach_length=mbl)
-    if burn:
-        opts.update(burn=burn, burn_depth=burn_depth)
-    fm = route(terrain, method=method, conditioning=conditioning, mfd_exponent=mfd_exponent,
-               **opts)
-    if sea_level is not None:
-        fm.parameters["sea_level"] = sea_level
-    if base_level is not None:
-        fm.parameters["base_level"] = str(base_level)
-    if fm.summary:
-        for line in fm.summary.lines():
-            console.info(line)
-    fm.save(output, overwrite=True,
-            extra_provenance={"seconds": round(time.perf_counter() - t0, 3)})
-    console.info(f"wrote flow folder {output} ({time.perf_counter() - t0:.1f} s)")
+    settings = FlowSettings(
+        dem=dem, band=band, crs=crs, sea_level_m=sea_level, base_level=base_level,
+        conditioning=conditioning, epsilon=epsilon, max_breach_depth_m=max_breach_depth,
+        max_breach_length_m=(parse_length(max_breach_length, "--max-breach-length")
+                             if max_breach_length else None),
+        burn_lines=list(burn), burn_depth_m=burn_depth, method=method,
+        mfd_exponent=mfd_exponent)
+    out = output_folder(output, overwrite)
+    with console.stage("read"):
+        terrain = read_terrain(settings)
+        lines = read_burn_lines(settings, terrain.crs)
+    out.open()
+    with console.stage("flow"):
+        flow_step(out, settings, terrain=terrain, burn=lines, reporter=console)
+    return finish(console)

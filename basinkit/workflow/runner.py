@@ -1,0 +1,421 @@
+"""The job runner: the steps of :mod:`basinkit.workflow.steps` in order, with the settings of
+a job file, into one output folder, plus ``provenance.json`` and the report.
+
+The folder holds every step's products exactly as the commands write them (the flow
+folder in ``flow/``): the runner calls the same step functions with the same settings, and
+its later steps read the flow folder back as the commands do.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .jobfile import JobSpec, read_job
+from .progress import StageTimer, as_reporter
+
+__all__ = ["JobResult", "run_job"]
+
+
+@dataclass
+class JobResult:
+    """What a job run produced.
+
+    Attributes
+    ----------
+    folder : Path
+        The output folder.
+    files : dict
+        ``{name relative to the folder: Path}`` of every file written.
+    stages : dict
+        ``{stage: {"status": "done" | "skipped" | "failed", "seconds": float, "note": str}}``.
+    flow : FlowModel
+        The model as read back from ``flow/``.
+    outlets : pandas.DataFrame or None
+        One row per outlet given (catchments.csv with ``cell`` = -1 for failed outlets).
+    catchments : Delineation or None
+    network : ChannelNetwork or None
+    morphometry : pandas.DataFrame or None
+        morphometry.csv.
+    curves : dict
+        Hypsometric curves by outlet id.
+    profiles : dict
+        Per outlet id, its flow paths and channel tables.
+    failures : pandas.DataFrame
+        Every outlet that failed: ``outlet_id, source, stage, reason``.
+    warnings : dict
+        ``{outlet id or "job": [message, ...]}``.
+    provenance : dict
+    """
+
+    folder: Path
+    files: dict = field(default_factory=dict)
+    stages: dict = field(default_factory=dict)
+    flow: object = None
+    terrain: object = None
+    outlets: object = None
+    catchments: object = None
+    network: object = None
+    morphometry: object = None
+    curves: dict = field(default_factory=dict)
+    profiles: dict = field(default_factory=dict)
+    failures: object = None
+    warnings: dict = field(default_factory=dict)
+    provenance: dict = field(default_factory=dict)
+    job: JobSpec | None = None
+
+    @property
+    def exit_status(self) -> int:
+        """0 when every outlet went through, 1 when some failed (DESIGN.md, the output
+        contract)."""
+        return 1 if self.failures is not None and len(self.failures) else 0
+
+
+def settings_of(job: JobSpec) -> dict:
+    """The step settings a job file stands for (the same objects the commands build from
+    their options)."""
+    from .outlets import OutletSpec
+    from .steps import (CatchmentSettings, ChannelSettings, FlowSettings,
+                        MorphometrySettings, ProfileSettings)
+
+    ins, cond, rt = job["inputs"], job["conditioning"], job["routing"]
+    oc, ch, pr, outs = job["outlets"], job["channels"], job["profiles"], job["outputs"]
+    figure_outlets = tuple(outs["report_outlets"])
+    return {
+        "flow": FlowSettings(
+            dem=ins["dem"], band=ins["band"], crs=ins["crs"], sea_level_m=ins["sea_level_m"],
+            base_level=ins["base_level"], conditioning=cond["method"],
+            epsilon=cond["epsilon"], max_breach_depth_m=cond["max_breach_depth_m"],
+            max_breach_length_m=cond["max_breach_length"],
+            burn_lines=list(ins["burn_lines"]), burn_depth_m=cond["burn_depth_m"],
+            method=rt["method"], mfd_exponent=rt["mfd_exponent"]),
+        "outlets": OutletSpec(file=ins["outlets"], crs=oc["crs"], id_column=oc["id_column"],
+                              snap_radius_m=oc["snap_radius_m"],
+                              snap_to_channel_m2=oc["snap_min_area"]),
+        "catchments": CatchmentSettings(labels_raster=outs["rasters"]),
+        "channels": ChannelSettings(min_area_m2=ch["min_area"], min_order=ch["min_order"]),
+        "profiles": ProfileSettings(
+            min_order=ch["min_order"],
+            concavity=None if pr["fit_concavity"] else pr["concavity"],
+            fit_concavity=pr["fit_concavity"], reference_area_m2=pr["reference_area"],
+            slope_window_m=pr["slope_window"], slope_drop_m=pr["slope_drop"],
+            vertical_precision_m=pr["vertical_precision"], figures=outs["figures"],
+            figure_outlets=figure_outlets),
+        "morphometry": MorphometrySettings(min_area_m2=ch["min_area"],
+                                           figures=outs["figures"],
+                                           figure_outlets=figure_outlets),
+    }
+
+
+def run_job(job, output=None, overwrite: bool = False, console=None,
+            report=None) -> JobResult:
+    """Run a job: flow folder → catchments → channels → profiles → morphometry → report.
+
+    Parameters
+    ----------
+    job : JobSpec, str or Path
+        A validated job or the path of a TOML job file.
+    output : str or Path, optional
+        Output folder; overrides ``[outputs] folder``.
+    overwrite : bool
+        Allow a folder that holds files; files an earlier job run listed in its
+        provenance.json and this run did not write again are removed (nothing else).
+    console : reporter, optional
+        Where progress goes (see :mod:`basinkit.workflow.progress`); silent by default.
+    report : callable, optional
+        The report writer, e.g. :func:`basinkit.write_report` (the report room comes after
+        the workflow room, so the runner is given it; ``basinkit run`` gives it). It is
+        called with the output folder, after provenance.json is written, when
+        ``[outputs] report`` is true; without it the report stage is skipped with a note.
+
+    Returns
+    -------
+    JobResult
+        ``exit_status`` is 1 when some outlets failed (listed in ``failures``, in
+        outlet_errors.csv and in the tables' ``error`` columns), else 0.
+
+    Raises
+    ------
+    BasinkitError
+        A bad job file, DEM, outlet file or output folder (found before anything is
+        written), or a stage that cannot run with the given settings.
+
+    Notes
+    -----
+    Outputs (see the products contract): ``flow/``; catchments.csv, catchments.gpkg,
+    catchments.json, outlet_errors.csv (when an outlet failed), subcatchment_labels.tif
+    (``rasters``); channel_segments.csv, channels.gpkg, strahler_order.tif, channels.json;
+    profile.csv, steepness.csv, knickpoints.csv, flow_paths.csv, profiles.gpkg,
+    profiles.json; morphometry.csv, hypsometry.csv, morphometry.json; figures/ for the
+    figure outlets; report.html and provenance.json. Tables and rasters are deterministic.
+
+    Examples
+    --------
+    >>> from basinkit.workflow.runner import run_job
+    >>> from basinkit.workflow.jobfile import demo_job_path
+    >>> res = run_job(demo_job_path(), output="demo-out", overwrite=True)  # doctest: +SKIP
+    >>> res.exit_status  # doctest: +SKIP
+    0
+    """
+    import pandas as pd
+
+    from ..routing.flow_model import load_flow
+    from .output import OutputFolder
+    from .steps import (catchments_step, channels_step, flow_step, morphometry_step,
+                        profiles_step)
+    from .steps.flow import read_burn_lines, read_terrain
+
+    rep = as_reporter(console)
+    if not isinstance(job, JobSpec):
+        job = read_job(job)
+    folder = Path(output) if output is not None else job["outputs"]["folder"]
+    out = OutputFolder(folder, overwrite).check()
+    earlier = _files_of_earlier_run(folder)
+    res = JobResult(folder=out.folder, job=job)
+    timer = StageTimer(rep)
+    res.stages = timer.stages
+    t_start = time.perf_counter()
+    st = settings_of(job)
+    spec = st["outlets"]
+    # everything a user can get wrong is read before anything is written
+    with timer("read"):
+        inputs = _hashes(job)
+        terrain = read_terrain(st["flow"])
+        burn = read_burn_lines(st["flow"], terrain.crs)
+        raw = read_errors = None
+        if spec:
+            raw, read_errors = spec.read()
+    out.open()
+    res.terrain = terrain
+    with timer("flow"):
+        flow_step(out.sub("flow"), st["flow"], terrain=terrain, burn=burn, reporter=rep)
+        del terrain
+        fm = load_flow(out.folder / "flow")  # as the commands read it
+    res.flow = fm
+    placed = cres = None
+    failures = []
+    if spec:
+        with timer("catchments"):
+            from .outlets import place_outlets
+
+            placed = place_outlets(fm, spec, raw, read_errors, reporter=rep)
+            cres = catchments_step(out, fm, placed, st["catchments"], reporter=rep,
+                                   parameters={"outlets": spec.parameters()})
+        res.catchments = cres.delineation
+        failures.append(placed.errors.assign(stage="outlets"))
+    else:
+        timer.skip("catchments", "no outlets file in [inputs]; catchments, profiles and "
+                                 "morphometry need outlets")
+    with timer("channels"):
+        chres = channels_step(out, fm, st["channels"],
+                              outlet_cells=None if placed is None else placed.cells,
+                              reporter=rep)
+    res.network = chres.network
+    if placed is None:
+        timer.skip("profiles", "no outlets")
+        timer.skip("morphometry", "no outlets")
+    else:
+        if job["profiles"]["enabled"]:
+            with timer("profiles"):
+                pres = profiles_step(out, fm, placed, chres.network, st["profiles"],
+                                     reporter=rep)
+            res.profiles = pres.paths
+            failures.append(pres.failures.assign(stage="profiles"))
+        else:
+            timer.skip("profiles", "turned off in the job file ([profiles] enabled = false)")
+        if job["morphometry"]["enabled"]:
+            with timer("morphometry"):
+                mres = morphometry_step(out, fm, placed, network=chres.network,
+                                        delineation=cres.delineation,
+                                        settings=st["morphometry"], reporter=rep)
+            res.morphometry = mres.table
+            res.curves = mres.curves
+            m = mres.table.iloc[:len(placed.table)]
+            m = m[m["error"] != ""]
+            failures.append(pd.DataFrame({"outlet_id": m["outlet_id"], "source": m["source"],
+                                          "reason": m["error"], "stage": "morphometry"}))
+        else:
+            timer.skip("morphometry",
+                       "turned off in the job file ([morphometry] enabled = false)")
+    cols = ["outlet_id", "source", "stage", "reason"]
+    parts = [f[cols] for f in failures if len(f)]
+    res.failures = (pd.concat(parts, ignore_index=True) if parts
+                    else pd.DataFrame(columns=cols))
+    res.outlets = _outlet_rows(cres)
+    res.warnings = _warnings(job, fm, cres, res.profiles)
+    res.provenance = _provenance(job, fm, inputs, placed, res, t_start)
+    res.provenance["files"] = out.hashes()
+    out.json("provenance.json", res.provenance)
+    if job["outputs"]["report"] and report is None:
+        timer.skip("report", "no report writer given (basinkit run writes the report; from "
+                             "Python pass report=basinkit.write_report)")
+    elif job["outputs"]["report"]:
+        _report(job, out, res, timer, rep, report)
+    res.provenance["seconds_total"] = round(time.perf_counter() - t_start, 3)
+    res.provenance["files"] = {k: v for k, v in out.hashes().items()
+                               if k != "provenance.json"}
+    out.json("provenance.json", res.provenance)
+    res.files = out.files
+    stale = _remove_stale(out.folder, earlier, set(res.files))
+    if stale:
+        rep.info(f"removed {stale} file(s) left from an earlier job run in {out.folder}")
+    if len(res.failures):
+        rep.warn(f"{len(res.failures)} outlet failure(s): see outlet_errors.csv and the "
+                 "error columns of the tables")
+    rep.info(f"wrote {out.folder} ({res.provenance['seconds_total']:.1f} s)")
+    return res
+
+
+def _report(job, out, res, timer, rep, write_report):
+    """The report stage: ``write_report`` is given the output folder (or, for a report
+    writer that takes a job result, this run's result)."""
+    import inspect
+
+    known = set() if res.outlets is None else set(res.outlets["outlet_id"].astype(str))
+    unknown = [i for i in job["outputs"]["report_outlets"] if i not in known]
+    if unknown:
+        msg = ("[outputs] report_outlets names outlets that are not in the outlet file: "
+               + ", ".join(unknown))
+        res.warnings.setdefault("job", []).append(msg)
+        rep.warn(msg)
+    with timer("report"):
+        first = next(iter(inspect.signature(write_report).parameters))
+        target = out.path("report.html")
+        if first == "res":  # the report of a job result (in memory)
+            write_report(res, target, progress=rep.progress)
+        else:  # the report built from the files in the output folder
+            kw = {}
+            params = inspect.signature(write_report).parameters
+            if "progress" in params:
+                kw["progress"] = rep.progress
+            if "reporter" in params:
+                kw["reporter"] = rep
+            write_report(out.folder, **kw)
+        out.adopt("report.html")
+
+
+def _outlet_rows(cres):
+    """One row per outlet given (catchments.csv with ``cell`` = -1 for failed outlets)."""
+    if cres is None:
+        return None
+    t = cres.table.copy()
+    for c in ("cell", "row", "col"):
+        if c in t.columns:
+            t[c] = t[c].fillna(-1).astype("int64")
+    snap = cres.delineation.table.set_index("file_id")["snap_warning"] \
+        if "snap_warning" in cres.delineation.table else None
+    if snap is not None:
+        t["snap_warning"] = t["file_id"].map(snap).fillna("").astype(str)
+    if "description" not in t.columns:
+        t["description"] = ""
+    t["description"] = t["description"].fillna("").astype(str)
+    t["error"] = t["error"].fillna("").astype(str)
+    return t
+
+
+def _warnings(job, fm, cres, profiles):
+    """``{"job": [...], outlet_id: [...]}``: the job's warnings and each outlet's."""
+    w = {"job": []}
+    crs = fm.terrain.crs
+    if crs is not None and crs.is_geographic:
+        w["job"].append("The DEM is in geographic coordinates: cells are not square and "
+                        "shrink towards the poles; areas and lengths were computed on the "
+                        "ellipsoid, but slopes are less reliable than on a projected grid. "
+                        "Consider reprojecting to a local projected CRS.")
+    if not job["inputs"]["burn_lines"]:
+        w["job"].append("No culverts, storm sewers or diversions were burned in: road and "
+                        "rail embankments act as dams and the catchments above them may be "
+                        "wrong.")
+    if fm.parameters.get("cells_without_outlet"):
+        w["job"].append(f"{fm.parameters['cells_without_outlet']:,} cells have no outlet "
+                        "after routing (unconditioned depressions).")
+    cond = (getattr(fm, "meta", None) or {}).get("conditioning") or {}
+    if cond.get("depressions", 0) >= 100:
+        w["job"].append(f"Conditioning filled {cond['depressions']:,} closed depressions "
+                        f"({cond.get('filled_volume_m3', 0):,.0f} m³). Most are usually "
+                        "noise, but real ponds, sinkholes and quarries may hold water that "
+                        "never reaches the outlets.")
+    if cres is not None:
+        for r in cres.table.itertuples():
+            msgs = [m for m in (str(r.error or ""), str(r.warning or "")) if m and m != "nan"]
+            if r.status == "ok":
+                msgs += (profiles.get(str(r.outlet_id), {}).get("warnings") or [])
+                w[str(r.outlet_id)] = w.get(str(r.outlet_id), []) + msgs
+            elif str(r.outlet_id) not in w:
+                w[str(r.outlet_id)] = msgs
+    return w
+
+
+def _provenance(job, fm, inputs, placed, res, t_start):
+    from .. import __version__
+    from .cautions import CAUTION_TEXT
+    from .steps._common import grid_facts
+
+    crs = fm.terrain.crs
+    prov = {
+        "software": "basinkit", "version": __version__,
+        "job": {"name": job["job"]["name"], "description": job["job"]["description"],
+                "file": str(job.path) if job.path else None},
+        "parameters": job.parameters(), "inputs": inputs,
+        "crs": crs.to_wkt() if crs is not None else None,
+        "crs_epsg": crs.to_epsg() if crs is not None else None,
+        **grid_facts(fm),
+        "conditioning": (getattr(fm, "meta", None) or {}).get("conditioning"),
+        "snapping": None if placed is None else placed.snapping,
+        "outlets": None if placed is None else {
+            "given": placed.given, "placed": int(len(placed.table)),
+            "failed": int(len(res.failures))},
+        "failures": res.failures.astype(str).to_dict(orient="records")[:10000],
+        "stages": res.stages,
+        "warnings": res.warnings,
+        "cautions": CAUTION_TEXT,
+        "seconds_total": round(time.perf_counter() - t_start, 3),
+    }
+    return prov
+
+
+def _hashes(job):
+    from ..terrain.model import file_sha256
+
+    ins = job["inputs"]
+    out = {}
+    for key in ("dem", "outlets", "base_level"):
+        if ins[key] is not None:
+            out[key] = {"path": str(ins[key]), "sha256": file_sha256(ins[key])}
+    for i, p in enumerate(ins["burn_lines"]):
+        out[f"burn_lines_{i + 1}"] = {"path": str(p), "sha256": file_sha256(p)}
+    if job.path is not None:
+        out["job_file"] = {"path": str(job.path), "sha256": file_sha256(job.path)}
+    return out
+
+
+def _files_of_earlier_run(folder):
+    """Files an earlier job wrote into ``folder``, as listed in its provenance.json (only
+    those are ever removed, never anything else a user keeps there)."""
+    import json
+
+    p = Path(folder) / "provenance.json"
+    try:
+        listed = json.loads(p.read_text(encoding="utf-8")).get("files", [])
+    except (OSError, ValueError, AttributeError):
+        return set()
+    return {str(f) for f in listed if isinstance(f, str)} | {"provenance.json"}
+
+
+def _remove_stale(folder, earlier, current):
+    """Remove files of an earlier run that this run did not write again (an outlet dropped
+    from the job, a stage turned off), and folders left empty by that. Returns the count."""
+    root = Path(folder).resolve()
+    removed = 0
+    for name in sorted(earlier - current - {"provenance.json"}):
+        p = (root / name).resolve()
+        if root not in p.parents or not p.is_file():
+            continue  # only plain files inside the output folder
+        p.unlink()
+        removed += 1
+        d = p.parent
+        while d != root and d.is_dir() and not any(d.iterdir()):
+            d.rmdir()
+            d = d.parent
+    return removed

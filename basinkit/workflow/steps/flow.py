@@ -1,0 +1,140 @@
+"""The flow-folder step (``basinkit route``; ``flow/`` in a job): read the DEM, burn the
+given lines, condition, route, accumulate, and write the flow folder."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from ..progress import as_reporter
+from ._common import CAUTION_TEXT
+
+__all__ = ["FlowSettings", "read_terrain", "flow_step"]
+
+
+@dataclass
+class FlowSettings:
+    """Settings of the flow step (defaults as ``basinkit route``).
+
+    Attributes
+    ----------
+    dem : str or Path
+    band, crs, sea_level_m, base_level
+        How to read the DEM (see :func:`basinkit.read_dem`).
+    conditioning : {"fill", "breach", "none"}
+    epsilon, max_breach_depth_m, max_breach_length_m
+        Conditioning options (see :func:`basinkit.condition`).
+    burn_lines : list of paths
+        Line layers (culverts, known channels) burned ``burn_depth_m`` deep first.
+    method : {"d8", "dinf", "mfd"}
+    mfd_exponent : float
+    """
+
+    dem: object
+    band: int | None = None
+    crs: object = None
+    sea_level_m: float | None = None
+    base_level: object = None
+    conditioning: str = "fill"
+    epsilon: float = 0.0
+    max_breach_depth_m: float | None = None
+    max_breach_length_m: float | None = None
+    burn_lines: list = field(default_factory=list)
+    burn_depth_m: float = 2.0
+    method: str = "d8"
+    mfd_exponent: float = 1.1
+
+    def parameters(self) -> dict:
+        return {"dem": str(self.dem), "band": self.band,
+                "crs": None if self.crs is None else str(self.crs),
+                "sea_level_m": self.sea_level_m,
+                "base_level": None if self.base_level is None else str(self.base_level),
+                "conditioning": self.conditioning, "epsilon": self.epsilon,
+                "max_breach_depth_m": self.max_breach_depth_m,
+                "max_breach_length_m": self.max_breach_length_m,
+                "burn_lines": [str(p) for p in self.burn_lines],
+                "burn_depth_m": self.burn_depth_m, "method": self.method,
+                "mfd_exponent": self.mfd_exponent}
+
+
+def read_terrain(settings: FlowSettings):
+    """Read the DEM as the settings say (raises InputError for a bad DEM)."""
+    from ...terrain.model import read_dem
+
+    return read_dem(settings.dem, band=settings.band, crs=settings.crs,
+                    sea_level=settings.sea_level_m, base_level=settings.base_level)
+
+
+def read_burn_lines(settings: FlowSettings, crs) -> list:
+    """The burn lines of every layer, in the DEM's CRS (InputError for a missing or
+    unreadable layer)."""
+    from ...conditioning.burn import read_lines
+
+    geoms = []
+    for p in settings.burn_lines:
+        geoms.extend(read_lines(p, crs))
+    return geoms
+
+
+def flow_step(out, settings: FlowSettings, terrain=None, burn=None, reporter=None):
+    """Condition and route the DEM and write the flow folder into ``out``.
+
+    Parameters
+    ----------
+    out : OutputFolder
+        The flow folder (a job passes ``folder.sub("flow")``).
+    settings : FlowSettings
+    terrain : Terrain, optional
+        The DEM already read with :func:`read_terrain` (read here otherwise).
+    burn : list of lines, optional
+        The burn lines already read with :func:`read_burn_lines`.
+    reporter : optional
+        See :mod:`basinkit.workflow.progress`.
+
+    Returns
+    -------
+    FlowModel
+        The model as written (later steps of a job read the folder back, as the commands
+        do, so that both see the same model).
+    """
+    import time
+
+    from ...routing.flow_model import FILES, route
+
+    rep = as_reporter(reporter)
+    t0 = time.perf_counter()
+    if terrain is None:
+        terrain = read_terrain(settings)
+    rep.info(f"read {settings.dem}: {terrain.shape[0]} x {terrain.shape[1]} cells, "
+             f"{int(terrain.valid.sum()):,} valid")
+    if burn is None:
+        burn = read_burn_lines(settings, terrain.crs)
+    opts = dict(epsilon=settings.epsilon, max_breach_depth=settings.max_breach_depth_m,
+                max_breach_length=settings.max_breach_length_m)
+    if settings.burn_lines:
+        opts.update(burn=burn, burn_depth=settings.burn_depth_m)
+    fm = route(terrain, method=settings.method, conditioning=settings.conditioning,
+               mfd_exponent=settings.mfd_exponent, **opts)
+    if settings.burn_lines:  # the layers' names, not the geometries, in the record
+        fm.parameters["burn"] = [str(p) for p in settings.burn_lines]
+    if settings.sea_level_m is not None:
+        fm.parameters["sea_level"] = settings.sea_level_m
+    if settings.base_level is not None:
+        fm.parameters["base_level"] = str(settings.base_level)
+    for line in (fm.summary.lines() if fm.summary else []):
+        rep.info(line)
+    inputs = {}
+    if settings.burn_lines:
+        from ...terrain.model import file_sha256
+
+        inputs = {f"burn_lines_{i + 1}": {"path": str(p), "sha256": file_sha256(p)}
+                  for i, p in enumerate(settings.burn_lines)}
+    folder = out.folder
+    fm.save(folder, overwrite=True,
+            extra_provenance={"cautions": CAUTION_TEXT, "burn_line_inputs": inputs,
+                              "seconds": round(time.perf_counter() - t0, 3)})
+    for name in FILES.values():
+        if (Path(folder) / name).exists():
+            out.adopt(name)
+    rep.info(f"wrote flow folder {folder} ({time.perf_counter() - t0:.1f} s)")
+    return fm

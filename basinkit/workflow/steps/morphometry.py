@@ -1,0 +1,203 @@
+"""The morphometry step (``basinkit morphometry``): network, shape and relief descriptors of
+the full catchment of every placed outlet, and the hypsometric curves, one table each."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ...errors import InputError
+from ..progress import as_reporter
+from ._common import step_record
+
+__all__ = ["MorphometrySettings", "MorphometryResult", "morphometry_step"]
+
+
+@dataclass
+class MorphometrySettings:
+    """Settings of the morphometry step.
+
+    Attributes
+    ----------
+    min_area_m2 : float, optional
+        Channel threshold for the network measures (stream counts, Horton ratios,
+        drainage density) when no network is given; without either they are left out.
+    slope_area : (exponent, constant), optional
+    figures : bool
+        Write the hypsometric curves of the figure outlets as PNG.
+    figure_outlets : tuple of str
+        Ids of the outlets that get figures (default: the first 20).
+    """
+
+    min_area_m2: float | None = None
+    slope_area: tuple | None = None
+    figures: bool = True
+    figure_outlets: tuple = field(default_factory=tuple)
+
+    def check(self):
+        if self.min_area_m2 is not None and not self.min_area_m2 > 0:
+            raise InputError("the channel threshold (--min-area) must be positive, e.g. 2ha")
+        if self.slope_area is not None and len(self.slope_area) != 2:
+            raise InputError("the slope–area criterion needs an exponent and a constant")
+        return self
+
+    def parameters(self) -> dict:
+        return {"min_area_m2": self.min_area_m2,
+                "slope_area_exponent": None if self.slope_area is None else self.slope_area[0],
+                "slope_area_constant": None if self.slope_area is None else self.slope_area[1],
+                "figures": self.figures, "figure_outlets": list(self.figure_outlets)}
+
+
+@dataclass
+class MorphometryResult:
+    """morphometry.csv (``table``, one row per outlet given) and hypsometry.csv
+    (``hypsometry``); ``failed`` counts the rows with an error."""
+
+    table: object
+    hypsometry: object
+    curves: dict = field(default_factory=dict)
+
+    @property
+    def failed(self) -> int:
+        return int((self.table["error"].astype(str) != "").sum())
+
+
+def morphometry_step(out, fm, placed, network=None, delineation=None,
+                     settings: MorphometrySettings | None = None, reporter=None,
+                     parameters: dict | None = None,
+                     inputs: dict | None = None) -> MorphometryResult:
+    """Measure the full catchment of every placed outlet; write morphometry.csv (one row
+    per outlet given, ``error`` for those that could not be measured), hypsometry.csv,
+    morphometry.json and the hypsometric curves of the figure outlets.
+
+    Parameters
+    ----------
+    out : OutputFolder
+    fm : FlowModel
+    placed : PlacedOutlets
+    network : ChannelNetwork, optional
+        The channel network (else built from ``settings.min_area_m2``, if given).
+    delineation : Delineation, optional
+        The catchments of the placed outlets (else delineated here, without polygons).
+    settings : MorphometrySettings, optional
+    """
+    import pandas as pd
+
+    from ...analysis.catchments import delineate
+    from ...analysis.morphometry import morphometry_table
+
+    s = (settings or MorphometrySettings()).check()
+    rep = as_reporter(reporter)
+    if delineation is None:
+        delineation = delineate(fm, placed.table, polygons=False)
+    d = delineation
+    tab = d.table
+    if network is None and s.min_area_m2 is not None:
+        from .channels import build_network
+
+        network = build_network(fm, s.min_area_m2, s.slope_area, placed.cells,
+                                geometry=False)
+    if network is None:
+        rep.warn("no channel threshold given (--min-area): network measures (stream counts, "
+                 "Horton ratios, drainage density) are left out")
+    nested = bool((tab["upstream_outlet_count"] > 0).any())
+    cells = tab["cell"].to_numpy(np.int64)
+    if nested:  # full catchments overlap: one mask per outlet, made when measured
+        masks = _Masks(d)
+        ids = np.arange(1, len(tab) + 1)
+    else:  # each sub-catchment is a full catchment: the label grid, one window each
+        masks = d.labels
+        ids = tab["label"].to_numpy(np.int64)
+    table, curves = morphometry_table(fm, masks, cells, ids=ids, network=network,
+                                      return_curves=True, progress=rep.progress)
+    curves = [curves.get(i.item() if hasattr(i, "item") else i) for i in table["catchment_id"]]
+    table = table.drop(columns="catchment_id")
+    table.insert(0, "outlet_id", tab["outlet_id"].astype(str).to_numpy())
+    table.insert(1, "file_id", tab["file_id"].to_numpy())
+    table.insert(2, "source", tab["source"].astype(str).to_numpy())
+    table.insert(3, "snap_distance_m", tab["snap_distance_m"].to_numpy())
+    errors = placed.errors
+    if len(errors):  # outlets that could not be placed: a row each, with the reason
+        extra = pd.DataFrame({"outlet_id": errors["outlet_id"].astype(str),
+                              "source": errors["source"].astype(str),
+                              "error": errors["reason"].astype(str)})
+        table = pd.concat([table, extra], ignore_index=True)
+    table["error"] = table["error"].fillna("").astype(str)
+    hyps = []
+    by_id = {}
+    for oid, curve in zip(tab["outlet_id"].astype(str), curves):
+        if curve is not None:
+            by_id.setdefault(oid, curve)
+            c = curve.assign(area_above_km2=curve["area_above_m2"] / 1e6)
+            c = c.drop(columns="area_above_m2")
+            c.insert(0, "outlet_id", oid)
+            hyps.append(c)
+    hyps = (pd.concat(hyps, ignore_index=True) if hyps else
+            pd.DataFrame(columns=["outlet_id", "relative_height", "relative_area_above",
+                                  "elevation_m", "area_above_km2"]))
+    fig_rows, missing = placed.figure_rows(s.figure_outlets)
+    files = ["morphometry.csv", "hypsometry.csv", "morphometry.json"]
+    out.csv("morphometry.csv", table)
+    out.csv("hypsometry.csv", hyps)
+    if s.figures:
+        for k in fig_rows:
+            if curves[k] is None:
+                continue
+            fid = str(tab["file_id"].iloc[k])
+            fig = _hypsometry_figure(curves[k], f"outlet {tab['outlet_id'].iloc[k]}",
+                                     float(table["hypsometric_integral"].iloc[k]))
+            out.figure(f"figures/{fid}_hypsometry.png", fig, dpi=100)
+            files.append(f"figures/{fid}_hypsometry.png")
+    bad = table[table["error"] != ""]
+    measured = table.iloc[:len(tab)]
+    for r in measured[measured["error"] != ""].itertuples():  # placing failures: reported
+        rep.outlet_failed(str(r.outlet_id), str(r.error), "morphometry",  # when placed
+                          source=str(r.source))
+    params = {**s.parameters(), **(parameters or {}), "snapping": placed.snapping,
+              "channel_min_area_m2": (None if network is None
+                                      else float(network.min_area_m2))}
+    meta = step_record(fm, params, inputs, files=files, snapping=placed.snapping,
+                       nested_outlets=nested, outlets_measured=int(len(table) - len(bad)),
+                       outlets_failed=int(len(bad)), warnings=list(d.warnings)[:1000])
+    out.json("morphometry.json", meta)
+    rep.info(f"measured {len(table) - len(bad)} catchments"
+             + (f"; {len(bad)} of {len(table)} outlets could not be measured (see the error "
+                "column)" if len(bad) else ""))
+    return MorphometryResult(table, hyps, by_id)
+
+
+class _Masks:
+    """The full-catchment masks of a delineation, one made each time it is asked for (a
+    list of thousands of full-grid masks would not fit in memory)."""
+
+    def __init__(self, d):
+        self.d = d
+        self.ids = d.table["outlet_id"].astype(str).tolist()
+
+    def __len__(self):
+        return len(self.ids)
+
+    def __getitem__(self, i):
+        return self.d.catchment_mask(self.ids[i])
+
+
+def _hypsometry_figure(curve, label, integral):
+    """The hypsometric curve (Strahler 1952): relative height h/H against relative area
+    above a/A, with the integral in the legend."""
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(5, 4.5), dpi=100)
+    ax = fig.add_subplot(1, 1, 1)
+    text = label + (f" (integral {integral:.3f})" if np.isfinite(integral) else "")
+    ax.plot(curve["relative_area_above"], curve["relative_height"], lw=2, label=text)
+    ax.plot([0, 1], [1, 0], ls=":", lw=1, color="0.5", label="integral 0.5 (reference)")
+    ax.set_xlabel("relative area above, a/A (–)")
+    ax.set_ylabel("relative height, h/H (–)")
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1)
+    ax.set_title("Hypsometric curve")
+    ax.legend(loc="upper right", fontsize=8)
+    ax.grid(alpha=0.3)
+    fig.tight_layout()
+    return fig

@@ -1,0 +1,352 @@
+"""The profiles step (``basinkit profile``): longitudinal profiles, χ, k_sn per channel
+segment, knickpoints and the flow paths (longest flow path and main stem) of every placed
+outlet, in one table per product with an ``outlet_id`` column."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ...errors import BasinkitError, InputError
+from ..progress import as_reporter
+from ._common import layer_metadata, step_record
+
+__all__ = ["ProfileSettings", "ProfilesResult", "profiles_step", "FIGURES"]
+
+# the profile figures of a figure outlet: figures/<file_id>_<what>.png
+FIGURES = ("long_profile", "longest_flow_path", "chi_elevation", "slope_area")
+
+
+@dataclass
+class ProfileSettings:
+    """Settings of the profiles step (defaults as ``basinkit profile``).
+
+    Attributes
+    ----------
+    min_order : int
+        Lowest Strahler order of the channels profiled.
+    concavity : float, optional
+        θ for χ and k_sn (default 0.45); ``fit_concavity`` fits it per outlet instead.
+    reference_area_m2 : float
+        A0 for χ.
+    slope_window_m, slope_drop_m : float, optional
+        Local slope over a distance window (default 20 m) or a vertical interval.
+    vertical_precision_m : float
+        Vertical precision of the DEM, for knickpoint detection.
+    figures : bool
+        Write PNG figures for the figure outlets.
+    figure_outlets : tuple of str
+        Ids of the outlets that get figures (default: the first 20).
+    """
+
+    min_order: int = 2
+    concavity: float | None = None
+    fit_concavity: bool = False
+    reference_area_m2: float = 1.0
+    slope_window_m: float | None = None
+    slope_drop_m: float | None = None
+    vertical_precision_m: float = 1.0
+    figures: bool = True
+    figure_outlets: tuple = field(default_factory=tuple)
+
+    def check(self):
+        """Raise InputError for settings that cannot work (before any work is done)."""
+        from ...analysis.profiles import _check_theta
+
+        if self.concavity is not None and self.fit_concavity:
+            raise InputError("give either --concavity or --fit-concavity, not both")
+        _check_theta(self.theta)
+        if not self.reference_area_m2 > 0:
+            raise InputError("the reference area must be positive (e.g. 1m2)")
+        if self.slope_window_m is not None and self.slope_drop_m is not None:
+            raise InputError("give either --slope-window or --slope-drop, not both")
+        if int(self.min_order) < 1:
+            raise InputError("--min-order must be 1 or more")
+        if not self.vertical_precision_m > 0:
+            raise InputError("the vertical precision must be positive (e.g. 0.5m)")
+        return self
+
+    @property
+    def theta(self) -> float:
+        from ...analysis.profiles import DEFAULT_CONCAVITY
+
+        return DEFAULT_CONCAVITY if self.concavity is None else float(self.concavity)
+
+    def parameters(self) -> dict:
+        return {"min_order": int(self.min_order),
+                "concavity": None if self.fit_concavity else self.theta,
+                "fit_concavity": self.fit_concavity,
+                "reference_area_m2": self.reference_area_m2,
+                "slope_window_m": self.slope_window_m, "slope_drop_m": self.slope_drop_m,
+                "vertical_precision_m": self.vertical_precision_m, "figures": self.figures,
+                "figure_outlets": list(self.figure_outlets)}
+
+
+@dataclass
+class ProfilesResult:
+    """Tables written by the profiles step, and the flow paths per outlet.
+
+    Attributes
+    ----------
+    nodes, steepness, knickpoints, flow_paths : pandas.DataFrame
+        profile.csv, steepness.csv, knickpoints.csv, flow_paths.csv.
+    paths : dict
+        ``{outlet_id: {"longest_flow_path": Profile, "main_stem": Profile}}``.
+    failures : pandas.DataFrame
+        ``outlet_id, source, reason`` of outlets whose profiles failed.
+    """
+
+    nodes: object
+    steepness: object
+    knickpoints: object
+    flow_paths: object
+    paths: dict
+    failures: object
+
+    @property
+    def failed(self) -> int:
+        return int(len(self.failures))
+
+
+def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = None,
+                  reporter=None, parameters: dict | None = None,
+                  inputs: dict | None = None) -> ProfilesResult:
+    """Profiles of every placed outlet; writes profile.csv, steepness.csv,
+    knickpoints.csv, flow_paths.csv, profiles.gpkg (layers ``profiles`` and
+    ``knickpoints``), profiles.json and the figures of the figure outlets.
+
+    Every outlet gets its longest flow path and main stem (two rows of flow_paths.csv and
+    their nodes in profile.csv). An outlet on a channel of Strahler order ≥ ``min_order``
+    also gets the profiles of every such channel upstream, k_sn per channel segment
+    (steepness.csv) and knickpoints; an outlet off those channels gets a warning instead.
+    An outlet whose computation fails keeps two rows in flow_paths.csv with the reason in
+    ``error``; the others go on.
+
+    Parameters
+    ----------
+    out : OutputFolder
+    fm : FlowModel
+    placed : PlacedOutlets
+    network : ChannelNetwork
+        With geometry (:func:`basinkit.workflow.steps.build_network`).
+    settings : ProfileSettings, optional
+    """
+    import pandas as pd
+
+    from ...analysis import profiles as P
+
+    s = (settings or ProfileSettings()).check()
+    rep = as_reporter(reporter)
+    tab = placed.table
+    fig_rows, missing = placed.figure_rows(s.figure_outlets)
+    if missing:
+        rep.warn(f"no figures for {', '.join(map(repr, missing[:10]))}: not among the "
+                 "outlets placed")
+    fig_rows = set(fig_rows) if s.figures else set()
+    strahler = np.asarray(network.strahler).ravel()
+    nodes_l, steep_l, knick_l, path_rows, lines, summaries, fails = [], [], [], [], [], [], []
+    paths = {}
+    nc = fm.ncols
+    rows = list(tab[["outlet_id", "file_id", "cell", "source"]].itertuples(index=False))
+    for k, (oid, fid, cell, src) in enumerate(rep.progress(rows, total=len(rows),
+                                                            desc="profiles")):
+        oid, fid, cell = str(oid), str(fid), int(cell)
+        try:
+            res = _one_outlet(P, fm, network, strahler, oid, fid, cell, s)
+        except BasinkitError as exc:
+            fails.append({"outlet_id": oid, "source": str(src), "reason": str(exc)})
+            rep.outlet_failed(oid, str(exc), "profiles", source=str(src))
+            for kind in ("longest_flow_path", "main_stem"):
+                path_rows.append({"outlet_id": oid, "file_id": fid, "kind": kind,
+                                  "error": str(exc)})
+            continue
+        nodes, channel, steep, knick, (lfp, ms), summary = res
+        summary.update(outlet_row=cell // nc, outlet_col=cell % nc, source=str(src))
+        for w in summary.get("warnings", []):
+            rep.warn(f"outlet {oid!r}: {w}")
+        nodes_l.append(nodes)
+        steep_l.append(steep)
+        knick_l.append(knick)
+        warning = "; ".join(summary.get("warnings", []))
+        for prof in (lfp, ms):
+            path_rows.append({"outlet_id": oid, "file_id": fid, **prof.summary(),
+                              "warning": warning, "error": ""})
+            lines.append((oid, prof))
+        summaries.append(summary)
+        paths[oid] = {"longest_flow_path": lfp, "main_stem": ms, "channel_nodes": channel,
+                      "steepness": steep, "knickpoints": knick,
+                      "warnings": summary.get("warnings", [])}
+        if k in fig_rows:
+            _figures(out, P, oid, fid, channel, steep, knick, lfp, ms)
+    nodes = _concat(nodes_l, _NODE_FIRST)
+    steep = _concat(steep_l, ["outlet_id", "segment_id"])
+    knick = _concat(knick_l, ["outlet_id"])
+    flow_paths = _concat([pd.DataFrame(path_rows)], _PATH_FIRST)
+    failures = pd.DataFrame(fails, columns=["outlet_id", "source", "reason"])
+    files = ["profile.csv", "steepness.csv", "knickpoints.csv", "flow_paths.csv",
+             "profiles.gpkg", "profiles.json"]
+    params = {**s.parameters(), **(parameters or {}),
+              "channel_min_area_m2": float(network.min_area_m2),
+              "snapping": placed.snapping}
+    meta = step_record(fm, params, inputs, files=files, snapping=placed.snapping,
+                       outlets=summaries, failures=fails,
+                       outlets_profiled=len(summaries), outlets_failed=len(fails))
+    out.csv("profile.csv", nodes)
+    out.csv("steepness.csv", steep)
+    out.csv("knickpoints.csv", knick)
+    out.csv("flow_paths.csv", flow_paths)
+    _write_layers(out, fm, network, steep, knick, lines, layer_metadata())
+    out.json("profiles.json", meta)
+    rep.info(f"profiles of {len(summaries)} outlet(s)"
+             + (f", {len(fails)} failed" if fails else ""))
+    return ProfilesResult(nodes, steep, knick, flow_paths, paths, failures)
+
+
+_NODE_FIRST = ["outlet_id", "profile_kind"]
+_PATH_FIRST = ["outlet_id", "file_id", "kind", "length_m", "slope_10_85_m_per_m",
+               "average_slope_m_per_m", "outlet_elevation_m", "head_elevation_m",
+               "outlet_elevation_conditioned_m", "head_elevation_conditioned_m",
+               "upstream_area_m2", "concavity", "reference_area_m2", "chi_head_m",
+               "node_count", "outlet_x", "outlet_y", "head_x", "head_y", "warning", "error"]
+
+
+def _concat(frames, first):
+    import pandas as pd
+
+    frames = [f for f in frames if len(f)] or frames[:1]
+    df = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=first)
+    for c in first:
+        if c not in df.columns:
+            df[c] = pd.Series(dtype=object)
+    lead = [c for c in first if c in df.columns]
+    return df[lead + [c for c in df.columns if c not in lead]]
+
+
+def _one_outlet(P, fm, net, strahler, oid, fid, cell, s):
+    """Profiles of one outlet: (all nodes, channel nodes, steepness, knickpoints,
+    (longest flow path, main stem), summary)."""
+    import pandas as pd
+
+    summary = {"outlet_id": oid, "file_id": fid}
+    warnings = []
+    theta = s.theta
+    order_here = int(strahler[cell])
+    on_channel = order_here >= int(s.min_order)
+    if s.fit_concavity and on_channel:
+        cf = P.fit_concavity(fm, net, cell, min_order=s.min_order,
+                             reference_area_m2=s.reference_area_m2)
+        theta = float(cf.concavity)
+        summary["concavity_fit"] = cf.to_dict()
+        if cf.at_grid_edge:
+            warnings.append(f"the best-fit concavity {theta:.2f} lies at the end of the range "
+                            "tried; the fit is not reliable (too few or too short "
+                            "tributaries?)")
+    opts = dict(concavity=theta, reference_area_m2=s.reference_area_m2,
+                slope_window_m=s.slope_window_m, slope_drop_m=s.slope_drop_m)
+    if on_channel:
+        nodes = P.channel_profiles(fm, net, cell, min_order=s.min_order, **opts)
+    else:
+        nodes = P.channel_profiles(fm, net, cell, min_order=s.min_order, **opts).iloc[:0]
+        warnings.append(f"the outlet lies on a channel of Strahler order {order_here}, below "
+                        f"the lowest order profiled ({s.min_order}): flow paths only, no "
+                        "channel profiles, k_sn or knickpoints (snap it onto a channel with "
+                        "--snap-to-channel AREA, or lower --min-order or the channel "
+                        "threshold)")
+    nodes["outlet_id"] = oid
+    nodes.insert(1, "profile_kind", "channel")
+    steep = P.steepness(nodes, by="segment_id")
+    steep["outlet_id"] = oid
+    knick = P.find_knickpoints(nodes, vertical_precision_m=s.vertical_precision_m)
+    knick["outlet_id"] = oid
+    lfp = P.longest_flow_path(fm, cell, network=net, **opts)
+    ms = P.main_stem(fm, cell, network=net, **opts)
+    frames = [nodes]
+    for prof in (ms, lfp):
+        f = prof.to_frame()
+        f.insert(0, "outlet_id", oid)
+        frames.append(f)
+    nodes_all = pd.concat([f for f in frames if len(f)] or frames[:1], ignore_index=True)
+    summary.update(concavity=theta, reference_area_m2=s.reference_area_m2,
+                   strahler_order_at_outlet=order_here, channel_node_count=int(len(nodes)),
+                   segment_count=int(len(steep)), knickpoint_count=int(len(knick)))
+    if len(nodes) >= 3:
+        try:
+            summary["slope_area_fit"] = P.slope_area_fit(nodes["upstream_area_m2"],
+                                                         nodes["slope_m_per_m"]).to_dict()
+        except InputError as exc:
+            summary["slope_area_fit"] = {"error": str(exc)}
+        try:
+            summary["hack_law_fit"] = P.hack_law_fit(fm, net, cell).to_dict()
+        except InputError as exc:
+            summary["hack_law_fit"] = {"error": str(exc)}
+    if warnings:
+        summary["warnings"] = warnings
+    return nodes_all, nodes, steep, knick, (lfp, ms), summary
+
+
+def _figures(out, P, oid, fid, nodes, steep, knick, lfp, ms):
+    """The four profile figures of one figure outlet."""
+    import warnings
+
+    ms_k = None
+    if len(knick) and nodes["is_main_stem"].astype(bool).any():
+        main_id = nodes.loc[nodes["is_main_stem"].astype(bool), "profile_id"].iloc[0]
+        ms_k = knick[knick["profile_id"] == main_id]
+    sa = None
+    if len(nodes) >= 3:
+        try:
+            sa = P.slope_area_fit(nodes["upstream_area_m2"], nodes["slope_m_per_m"])
+        except InputError:
+            sa = None
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # empty plots of outlets without channels
+        figs = {
+            "long_profile": P.plot_long_profile(ms, knickpoints=ms_k,
+                                                title=f"main stem, outlet {oid}"),
+            "longest_flow_path": P.plot_long_profile(lfp,
+                                                     title=f"longest flow path, outlet {oid}"),
+            "chi_elevation": P.plot_chi(nodes, knickpoints=knick, steepness_table=steep,
+                                        title=f"χ–elevation, outlet {oid}"),
+            "slope_area": P.plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"],
+                                            fit=sa, title=f"slope–area, outlet {oid}"),
+        }
+    for what in FIGURES:
+        out.figure(f"figures/{fid}_{what}.png", figs[what], dpi=120)
+
+
+def _write_layers(out, fm, net, steep, knick, lines, metadata):
+    """profiles.gpkg: ``profiles`` (segment lines with k_sn per outlet, and each outlet's
+    main stem and longest flow path) and ``knickpoints``."""
+    import geopandas as gpd
+    import pandas as pd
+    import shapely
+
+    crs = fm.terrain.crs.to_wkt() if fm.terrain.crs is not None else None
+    seg = net.segments
+    geom = seg.set_index("segment_id").geometry
+    s = steep.merge(seg[["segment_id", "length_m"]], on="segment_id", how="left")
+    s.insert(0, "kind", "channel_segment")
+    geoms = list(geom.reindex(s["segment_id"]).to_numpy()) if len(s) else []
+    extra = []
+    for oid, prof in lines:
+        xy = np.column_stack([prof.x, prof.y])
+        if len(xy) == 1:
+            xy = np.vstack([xy, xy])
+        extra.append({"kind": prof.kind, "outlet_id": oid, "length_m": prof.length_m,
+                      "concavity": prof.concavity,
+                      "reference_area_m2": prof.reference_area_m2,
+                      "ksn_m_per_m": np.nan, "slope_10_85_m_per_m": prof.slope_10_85(),
+                      "average_slope_m_per_m": prof.average_slope()})
+        geoms.append(shapely.linestrings(xy))
+    table = pd.concat([f for f in (s, pd.DataFrame(extra)) if len(f)] or [s],
+                      ignore_index=True)
+    first = ["outlet_id", "kind", "segment_id"]
+    table = table[[c for c in first if c in table] + [c for c in table if c not in first]]
+    profiles = gpd.GeoDataFrame(table, geometry=geoms, crs=crs)
+    k = knick.reset_index(drop=True)
+    kp = gpd.GeoDataFrame(k, geometry=shapely.points(k["x"].to_numpy(float),
+                                                     k["y"].to_numpy(float))
+                          if len(k) else [], crs=crs)
+    out.gpkg("profiles.gpkg", {"profiles": profiles, "knickpoints": kp}, metadata=metadata,
+             geometry_types={"profiles": "LineString", "knickpoints": "Point"})
