@@ -17,6 +17,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as hst
 
+from basinkit import write_flow_folder
 from basinkit import route, terrain_from_array
 from basinkit.analysis import profiles as P
 from basinkit.analysis.channels import extract_channels
@@ -420,7 +421,7 @@ def test_profile_command(tmp_path, base_model):
 
     from basinkit.cli.main import cli
 
-    base_model.save(tmp_path / "flow")
+    write_flow_folder(base_model, tmp_path / "flow")
     outlet = int(np.nanargmax(base_model.d8_upstream_area_flat()))
     x, y = base_model.terrain.xy_of(outlet // base_model.ncols, outlet % base_model.ncols)
     pts = tmp_path / "outlets.csv"

@@ -64,10 +64,7 @@ COLOURS = {"conditioned": "#23395b", "raw": "#8ea8c3", "base": "#b5533c",
 
 # ---------------------------------------------------------------------- helpers
 def _cached(fm, key, make):
-    k = ("profiles", key)
-    if k not in fm._cache:
-        fm._cache[k] = make()
-    return fm._cache[k]
+    return fm.derived(("profiles", key), make)
 
 
 def _area_flat(fm):

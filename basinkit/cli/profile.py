@@ -93,7 +93,7 @@ def command(console, flowdir, output, outlets, min_order, min_area, concavity, f
     from ..analysis import profiles as P
     from ..analysis.channels import extract_channels
     from ..errors import BasinkitError, InputError, OutletError
-    from ..routing.flow_model import load_flow
+    from ..io.flow_folder import load_flow
     from ..io.writers import prepare_output_dir, provenance, write_csv, write_json
 
     t0 = time.perf_counter()

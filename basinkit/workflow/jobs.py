@@ -452,7 +452,7 @@ def _read_burn_lines(paths, crs):
 
 
 def _hashes(job):
-    from ..terrain.model import file_sha256
+    from ..io.hashing import file_sha256
 
     ins = job["inputs"]
     out = {}
@@ -601,7 +601,7 @@ def _remove_stale(folder, earlier, current):
 
 
 def _output_hashes(res):
-    from ..terrain.model import file_sha256
+    from ..io.hashing import file_sha256
 
     out = {}
     for name, p in sorted(res.files.items()):
@@ -618,8 +618,9 @@ def _add(res, path):
 
 
 def _stage_route(job, res, console):
-    from ..routing.flow_model import FILES, route
-    from ..terrain.model import read_dem
+    from ..io.flow_folder import FILES, write_flow_folder
+    from ..routing.flow_model import route
+    from ..io.dem import read_dem
 
     ins, cond, rt = job["inputs"], job["conditioning"], job["routing"]
     with _Stage(res, "read", console):
@@ -641,7 +642,7 @@ def _stage_route(job, res, console):
         for line in (fm.summary.lines() if fm.summary else []):
             console.info("  " + line)
         if job["outputs"]["rasters"]:
-            fm.save(res.folder / "flow", overwrite=True)
+            write_flow_folder(fm, res.folder / "flow", overwrite=True)
             for k, name in FILES.items():
                 p = res.folder / "flow" / name
                 if p.exists():
