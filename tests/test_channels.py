@@ -19,7 +19,7 @@ from affine import Affine
 
 from basinkit import write_flow_folder
 from basinkit import InputError, route, terrain_from_array
-from basinkit.routing._d8 import build_stack
+from basinkit.routing._stack import build_stack
 from basinkit.analysis.channels import constant_drop_test, extract_channels, threshold_range
 from basinkit.routing.flow_model import FlowModel
 from conftest import PYSHEDS_DIRMAP, fractal_dem, pysheds_fdir, pysheds_grid

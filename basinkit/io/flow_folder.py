@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from ..routing import _d8
+from ..routing import _d8, _stack
 from ..routing.flow_model import D8_NODATA, FlowModel
 from ..terrain.model import Terrain
 from .writers import prepare_output_dir, provenance, write_geotiff, write_json
@@ -104,7 +104,7 @@ def load_flow(folder) -> FlowModel:
     terrain = Terrain(z.astype(np.float32), valid, transform, pcrs,
                       cell_geometry(transform, z.shape, pcrs), None,
                       meta.get("inputs", {}).get("dem", {}))
-    stack = _d8.build_stack(rec)
+    stack = _stack.build_stack(rec)
     if stack.size != int(valid.sum()):
         raise InputError(f"{FILES['d8']} in {str(p)!r} has directions that loop back on "
                          f"themselves ({int(valid.sum()) - stack.size} cells never reach an "
@@ -114,7 +114,7 @@ def load_flow(folder) -> FlowModel:
     if (p / FILES["input"]).exists():
         fm.input_elevation = _read_band(p / FILES["input"])[0].astype(np.float32)
     if fm.method in ("dinf", "mfd"):
-        from ..routing._multi import dinf_azimuth, multi_receivers
+        from ..routing.multi import dinf_azimuth, multi_receivers
 
         fm.multi = multi_receivers(fm, fm.method, params.get("mfd_exponent", 1.1))
         if fm.method == "dinf":  # same kernel, same surface: equals the saved raster

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import _d8
+from . import _d8, _stack
 from ..conditioning import ConditionSummary, condition, exit_cells
 from ..errors import InputError
 from ..terrain.memory import ROUTE_BYTES_PER_CELL, check_memory
@@ -113,14 +113,15 @@ class FlowModel:
             raise InputError(f"unknown accumulation unit {unit!r}; use cells or m2")
         if method == "d8":
             if weights is not None:
-                acc = _d8.accumulate(self.receiver, self.stack, w)
+                acc = _stack.accumulate(self.receiver, self.stack, w)
             elif unit == "cells":
-                acc = _d8.accumulate_count(self.receiver, self.stack, n)
+                acc = _stack.accumulate_count(self.receiver, self.stack, n)
             else:
-                acc = _d8.accumulate_area(self.receiver, self.stack, self.ncols,
+                acc = _stack.accumulate_area(self.receiver, self.stack, self.ncols,
                                           self.terrain.geometry.area)
         else:
-            from ._multi import accumulate_multi, multi_for
+            from ._multi import accumulate_multi
+            from .multi import multi_for
 
             if w is None:
                 w = (np.ones(n) if unit == "cells"
@@ -285,19 +286,19 @@ def flow_from_conditioned(cond: Terrain, method: str, params: dict) -> FlowModel
     flat_mask_for_multi = flat_mask if method in ("dinf", "mfd") else None
     del flat_mask
     # the stack, the cell count and the upstream area come out of one sweep
-    stack, count, area = _d8.stack_count_area(rec, cond.shape[1], cond.geometry.area)
+    stack, count, area = _stack.stack_count_area(rec, cond.shape[1], cond.geometry.area)
     fm = FlowModel(cond, rec, stack, method, parameters=params)
     fm.derived(("d8", "cells"), lambda: count.reshape(cond.shape))
     area = area.reshape(cond.shape)
     area[~valid] = np.nan
     fm.derived(("d8", "m2"), lambda: area)
     if method in ("dinf", "mfd"):
-        from ._multi import multi_receivers
+        from .multi import multi_receivers
 
         fm.multi = multi_receivers(fm, method, params.get("mfd_exponent", 1.1),
                                    flat_mask_for_multi)
         if method == "dinf":
-            from ._multi import dinf_azimuth
+            from .multi import dinf_azimuth
 
             fm.dinf_azimuth = dinf_azimuth(fm)
     return fm

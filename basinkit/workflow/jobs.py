@@ -893,6 +893,7 @@ def _stage_profiles(job, res, console):
             st.skip("no catchments were delineated")
             return
         from ..analysis import profiles as P
+        from ..analysis.steepness import find_knickpoints, steepness
 
         fm, net = res.flow, res.network
         theta, a0 = pr["concavity"], pr["reference_area"]
@@ -908,7 +909,7 @@ def _stage_profiles(job, res, console):
                       lfp.to_frame())
             summaries.append({"outlet_id": oid, **lfp.summary()})
             try:
-                out["knickpoints_flow_path"] = P.find_knickpoints(lfp)
+                out["knickpoints_flow_path"] = find_knickpoints(lfp)
             except InputError as exc:
                 out["knickpoints_flow_path"] = None
                 console.warn(f"outlet {oid}: knickpoints of the flow path: {exc}")
@@ -920,8 +921,8 @@ def _stage_profiles(job, res, console):
                 write_csv(_add(res, res.folder / "profiles" / f"channel_nodes_{name}.csv"),
                           nodes)
                 if len(nodes):
-                    steep = P.steepness(nodes, by="profile_id")
-                    knick = P.find_knickpoints(nodes)
+                    steep = steepness(nodes, by="profile_id")
+                    knick = find_knickpoints(nodes)
                     steep["outlet_id"] = oid
                     knick["outlet_id"] = oid
                     out["steepness"], out["knickpoints"] = steep, knick
