@@ -272,7 +272,7 @@ class _MapContext:
         self.burned = []
         if res.job is not None and res.job["inputs"]["burn_lines"]:
             try:
-                from ..conditioning.burn import read_lines
+                from ..io.lines import read_lines
 
                 for p in res.job["inputs"]["burn_lines"]:
                     self.burned.extend(read_lines(p, t.crs))
