@@ -16,13 +16,16 @@ __version__ = "0.1.0"
 from .conditioning import ConditionSummary, condition, fill_depressions  # noqa: E402
 from .errors import (BasinkitError, InputError, MemoryBudgetError, OutletError,
                      OutputExistsError)
-from .routing.flow_model import FlowModel, load_flow, route  # noqa: E402
-from .terrain.model import Terrain, read_dem, terrain_from_array  # noqa: E402
+from .io.dem import read_dem  # noqa: E402
+from .io.flow_folder import load_flow, write_flow_folder  # noqa: E402
+from .routing import FlowModel, route  # noqa: E402
+from .terrain import Terrain, terrain_from_array  # noqa: E402
 
 # loaded on first use, so that importing basinkit (and starting the CLI) stays quick
 _LAZY = {
     "breach_depressions": "conditioning.breach",
     "burn_lines": "conditioning.burn",
+    "read_lines": "io.lines",
     "delineate": "analysis.catchments",
     "Delineation": "analysis.catchments",
     "prepare_outlets": "analysis.outlets",
@@ -38,11 +41,11 @@ _LAZY = {
     "main_stem": "analysis.profiles",
     "channel_profiles": "analysis.profiles",
     "chi_transform": "analysis.profiles",
-    "fit_concavity": "analysis.profiles",
-    "steepness": "analysis.profiles",
-    "find_knickpoints": "analysis.profiles",
-    "slope_area_fit": "analysis.profiles",
-    "hack_law_fit": "analysis.profiles",
+    "fit_concavity": "analysis.profile_fits",
+    "steepness": "analysis.steepness",
+    "find_knickpoints": "analysis.steepness",
+    "slope_area_fit": "analysis.profile_fits",
+    "hack_law_fit": "analysis.profile_fits",
     "read_job": "workflow.jobfile",
     "job_from_dict": "workflow.jobfile",
     "demo_job_path": "workflow.jobfile",
@@ -70,6 +73,7 @@ def __dir__():
 __all__ = [
     "__version__", "Terrain", "read_dem", "terrain_from_array", "condition",
     "fill_depressions", "ConditionSummary", "route", "FlowModel", "load_flow",
+    "write_flow_folder",
     "BasinkitError", "InputError", "MemoryBudgetError", "OutputExistsError", "OutletError",
     *_LAZY,
 ]

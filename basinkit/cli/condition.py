@@ -29,7 +29,7 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
     from pathlib import Path
 
     from ..conditioning import condition
-    from ..conditioning.burn import read_lines
+    from ..io.lines import read_lines
     from ..io.writers import check_output, provenance, write_geotiff, write_json
     from ..workflow.cautions import CAUTION_TEXT
 

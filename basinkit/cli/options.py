@@ -67,7 +67,7 @@ def overwrite_option(f):
 
 
 def read_dem_from_options(dem, band, crs, sea_level, base_level):
-    from ..terrain.model import read_dem
+    from ..io.dem import read_dem
 
     return read_dem(dem, band=band, crs=crs, sea_level=sea_level, base_level=base_level)
 
@@ -161,7 +161,7 @@ def output_folder(output, overwrite):
 
 def load_flow_folder(console, flowdir):
     """Read a flow folder written by ``basinkit route``."""
-    from ..routing.flow_model import load_flow
+    from ..io.flow_folder import load_flow
 
     fm = load_flow(flowdir)
     console.info(f"read flow folder {flowdir}: {fm.shape[0]} x {fm.shape[1]} cells, "

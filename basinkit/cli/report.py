@@ -31,7 +31,7 @@ def command(console, run_folder, output, outlets, overwrite):
     from ..errors import InputError
     from ..workflow.jobfile import job_from_dict
     from ..workflow.runner import run_job
-    from ..terrain.model import file_sha256
+    from ..io.hashing import file_sha256
     from ..io.writers import atomic_path, check_output
 
     folder = Path(run_folder)

@@ -272,7 +272,7 @@ class _MapContext:
         self.burned = []
         if res.job is not None and res.job["inputs"]["burn_lines"]:
             try:
-                from ..conditioning.burn import read_lines
+                from ..io.lines import read_lines
 
                 for p in res.job["inputs"]["burn_lines"]:
                     self.burned.extend(read_lines(p, t.crs))
@@ -510,20 +510,20 @@ def _hypsometry_figure(curve, integral, oid):
 
 
 def _profile_figures(prof, oid):
-    from ..analysis import profiles as P
+    from ..plot.profiles import plot_chi, plot_long_profile
 
     out = {}
     lfp = prof.get("longest_flow_path")
     if lfp is not None and len(lfp) > 1:
         fig = _new_figure(*PLOT_SIZE)
-        P.plot_long_profile(lfp, ax=fig.add_subplot(1, 1, 1),
+        plot_long_profile(lfp, ax=fig.add_subplot(1, 1, 1),
                             knickpoints=prof.get("knickpoints_flow_path"),
                             title=f"Longest flow path of {oid}")
         out["long"] = _png(fig, dpi=100)
     nodes = prof.get("channel_nodes")
     if nodes is not None and len(nodes) > 1:
         fig = _new_figure(*PLOT_SIZE)
-        P.plot_chi(nodes, ax=fig.add_subplot(1, 1, 1), knickpoints=prof.get("knickpoints"),
+        plot_chi(nodes, ax=fig.add_subplot(1, 1, 1), knickpoints=prof.get("knickpoints"),
                    steepness_table=prof.get("steepness"),
                    title=f"χ–elevation, channels above {oid}")
         out["chi"] = _png(fig, dpi=100)

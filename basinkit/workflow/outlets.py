@@ -83,7 +83,7 @@ class OutletSpec:
         """The outlet file and its SHA-256 (for provenance records)."""
         if not self.file:
             return {}
-        from ..terrain.model import file_sha256
+        from ..io.hashing import file_sha256
 
         return {"outlets": {"path": str(self.file), "sha256": file_sha256(self.file)}}
 

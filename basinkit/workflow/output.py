@@ -128,7 +128,7 @@ class OutputFolder:
 
     def hashes(self) -> dict:
         """``{name: SHA-256}`` of every file written (sorted by name)."""
-        from ..terrain.model import file_sha256
+        from ..io.hashing import file_sha256
 
         return {k: file_sha256(p) for k, p in sorted(self._files.items()) if p.is_file()}
 

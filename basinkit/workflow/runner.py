@@ -160,7 +160,7 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
     """
     import pandas as pd
 
-    from ..routing.flow_model import load_flow
+    from ..io.flow_folder import load_flow
     from .output import OutputFolder
     from .steps import (catchments_step, channels_step, flow_step, morphometry_step,
                         profiles_step)
@@ -376,7 +376,7 @@ def _provenance(job, fm, inputs, placed, res, t_start):
 
 
 def _hashes(job):
-    from ..terrain.model import file_sha256
+    from ..io.hashing import file_sha256
 
     ins = job["inputs"]
     out = {}

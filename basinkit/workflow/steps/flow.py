@@ -59,7 +59,7 @@ class FlowSettings:
 
 def read_terrain(settings: FlowSettings):
     """Read the DEM as the settings say (raises InputError for a bad DEM)."""
-    from ...terrain.model import read_dem
+    from ...io.dem import read_dem
 
     return read_dem(settings.dem, band=settings.band, crs=settings.crs,
                     sea_level=settings.sea_level_m, base_level=settings.base_level)
@@ -68,7 +68,7 @@ def read_terrain(settings: FlowSettings):
 def read_burn_lines(settings: FlowSettings, crs) -> list:
     """The burn lines of every layer, in the DEM's CRS (InputError for a missing or
     unreadable layer)."""
-    from ...conditioning.burn import read_lines
+    from ...io.lines import read_lines
 
     geoms = []
     for p in settings.burn_lines:
@@ -99,7 +99,8 @@ def flow_step(out, settings: FlowSettings, terrain=None, burn=None, reporter=Non
     """
     import time
 
-    from ...routing.flow_model import FILES, route
+    from ...io.flow_folder import FILES, write_flow_folder
+    from ...routing.flow_model import route
 
     rep = as_reporter(reporter)
     t0 = time.perf_counter()
@@ -125,14 +126,14 @@ def flow_step(out, settings: FlowSettings, terrain=None, burn=None, reporter=Non
         rep.info(line)
     inputs = {}
     if settings.burn_lines:
-        from ...terrain.model import file_sha256
+        from ...io.hashing import file_sha256
 
         inputs = {f"burn_lines_{i + 1}": {"path": str(p), "sha256": file_sha256(p)}
                   for i, p in enumerate(settings.burn_lines)}
     folder = out.folder
-    fm.save(folder, overwrite=True,
-            extra_provenance={"cautions": CAUTION_TEXT, "burn_line_inputs": inputs,
-                              "seconds": round(time.perf_counter() - t0, 3)})
+    write_flow_folder(fm, folder, overwrite=True,
+                      extra_provenance={"cautions": CAUTION_TEXT, "burn_line_inputs": inputs,
+                                        "seconds": round(time.perf_counter() - t0, 3)})
     for name in FILES.values():
         if (Path(folder) / name).exists():
             out.adopt(name)

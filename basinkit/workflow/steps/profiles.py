@@ -134,8 +134,6 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
     """
     import pandas as pd
 
-    from ...analysis import profiles as P
-
     s = (settings or ProfileSettings()).check()
     rep = as_reporter(reporter)
     tab = placed.table
@@ -153,7 +151,7 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
                                                             desc="profiles")):
         oid, fid, cell = str(oid), str(fid), int(cell)
         try:
-            res = _one_outlet(P, fm, network, strahler, oid, fid, cell, s)
+            res = _one_outlet(fm, network, strahler, oid, fid, cell, s)
         except BasinkitError as exc:
             fails.append({"outlet_id": oid, "source": str(src), "reason": str(exc)})
             rep.outlet_failed(oid, str(exc), "profiles", source=str(src))
@@ -178,7 +176,7 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
                       "steepness": steep, "knickpoints": knick,
                       "warnings": summary.get("warnings", [])}
         if k in fig_rows:
-            _figures(out, P, oid, fid, channel, steep, knick, lfp, ms)
+            _figures(out, oid, fid, channel, steep, knick, lfp, ms)
     nodes = _concat(nodes_l, _NODE_FIRST)
     steep = _concat(steep_l, ["outlet_id", "segment_id"])
     knick = _concat(knick_l, ["outlet_id"])
@@ -223,10 +221,14 @@ def _concat(frames, first):
     return df[lead + [c for c in df.columns if c not in lead]]
 
 
-def _one_outlet(P, fm, net, strahler, oid, fid, cell, s):
+def _one_outlet(fm, net, strahler, oid, fid, cell, s):
     """Profiles of one outlet: (all nodes, channel nodes, steepness, knickpoints,
     (longest flow path, main stem), summary)."""
     import pandas as pd
+
+    from ...analysis import profile_fits as F
+    from ...analysis import profiles as P
+    from ...analysis.steepness import find_knickpoints, steepness
 
     summary = {"outlet_id": oid, "file_id": fid}
     warnings = []
@@ -234,7 +236,7 @@ def _one_outlet(P, fm, net, strahler, oid, fid, cell, s):
     order_here = int(strahler[cell])
     on_channel = order_here >= int(s.min_order)
     if s.fit_concavity and on_channel:
-        cf = P.fit_concavity(fm, net, cell, min_order=s.min_order,
+        cf = F.fit_concavity(fm, net, cell, min_order=s.min_order,
                              reference_area_m2=s.reference_area_m2)
         theta = float(cf.concavity)
         summary["concavity_fit"] = cf.to_dict()
@@ -255,9 +257,9 @@ def _one_outlet(P, fm, net, strahler, oid, fid, cell, s):
                         "threshold)")
     nodes["outlet_id"] = oid
     nodes.insert(1, "profile_kind", "channel")
-    steep = P.steepness(nodes, by="segment_id")
+    steep = steepness(nodes, by="segment_id")
     steep["outlet_id"] = oid
-    knick = P.find_knickpoints(nodes, vertical_precision_m=s.vertical_precision_m)
+    knick = find_knickpoints(nodes, vertical_precision_m=s.vertical_precision_m)
     knick["outlet_id"] = oid
     lfp = P.longest_flow_path(fm, cell, network=net, **opts)
     ms = P.main_stem(fm, cell, network=net, **opts)
@@ -272,12 +274,12 @@ def _one_outlet(P, fm, net, strahler, oid, fid, cell, s):
                    segment_count=int(len(steep)), knickpoint_count=int(len(knick)))
     if len(nodes) >= 3:
         try:
-            summary["slope_area_fit"] = P.slope_area_fit(nodes["upstream_area_m2"],
+            summary["slope_area_fit"] = F.slope_area_fit(nodes["upstream_area_m2"],
                                                          nodes["slope_m_per_m"]).to_dict()
         except InputError as exc:
             summary["slope_area_fit"] = {"error": str(exc)}
         try:
-            summary["hack_law_fit"] = P.hack_law_fit(fm, net, cell).to_dict()
+            summary["hack_law_fit"] = F.hack_law_fit(fm, net, cell).to_dict()
         except InputError as exc:
             summary["hack_law_fit"] = {"error": str(exc)}
     if warnings:
@@ -285,9 +287,12 @@ def _one_outlet(P, fm, net, strahler, oid, fid, cell, s):
     return nodes_all, nodes, steep, knick, (lfp, ms), summary
 
 
-def _figures(out, P, oid, fid, nodes, steep, knick, lfp, ms):
+def _figures(out, oid, fid, nodes, steep, knick, lfp, ms):
     """The four profile figures of one figure outlet."""
     import warnings
+
+    from ...analysis import profile_fits as F
+    from ...plot import profiles as G
 
     ms_k = None
     if len(knick) and nodes["is_main_stem"].astype(bool).any():
@@ -296,19 +301,19 @@ def _figures(out, P, oid, fid, nodes, steep, knick, lfp, ms):
     sa = None
     if len(nodes) >= 3:
         try:
-            sa = P.slope_area_fit(nodes["upstream_area_m2"], nodes["slope_m_per_m"])
+            sa = F.slope_area_fit(nodes["upstream_area_m2"], nodes["slope_m_per_m"])
         except InputError:
             sa = None
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # empty plots of outlets without channels
         figs = {
-            "long_profile": P.plot_long_profile(ms, knickpoints=ms_k,
+            "long_profile": G.plot_long_profile(ms, knickpoints=ms_k,
                                                 title=f"main stem, outlet {oid}"),
-            "longest_flow_path": P.plot_long_profile(lfp,
+            "longest_flow_path": G.plot_long_profile(lfp,
                                                      title=f"longest flow path, outlet {oid}"),
-            "chi_elevation": P.plot_chi(nodes, knickpoints=knick, steepness_table=steep,
+            "chi_elevation": G.plot_chi(nodes, knickpoints=knick, steepness_table=steep,
                                         title=f"χ–elevation, outlet {oid}"),
-            "slope_area": P.plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"],
+            "slope_area": G.plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"],
                                             fit=sa, title=f"slope–area, outlet {oid}"),
         }
     for what in FIGURES:
