@@ -95,7 +95,7 @@ def test_same_outlet_same_cell_in_every_command(flow, mode, capsys):
 
     assert run(["-q", "profile", base / "flow", "--outlet", OUTLET, *opts, "--min-area",
                 "2ha", "--min-order", "1", "-o", out / "p"])[0] == 0
-    summ = json.loads((out / "p" / "summary.json").read_text())["outlets"][0]
+    summ = json.loads((out / "p" / "profiles.json").read_text())["outlets"][0]
     cell_profile = (summ["outlet_row"], summ["outlet_col"])
 
     assert run(["-q", "morphometry", base / "flow", "--outlet", OUTLET, *opts,
@@ -120,7 +120,8 @@ def test_the_two_modes_differ_on_the_crossing(flow):
 def test_job_runner_places_outlets_like_the_commands(flow, tmp_path):
     """basinkit run with the same settings puts the crossing on the same cell, and its
     profile stage starts from that cell."""
-    from basinkit.workflow.jobs import job_from_dict, run_job
+    from basinkit.workflow.jobfile import job_from_dict
+    from basinkit.workflow.runner import run_job
 
     _, fm = flow
     pts = tmp_path / "outlets.csv"
@@ -243,19 +244,23 @@ def test_log_json_lines_parse(commands, name, tmp_path, capsys):
      "none of the 1 outlets"),
 ])
 def test_user_errors_are_one_line(flow, tmp_path, capsys, argv, fragment):
-    """A user error prints one 'error:' line without traceback and exits non-zero;
-    --debug shows the exception instead."""
+    """A user error prints one 'error:' line without traceback, exits with status 2 and
+    writes nothing; --debug (before or after the subcommand) shows the traceback too and
+    keeps the status (DESIGN.md, the output contract)."""
     base, _ = flow
     args = [a.replace("{flow}", str(base / "flow")).replace("{out}", str(tmp_path / "o"))
             for a in argv]
     code, out, err = run(args, capsys)
-    assert code != 0
+    assert code == 2
     lines = [ln for ln in err.splitlines() if ln.strip()]
     errors = [ln for ln in lines if ln.startswith("error")]
     assert len(errors) == 1 and errors[0].startswith("error: ") and fragment in errors[0]
     assert "Traceback" not in err
-    with pytest.raises(BasinkitError):
-        main(["--debug", *args[:-1], str(tmp_path / "o2")])
+    assert not (tmp_path / "o").exists()
+    for debug_args in (["--debug", *args[:-1], str(tmp_path / "o2")],
+                       [*args[:-1], str(tmp_path / "o3"), "--debug"]):
+        code, _, err = run(debug_args, capsys)
+        assert code == 2 and "Traceback" in err and fragment in err
 
 
 def test_snap_distance_is_gone_from_morphometry(flow, tmp_path, capsys):
@@ -273,9 +278,9 @@ def test_snap_distance_is_gone_from_morphometry(flow, tmp_path, capsys):
 
 
 def test_user_error_is_a_json_line_with_log_json(tmp_path):
-    """With --log-json a user error is one JSON log line too (scripts parse stderr;
-    common practice, no source), and the exit status is still non-zero."""
-    import json
+    """With --log-json a user error is one JSON log line of level error (scripts parse
+    stderr; common practice, no source), every other line is JSON too, and the exit status
+    is 2."""
     import subprocess
     import sys
 
@@ -283,8 +288,189 @@ def test_user_error_is_a_json_line_with_log_json(tmp_path):
                           str(tmp_path / "missing.tif"), "-o", str(tmp_path / "flow")],
                          capture_output=True, text=True)
     assert out.returncode == 2
-    lines = [ln for ln in out.stderr.splitlines() if ln.strip()]
-    assert len(lines) == 1
-    rec = json.loads(lines[0])
-    assert rec["level"] == "error" and "does not exist" in rec["message"]
+    recs = [json.loads(ln) for ln in out.stderr.splitlines() if ln.strip()]
+    errors = [r for r in recs if r["level"] == "error"]
+    assert len(errors) == 1 and "does not exist" in errors[0]["message"]
     assert "Traceback" not in out.stderr
+    assert not (tmp_path / "flow").exists()
+
+
+# ------------------------------------------------------------------ the output contract
+FAR = "far=1,2"  # off the demo grid: this outlet fails, the crossing goes on
+
+
+@pytest.fixture(scope="module")
+def mixed(flow):
+    """Each outlet-taking command with one good outlet and one off the grid."""
+    base, _ = flow
+    f = base / "flow"
+    pair = ["--outlet", OUTLET, "--outlet", FAR, "--snap-radius", "30m"]
+    return {
+        "delineate": ["delineate", f, *pair, "-o", "{out}"],
+        "channels": ["channels", f, "--min-area", "2ha", *pair, "-o", "{out}"],
+        "profile": ["profile", f, *pair, "--min-area", "2ha", "--min-order", "1",
+                    "--no-figures", "-o", "{out}"],
+        "morphometry": ["morphometry", f, *pair, "--min-area", "2ha", "--no-figures",
+                        "-o", "{out}"],
+    }
+
+
+@pytest.mark.parametrize("name", ["delineate", "channels", "profile", "morphometry"])
+def test_exit_status_one_when_an_outlet_fails(mixed, name, tmp_path, capsys):
+    """DESIGN.md, the output contract: status 1 when some outlets failed, the failure
+    listed (with its reason), the good outlet written, the cautions printed once; 0 with
+    the good outlet alone."""
+    code, out, err = run(_argv(mixed[name], tmp_path / "o"), capsys)
+    assert code == 1, err
+    assert "failed: outlet 'far'" in err and "outside the grid" in err
+    assert "Traceback" not in err and out == ""
+    assert err.count("caution: ") == 1
+    assert any((tmp_path / "o").iterdir())
+    ok = [a for a in mixed[name] if a != FAR]
+    ok = ok[:ok.index("--outlet") + 2] + ok[ok.index("--outlet") + 3:]
+    code, _, err = run(_argv(ok, tmp_path / "ok"), capsys)
+    assert code == 0, err
+    assert err.count("caution: ") == 1
+
+
+@pytest.mark.parametrize("name", ["condition", "route"])
+def test_cautions_once_for_the_dem_commands(name, tmp_path, capsys):
+    """route and condition print the cautions once too (and not with --quiet)."""
+    argv = {"condition": ["condition", DEMO / "upland_valley.tif", "-o", "{out}/f.tif"],
+            "route": ["route", DEMO / "upland_valley.tif", "-o", "{out}/flow"]}[name]
+    code, _, err = run(_argv(argv, tmp_path), capsys)
+    assert code == 0 and err.count("caution: ") == 1
+    code, _, err = run(_argv(argv, tmp_path / "q") + ["--quiet"], capsys)
+    assert code == 0 and err == ""
+
+
+def test_run_exit_status_and_cautions(tmp_path, capsys):
+    """basinkit run: status 1 when an outlet of the job failed, 0 when none did; the
+    cautions once; a bad job file is status 2 and writes nothing."""
+    pts = tmp_path / "pts.csv"
+    pts.write_text(f"id,x,y\ncrossing,{CROSSING[0]},{CROSSING[1]}\nfar,1,2\n")
+    body = (f'[inputs]\ndem = "{DEMO / "upland_valley.tif"}"\noutlets = "pts.csv"\n'
+            '[outlets]\nsnap_radius_m = 30\nsnap_min_area = "1ha"\n[channels]\n'
+            'min_area = "2ha"\n[profiles]\nenabled = false\n[outputs]\nreport = false\n'
+            'figures = false\n')
+    (tmp_path / "job.toml").write_text(body)
+    code, _, err = run(["run", tmp_path / "job.toml", "-o", tmp_path / "r1"], capsys)
+    assert code == 1, err
+    assert "failed: outlet 'far' (pts.csv line 3)" in err and err.count("caution: ") == 1
+    pts.write_text(f"id,x,y\ncrossing,{CROSSING[0]},{CROSSING[1]}\n")
+    code, _, err = run(["run", tmp_path / "job.toml", "-o", tmp_path / "r2"], capsys)
+    assert code == 0, err
+    (tmp_path / "bad.toml").write_text(body.replace("min_area", "min_aera"))
+    code, _, err = run(["run", tmp_path / "bad.toml", "-o", tmp_path / "r3"], capsys)
+    assert code == 2 and "min_aera" in err and not (tmp_path / "r3").exists()
+
+
+def test_internal_error_is_status_three(flow, tmp_path, capsys, monkeypatch):
+    """A bug (here: a step that raises RuntimeError) is status 3 with one line asking for a
+    report; the traceback only with --debug (DESIGN.md, the output contract)."""
+    import basinkit.workflow.steps as steps
+
+    def broken(*a, **k):
+        raise RuntimeError("boom")
+
+    monkeypatch.setattr(steps, "catchments_step", broken)
+    base, _ = flow
+    argv = ["delineate", base / "flow", "--outlet", OUTLET, "-o", tmp_path / "o"]
+    code, _, err = run(argv, capsys)
+    assert code == 3
+    errors = [ln for ln in err.splitlines() if ln.startswith("error")]
+    assert len(errors) == 1 and "internal error" in errors[0] and "report" in errors[0]
+    assert "boom" in errors[0] and "Traceback" not in err
+    code, _, err = run([*argv[:-1], tmp_path / "o2", "--debug"], capsys)
+    assert code == 3 and "Traceback" in err and "RuntimeError: boom" in err
+
+
+def test_global_options_after_the_subcommand(commands, tmp_path, capsys):
+    """--quiet, -q, --log-json and --debug are accepted after the subcommand too."""
+    code, out, err = run([*_argv(commands["delineate"], tmp_path / "a"), "--quiet"], capsys)
+    assert code == 0 and out == "" and err == ""
+    code, out, err = run([*_argv(commands["delineate"], tmp_path / "b"), "-q"], capsys)
+    assert code == 0 and err == ""
+    code, out, err = run([*_argv(commands["delineate"], tmp_path / "c"), "--log-json",
+                          "--debug"], capsys)
+    assert code == 0
+    assert all(json.loads(ln)["level"] for ln in err.splitlines() if ln.strip())
+
+
+def test_progress_lines_in_a_log(tmp_path, capsys, monkeypatch, flow):
+    """stderr is not a terminal under pytest: no bar, but a line when each stage starts
+    and ends and progress lines 'stage: done/total' (every item here, the interval set to
+    0 s through BASINKIT_PROGRESS_SECONDS)."""
+    import re
+
+    base, _ = flow
+    monkeypatch.setenv("BASINKIT_PROGRESS_SECONDS", "0")
+    code, _, err = run(["morphometry", base / "flow", "--outlets", DEMO / "outlets.csv",
+                        "--snap-radius", "30m", "--no-figures", "-o", tmp_path / "m"],
+                       capsys)
+    assert code == 0, err
+    lines = err.splitlines()
+    for stage in ("read", "outlets", "morphometry"):
+        assert f"{stage} ..." in lines
+        assert any(re.fullmatch(rf"{stage} done \(\d+\.\d s\)", ln) for ln in lines)
+    done = [int(m.group(1)) for ln in lines
+            if (m := re.fullmatch(r"  morphometry: (\d+)/13", ln))]
+    assert done[:13] == list(range(1, 14))
+    assert "\r" not in err  # no bar drawn into the log
+
+
+def test_progress_and_failures_as_json_records(tmp_path, capsys, monkeypatch, flow):
+    """--log-json: progress records carry stage, done and total; a failed outlet is a
+    record with its outlet_id, source and reason (JSON per RFC 8259, parsed with json)."""
+    base, _ = flow
+    monkeypatch.setenv("BASINKIT_PROGRESS_SECONDS", "0")
+    code, _, err = run(["--log-json", "profile", base / "flow", "--outlets",
+                        DEMO / "outlets.csv", "--outlet", FAR, "--snap-radius", "30m",
+                        "--min-area", "2ha", "--min-order", "1", "--no-figures",
+                        "-o", tmp_path / "p"], capsys)
+    assert code == 1
+    recs = [json.loads(ln) for ln in err.splitlines() if ln.strip()]
+    prog = [r for r in recs if r.get("event") == "progress" and r["stage"] == "profiles"]
+    assert [r["done"] for r in prog][-1] == 13 and {r["total"] for r in prog} == {13}
+    fails = [r for r in recs if r.get("event") == "outlet_failed"]
+    assert len(fails) == 1
+    assert fails[0]["outlet_id"] == "far" and "outside the grid" in fails[0]["reason"]
+    assert fails[0]["stage"] == "outlets" and fails[0]["source"] == f"--outlet {FAR}"
+    stages = [r["stage"] for r in recs if r.get("event") == "stage_done"]
+    assert stages == ["read", "outlets", "channels", "profiles"]
+
+
+def test_progress_interval_in_a_log():
+    """About one line per interval in a log, whatever the number of items (the clock is
+    simulated: 4 s per item, interval 10 s gives a line every third item; common practice,
+    no source)."""
+    import io
+    from contextlib import redirect_stderr
+
+    import basinkit.cli.console as con
+
+    clock = iter(range(0, 1000, 4))
+    con_time = con.time
+
+    class FakeTime:
+        def monotonic(self):
+            return float(next(clock))
+
+        def __getattr__(self, name):
+            return getattr(con_time, name)
+
+    buf = io.StringIO()
+    c = con.Console(interval=10.0, isatty=False)
+    try:
+        con.time = FakeTime()
+        with redirect_stderr(buf):
+            assert list(c.progress(range(9), desc="work")) == list(range(9))
+    finally:
+        con.time = con_time
+    lines = buf.getvalue().splitlines()
+    assert lines == ["  work: 3/9", "  work: 6/9", "  work: 9/9"]
+    buf = io.StringIO()
+    with redirect_stderr(buf):  # a short stage in a log: no progress line at all
+        assert list(con.Console(interval=10.0, isatty=False).progress(range(9))) == \
+            list(range(9))
+    assert buf.getvalue() == ""

@@ -1,10 +1,12 @@
 """Job files: validation of bad job files (each message names the key), defaults, path
-resolution, units, and a small job run end to end on a synthetic valley.
+resolution, units, and a small job run end to end on a synthetic V-shaped valley.
 
 Sources: TOML 1.0 (toml.io) for the file syntax, read with the standard library's tomllib;
-SI definitions of the hectare (10^4 m²) and the square kilometre (10^6 m²); the rest is
-common practice (no source) for command-line tools: one clear message, non-zero exit, no
-traceback.
+SI definitions of the hectare (10^4 m²) and the square kilometre (10^6 m²); the catchment
+of the V valley in closed form (D8 on the surface z = a + b·(rows to the bottom) +
+c·|column − centre| with c > b: see test_small_job_runs_and_carries_on_past_a_bad_outlet);
+the rest is common practice (no source) for command-line tools: one clear message, the
+exit status of DESIGN.md, no traceback.
 """
 
 import textwrap
@@ -14,7 +16,8 @@ import pytest
 
 from basinkit.errors import BasinkitError, InputError
 from basinkit.errors import JobFileError
-from basinkit.workflow.jobs import job_from_dict, read_job, run_job
+from basinkit.workflow.jobfile import job_from_dict, read_job
+from basinkit.workflow.runner import run_job
 
 
 @pytest.fixture(scope="module")
@@ -157,25 +160,47 @@ def test_defaults_units_and_relative_paths(valley, tmp_path, monkeypatch):
     assert j["outputs"]["folder"] == valley / "basinkit-output"
 
 
+def v_valley_catchment_cells(nr, nc, row, col):
+    """Cells draining to (row, col) on the centre column of the valley's surface, in
+    closed form. z = 100 + 0.5·(nr − 1 − r) + 0.8·|c − nc/2| on 10 m cells: the drop to
+    the south is 0.5 m over 10 m (0.05), towards the centre 0.8 m over 10 m (0.08), along
+    the diagonal towards the centre 1.3 m over 14.14 m (0.092), the steepest; so D8
+    (O'Callaghan & Mark 1984) moves an off-centre cell one row down and one column towards
+    the centre per step, reaching the centre column at row r + |c − centre|, and the centre
+    column flows south. A cell drains through (row, centre) when it lies at or above that
+    row and r + |c − centre| ≤ row."""
+    r = np.arange(nr)[:, None]
+    c = np.arange(nc)[None, :]
+    assert col == nc // 2
+    return (r <= row) & (r + np.abs(c - col) <= row)
+
+
 def test_small_job_runs_and_carries_on_past_a_bad_outlet(valley, tmp_path):
     """A job on the synthetic valley: the good outlet is delineated, the one off the grid
-    is recorded with its reason and the run carries on (batch rule). The valley's outlet
-    drains the whole V above it: the cells from its row up, 56 rows × 40 columns of
-    100 m² each, minus the cells that drain sideways off the east and west edges — so the
-    area lies between the V's central strip and the full width (geometry of the surface,
-    common practice)."""
+    is recorded with its reason and its line, the run carries on (batch rule) and its exit
+    status is 1. The outlet's catchment is exactly the closed-form set of cells of the V
+    valley (1 840 cells of 100 m², see v_valley_catchment_cells)."""
+    import pandas as pd
+
     job = _write(valley / "j8.toml",
                  '[job]\nname = "synthetic valley"\n' + VALLEY_OUTLET_JOB)
     res = run_job(job, output=tmp_path / "out")
-    assert res.stages["delineate"]["status"] == "done"
+    assert res.stages["catchments"]["status"] == "done"
+    assert res.exit_status == 1
     bad = res.outlets[res.outlets["outlet_id"] == "far_away"]
     assert len(bad) == 1 and "outside the grid" in bad["error"].iloc[0]
+    assert bad["source"].iloc[0] == "outlets.csv line 3"
     good = res.outlets[res.outlets["outlet_id"] == "gauge"].iloc[0]
-    area_m2 = good["area_km2"] * 1e6
-    assert 56 * 100.0 < area_m2 <= 56 * 40 * 100.0
-    assert (tmp_path / "out" / "outlet_errors.csv").exists()
+    assert (good["row"], good["col"]) == (55, 20)
+    expected = v_valley_catchment_cells(60, 40, 55, 20)
+    assert expected.sum() == 1840
+    assert np.array_equal(res.catchments.catchment_mask("gauge"), expected)
+    assert good["area_m2"] == pytest.approx(expected.sum() * 100.0, rel=1e-12)
+    errors = pd.read_csv(tmp_path / "out" / "outlet_errors.csv")
+    assert errors["outlet_id"].tolist() == ["far_away"]
     assert (tmp_path / "out" / "provenance.json").exists()
-    assert "report" not in res.stages and not (tmp_path / "out" / "report.html").exists()
+    assert "report" not in res.stages  # [outputs] report = false
+    assert not (tmp_path / "out" / "report.html").exists()
 
 
 def test_job_without_outlets_skips_outlet_stages(valley, tmp_path):
@@ -186,9 +211,10 @@ def test_job_without_outlets_skips_outlet_stages(valley, tmp_path):
         report = false
         """)
     res = run_job(job, output=tmp_path / "o")
-    assert res.stages["condition and route"]["status"] == "done"
+    assert res.stages["flow"]["status"] == "done"
     assert res.stages["channels"]["status"] == "done"
-    for stage in ("delineate", "profiles", "morphometry"):
+    assert res.exit_status == 0
+    for stage in ("catchments", "profiles", "morphometry"):
         assert res.stages[stage]["status"] == "skipped"
         assert res.stages[stage]["note"]
 
@@ -275,4 +301,4 @@ def test_rerun_with_overwrite_removes_only_its_own_stale_files(valley, tmp_path)
         assert (out / f).exists(), f
     assert (out / "my_notes.txt").read_text() == "field visit 3 May"
     assert not any("gauge" in p.name for p in out.rglob("*"))
-    assert res.stages["delineate"]["status"] == "skipped"
+    assert res.stages["catchments"]["status"] == "skipped"

@@ -146,7 +146,7 @@ class Console:
     def _lines(self, iterable, total, desc):
         last = time.monotonic()
         done = 0
-        shown = False
+        shown = None  # the count of the last line written
         for item in iterable:
             yield item
             done += 1
@@ -154,9 +154,9 @@ class Console:
             if now - last >= self.interval:
                 self._progress_line(desc, done, total)
                 last = now
-                shown = True
-        if shown or self.log_json:
-            self._progress_line(desc, done, total)
+                shown = done
+        if shown != done and (shown is not None or self.log_json):
+            self._progress_line(desc, done, total)  # the end, once
 
     def _progress_line(self, desc, done, total):
         of = f"/{total}" if total is not None else ""
