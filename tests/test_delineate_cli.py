@@ -58,7 +58,7 @@ def test_outputs_and_exit_status(flowdir, tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 1  # two outlets failed
     assert "broken" in err and "outside the grid" in err
-    assert err.count("DEM are estimates") == 1  # cautions printed once
+    assert err.count("caution: ") == 1 and "licensed professional" in err  # once
     layers = dict(pyogrio.list_layers(out / "catchments.gpkg"))
     assert set(layers) == {"outlets", "catchments", "subcatchments", "errors"}
     assert layers["errors"] is None  # a plain table
@@ -79,7 +79,7 @@ def test_outputs_and_exit_status(flowdir, tmp_path, capsys):
     assert {"area_km2", "perimeter_m", "touches_edge", "upstream_outlet_ids",
             "relief_m", "snap_distance_m"} <= set(table.columns)
     assert table["file_id"].dropna().str.contains("/").sum() == 0
-    meta = json.loads((out / "delineation.json").read_text())
+    meta = json.loads((out / "catchments.json").read_text())
     assert "licensed professional" in meta["cautions"]
     assert meta["inputs"]["outlets"]["sha256"] == hashlib.sha256(csv.read_bytes()).hexdigest()
     assert meta["outlets_failed"] == 2 and meta["outlets_delineated"] == 7
@@ -196,5 +196,5 @@ def test_fraction_rasters_on_dinf_folder(tmp_path):
         with rasterio.open(out / "contributing_fraction" / f"{fid}.tif") as ds:
             f = ds.read(1).astype(float)
         assert abs(np.nansum(f) * 100.0 - a) <= 1e-4 * a
-    meta = json.loads((out / "delineation.json").read_text())
+    meta = json.loads((out / "catchments.json").read_text())
     assert set(meta["contributing_fraction_rasters"]) == {"../a b", "outlet_2"}

@@ -1,9 +1,13 @@
-"""The bundled demo basin and the demo job, end to end.
+"""The bundled demo basin and the demo job, end to end; and the demo job against the same
+steps run as commands.
 
 External checks: the crossing's catchment is recomputed with pysheds 0.5 (a reference
 library, test-only) from the D8 direction raster the job wrote, and must agree cell for cell;
-input hashes in provenance.json are recomputed with hashlib (FIPS 180-4 SHA-256); the
-generator is re-run and must reproduce the committed files byte for byte (its fixed seed).
+input and output hashes in provenance.json are recomputed with hashlib (FIPS 180-4
+SHA-256); GeoPackage layers are read back with pyogrio (GDAL) and rasters with rasterio;
+the generator is re-run and must reproduce the committed files byte for byte (its fixed
+seed). That a job and the commands with the same settings give the same products is the
+products contract of the project (common practice, no source).
 """
 
 import hashlib
@@ -14,7 +18,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from basinkit.workflow.jobs import demo_job_path, read_job, run_job
+from basinkit.report.html import write_report
+from basinkit.workflow.jobfile import demo_job_path, read_job
+from basinkit.workflow.runner import run_job
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_rasters"
 
@@ -27,7 +33,7 @@ def runs(tmp_path_factory):
     base = tmp_path_factory.mktemp("demo")
     job = read_job(demo_job_path())
     job["outputs"]["report_outlets"] = ["crossing", "tributary_1"]
-    first = run_job(job, output=base / "run1")
+    first = run_job(job, output=base / "run1", report=write_report)
     job = read_job(demo_job_path())
     job["outputs"]["report"] = False
     second = run_job(job, output=base / "run2")
@@ -67,11 +73,18 @@ def test_expected_outputs_exist(runs):
     folder = res.folder
     for name in ("flow/direction_d8.tif", "flow/elevation_conditioned.tif",
                  "flow/upstream_area_m2.tif", "flow/flow.json", "catchments.csv",
-                 "catchments.gpkg", "catchment_labels.tif", "channel_segments.csv",
-                 "channels.gpkg", "strahler_order.tif", "morphometry.csv",
-                 "profiles/flow_paths.csv", "profiles/longest_flow_path_crossing.csv",
-                 "hypsometry/hypsometry_crossing.csv", "report.html", "provenance.json"):
+                 "catchments.gpkg", "catchments.json", "subcatchment_labels.tif",
+                 "channel_segments.csv", "channels.gpkg", "channels.json",
+                 "strahler_order.tif", "profile.csv", "steepness.csv", "knickpoints.csv",
+                 "flow_paths.csv", "profiles.gpkg", "profiles.json", "morphometry.csv",
+                 "hypsometry.csv", "morphometry.json", "figures/crossing_long_profile.png",
+                 "figures/crossing_hypsometry.png", "report.html", "provenance.json"):
         assert (folder / name).is_file(), name
+    # figures only for the figure outlets ([outputs] report_outlets), no per-outlet tables
+    figs = {p.name.split("_")[0] for p in (folder / "figures").iterdir()}
+    assert figs == {"crossing", "tributary"}
+    assert not (folder / "outlet_errors.csv").exists()  # no outlet failed
+    assert res.exit_status == 0
     assert all(st["status"] == "done" for st in res.stages.values()), res.stages
 
 
@@ -87,7 +100,7 @@ def test_tables_name_their_units(runs):
     for col in ("area_m2", "area_km2", "area_ha", "snap_distance_m", "relief_m",
                 "perimeter_m", "elevation_min_m"):
         assert col in cat.columns, col
-    paths = pd.read_csv(f / "profiles" / "flow_paths.csv")
+    paths = pd.read_csv(f / "flow_paths.csv")
     for col in ("length_m", "slope_10_85_m_per_m", "average_slope_m_per_m"):
         assert col in paths.columns, col
     seg = pd.read_csv(f / "channel_segments.csv")
@@ -163,18 +176,23 @@ def test_provenance(runs):
     assert prov["crs_epsg"] == 32633
     for name, st in prov["stages"].items():
         assert st["status"] == "done" and st["seconds"] >= 0, name
-    # the recorded output hashes are those of the files
-    for name, h in prov["outputs"].items():
+    # every file written is listed with its hash, and the hashes are those of the files
+    on_disk = {str(p.relative_to(res.folder)) for p in res.folder.rglob("*") if p.is_file()}
+    assert set(prov["files"]) == on_disk - {"provenance.json"}
+    for name, h in prov["files"].items():
         assert hashlib.sha256((res.folder / name).read_bytes()).hexdigest() == h, name
-    assert "morphometry.csv" in prov["outputs"]
+    assert prov["cell_size"]["x"] == 10.0 and prov["vertical_units"].startswith("m")
+    assert prov["snapping"]["radius_m"] == 30.0
+    assert prov["snapping"]["snap_to_channel_m2"] == 1e4
+    assert "licensed professional" in prov["cautions"]
 
 
 def test_two_runs_are_byte_identical(runs):
-    """Deterministic outputs: every CSV table and GeoTIFF raster is byte-identical between
-    two runs of the same job."""
+    """Deterministic outputs: every CSV table, GeoTIFF raster, GeoPackage and figure is
+    byte-identical between two runs of the same job."""
     a, b = runs
     files = sorted(p.relative_to(a.folder) for p in a.folder.rglob("*")
-                   if p.suffix in (".csv", ".tif"))
+                   if p.suffix in (".csv", ".tif", ".gpkg", ".png"))
     assert len(files) > 20
     for rel in files:
         assert (b.folder / rel).read_bytes() == (a.folder / rel).read_bytes(), str(rel)
@@ -192,3 +210,78 @@ def test_demo_command(tmp_path, capsys):
         main(["-q", "demo", "-o", str(out)])
     assert e.value.code == 2
     assert "--overwrite" in capsys.readouterr().err
+
+
+def _commands_for_the_demo_job(out):
+    """The demo job (demo_rasters/demo_job.toml) written as the equivalent commands."""
+    o = ["--outlets", DEMO / "outlets.csv", "--snap-radius", "30m", "--snap-to-channel",
+         "1ha"]
+    return [
+        ["route", DEMO / "upland_valley.tif", "--burn", DEMO / "culverts.geojson",
+         "--burn-depth", "1m", "-o", out / "flow"],
+        ["delineate", out / "flow", *o, "--labels-raster", "-o", out / "catchments"],
+        ["channels", out / "flow", "--min-area", "2ha", "--min-order", "1", *o,
+         "-o", out / "channels"],
+        ["profile", out / "flow", *o, "--min-area", "2ha", "--min-order", "1",
+         "--concavity", "0.45", "--reference-area", "1m2", "-o", out / "profiles"],
+        ["morphometry", out / "flow", *o, "--min-area", "2ha", "-o", out / "morphometry"],
+    ]
+
+
+def test_demo_job_and_commands_give_the_same_products(runs, tmp_path):
+    """The demo job and the same steps run as commands give the same products: the same
+    file names (the job's folder holds each command's files, the flow folder in flow/,
+    plus provenance.json), the same GeoPackage layers, columns and values, and tables,
+    rasters and figures byte for byte (products contract, PRODUCTS.md)."""
+    import pyogrio
+    import rasterio
+
+    from basinkit.cli.main import main
+
+    _, job = runs  # the demo job without the report: figures for the first 20 outlets
+    for argv in _commands_for_the_demo_job(tmp_path):
+        with pytest.raises(SystemExit) as e:
+            main(["-q", *map(str, argv)])
+        assert e.value.code == 0, argv
+    made = {}
+    for sub in ("flow", "catchments", "channels", "profiles", "morphometry"):
+        for p in (tmp_path / sub).rglob("*"):
+            if p.is_file():
+                rel = p.relative_to(tmp_path / sub).as_posix()
+                made["flow/" + rel if sub == "flow" else rel] = p
+    in_job = {p.relative_to(job.folder).as_posix(): p for p in job.folder.rglob("*")
+              if p.is_file()}
+    assert set(in_job) - set(made) == {"provenance.json"}
+    assert set(made) <= set(in_job)
+    assert len(made) > 70  # 5 products, 13 outlets' figures
+    for name, p in sorted(made.items()):
+        q = in_job[name]
+        if name.endswith(".json"):
+            a, b = json.loads(p.read_text()), json.loads(q.read_text())
+            assert a["cautions"] == b["cautions"] and a.get("files") == b.get("files"), name
+            continue
+        if name.endswith(".gpkg"):
+            layers = pyogrio.list_layers(p).tolist()
+            assert layers == pyogrio.list_layers(q).tolist(), name
+            for layer, _ in layers:
+                pd.testing.assert_frame_equal(pyogrio.read_dataframe(p, layer=layer),
+                                              pyogrio.read_dataframe(q, layer=layer))
+        if name.endswith(".tif"):
+            with rasterio.open(p) as a, rasterio.open(q) as b:
+                assert np.array_equal(a.read(), b.read(), equal_nan=True), name
+        assert p.read_bytes() == q.read_bytes(), name
+    # the products that must be there, by the contract
+    for name in ("catchments.gpkg", "channels.gpkg", "profiles.gpkg"):
+        assert name in made
+    assert [n for n, _ in pyogrio.list_layers(made["catchments.gpkg"])] == \
+        ["outlets", "catchments", "subcatchments", "errors"]
+    assert [n for n, _ in pyogrio.list_layers(made["channels.gpkg"])] == \
+        ["channels", "junctions"]
+    assert [n for n, _ in pyogrio.list_layers(made["profiles.gpkg"])] == \
+        ["profiles", "knickpoints"]
+    steep = pd.read_csv(made["steepness.csv"])
+    assert {"outlet_id", "segment_id", "ksn_m_per_m"} <= set(steep.columns)
+    # k_sn per channel segment: one row per (outlet, segment), never per whole profile
+    assert not steep.duplicated(["outlet_id", "segment_id"]).any()
+    seg = pd.read_csv(made["channel_segments.csv"])
+    assert set(steep["segment_id"]) <= set(seg["segment_id"])
