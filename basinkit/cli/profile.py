@@ -49,11 +49,14 @@ from .options import (LENGTH, figure_options, finish, load_flow_folder, outlet_o
               help="Vertical precision of the DEM (e.g. 0.5m; bare numbers are metres), "
                    "for knickpoint detection.")
 @figure_options
+@click.option("--workers", type=int, default=2, show_default=True,
+              help="Worker processes sharing the outlets (1: none; the results do not "
+                   "depend on it).")
 @overwrite_option
 @click.pass_obj
 def command(console, flowdir, output, outlets, min_order, min_area, concavity, fit_concavity,
             reference_area, slope_window, slope_drop, vertical_precision, figures,
-            figures_for, overwrite):
+            figures_for, workers, overwrite):
     """Longitudinal profiles, χ, channel steepness and knickpoints upstream of outlets.
 
     Outlets are snapped as in every basinkit command (greatest upstream area within
@@ -75,7 +78,7 @@ def command(console, flowdir, output, outlets, min_order, min_area, concavity, f
         slope_drop_m=(parse_length(slope_drop, "--slope-drop")
                       if slope_drop is not None else None),
         vertical_precision_m=vertical_precision, figures=figures,
-        figure_outlets=tuple(figures_for)).check()
+        figure_outlets=tuple(figures_for), workers=workers).check()
     min_area_m2 = parse_area(min_area, "--min-area")
     outlets.require()
     out = output_folder(output, overwrite)

@@ -57,6 +57,9 @@ JOB_SCHEMA = {
     "job": {
         "name": _S(kind="str", default="basinkit job", help="Title used in the report."),
         "description": _S(kind="str", default="", help="A sentence or two for the report."),
+        "workers": _S(kind="int", default=2,
+                      help="Worker processes for per-outlet work (the products do not "
+                           "depend on it; 1: none)."),
     },
     "inputs": {
         "dem": _S(kind="path", default=None, required=True,
@@ -313,6 +316,8 @@ def job_from_dict(data: dict, base=".", path=None) -> JobSpec:
     if not 0.0 <= c <= 2.0:
         raise JobFileError(f"[profiles] concavity must lie between 0 and 2 (typical 0.45), "
                            f"got {c!r}")
+    if sections["job"]["workers"] < 1:
+        raise JobFileError("[job] workers must be 1 or more")
     if sections["channels"]["min_order"] < 1:
         raise JobFileError("[channels] min_order must be 1 or more")
     if sections["channels"]["min_area"] <= 0:

@@ -15,7 +15,7 @@ from pathlib import Path
 
 from ..errors import OutputError, OutputExistsError
 
-__all__ = ["OutputFolder", "fixed_gpkg_timestamp", "GPKG_TIMESTAMP"]
+__all__ = ["OutputFolder", "fixed_gpkg_timestamp", "png_bytes", "GPKG_TIMESTAMP"]
 
 # the timestamp GDAL writes into GeoPackage tables; fixed, so that the same inputs give a
 # byte-identical file
@@ -212,19 +212,33 @@ class OutputFolder:
                                             layer_metadata=metadata, **kw)
         return p
 
-    def figure(self, name, fig, dpi: int = 110) -> Path:
+    def figure(self, name, fig, dpi: int = 100) -> Path:
         """Write a matplotlib figure as PNG (no timestamp in the file), then close it."""
+        return self.data(name, png_bytes(fig, dpi))
+
+    def data(self, name, data: bytes) -> Path:
+        """Write bytes (e.g. a PNG drawn in a worker process by :func:`png_bytes`)."""
         from ..io.writers import atomic_path
 
         with self._writing(name) as p:
             with atomic_path(p) as tmp:
-                fig.savefig(tmp, format="png", dpi=dpi, metadata={"Software": None})
-        _close(fig)
+                Path(tmp).write_bytes(data)
         return p
 
     def adopt(self, name) -> Path:
         """Record a file that another writer put at :meth:`path` ``(name)``."""
         return self.record(name)
+
+
+def png_bytes(fig, dpi: int = 100) -> bytes:
+    """A matplotlib figure as PNG bytes (no timestamp, so the same figure gives the same
+    bytes); the figure is closed."""
+    import io
+
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
+    _close(fig)
+    return buf.getvalue()
 
 
 def _close(fig):

@@ -93,7 +93,8 @@ def settings_of(job: JobSpec) -> dict:
         "outlets": OutletSpec(file=ins["outlets"], crs=oc["crs"], id_column=oc["id_column"],
                               snap_radius_m=oc["snap_radius_m"],
                               snap_to_channel_m2=oc["snap_min_area"]),
-        "catchments": CatchmentSettings(labels_raster=outs["rasters"]),
+        "catchments": CatchmentSettings(labels_raster=outs["rasters"],
+                                        workers=job["job"]["workers"]),
         "channels": ChannelSettings(min_area_m2=ch["min_area"], min_order=ch["min_order"]),
         "profiles": ProfileSettings(
             min_order=ch["min_order"],
@@ -101,7 +102,7 @@ def settings_of(job: JobSpec) -> dict:
             fit_concavity=pr["fit_concavity"], reference_area_m2=pr["reference_area"],
             slope_window_m=pr["slope_window"], slope_drop_m=pr["slope_drop"],
             vertical_precision_m=pr["vertical_precision"], figures=outs["figures"],
-            figure_outlets=figure_outlets),
+            figure_outlets=figure_outlets, workers=job["job"]["workers"]),
         "morphometry": MorphometrySettings(min_area_m2=ch["min_area"],
                                            figures=outs["figures"],
                                            figure_outlets=figure_outlets),

@@ -199,5 +199,5 @@ def _hypsometry_figure(curve, label, integral):
     ax.set_title("Hypsometric curve")
     ax.legend(loc="upper right", fontsize=8)
     ax.grid(alpha=0.3)
-    fig.tight_layout()
+    fig.subplots_adjust(left=0.13, right=0.96, bottom=0.12, top=0.92)
     return fig

@@ -9,6 +9,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ...errors import BasinkitError, InputError
+from ..output import png_bytes
+from ..parallel import map_outlets, shared
 from ..progress import as_reporter
 from ._common import layer_metadata, step_record
 
@@ -16,6 +18,7 @@ __all__ = ["ProfileSettings", "ProfilesResult", "profiles_step", "FIGURES"]
 
 # the profile figures of a figure outlet: figures/<file_id>_<what>.png
 FIGURES = ("long_profile", "longest_flow_path", "chi_elevation", "slope_area")
+FIGURE_DPI = 100
 
 
 @dataclass
@@ -38,6 +41,9 @@ class ProfileSettings:
         Write PNG figures for the figure outlets.
     figure_outlets : tuple of str
         Ids of the outlets that get figures (default: the first 20).
+    workers : int
+        Processes sharing the outlets (forked; 1 = this process). The products do not
+        depend on it.
     """
 
     min_order: int = 2
@@ -49,6 +55,7 @@ class ProfileSettings:
     vertical_precision_m: float = 1.0
     figures: bool = True
     figure_outlets: tuple = field(default_factory=tuple)
+    workers: int = 2
 
     def check(self):
         """Raise InputError for settings that cannot work (before any work is done)."""
@@ -65,6 +72,8 @@ class ProfileSettings:
             raise InputError("--min-order must be 1 or more")
         if not self.vertical_precision_m > 0:
             raise InputError("the vertical precision must be positive (e.g. 0.5m)")
+        if int(self.workers) < 1:
+            raise InputError("--workers must be 1 or more")
         return self
 
     @property
@@ -142,41 +151,45 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
         rep.warn(f"no figures for {', '.join(map(repr, missing[:10]))}: not among the "
                  "outlets placed")
     fig_rows = set(fig_rows) if s.figures else set()
-    strahler = np.asarray(network.strahler).ravel()
     nodes_l, steep_l, knick_l, path_rows, lines, summaries, fails = [], [], [], [], [], [], []
     paths = {}
     nc = fm.ncols
     rows = list(tab[["outlet_id", "file_id", "cell", "source"]].itertuples(index=False))
-    for k, (oid, fid, cell, src) in enumerate(rep.progress(rows, total=len(rows),
-                                                            desc="profiles")):
-        oid, fid, cell = str(oid), str(fid), int(cell)
-        try:
-            res = _one_outlet(fm, network, strahler, oid, fid, cell, s)
-        except BasinkitError as exc:
-            fails.append({"outlet_id": oid, "source": str(src), "reason": str(exc)})
-            rep.outlet_failed(oid, str(exc), "profiles", source=str(src))
+    items = [(k, str(o), str(f), int(c), k in fig_rows) for k, (o, f, c, _) in
+             enumerate(rows)]
+    results = map_outlets(_profile_item, items, workers=s.workers, progress=rep.progress,
+                          desc="profiles",
+                          shared={"fm": fm, "network": network, "settings": s,
+                                  "strahler": np.asarray(network.strahler).ravel()})
+    # results first in zip: the progress generator then runs to its end (its last line)
+    for r, (k, oid, fid, cell, _) in zip(results, items):
+        src = str(rows[k].source)
+        if "error" in r:
+            fails.append({"outlet_id": oid, "source": src, "reason": r["error"]})
+            rep.outlet_failed(oid, r["error"], "profiles", source=src)
             for kind in ("longest_flow_path", "main_stem"):
                 path_rows.append({"outlet_id": oid, "file_id": fid, "kind": kind,
-                                  "error": str(exc)})
+                                  "error": r["error"]})
             continue
-        nodes, channel, steep, knick, (lfp, ms), summary = res
-        summary.update(outlet_row=cell // nc, outlet_col=cell % nc, source=str(src))
+        summary, lfp, ms = r["summary"], r["lfp"], r["ms"]
+        summary.update(outlet_row=cell // nc, outlet_col=cell % nc, source=src)
         for w in summary.get("warnings", []):
             rep.warn(f"outlet {oid!r}: {w}")
-        nodes_l.append(nodes)
-        steep_l.append(steep)
-        knick_l.append(knick)
+        nodes_l.extend(r["frames"])
+        steep_l.append(r["steepness"])
+        knick_l.append(r["knickpoints"])
         warning = "; ".join(summary.get("warnings", []))
         for prof in (lfp, ms):
             path_rows.append({"outlet_id": oid, "file_id": fid, **prof.summary(),
                               "warning": warning, "error": ""})
             lines.append((oid, prof))
         summaries.append(summary)
-        paths[oid] = {"longest_flow_path": lfp, "main_stem": ms, "channel_nodes": channel,
-                      "steepness": steep, "knickpoints": knick,
+        paths[oid] = {"longest_flow_path": lfp, "main_stem": ms,
+                      "channel_nodes": r["frames"][0], "steepness": r["steepness"],
+                      "knickpoints": r["knickpoints"],
                       "warnings": summary.get("warnings", [])}
-        if k in fig_rows:
-            _figures(out, oid, fid, channel, steep, knick, lfp, ms)
+        for what, png in r.get("figures", {}).items():
+            out.data(f"figures/{fid}_{what}.png", png)
     nodes = _concat(nodes_l, _NODE_FIRST)
     steep = _concat(steep_l, ["outlet_id", "segment_id"])
     knick = _concat(knick_l, ["outlet_id"])
@@ -221,11 +234,33 @@ def _concat(frames, first):
     return df[lead + [c for c in df.columns if c not in lead]]
 
 
-def _one_outlet(fm, net, strahler, oid, fid, cell, s):
-    """Profiles of one outlet: (all nodes, channel nodes, steepness, knickpoints,
-    (longest flow path, main stem), summary)."""
-    import pandas as pd
+def _profile_item(item):
+    """One outlet's profiles (and figures), from the shared flow model and network: a dict
+    with ``frames`` (channel nodes, main stem, longest flow path), ``steepness``,
+    ``knickpoints``, ``lfp``, ``ms``, ``summary`` and ``figures`` (PNG bytes), or
+    ``error``."""
+    k, oid, fid, cell, figures = item
+    fm, net, s = shared("fm"), shared("network"), shared("settings")
+    try:
+        channel, steep, knick, (lfp, ms), summary = _one_outlet(
+            fm, net, shared("strahler"), oid, fid, cell, s)
+    except BasinkitError as exc:
+        return {"error": str(exc)}
+    frames = [channel]
+    for prof in (ms, lfp):
+        f = prof.to_frame()
+        f.insert(0, "outlet_id", oid)
+        frames.append(f)
+    r = {"frames": frames, "steepness": steep, "knickpoints": knick, "lfp": lfp, "ms": ms,
+         "summary": summary}
+    if figures:
+        r["figures"] = _figures(oid, channel, steep, knick, lfp, ms)
+    return r
 
+
+def _one_outlet(fm, net, strahler, oid, fid, cell, s):
+    """Profiles of one outlet: (channel nodes, steepness, knickpoints,
+    (longest flow path, main stem), summary)."""
     from ...analysis import profile_fits as F
     from ...analysis import profiles as P
     from ...analysis.steepness import find_knickpoints, steepness
@@ -263,12 +298,6 @@ def _one_outlet(fm, net, strahler, oid, fid, cell, s):
     knick["outlet_id"] = oid
     lfp = P.longest_flow_path(fm, cell, network=net, **opts)
     ms = P.main_stem(fm, cell, network=net, **opts)
-    frames = [nodes]
-    for prof in (ms, lfp):
-        f = prof.to_frame()
-        f.insert(0, "outlet_id", oid)
-        frames.append(f)
-    nodes_all = pd.concat([f for f in frames if len(f)] or frames[:1], ignore_index=True)
     summary.update(concavity=theta, reference_area_m2=s.reference_area_m2,
                    strahler_order_at_outlet=order_here, channel_node_count=int(len(nodes)),
                    segment_count=int(len(steep)), knickpoint_count=int(len(knick)))
@@ -284,11 +313,11 @@ def _one_outlet(fm, net, strahler, oid, fid, cell, s):
             summary["hack_law_fit"] = {"error": str(exc)}
     if warnings:
         summary["warnings"] = warnings
-    return nodes_all, nodes, steep, knick, (lfp, ms), summary
+    return nodes, steep, knick, (lfp, ms), summary
 
 
-def _figures(out, oid, fid, nodes, steep, knick, lfp, ms):
-    """The four profile figures of one figure outlet."""
+def _figures(oid, nodes, steep, knick, lfp, ms) -> dict:
+    """The four profile figures of one figure outlet, as PNG bytes by name."""
     import warnings
 
     from ...analysis import profile_fits as F
@@ -316,8 +345,7 @@ def _figures(out, oid, fid, nodes, steep, knick, lfp, ms):
             "slope_area": G.plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"],
                                             fit=sa, title=f"slope–area, outlet {oid}"),
         }
-    for what in FIGURES:
-        out.figure(f"figures/{fid}_{what}.png", figs[what], dpi=120)
+    return {what: png_bytes(figs[what], dpi=FIGURE_DPI) for what in FIGURES}
 
 
 def _write_layers(out, fm, net, steep, knick, lines, metadata):
