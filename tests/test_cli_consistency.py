@@ -21,7 +21,6 @@ import pandas as pd
 import pytest
 
 from basinkit.cli.main import SUBCOMMANDS, cli, main
-from basinkit.errors import BasinkitError
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "demo_rasters"

@@ -97,7 +97,7 @@ def test_unknown_section_is_named(valley):
     ("inputs", "burn_lines", "[1, 2]", "must be a list of file paths"),
 ])
 def test_wrong_types_name_the_key(valley, section, key, value, expect):
-    body = f'[inputs]\ndem = "dem.tif"\n' if section != "inputs" else ""
+    body = '[inputs]\ndem = "dem.tif"\n' if section != "inputs" else ""
     if section == "inputs":
         body = f'[inputs]\ndem = "dem.tif"\n{key} = {value}\n'
     else:

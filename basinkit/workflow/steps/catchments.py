@@ -84,24 +84,23 @@ def catchments_step(out, fm, placed, settings: CatchmentSettings | None = None,
     parameters, inputs : dict, optional
         Extra parameters and inputs for the provenance record.
     """
-    import pandas as pd
-
     from ...analysis.catchments import delineate
     from ...analysis.outlets import ERROR_COLUMNS
 
     s = settings or CatchmentSettings()
     rep = as_reporter(reporter)
     fraction_paths = {}
+
+    def write_fraction(row, frac):
+        name = f"contributing_fraction/{row['file_id']}.tif"
+        t = fm.terrain
+        out.geotiff(name, frac.astype("float32"), t.transform, t.crs, nodata=float("nan"),
+                    tags={"cautions": CAUTION_TEXT, "outlet_id": str(row["outlet_id"])})
+        fraction_paths[str(row["outlet_id"])] = name
+
     callback = None
     if s.fraction_rasters and fm.method != "d8":
-        t = fm.terrain
-
-        def callback(row, frac):
-            name = f"contributing_fraction/{row['file_id']}.tif"
-            out.geotiff(name, frac.astype("float32"), t.transform, t.crs,
-                        nodata=float("nan"), tags={"cautions": CAUTION_TEXT,
-                                                   "outlet_id": str(row["outlet_id"])})
-            fraction_paths[str(row["outlet_id"])] = name
+        callback = write_fraction
     elif s.fraction_rasters:
         rep.warn("--fraction-rasters applies to D-infinity and MFD flow folders; this one "
                  "is D8 (the catchment polygons are the exact contributing areas)")

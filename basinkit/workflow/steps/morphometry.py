@@ -86,6 +86,7 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
 
     from ...analysis.catchments import delineate
     from ...analysis.morphometry import morphometry_table
+    from ...plot.morphometry import plot_hypsometric_curve
 
     s = (settings or MorphometrySettings()).check()
     rep = as_reporter(reporter)
@@ -145,8 +146,9 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
             if curves[k] is None:
                 continue
             fid = str(tab["file_id"].iloc[k])
-            fig = _hypsometry_figure(curves[k], f"outlet {tab['outlet_id'].iloc[k]}",
-                                     float(table["hypsometric_integral"].iloc[k]))
+            fig = plot_hypsometric_curve(
+                curves[k], label=f"outlet {tab['outlet_id'].iloc[k]}",
+                integral=float(table["hypsometric_integral"].iloc[k]))
             out.figure(f"figures/{fid}_hypsometry.png", fig, dpi=100)
             files.append(f"figures/{fid}_hypsometry.png")
     bad = table[table["error"] != ""]
@@ -180,24 +182,3 @@ class _Masks:
 
     def __getitem__(self, i):
         return self.d.catchment_mask(self.ids[i])
-
-
-def _hypsometry_figure(curve, label, integral):
-    """The hypsometric curve (Strahler 1952): relative height h/H against relative area
-    above a/A, with the integral in the legend."""
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(5, 4.5), dpi=100)
-    ax = fig.add_subplot(1, 1, 1)
-    text = label + (f" (integral {integral:.3f})" if np.isfinite(integral) else "")
-    ax.plot(curve["relative_area_above"], curve["relative_height"], lw=2, label=text)
-    ax.plot([0, 1], [1, 0], ls=":", lw=1, color="0.5", label="integral 0.5 (reference)")
-    ax.set_xlabel("relative area above, a/A (–)")
-    ax.set_ylabel("relative height, h/H (–)")
-    ax.set_xlim(0, 1)
-    ax.set_ylim(0, 1)
-    ax.set_title("Hypsometric curve")
-    ax.legend(loc="upper right", fontsize=8)
-    ax.grid(alpha=0.3)
-    fig.subplots_adjust(left=0.13, right=0.96, bottom=0.12, top=0.92)
-    return fig
