@@ -139,12 +139,14 @@ def main(argv=None):
     ap.add_argument("--outlets", type=int, default=2000)
     ap.add_argument("--folder", type=Path, default=HERE / "out" / "batch")
     ap.add_argument("--report", action="store_true", help="also write the report")
+    ap.add_argument("--workers", type=int, default=2, help="[job] workers")
     a = ap.parse_args(argv)
     sys.path.insert(0, str(ROOT))
     info = build_batch(a.folder / "inputs", a.outlets)
     job = a.folder / "inputs" / "job.toml"
     if a.report:
         job.write_text(job.read_text().replace("report = false", "report = true"))
+    job.write_text(job.read_text().replace("[inputs]", f"workers = {a.workers}\n[inputs]"))
     out = a.folder / "run"
     t0 = time.perf_counter()
     p = subprocess.run([sys.executable, "-m", "basinkit.cli", "run", str(job), "-o", str(out),
@@ -157,7 +159,9 @@ def main(argv=None):
     prov = json.loads((out / "provenance.json").read_text())
     print(f"outlets: {info['rows']} rows, {len(info['good'])} good; exit status "
           f"{p.returncode}; failures {prov['outlets']['failed']}")
-    for name, st in prov["stages"].items():
+    order = ["read", "flow", "catchments", "channels", "profiles", "morphometry", "report"]
+    for name in sorted(prov["stages"], key=lambda k: order.index(k) if k in order else 99):
+        st = prov["stages"][name]
         print(f"  {name:12s} {st['status']:8s} {st['seconds']:7.2f} s")
     print(f"  job total (provenance) {prov['seconds_total']:.2f} s; wall clock of the "
           f"command {wall:.2f} s (process start and imports included)")
