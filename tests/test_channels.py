@@ -444,13 +444,3 @@ def test_channels_command_clean_failures(flow_folder, capsys):
         code, err = _cli(["channels", d / "flow", "-o", d / "bad", "--overwrite", *argv],
                          capsys)
         assert code != 0 and "Traceback" not in err and frag in err, err
-
-
-def test_docstring_examples():
-    """The Examples in basinkit.analysis.channels run as written (common practice)."""
-    import doctest
-
-    import basinkit.analysis.channels
-
-    res = doctest.testmod(basinkit.analysis.channels)
-    assert res.attempted > 0 and res.failed == 0

@@ -285,13 +285,3 @@ def test_burn_bad_inputs(tmp_path):
         read_lines(text, t.crs)
     with pytest.raises(InputError, match="not a file name"):  # algorithms take no paths
         burn_lines(t, poly, 2.0)
-
-
-@pytest.mark.parametrize("module", ["basinkit.conditioning.breach", "basinkit.conditioning.burn"])
-def test_docstring_examples(module):
-    """The Examples sections run as written (hand-worked small grids; no source)."""
-    import doctest
-    import importlib
-
-    res = doctest.testmod(importlib.import_module(module))
-    assert res.attempted > 0 and res.failed == 0

@@ -337,16 +337,6 @@ def test_morphometry_command(tmp_path, capsys):
     assert len(meta["catchments"]) == 3
 
 
-def test_docstring_examples():
-    """The Examples in basinkit.analysis.morphometry run as written (common practice)."""
-    import doctest
-
-    import basinkit.analysis.morphometry
-
-    res = doctest.testmod(basinkit.analysis.morphometry)
-    assert res.attempted > 0 and res.failed == 0
-
-
 def test_horn_slope_on_geographic_grid_uses_true_cell_sizes():
     """On a 3″ geographic grid at 60° N a surface rising 0.1 m per metre eastwards on the
     ground has slope 0.1 everywhere (closed form; the east-west cell width, half the

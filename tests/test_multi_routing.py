@@ -421,18 +421,6 @@ def test_route_command_dinf(tmp_path, capsys):
     assert angle_diff(az[1:-1, 1:-1], 33.0).max() < 2e-3
 
 
-@pytest.mark.parametrize("module", ["basinkit.routing._multi", "basinkit.routing.multi",
-                                    "basinkit.routing.contributing"])
-def test_docstring_examples(module):
-    """The Examples in the docstrings run and give what they show (hand-computed cases:
-    a plane dipping south, a split of 1/4 : 3/4; common practice, no source)."""
-    import doctest
-    import importlib
-
-    res = doctest.testmod(importlib.import_module(module))
-    assert res.attempted > 0 and res.failed == 0
-
-
 @pytest.mark.parametrize("method", ["dinf", "mfd"])
 def test_real_dem_routes_and_conserves(method):
     """The real 3-arc-second Jacksboro fault DEM shipped in matplotlib's sample data
