@@ -23,6 +23,7 @@ from scipy import ndimage
 from basinkit import route, terrain_from_array
 from basinkit.analysis.catchments import ACRE_M2, SQUARE_MILE_M2, delineate
 from basinkit.errors import OutletError
+from test_multi_routing import drained_fractal, reference_mfd_accumulation
 
 warnings.filterwarnings("ignore", message=".*geotransform.*")
 warnings.filterwarnings("ignore", message=".*identity.*")
@@ -188,7 +189,7 @@ def test_polygon_keeps_hole_and_edge_flag():
     7x7 grid, everything drains south then along the bottom row to (6, 3), except the
     centre cell (an exit of its own); the outlet's polygon is the square minus one cell
     (one interior ring, area 48 cells). Common practice (no source)."""
-    from basinkit.routing import _d8, _stack
+    from basinkit.routing import _stack
     from basinkit.routing.flow_model import FlowModel
 
     n = 7
@@ -311,9 +312,10 @@ def test_bad_outlets_go_to_errors_rest_complete():
 def test_contributing_area_for_multiple_flow_models():
     """D∞/MFD flow models get a contributing-area column from basinkit.routing.contributing. On a
     south-dipping plane D∞ sends all flow straight down the column, so the contributing
-    area equals the D8 area (analytic, Tarboton 1997); on a fractal DEM the MFD
-    contributing area at each outlet equals the MFD upstream area there (accumulation, a
-    separate pass; common practice, no source)."""
+    area equals the D8 area (closed form, Tarboton 1997); on a drained fractal surface the
+    MFD contributing area at each outlet equals the MFD accumulation there computed from
+    the published formula (Freeman 1991 with the contour lengths of Quinn et al. 1991),
+    written independently in plain NumPy (test_multi_routing.reference_mfd_accumulation)."""
     pytest.importorskip("basinkit.routing.contributing")
     r, c = np.mgrid[0:20, 0:15]
     fm = route(terrain_from_array(100.0 - r, cellsize=10), method="dinf")
@@ -326,13 +328,16 @@ def test_contributing_area_for_multiple_flow_models():
                                rtol=1e-6)
     assert [g[0] for g in got] == ["a", "b"] and got[0][1].dtype == np.float32
     np.testing.assert_allclose(np.nansum(got[0][1]) * 100.0, 1900.0, rtol=1e-6)
-    fm2 = route(terrain_from_array(fractal_dem(60, seed=5), cellsize=10), method="mfd")
+    z2 = drained_fractal(60, 60, seed=5)
+    fm2 = route(terrain_from_array(z2, cellsize=10), method="mfd", conditioning="none")
     rng = np.random.default_rng(5)
     cells = nested_outlets(fm2, rng, 15, 5)
     d2 = delineate(fm2, cell_centre_points(fm2, cells), snap_radius_m=0)
-    mfd_area = fm2.upstream_area().ravel()
-    np.testing.assert_allclose(d2.table["contributing_area_m2"],
-                               mfd_area[d2.table["cell"]], rtol=1e-9)
+    ref = reference_mfd_accumulation(fm2.terrain.elevation, 10.0, 1.1).ravel() * 100.0
+    np.testing.assert_allclose(d2.table["contributing_area_m2"], ref[d2.table["cell"]],
+                               rtol=1e-5)
+    # MFD spreads: some outlets collect less than their D8 catchment
+    assert (d2.table["contributing_area_m2"] < d2.table["area_m2"] * (1 - 1e-3)).any()
 
 
 def test_worker_processes_give_identical_polygons(monkeypatch):
