@@ -2,7 +2,7 @@
 
 External checks:
 - pysheds 0.5 ``Grid.catchment`` computed from our D8 directions (reference library);
-- closed-form catchment areas on a V-shaped valley and on tilted planes (analytic);
+- closed-form catchment areas on a V-shaped valley and on tilted planes;
 - the real 3-arc-second Jacksboro DEM shipped with matplotlib: reported areas (ellipsoidal
   sums of cells) against pyproj ``Geod`` areas of the polygons (Karney 2013, J. Geodesy
   87:43-55);
@@ -79,7 +79,7 @@ def test_v_valley_closed_form():
     """V-shaped valley z = 10|c - c0| + (nrows-1-r) on 10 m x 20 m cells: side slope 1.0,
     down-valley 0.05, diagonal 11/22.4 = 0.49, so every hillside cell drains straight to
     the valley, which drains south to the bottom edge. The catchment of the valley cell in
-    row r is every cell of rows 0..r: (r+1)·ncols·200 m² (analytic)."""
+    row r is every cell of rows 0..r: (r+1)·ncols·200 m² (closed form)."""
     nr, nc, c0 = 40, 25, 12
     r, c = np.mgrid[0:nr, 0:nc]
     z = 10.0 * np.abs(c - c0) + (nr - 1 - r)
@@ -98,14 +98,14 @@ def test_v_valley_closed_form():
     np.testing.assert_allclose(d.table["area_mi2"], d.table["area_m2"] / 2589988.110336,
                                rtol=1e-12)
     assert ACRE_M2 * 640 == pytest.approx(SQUARE_MILE_M2, rel=1e-15)  # 640 acres a mile²
-    # sub-catchments: the rows between consecutive outlets (analytic)
+    # sub-catchments: the rows between consecutive outlets (closed form)
     np.testing.assert_allclose(d.table["subcatchment_area_m2"],
                                np.diff(np.r_[-1, rows]) * nc * 200.0)
     # the outlet tree is the chain v39 -> v30 -> v17 -> v5 -> v0
     assert d.downstream == {"v0": "v5", "v5": "v17", "v17": "v30", "v30": "v39",
                             "v39": None}
     assert d.table["upstream_outlet_ids"].tolist()[-1] == "v30;v17;v5;v0"
-    # polygon of the outlet in row r: the rectangle of rows 0..r (analytic perimeter)
+    # polygon of the outlet in row r: the rectangle of rows 0..r (closed-form perimeter)
     for k, rr in enumerate(rows):
         g = d.polygons[k]
         assert g.geom_type == "Polygon" and g.is_valid
@@ -122,7 +122,7 @@ def test_tilted_planes_closed_form(cellsize):
     """Plane dipping south: the catchment of (r, c) is the column above it, (r+1)·s².
     Plane dipping south-east z = -(r + c): the diagonal beats the sides (drop 2 over
     s√2 > 1 over s), so interior cells collect their NW diagonal: (min(r, c)+1)·s²
-    (analytic)."""
+    (closed form)."""
     nr, nc = 30, 20
     r, c = np.mgrid[0:nr, 0:nc]
     s2 = cellsize * cellsize
@@ -286,6 +286,9 @@ def test_jacksboro_areas_match_geodesic_polygon_areas():
 
 
 def test_no_usable_outlet_raises():
+    """A run whose only outlet lies off the grid has nothing to delineate: OutletError (bad
+    input, refused with a message rather than an empty result; our output contract,
+    DESIGN.md)."""
     fm = route(terrain_from_array(fractal_dem(30, seed=1)))
     with pytest.raises(OutletError):
         delineate(fm, [("far", 1e6, 1e6)])

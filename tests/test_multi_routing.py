@@ -290,9 +290,10 @@ def _reference_accumulation(rec, frac, weight):
        exponent=st.sampled_from([0.0, 1.0, 1.1, 8.0, 60.0]))
 def test_conservation_and_order_on_random_dems(seed, n, m, holes, method, conditioning,
                                                integer, exponent):
-    """CHECKS.md properties: accumulation at exits sums to the total weight (cells, area,
-    random weights), shares sum to 1, the order is topological; and the accumulation equals
-    an independent sparse solve of its defining equations. Random fractal DEMs with nodata
+    """CHECKS.md properties (common practice, no source): accumulation at exits sums to
+    the total weight (cells, area, random weights), shares sum to 1, the order is
+    topological (Kahn 1962); and the accumulation of the routed shares equals a sparse
+    direct solve of its defining equations a = w + Pᵀa (scipy.sparse.linalg.spsolve). Random fractal DEMs with nodata
     holes; unfilled ones keep pits (exits inside the grid); integer DEMs have flats; MFD
     exponents from 0 (contour length only) to 60 (shares far below float32 range)."""
     z = fractal_dem(n, m, seed=seed, relief=50, holes=holes, integer=integer)
@@ -382,10 +383,14 @@ def _reference_fraction(rec, frac, outlet):
 @pytest.mark.parametrize("method", ["dinf", "mfd"])
 def test_contributing_fraction_sums_to_upstream_area(method):
     """Σ fraction × cell area equals the D∞/MFD upstream area at the outlet (both count each
-    cell's area times the share of its flow through the outlet); fractions lie in [0, 1],
-    match an independent sparse solve of f_i = Σ p_ik f_rk, and the batch function agrees."""
-    z = fractal_dem(50, 44, seed=11, relief=120, holes=2)
-    fm = route(terrain_from_array(z, cellsize=30.0), method=method)
+    cell's area times the share of its flow through the outlet: closed form, the two are
+    the row and column readings of one linear system); fractions lie in [0, 1], match a
+    sparse direct solve of f_i = Σ p_ik f_rk (scipy), and the batch function agrees. For
+    MFD the contributing areas also equal the accumulation of the published formula
+    (Freeman 1991; Quinn et al. 1991: reference_mfd_accumulation) on this drained
+    surface."""
+    z = drained_fractal(50, 44, seed=11, holes=2)
+    fm = route(terrain_from_array(z, cellsize=30.0), method=method, conditioning="none")
     area = fm.upstream_area().ravel()
     rng = np.random.default_rng(5)
     valid = np.flatnonzero(fm.terrain.valid.ravel())
@@ -395,6 +400,9 @@ def test_contributing_fraction_sums_to_upstream_area(method):
     np.testing.assert_allclose(got, area[outlets], rtol=1e-9)
     np.testing.assert_allclose(contributing_area_m2(fm, outlets, from_fractions=False), got,
                                rtol=1e-9)
+    if method == "mfd":
+        ref = reference_mfd_accumulation(fm.terrain.elevation, 30.0, 1.1).ravel() * 900.0
+        np.testing.assert_allclose(got, ref[outlets], rtol=1e-5)
     stack = contributing_fractions(fm, outlets[:3])
     rec, frac, _ = fm.multi
     for q, o in enumerate(outlets[:3]):
@@ -451,7 +459,8 @@ def test_contributing_errors():
 def test_route_save_load_round_trip(method, tmp_path):
     """route(..., method) end to end; the flow folder read back by load_flow (without the
     flat mask, which is not stored) gives the same receivers, order, accumulation and D∞
-    azimuth as in memory, and the saved rasters read with rasterio (GDAL) equal them."""
+    azimuth as in memory (a round trip: common practice, no source), and the saved rasters
+    read with rasterio (GDAL) equal them."""
     import rasterio
 
     z = fractal_dem(48, 40, seed=2, relief=80, holes=2, integer=True)  # flats after fill
@@ -477,12 +486,16 @@ def test_route_save_load_round_trip(method, tmp_path):
 
 
 def test_other_method_on_a_model_keeps_its_own():
-    """Asking a D∞ model for MFD (or D8) accumulation leaves its D∞ receivers in place:
-    its contributing fractions still sum to the D∞ area (routing.py uses multi_for)."""
-    z = fractal_dem(30, 30, seed=9, relief=60)
-    fm = route(terrain_from_array(z, cellsize=10.0), method="dinf")
+    """Asking a D∞ model for MFD accumulation gives the MFD of the published formula
+    (Freeman 1991 with Quinn et al. 1991 contour lengths, default exponent 1.1:
+    reference_mfd_accumulation) and leaves its D∞ receivers in place: its contributing
+    fractions still sum to the D∞ area (closed form identity, as above)."""
+    z = drained_fractal(30, 30, seed=9)
+    fm = route(terrain_from_array(z, cellsize=10.0), method="dinf", conditioning="none")
     dinf_area = fm.upstream_area().copy()
     mfd = fm.accumulation(unit="m2", method="mfd")
+    np.testing.assert_allclose(mfd, 100.0 * reference_mfd_accumulation(
+        fm.terrain.elevation, 10.0, 1.1), rtol=1e-5)
     assert fm.multi[0].shape[1] == 2
     o = int(np.nanargmax(dinf_area))
     assert contributing_area_m2(fm, o) == pytest.approx(dinf_area.ravel()[o], rel=1e-9)
