@@ -6,6 +6,11 @@ External checks, named beside each test:
   33:309-319); D8 equals the aspect for multiples of 45° (O'Callaghan & Mark 1984);
 - on a geographic grid the expected angle comes from pyproj Geod distances (Karney 2013);
 - the cone z = H(1 - r/R): specific catchment area a = r/2 (Tarboton 1997 used this test);
+- MFD accumulation against an implementation of the published formula written here in
+  plain NumPy (Freeman 1991 with the contour lengths of Quinn et al. 1991), on surfaces
+  drained by Priority-Flood+ε so that no flat rule is involved;
+- flat cells follow their D8 receivers (Barnes, Lehman & Mulla 2014); the receiver graph is
+  acyclic (networkx);
 - accumulation and contributing fractions against an independent sparse linear solve of
   their defining equations (scipy; definition of accumulation, common practice, no source);
 - conservation and topological-order properties with hypothesis on random fractal DEMs with

@@ -424,7 +424,9 @@ def test_plots_have_labels(landscape):
 # ---------------------------------------------------------------------- command line
 def test_profile_command(tmp_path, base_model):
     """End to end: basinkit profile writes the CSV, the GeoPackage layers, the figures and a
-    summary with provenance and cautions; a bad outlet is recorded and others carry on."""
+    summary with provenance and cautions; a bad outlet is recorded, the others carry on and
+    the exit status is 1; the same run twice gives byte-identical tables (our output
+    contract, DESIGN.md); GeoPackage layers read back with geopandas (GDAL)."""
     import geopandas as gpd
     from click.testing import CliRunner
 
