@@ -2,7 +2,7 @@
 
 External checks:
 - pysheds 0.5 ``Grid.catchment`` computed from our D8 directions (reference library);
-- closed-form catchment areas on a V-shaped valley and on tilted planes (analytic);
+- closed-form catchment areas on a V-shaped valley and on tilted planes;
 - the real 3-arc-second Jacksboro DEM shipped with matplotlib: reported areas (ellipsoidal
   sums of cells) against pyproj ``Geod`` areas of the polygons (Karney 2013, J. Geodesy
   87:43-55);
@@ -23,6 +23,7 @@ from scipy import ndimage
 from basinkit import route, terrain_from_array
 from basinkit.analysis.catchments import ACRE_M2, SQUARE_MILE_M2, delineate
 from basinkit.errors import OutletError
+from test_multi_routing import drained_fractal, reference_mfd_accumulation
 
 warnings.filterwarnings("ignore", message=".*geotransform.*")
 warnings.filterwarnings("ignore", message=".*identity.*")
@@ -78,7 +79,7 @@ def test_v_valley_closed_form():
     """V-shaped valley z = 10|c - c0| + (nrows-1-r) on 10 m x 20 m cells: side slope 1.0,
     down-valley 0.05, diagonal 11/22.4 = 0.49, so every hillside cell drains straight to
     the valley, which drains south to the bottom edge. The catchment of the valley cell in
-    row r is every cell of rows 0..r: (r+1)·ncols·200 m² (analytic)."""
+    row r is every cell of rows 0..r: (r+1)·ncols·200 m² (closed form)."""
     nr, nc, c0 = 40, 25, 12
     r, c = np.mgrid[0:nr, 0:nc]
     z = 10.0 * np.abs(c - c0) + (nr - 1 - r)
@@ -97,14 +98,14 @@ def test_v_valley_closed_form():
     np.testing.assert_allclose(d.table["area_mi2"], d.table["area_m2"] / 2589988.110336,
                                rtol=1e-12)
     assert ACRE_M2 * 640 == pytest.approx(SQUARE_MILE_M2, rel=1e-15)  # 640 acres a mile²
-    # sub-catchments: the rows between consecutive outlets (analytic)
+    # sub-catchments: the rows between consecutive outlets (closed form)
     np.testing.assert_allclose(d.table["subcatchment_area_m2"],
                                np.diff(np.r_[-1, rows]) * nc * 200.0)
     # the outlet tree is the chain v39 -> v30 -> v17 -> v5 -> v0
     assert d.downstream == {"v0": "v5", "v5": "v17", "v17": "v30", "v30": "v39",
                             "v39": None}
     assert d.table["upstream_outlet_ids"].tolist()[-1] == "v30;v17;v5;v0"
-    # polygon of the outlet in row r: the rectangle of rows 0..r (analytic perimeter)
+    # polygon of the outlet in row r: the rectangle of rows 0..r (closed-form perimeter)
     for k, rr in enumerate(rows):
         g = d.polygons[k]
         assert g.geom_type == "Polygon" and g.is_valid
@@ -121,7 +122,7 @@ def test_tilted_planes_closed_form(cellsize):
     """Plane dipping south: the catchment of (r, c) is the column above it, (r+1)·s².
     Plane dipping south-east z = -(r + c): the diagonal beats the sides (drop 2 over
     s√2 > 1 over s), so interior cells collect their NW diagonal: (min(r, c)+1)·s²
-    (analytic)."""
+    (closed form)."""
     nr, nc = 30, 20
     r, c = np.mgrid[0:nr, 0:nc]
     s2 = cellsize * cellsize
@@ -188,7 +189,7 @@ def test_polygon_keeps_hole_and_edge_flag():
     7x7 grid, everything drains south then along the bottom row to (6, 3), except the
     centre cell (an exit of its own); the outlet's polygon is the square minus one cell
     (one interior ring, area 48 cells). Common practice (no source)."""
-    from basinkit.routing import _d8, _stack
+    from basinkit.routing import _stack
     from basinkit.routing.flow_model import FlowModel
 
     n = 7
@@ -285,6 +286,9 @@ def test_jacksboro_areas_match_geodesic_polygon_areas():
 
 
 def test_no_usable_outlet_raises():
+    """A run whose only outlet lies off the grid has nothing to delineate: OutletError (bad
+    input, refused with a message rather than an empty result; our output contract,
+    DESIGN.md)."""
     fm = route(terrain_from_array(fractal_dem(30, seed=1)))
     with pytest.raises(OutletError):
         delineate(fm, [("far", 1e6, 1e6)])
@@ -311,9 +315,10 @@ def test_bad_outlets_go_to_errors_rest_complete():
 def test_contributing_area_for_multiple_flow_models():
     """D∞/MFD flow models get a contributing-area column from basinkit.routing.contributing. On a
     south-dipping plane D∞ sends all flow straight down the column, so the contributing
-    area equals the D8 area (analytic, Tarboton 1997); on a fractal DEM the MFD
-    contributing area at each outlet equals the MFD upstream area there (accumulation, a
-    separate pass; common practice, no source)."""
+    area equals the D8 area (closed form, Tarboton 1997); on a drained fractal surface the
+    MFD contributing area at each outlet equals the MFD accumulation there computed from
+    the published formula (Freeman 1991 with the contour lengths of Quinn et al. 1991),
+    written independently in plain NumPy (test_multi_routing.reference_mfd_accumulation)."""
     pytest.importorskip("basinkit.routing.contributing")
     r, c = np.mgrid[0:20, 0:15]
     fm = route(terrain_from_array(100.0 - r, cellsize=10), method="dinf")
@@ -326,13 +331,16 @@ def test_contributing_area_for_multiple_flow_models():
                                rtol=1e-6)
     assert [g[0] for g in got] == ["a", "b"] and got[0][1].dtype == np.float32
     np.testing.assert_allclose(np.nansum(got[0][1]) * 100.0, 1900.0, rtol=1e-6)
-    fm2 = route(terrain_from_array(fractal_dem(60, seed=5), cellsize=10), method="mfd")
+    z2 = drained_fractal(60, 60, seed=5)
+    fm2 = route(terrain_from_array(z2, cellsize=10), method="mfd", conditioning="none")
     rng = np.random.default_rng(5)
     cells = nested_outlets(fm2, rng, 15, 5)
     d2 = delineate(fm2, cell_centre_points(fm2, cells), snap_radius_m=0)
-    mfd_area = fm2.upstream_area().ravel()
-    np.testing.assert_allclose(d2.table["contributing_area_m2"],
-                               mfd_area[d2.table["cell"]], rtol=1e-9)
+    ref = reference_mfd_accumulation(fm2.terrain.elevation, 10.0, 1.1).ravel() * 100.0
+    np.testing.assert_allclose(d2.table["contributing_area_m2"], ref[d2.table["cell"]],
+                               rtol=1e-5)
+    # MFD spreads: some outlets collect less than their D8 catchment
+    assert (d2.table["contributing_area_m2"] < d2.table["area_m2"] * (1 - 1e-3)).any()
 
 
 def test_worker_processes_give_identical_polygons(monkeypatch):

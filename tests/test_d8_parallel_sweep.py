@@ -3,16 +3,17 @@
 - D8 receivers against a plain NumPy implementation of the definition (O'Callaghan & Mark
   1984: steepest drop / distance, ties to the first of N, NE, ..., NW), on integer DEMs
   (ties and flats), nodata holes and per-row distances.
-- The banded sweep against the one-band sweep it replaces (kept below as the reference,
-  the sequential Kahn-order sweep): equal cell counts, areas equal to float64 rounding,
-  the same set of cells; the stack is a topological order (every cell after its receiver:
-  Braun & Willett 2013, the definition of the stack).
-- Cell counts against pysheds 0.5 ``Grid.accumulation`` on the same directions, and
-  upstream areas against its weighted accumulation (reference library).
+- The banded sweep's cell counts and areas against flow accumulation computed from its
+  definition in NumPy (every cell adds itself to each cell on its flow path; O'Callaghan &
+  Mark 1984) and against pysheds 0.5 ``Grid.accumulation`` (reference library), on random
+  receiver forests whose paths cross band boundaries back and forth and on a routed DEM;
+  the stack is a topological order (every cell after its receiver: Braun & Willett 2013,
+  the definition of the stack).
+- The one-band sweep it replaced is kept below only as a regression check: on one band the
+  banded sweep gives its stack and sums bit for bit (common practice, no source).
 - Serial and parallel versions: identical results (determinism; common practice, no
   source).
 """
-
 import numpy as np
 import pytest
 from numba import njit
@@ -26,7 +27,9 @@ from conftest import PYSHEDS_DIRMAP, fractal_dem, pysheds_fdir, pysheds_grid
 
 @njit(cache=True)
 def reference_sweep(rec, ncols, row_area):
-    """The previous sequential sweep (one band), kept as the reference."""
+    """The previous sequential sweep (one band), kept as a regression check: the banded
+    sweep on one band must reproduce it bit for bit (not a reference for correctness;
+    accumulation_by_definition and pysheds are)."""
     n = rec.shape[0]
     pending = np.zeros(n, dtype=np.uint8)
     nvalid = 0
@@ -81,6 +84,59 @@ def random_forest(nr, nc, seed, nodata=0.1, exits=0.02):
     return rec
 
 
+def accumulation_by_definition(rec, ncols, row_area):
+    """Flow accumulation from its definition (O'Callaghan & Mark 1984): a cell's count is
+    the number of valid cells whose flow path passes through it, itself included, and its
+    area the sum of their areas. In NumPy: every valid cell starts a walker that adds
+    itself to each cell it steps on until its path leaves the model. Walkers still going
+    after n steps are caught in a receiver cycle; the cells of the cycles are returned as
+    ``on_cycle`` (their sums are meaningless)."""
+    n = rec.size
+    cur = np.flatnonzero(rec != -2)
+    w = np.asarray(row_area, dtype=np.float64)[cur // ncols]
+    count = np.zeros(n, dtype=np.int64)
+    area = np.zeros(n)
+    for _ in range(n + 1):
+        if not cur.size:
+            break
+        np.add.at(count, cur, 1)
+        np.add.at(area, cur, w)
+        nxt = rec[cur]
+        keep = nxt >= 0
+        cur, w = nxt[keep], w[keep]
+    on_cycle = np.zeros(n, dtype=bool)
+    for _ in range(n if cur.size else 0):  # walk once more round every cycle
+        on_cycle[cur] = True
+        cur = rec[cur]
+    return count, area, on_cycle
+
+
+def pysheds_accumulation(rec, nrows, ncols, row_area):
+    """pysheds 0.5 ``Grid.accumulation`` (reference library) of D8 receivers given as flat
+    indices, cell counts and areas (weights), with a mask of the cells to compare: valid
+    cells that drain somewhere (pysheds leaves an exit cell's own count out)."""
+    from pysheds.view import Raster, ViewFinder
+
+    i = np.arange(rec.size)
+    has = rec >= 0
+    dr = np.where(has, rec // ncols - i // ncols, 0)
+    dc = np.where(has, rec % ncols - i % ncols, 0)
+    code = np.full(rec.size, -1, dtype=np.int64)
+    for k, (a, b) in enumerate(zip(_d8.DROW, _d8.DCOL)):
+        code[has & (dr == a) & (dc == b)] = 45 * k  # our azimuth codes, N = 0 clockwise
+    assert (code[has] >= 0).all(), "receivers must be D8 neighbours"
+    grid, _ = pysheds_grid(np.zeros((nrows, ncols)))
+    fdir = pysheds_fdir(grid, code.reshape(nrows, ncols))
+    count = np.asarray(grid.accumulation(fdir, dirmap=PYSHEDS_DIRMAP, nodata_out=np.nan))
+    valid = (rec != -2).reshape(nrows, ncols)
+    w = Raster(np.where(valid, np.asarray(row_area, dtype=np.float64)[:, None], 0.0),
+               viewfinder=ViewFinder(affine=grid.viewfinder.affine, shape=(nrows, ncols),
+                                     nodata=np.float64(np.nan)))
+    area = np.asarray(grid.accumulation(fdir, weights=w, dirmap=PYSHEDS_DIRMAP,
+                                       nodata_out=np.nan))
+    return count.ravel(), area.ravel(), has
+
+
 def check_stack(rec, stack):
     """Each valid cell once, and after its receiver (Braun & Willett 2013)."""
     valid = np.flatnonzero(rec != -2)
@@ -93,25 +149,38 @@ def check_stack(rec, stack):
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
 @pytest.mark.parametrize("nbands", [2, 3, 8])
-def test_banded_sweep_equals_one_band_sweep(seed, nbands):
+def test_banded_sweep_equals_accumulation_by_definition(seed, nbands):
+    """Random receiver forests (paths wander across band edges): counts equal the
+    definition of flow accumulation and pysheds' accumulation (reference library), areas
+    the same sums of per-row cell areas to float64 rounding; the stack is a topological
+    order (Braun & Willett 2013). Serial and parallel: identical (common practice, no
+    source). On one band the previous sweep is reproduced bit for bit (regression check)."""
     nr, nc = 61, 47
     rec = random_forest(nr, nc, seed)
     row_area = 90.0 + np.random.default_rng(seed).random(nr)  # geographic-like rows
-    ref_stack, ref_count, ref_area = reference_sweep(rec, nc, row_area)
     out = [_stack.sweep_in_bands(rec, nc, row_area, nbands, parallel=p) for p in (False, True)]
     stack, count, area = out[0]
     for a, b in zip(out[0], out[1]):
         assert np.array_equal(a, b)  # serial and parallel versions: identical
     check_stack(rec, stack)
+    valid = rec != -2
+    def_count, def_area, on_cycle = accumulation_by_definition(rec, nc, row_area)
+    assert not on_cycle.any()
+    assert np.array_equal(count[valid], def_count[valid])
+    np.testing.assert_allclose(area[valid], def_area[valid], rtol=1e-12, atol=0)
+    ps_count, ps_area, drains = pysheds_accumulation(rec, nr, nc, row_area)
+    assert np.array_equal(count[drains], ps_count[drains].astype(np.int64))
+    np.testing.assert_allclose(area[drains], ps_area[drains], rtol=1e-12)
+    ref_stack, ref_count, ref_area = reference_sweep(rec, nc, row_area)
     assert np.array_equal(count, ref_count)
     np.testing.assert_allclose(area, ref_area, rtol=1e-13, atol=0)
     # one band is the reference sweep itself, bit for bit
     s1, c1, a1 = _stack.sweep_in_bands(rec, nc, row_area, 1)
     assert np.array_equal(s1, ref_stack) and np.array_equal(c1, ref_count)
     assert np.array_equal(a1, ref_area)
-    # equal cell areas: exact (sums of integers)
+    # equal cell areas: exact (sums of integers; closed form: 100 m² times the count)
     _, _, a_eq = _stack.sweep_in_bands(rec, nc, np.full(nr, 100.0), nbands)
-    assert np.array_equal(a_eq, 100.0 * ref_count)
+    assert np.array_equal(a_eq[valid], 100.0 * def_count[valid])
     # equal cell areas whose sums round (0.1 is no short binary fraction): summed as
     # before, bit for bit on one band
     tenth = np.full(nr, 0.1)
@@ -122,8 +191,8 @@ def test_banded_sweep_equals_one_band_sweep(seed, nbands):
 
 
 def test_sums_exact_follows_the_float64_significand():
-    """IEEE 754 binary64 has a 53-bit significand: k·a is exact for every k <= n when
-    a = m·2^e (m odd) and n·m < 2^53."""
+    """IEEE 754 binary64 has a 53-bit significand (IEEE 754-2008, sec. 3.6): k·a is exact
+    for every k <= n when a = m·2^e (m odd) and n·m < 2^53 (closed form)."""
     assert _stack._sums_exact(100.0, 10**9)          # m = 25
     assert _stack._sums_exact(0.375, 10**12)         # 3·2^-3
     assert not _stack._sums_exact(0.1, 10)           # m has 53 bits
@@ -158,34 +227,56 @@ def test_banded_sweep_on_a_routed_dem_matches_pysheds():
     np.testing.assert_allclose(area.reshape(nr, nc)[inner], ref_w[inner], rtol=1e-12)
 
 
-def test_banded_sweep_leaves_out_cycles_like_the_reference():
-    """A receiver cycle across a band boundary (a damaged direction raster) and the cells
-    draining into it: the same cells as the reference are left out."""
+def test_banded_sweep_leaves_out_cycles():
+    """A receiver cycle across a band boundary (a damaged direction raster): the two cells
+    of the cycle have no place in a stack (no order puts every cell after its receiver:
+    Braun & Willett 2013), so they are left out; every other cell, also those draining
+    into the cycle, is in the stack after its receiver with the count of the definition of
+    flow accumulation (O'Callaghan & Mark 1984). The previous sweep did the same
+    (regression check)."""
     nr, nc = 20, 10
     rec = random_forest(nr, nc, 5, nodata=0.0, exits=0.0)
     a, b = 9 * nc + 4, 10 * nc + 4  # rows 9 and 10: the boundary of 2 bands
     rec[a], rec[b] = b, a
-    ref_stack, ref_count, _ = reference_sweep(rec, nc, np.ones(nr))
     stack, count, _ = _stack.sweep_in_bands(rec, nc, np.ones(nr), 2)
-    assert ref_stack.size < nr * nc
+    def_count, _, on_cycle = accumulation_by_definition(rec, nc, np.ones(nr))
+    assert np.flatnonzero(on_cycle).tolist() == [a, b]
+    assert np.array_equal(np.sort(stack), np.flatnonzero(~on_cycle))
+    pos = np.full(rec.size, -1)
+    pos[stack] = np.arange(stack.size)
+    into = stack[rec[stack] >= 0]
+    into = into[~on_cycle[rec[into]]]
+    assert (pos[rec[into]] < pos[into]).all()
+    assert np.array_equal(count[~on_cycle], def_count[~on_cycle])
+    donors = np.flatnonzero(np.isin(rec, [a, b]) & ~on_cycle)
+    assert donors.size and np.isin(donors, stack).all()  # cells draining into the cycle
+    ref_stack, ref_count, _ = reference_sweep(rec, nc, np.ones(nr))
     assert np.array_equal(np.sort(stack), np.sort(ref_stack))
     assert np.array_equal(count, ref_count)
 
 
 def test_receivers_that_are_not_neighbours_fall_back_to_one_band():
     """Far receivers (not D8 neighbours) cannot be listed per band edge: the sweep falls
-    back to one band and still gives the reference result."""
+    back to one band. Every top-half cell drains to one bottom-half exit, so the counts are
+    1 in the top half and 2 in the bottom half (closed form); the stack puts each cell after
+    its receiver (Braun & Willett 2013); the previous sweep is reproduced bit for bit
+    (regression check)."""
     nr, nc = 16, 4
     n = nr * nc
     rec = np.full(n, -1, dtype=np.int32)
     rec[: n // 2] = np.arange(n // 2, n)  # every cell of the top half to the bottom half
-    ref = reference_sweep(rec, nc, np.ones(nr))
-    out = _stack.sweep_in_bands(rec, nc, np.ones(nr), 4)
-    for a, b in zip(out, ref):
+    stack, count, area = _stack.sweep_in_bands(rec, nc, np.full(nr, 2.5), 4)
+    check_stack(rec, stack)
+    assert count.tolist() == [1] * (n // 2) + [2] * (n // 2)
+    assert area.tolist() == [2.5] * (n // 2) + [5.0] * (n // 2)
+    ref = reference_sweep(rec, nc, np.full(nr, 2.5))
+    for a, b in zip((stack, count, area), ref):
         assert np.array_equal(a, b)
 
 
 def test_sweep_bands_for_large_grids_only():
+    """Small grids stay in one band, grids of a million cells are split (our own rule for
+    when bands pay off; common practice, no source: measured in bench/)."""
     assert _stack.sweep_bands_for(100, 100) == 1
     assert _stack.sweep_bands_for(1024, 1024) == _stack.SWEEP_BANDS > 1
 
@@ -214,6 +305,10 @@ def reference_d8(z, valid, seeds, base_level, dist):
 
 @pytest.mark.parametrize("seed", [0, 3])
 def test_d8_receivers_match_the_definition(seed):
+    """Serial and parallel D8 kernels against the definition written in NumPy
+    (reference_d8: O'Callaghan & Mark 1984, steepest drop over the true distance, ties to
+    the first of N, NE, ..., NW), on a filled integer DEM with flats, nodata holes,
+    scattered base-level cells and per-row distances as on a geographic grid."""
     z = fractal_dem(90, 70, seed=seed, holes=3, integer=True)  # ties and flats
     t = terrain_from_array(z)
     f = fill_depressions(t)

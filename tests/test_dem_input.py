@@ -41,16 +41,19 @@ def slope(nr=12, nc=10):
 
 
 def test_missing_file(tmp_path):
+    """A DEM path that does not exist: InputError saying so (our output contract, DESIGN.md: bad input is one clear message)."""
     with pytest.raises(InputError, match="does not exist"):
         read_dem(tmp_path / "nowhere.tif")
 
 
 def test_folder_is_not_a_raster(tmp_path):
+    """A folder given as the DEM: InputError naming it a folder (our output contract, DESIGN.md: bad input is one clear message)."""
     with pytest.raises(InputError, match="folder"):
         read_dem(tmp_path)
 
 
 def test_text_file_is_not_a_raster(tmp_path):
+    """A CSV named .tif: GDAL cannot open it, InputError 'not a raster' (our output contract, DESIGN.md: bad input is one clear message)."""
     p = tmp_path / "dem.tif"
     p.write_text("elevation,x,y\n1,2,3\n")
     with pytest.raises(InputError, match="not a raster"):
@@ -58,6 +61,9 @@ def test_text_file_is_not_a_raster(tmp_path):
 
 
 def test_multiband_needs_band(tmp_path):
+    """Three bands written with rasterio (GDAL): without --band refused with the count and
+    the option to use (our output contract, DESIGN.md: bad input is one clear message); band 2 reads back exactly the values written (round trip);
+    band 4 does not exist."""
     z = slope()
     p = write_tif(tmp_path / "multi.tif", np.stack([z, z + 1000, z + 2000]))
     with pytest.raises(InputError, match="3 bands.*--band"):
@@ -70,6 +76,8 @@ def test_multiband_needs_band(tmp_path):
 
 
 def test_all_nodata_refused(tmp_path):
+    """A raster of nodata only (declared -9999, or NaN) has nothing to route: InputError
+    (our output contract, DESIGN.md: bad input is one clear message)."""
     p = write_tif(tmp_path / "empty.tif", np.full((5, 6), -9999, np.float32), nodata=-9999)
     with pytest.raises(InputError, match="no valid cells"):
         read_dem(p)
@@ -79,7 +87,9 @@ def test_all_nodata_refused(tmp_path):
 
 
 def test_nan_nodata(tmp_path):
-    """NaN declared as nodata, and NaN without any declared nodata, are both missing."""
+    """NaN declared as nodata, and NaN without any declared nodata, are both missing; the
+    other cells read back exactly as written with rasterio (round trip; IEEE 754 NaN is
+    never a valid elevation: common practice, no source)."""
     z = slope()
     z[3:5, 2:4] = np.nan
     for nod in (np.nan, None):
@@ -91,6 +101,9 @@ def test_nan_nodata(tmp_path):
 
 @pytest.mark.parametrize("dtype,nodata", [("int16", -9999), ("uint16", 0), ("int32", -1)])
 def test_integer_dem_with_nodata(tmp_path, dtype, nodata):
+    """Integer GeoTIFFs with a declared nodata value (GDAL's nodata tag): those cells are
+    missing, the others read back exactly (round trip) as float32, and routing conserves
+    them: accumulation at the exits sums to the valid cells (common practice, no source)."""
     z = np.round(slope() * 3).astype(dtype)
     z[0, 0] = nodata
     z[6, 4] = nodata
@@ -104,6 +117,9 @@ def test_integer_dem_with_nodata(tmp_path, dtype, nodata):
 
 @pytest.mark.parametrize("shape", [(1, 1), (2, 2)])
 def test_tiny_grids_route(tmp_path, shape):
+    """1 x 1 and 2 x 2 rasters read and route: every cell is on the edge, the exits collect
+    every cell (conservation) and no area exceeds the grid's, 100 m² a cell (closed
+    form)."""
     z = np.arange(np.prod(shape), dtype=np.float32).reshape(shape)
     t = read_dem(write_tif(tmp_path / "tiny.tif", z))
     fm = route(t)
@@ -114,6 +130,9 @@ def test_tiny_grids_route(tmp_path, shape):
 
 
 def test_no_crs_refused_unless_given(tmp_path):
+    """A raster without a CRS cannot give true distances: refused, naming --crs (our output contract, DESIGN.md: bad input is one clear message);
+    with EPSG:32633 given its 10 m cells are 10 m (UTM is in metres: the EPSG definition);
+    a CRS that pyproj cannot parse is refused."""
     p = write_tif(tmp_path / "nocrs.tif", slope(), crs=None)
     with pytest.raises(InputError, match="no coordinate reference system.*--crs"):
         read_dem(p)
@@ -126,7 +145,9 @@ def test_no_crs_refused_unless_given(tmp_path):
 
 def test_rows_south_to_north_are_flipped(tmp_path):
     """A raster stored with its first row in the south (positive pixel height) is turned
-    north-up: the cell at a given map coordinate keeps its value."""
+    north-up: the cell at a given map coordinate keeps its value (closed form from the GDAL
+    geotransform: y = f + row·e), and D8 then points north, the way the written surface
+    falls (O'Callaghan & Mark 1984)."""
     z = slope()
     nr = z.shape[0]
     tr = Affine(10, 0, 500000, 0, 10, 4999880)  # row 0 is the southern row
@@ -148,6 +169,9 @@ def test_rows_south_to_north_are_flipped(tmp_path):
     (2222, 0.3048),       # NAD83 / Arizona East (ft): international foot, 1959 agreement
 ])
 def test_feet_give_metres(tmp_path, epsg, metres_per_unit):
+    """Cells of 30 ft x 20 ft in a CRS in US survey feet (1200/3937 m, US Metric Act 1866 /
+    Mendenhall Order 1893) or international feet (0.3048 m, 1959 agreement) give spacings,
+    diagonals and areas in metres by those legal definitions (closed form)."""
     tr = Affine(30, 0, 2000000, 0, -20, 10000000)  # 30 ft by 20 ft cells
     t = read_dem(write_tif(tmp_path / "feet.tif", slope(), transform=tr,
                            crs=f"EPSG:{epsg}"))
@@ -164,6 +188,10 @@ def test_feet_give_metres(tmp_path, epsg, metres_per_unit):
 
 
 def test_memory_refusal_says_how_much(tmp_path, monkeypatch):
+    """With (pretend) 1000 bytes free, reading and routing are refused before any work,
+    with the cell count, the memory needed in a readable unit and what is available (our
+    output contract, DESIGN.md: say what is wrong and what to do); the check can be
+    switched off. The bytes per cell are our own estimate (common practice, no source)."""
     p = write_tif(tmp_path / "big.tif", slope(40, 50))
     monkeypatch.setattr(terrain_mod, "available_memory_bytes", lambda: 1000)
     with pytest.raises(MemoryBudgetError) as exc:
@@ -192,6 +220,9 @@ def test_memory_message_units():
 
 
 def test_sea_level_cells_are_exits(tmp_path):
+    """sea_level=82 on a plane falling from 100 to 78 m: exactly the cells at or below
+    82 m are base level (closed form), exits that keep their elevation (the fill seeds
+    Priority-Flood from every exit: Barnes, Lehman & Mulla 2014)."""
     z = slope()  # 100 .. 78 from north to south
     t = read_dem(write_tif(tmp_path / "coast.tif", z), sea_level=82.0)
     assert np.array_equal(t.base_level, z <= 82.0)
@@ -203,7 +234,10 @@ def test_sea_level_cells_are_exits(tmp_path):
 
 def test_base_level_mask_raster(tmp_path):
     """A lake in the middle of a bowl: without base level the bowl fills; with the lake as
-    base level its cells are exits and nothing is raised."""
+    base level its cells are exits and nothing is raised (closed form: every bowl cell
+    falls toward the centre, Priority-Flood seeded on the lake raises none; Barnes, Lehman
+    & Mulla 2014). A mask on another grid, or a missing one, is refused (our output
+    contract, DESIGN.md)."""
     r, c = np.mgrid[0:15, 0:15]
     z = (np.hypot(r - 7, c - 7) * 2.0 + 10.0).astype(np.float32)  # bowl, lowest at centre
     lake = (np.hypot(r - 7, c - 7) <= 2).astype(np.uint8)
@@ -248,13 +282,16 @@ def test_base_level_polygon_geopackage(tmp_path):
 
 
 def test_rotated_grid_refused(tmp_path):
+    """A geotransform with rotation terms (GDAL's b and d) has no row/column spacing to
+    route on: refused with a message (our output contract, DESIGN.md: bad input is one clear message)."""
     tr = Affine(10, 2, 500000, 1, -10, 5000000)
     with pytest.raises(InputError, match="rotated"):
         read_dem(write_tif(tmp_path / "rot.tif", slope(), transform=tr))
 
 
 def test_truncated_file_is_a_clear_error(tmp_path):
-    """A GeoTIFF cut short (an interrupted copy) opens but cannot be read: InputError."""
+    """A GeoTIFF cut short (an interrupted copy) opens but cannot be read: InputError
+    naming it damaged or truncated, not a GDAL traceback (our output contract, DESIGN.md: bad input is one clear message)."""
     p = write_tif(tmp_path / "whole.tif", np.tile(slope(), (30, 30)))
     data = p.read_bytes()
     cut = tmp_path / "cut.tif"
@@ -264,6 +301,8 @@ def test_truncated_file_is_a_clear_error(tmp_path):
 
 
 def test_base_level_file_that_is_no_raster(tmp_path):
+    """A base-level file that is text: refused with a message naming the base-level file
+    (our output contract, DESIGN.md: bad input is one clear message)."""
     dem = write_tif(tmp_path / "dem.tif", slope())
     junk = tmp_path / "lake.tif"
     junk.write_text("not a mask")

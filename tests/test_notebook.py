@@ -13,6 +13,8 @@ NOTEBOOK = Path(__file__).resolve().parents[1] / "notebooks" / "walkthrough.ipyn
 
 
 def test_notebook_is_committed_without_outputs():
+    """Read with nbformat: every code cell without outputs or execution count, so the
+    repository holds no stale results (common practice, no source)."""
     nbformat = pytest.importorskip("nbformat")
     nb = nbformat.read(NOTEBOOK, as_version=4)
     code = [c for c in nb.cells if c.cell_type == "code"]
@@ -22,6 +24,9 @@ def test_notebook_is_committed_without_outputs():
 
 
 def test_notebook_executes(tmp_path):
+    """nbclient runs every cell in a fresh kernel: no error output, at least three figures
+    and the longest-flow-path line printed (the notebook's own checks run inside it;
+    common practice, no source)."""
     nbformat = pytest.importorskip("nbformat")
     nbclient = pytest.importorskip("nbclient")
     pytest.importorskip("ipykernel", reason="ipykernel is needed to run the notebook")

@@ -40,6 +40,10 @@ def flow():
 
 
 def test_outlets_from_text():
+    """Our own text form of an outlet, ``[id=]x,y`` or ``x y``: ids default to outlet_N by
+    position; rows that are not two numbers go to the errors table with a reason and the
+    rest are read (the format is ours; our output contract, DESIGN.md: bad items are
+    recorded, the rest go on)."""
     raw, err = outlets_from_text(["100,200", "gauge A=3.5, 7", "1 2", "x,y", "1,2,3",
                                   "bad=,"])
     assert raw["outlet_id"].tolist() == ["outlet_1", "gauge A", "outlet_3"]
@@ -50,9 +54,14 @@ def test_outlets_from_text():
 
 
 def test_csv_xy_and_lonlat(tmp_path, flow):
-    """x/y columns are in the DEM CRS by default; lon/lat columns default to EPSG:4326.
-    lon 15°, lat 0° is (500000, 0) in UTM 33N (projection definition), so a point at
-    lon 15.0, lat 0.003 (~332 m north) falls in column 50 (x 500000..500010)."""
+    """x/y columns are in the DEM CRS by default; lon/lat columns default to EPSG:4326
+    (the latitude-longitude convention of GeoJSON, RFC 7946). lon 15°, lat 0° is
+    (500000, 0) in UTM 33N (the projection's definition: false easting 500 000 m on the
+    central meridian 15° E, northing 0 on the equator; value from memory), and 0.003° of
+    latitude is about 332 m (a degree of the meridian near the equator is ~110.6 km, times
+    the scale factor 0.9996; value from memory), so the point falls in column 50 (x
+    500000..500010) about 332 m north. A row with a non-number or a missing value goes to
+    the errors table (our output contract, DESIGN.md)."""
     p = tmp_path / "pts.csv"
     p.write_text("Name,X,Y\nA,500005,405\nB,499995,795\n")
     raw, err = read_outlet_file(p)
@@ -94,6 +103,8 @@ def test_vector_points_in_their_own_crs(tmp_path, flow):
 
 
 def test_missing_file_and_columns(tmp_path):
+    """A missing outlet file, or one without x and y columns: InputError saying what is
+    wrong (our output contract, DESIGN.md: bad input is one clear message)."""
     with pytest.raises(InputError):
         read_outlet_file(tmp_path / "none.csv")
     p = tmp_path / "bad.csv"
@@ -143,8 +154,10 @@ def brute_force_snap(fm, x, y, radius, min_area=None):
 @settings(max_examples=40, deadline=None)
 @given(st.floats(499500, 500300), st.floats(0, 800), st.floats(0, 80))
 def test_snap_never_farther_than_radius(flow, x, y, radius):
-    """The snapped cell's centre is within the radius (or the cell holds the point), and
-    it is the cell a brute-force search picks (greatest upstream area, then nearest)."""
+    """Hypothesis: the snapped cell's centre is within the radius (or the cell holds the
+    point), and it is the cell a brute-force search over every cell of the grid picks
+    (written above, independent of the windowed search: greatest upstream area, then
+    nearest; the rule is common practice, no source)."""
     raw = outlets_from_points([x], [y])
     loc, err = locate_outlets(flow.terrain, raw)
     if not len(loc):
@@ -158,8 +171,9 @@ def test_snap_never_farther_than_radius(flow, x, y, radius):
 
 
 def test_snap_to_channel_nearest_cell(flow):
-    """Channel mode: the nearest cell with upstream area >= the threshold (brute force);
-    outlets with none within reach go to the errors table."""
+    """Channel mode: the nearest cell with upstream area >= the threshold, as a brute-force
+    search over every cell finds it (independent reference written above; the rule is
+    common practice, no source); outlets with none within reach go to the errors table."""
     rng = np.random.default_rng(2)
     xs = rng.uniform(499500, 500300, 60)
     ys = rng.uniform(0, 800, 60)
@@ -227,6 +241,9 @@ def test_snap_geographic_uses_geodesic_distance():
 
 
 def test_sanitize_ids_examples():
+    """Ids become safe file names: no path parts, no leading dots, reserved device names
+    (con) prefixed, empty ids named, clashes (also by case) numbered (common practice, no
+    source: what every file system accepts)."""
     ids = ["../etc/passwd", "a b", "A_B", "", "..", "con", "x/../../y", "ok.tif", "a b"]
     out = sanitize_ids(ids)
     # "A_B" is already clean and keeps its name; "a b" cleans to the same name and gets a
@@ -240,6 +257,9 @@ def test_sanitize_ids_examples():
 @settings(max_examples=200, deadline=None)
 @given(st.lists(st.text(min_size=0, max_size=30), min_size=1, max_size=20))
 def test_sanitize_ids_safe_and_unique(ids):
+    """Hypothesis, any text: sanitised ids are unique without regard to case, at most 90
+    characters, and stay inside their folder by os.path.normpath (common practice, no
+    source)."""
     out = sanitize_ids(ids)
     assert len(out) == len(ids)
     assert len({o.lower() for o in out}) == len(out)
@@ -251,6 +271,9 @@ def test_sanitize_ids_safe_and_unique(ids):
 
 
 def test_prepare_outlets_accepts_arrays(flow):
+    """An (n, 2) array of x, y works like a table: ids outlet_1.., no snapping at radius 0,
+    so each outlet stays on its own cell, less than half a 10 m cell's diagonal from the
+    point (closed form: 5·√2 < 8 m)."""
     s, e = prepare_outlets(flow, np.array([[499605.0, 105.0], [500005, 505]]),
                            radius_m=0)
     assert s["outlet_id"].tolist() == ["outlet_1", "outlet_2"]

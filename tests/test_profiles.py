@@ -103,7 +103,8 @@ def test_chi_line_through_base_level(landscape):
 
 def test_chi_single_column_closed_form():
     """A 1-cell-wide channel of n unit cells: A = j m² on the reach below cell j, so
-    χ at the top = Σ_{j=1}^{n-1} j^-θ (the discrete Perron & Royden integral)."""
+    χ at the top = Σ_{j=1}^{n-1} j^-θ (closed form: the discrete integral of Perron &
+    Royden 2013 with A0 = 1 m²)."""
     n = 12
     z = np.add.outer(np.arange(n, 0, -1.0), np.zeros(1))
     fm = route(terrain_from_array(z, cellsize=1))
@@ -387,6 +388,9 @@ def test_channel_profile_table(landscape):
 
 
 def test_bad_input_raises(landscape):
+    """An outlet that is no cell, a negative concavity, a zero reference area, order 0,
+    too few points for a fit, a negative window: each refused with a BasinkitError (our
+    output contract, DESIGN.md: bad input is one clear message)."""
     syn, net, outlet = landscape
     with pytest.raises(OutletError):
         P.longest_flow_path(syn, -5)
@@ -403,6 +407,8 @@ def test_bad_input_raises(landscape):
 
 
 def test_plots_have_labels(landscape):
+    """The long profile, χ–elevation and slope–area figures label both axes with units and
+    carry a legend (common practice, no source: a figure without units cannot be read)."""
     syn, net, outlet = landscape
     ms = P.main_stem(syn, outlet)
     nodes = P.channel_profiles(syn, net, outlet, min_order=1)
@@ -418,7 +424,9 @@ def test_plots_have_labels(landscape):
 # ---------------------------------------------------------------------- command line
 def test_profile_command(tmp_path, base_model):
     """End to end: basinkit profile writes the CSV, the GeoPackage layers, the figures and a
-    summary with provenance and cautions; a bad outlet is recorded and others carry on."""
+    summary with provenance and cautions; a bad outlet is recorded, the others carry on and
+    the exit status is 1; the same run twice gives byte-identical tables (our output
+    contract, DESIGN.md); GeoPackage layers read back with geopandas (GDAL)."""
     import geopandas as gpd
     from click.testing import CliRunner
 

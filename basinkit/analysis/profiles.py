@@ -594,6 +594,7 @@ def channel_profiles(fm, network, outlet_cell=None, min_order=2,
     >>> nodes = channel_profiles(fm, net, outlet_cell=5 * 5 + 2, min_order=1)
     >>> nodes[["row", "distance_from_outlet_m", "upstream_area_m2"]].values.tolist()
     [[5.0, 0.0, 3000.0], [4.0, 10.0, 1900.0], [3.0, 20.0, 1400.0], [2.0, 30.0, 900.0]]
+    >>> from basinkit.analysis.steepness import steepness
     >>> steepness(nodes)["node_count"].tolist()
     [4]
     """

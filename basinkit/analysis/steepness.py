@@ -194,6 +194,7 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
     --------
     >>> import numpy as np
     >>> from basinkit import terrain_from_array, route
+    >>> from basinkit.analysis.profiles import main_stem
     >>> z = np.add.outer(np.arange(30.0, 0, -1), np.abs(np.arange(5.0) - 2))  # a V valley
     >>> z[:15] += 20  # a 20 m step in its upper half
     >>> fm = route(terrain_from_array(z, cellsize=10))

@@ -5,7 +5,7 @@ The public face is :func:`basinkit.route` (``method="dinf"`` or ``"mfd"``) and
 :meth:`basinkit.routing.FlowModel.accumulation`; ``multi.py`` holds the functions that take a
 FlowModel, this module the array kernels. Together they implement:
 
-``multi_receivers(fm, method, exponent, flat_mask=None) -> (rec, frac, order)``
+``multi_receivers(fm, method, exponent) -> (rec, frac, order)``
     ``rec`` (ncells, m) int32 flat receiver indices, ``-1`` in unused slots (receivers are
     packed to the front, so the first ``-1`` ends a cell's list); ``m = 2`` for D∞, ``8`` for
     MFD. ``frac`` (ncells, m) float32, summing to 1 for every cell with receivers.
@@ -24,10 +24,9 @@ Which cells split their flow
   flat resolution of Barnes, Lehman & Mulla 2014) sends all its flow to that D8 receiver,
   which lies on the same flat (same elevation) or is its low edge.
 
-The optional ``flat_mask`` of the flat resolution is accepted but not needed: the D8
-receivers already carry the result of the flat resolution, and not using the mask makes a
-model rebuilt from a flow folder (where the mask is not stored) identical to the one routed
-in memory.
+The flat-resolution mask is not needed: the D8 receivers already carry the result of the
+flat resolution, and not using the mask makes a model rebuilt from a flow folder (where the
+mask is not stored) identical to the one routed in memory.
 
 Topological order
 -----------------

@@ -278,13 +278,11 @@ def flow_from_conditioned(cond: Terrain, method: str, params: dict) -> FlowModel
     dist = cond.geometry.neighbour_distances()
     rec, nflat = _d8.d8_receivers(z, valid, seeds, bl, dist)
     del seeds
-    flat_mask = None
     if nflat:
-        flat_mask, unresolved = _d8.resolve_flats(z, valid, rec, dist)
+        # the flat mask is not kept: the D8 receivers carry the flat resolution
+        _, unresolved = _d8.resolve_flats(z, valid, rec, dist)
         if unresolved:
             params = {**params, "cells_without_outlet": int(unresolved)}
-    flat_mask_for_multi = flat_mask if method in ("dinf", "mfd") else None
-    del flat_mask
     # the stack, the cell count and the upstream area come out of one sweep
     stack, count, area = _stack.stack_count_area(rec, cond.shape[1], cond.geometry.area)
     fm = FlowModel(cond, rec, stack, method, parameters=params)
@@ -295,8 +293,7 @@ def flow_from_conditioned(cond: Terrain, method: str, params: dict) -> FlowModel
     if method in ("dinf", "mfd"):
         from .multi import multi_receivers
 
-        fm.multi = multi_receivers(fm, method, params.get("mfd_exponent", 1.1),
-                                   flat_mask_for_multi)
+        fm.multi = multi_receivers(fm, method, params.get("mfd_exponent", 1.1))
         if method == "dinf":
             from .multi import dinf_azimuth
 

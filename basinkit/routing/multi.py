@@ -23,7 +23,7 @@ def _check_exponent(exponent):
     return p
 
 
-def multi_receivers(fm, method, exponent=1.1, flat_mask=None):
+def multi_receivers(fm, method, exponent=1.1):
     """Receivers, proportions and topological order for D∞ or MFD routing.
 
     Parameters
@@ -35,9 +35,6 @@ def multi_receivers(fm, method, exponent=1.1, flat_mask=None):
     exponent : float
         MFD exponent p of ``tan(β) ** p`` (Freeman 1991: 1.1; Quinn et al. 1991: 1).
         Ignored for D∞.
-    flat_mask : ndarray of int32, optional
-        The flat-resolution mask; accepted for the routing contract and not used (the D8
-        receivers already drain the flats, and ignoring it keeps a reloaded model identical).
 
     Notes
     -----
@@ -46,8 +43,11 @@ def multi_receivers(fm, method, exponent=1.1, flat_mask=None):
     proportion to ``tan(β)^p · L`` with the contour lengths L of Quinn et al. (1991),
     generalised to rectangular cells — half the perpendicular cell side for the cardinal
     neighbours, a quarter of the cell diagonal for the diagonal ones (:func:`mfd_kernel`).
-    Distances are the true per-row spacings (geographic grids too). Exits, flats and the
-    order: see the module notes.
+    Distances are the true per-row spacings (geographic grids too). A cell with no lower
+    neighbour that D8 drains (a flat cell) sends all its flow to its D8 receiver: the D8
+    receivers carry the flat resolution, so no flat mask is needed, and a model rebuilt from
+    a flow folder routes exactly as the one routed in memory. Exits, flats and the order:
+    see the module notes of ``_multi.py``.
 
     Returns
     -------
