@@ -45,7 +45,7 @@ _LAZY = {
     "hack_law_fit": "analysis.profiles",
     "read_job": "workflow.jobs",
     "run_job": "workflow.jobs",
-    "write_report": "report.html",
+    "write_report": "report",
 }
 
 

@@ -24,6 +24,7 @@ PRODUCT_FILES = {
     "flow": ("flow/flow.json", "the flow folder step (route)"),
     "catchments": ("catchments.csv", "the catchments step (delineate)"),
     "catchments_gpkg": ("catchments.gpkg", "the catchments step (delineate)"),
+    "outlet_errors": ("outlet_errors.csv", "the catchments step (delineate)"),
     "channel_segments": ("channel_segments.csv", "the channels step (channels)"),
     "channels_gpkg": ("channels.gpkg", "the channels step (channels)"),
     "morphometry": ("morphometry.csv", "the morphometry step (morphometry)"),

@@ -551,13 +551,17 @@ def run_job(job, output=None, overwrite: bool = False, console=None) -> JobResul
             console.warn(res.warnings["job"][-1])
         with _Stage(res, "report", console) as st:
             try:
-                from ..report.html import write_report
+                from ..report import write_report
             except ModuleNotFoundError:
                 st.skip("the report module is not available in this version")
             else:
                 res.provenance["seconds_total"] = round(time.perf_counter() - t_start, 3)
+                # the report is built from the folder's files, provenance.json among them
+                write_json(folder / "provenance.json", res.provenance)
                 res.files["report.html"] = write_report(
-                    res, folder / "report.html", progress=getattr(console, "progress", None))
+                    folder, folder / "report.html",
+                    report_outlets=job["outputs"]["report_outlets"],
+                    progress=getattr(console, "progress", None))
     res.provenance["seconds_total"] = round(time.perf_counter() - t_start, 3)
     res.provenance["outputs"] = _output_hashes(res)
     res.provenance["files"] = sorted(set(res.files) | {"provenance.json"})
