@@ -16,8 +16,10 @@ __version__ = "0.1.0"
 from .conditioning import ConditionSummary, condition, fill_depressions  # noqa: E402
 from .errors import (BasinkitError, InputError, MemoryBudgetError, OutletError,
                      OutputExistsError)
-from .routing.flow_model import FlowModel, load_flow, route  # noqa: E402
-from .terrain.model import Terrain, read_dem, terrain_from_array  # noqa: E402
+from .io.dem import read_dem  # noqa: E402
+from .io.flow_folder import load_flow, write_flow_folder  # noqa: E402
+from .routing import FlowModel, route  # noqa: E402
+from .terrain import Terrain, terrain_from_array  # noqa: E402
 
 # loaded on first use, so that importing basinkit (and starting the CLI) stays quick
 _LAZY = {
@@ -38,11 +40,11 @@ _LAZY = {
     "main_stem": "analysis.profiles",
     "channel_profiles": "analysis.profiles",
     "chi_transform": "analysis.profiles",
-    "fit_concavity": "analysis.profiles",
-    "steepness": "analysis.profiles",
-    "find_knickpoints": "analysis.profiles",
-    "slope_area_fit": "analysis.profiles",
-    "hack_law_fit": "analysis.profiles",
+    "fit_concavity": "analysis.profile_fits",
+    "steepness": "analysis.steepness",
+    "find_knickpoints": "analysis.steepness",
+    "slope_area_fit": "analysis.profile_fits",
+    "hack_law_fit": "analysis.profile_fits",
     "read_job": "workflow.jobs",
     "run_job": "workflow.jobs",
     "write_report": "report",
@@ -67,6 +69,7 @@ def __dir__():
 __all__ = [
     "__version__", "Terrain", "read_dem", "terrain_from_array", "condition",
     "fill_depressions", "ConditionSummary", "route", "FlowModel", "load_flow",
+    "write_flow_folder",
     "BasinkitError", "InputError", "MemoryBudgetError", "OutputExistsError", "OutletError",
     *_LAZY,
 ]

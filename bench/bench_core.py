@@ -82,17 +82,17 @@ def warm_tiled_fill():
 def warm_parallel_routing():
     """Load the parallel versions of the routing kernels (large grids) here, outside the
     timed stages, like the serial versions on the tiny grid."""
-    from basinkit.routing import _d8
+    from basinkit.routing import _d8, _stack
 
     z = fractal(32)
     valid = np.ones(z.shape, bool)
     none = np.zeros(z.shape, bool)
     rec, _ = _d8.d8_receivers.parallel(z, valid, none, none, np.ones((32, 8)))
-    _d8.sweep_in_bands(rec, 32, np.ones(32), 2, parallel=True)
+    _stack.sweep_in_bands(rec, 32, np.ones(32), 2, parallel=True)
 
 
 def child_basinkit(n):
-    from basinkit.routing import _d8
+    from basinkit.routing import _d8, _stack
     from basinkit.conditioning.fill import exit_cells, fill_depressions
     from basinkit.routing.flow_model import flow_from_conditioned
     from basinkit.terrain.model import terrain_from_array
@@ -103,7 +103,7 @@ def child_basinkit(n):
     fm = flow_from_conditioned(fill_depressions(tiny), "d8", {})
     fm.accumulation()
     fm.upstream_area()
-    _d8.stack_count_area(fm.receiver, 32, tiny.geometry.area)
+    _stack.stack_count_area(fm.receiver, 32, tiny.geometry.area)
     warm_tiled_fill()
     warm_parallel_routing()
     compile_s = time.perf_counter() - t
@@ -125,7 +125,7 @@ def child_basinkit(n):
         _d8.resolve_flats(zc, filled.valid, rec, dist)
     t3 = time.perf_counter()
     # stack, cell count and upstream area (m²) in one sweep
-    stack, cells, area = _d8.stack_count_area(rec, zc.shape[1], filled.geometry.area)
+    stack, cells, area = _stack.stack_count_area(rec, zc.shape[1], filled.geometry.area)
     t4 = time.perf_counter()
     del cells, area, stack, rec, zc, filled
     return {"compile_s": compile_s, "fill_s": t1 - t0, "d8_s": t2 - t1, "flats_s": t3 - t2,

@@ -41,13 +41,14 @@ def main(argv=None):
 
     from basinkit import route, terrain_from_array
     from basinkit.analysis import profiles as P
+    from basinkit.analysis.steepness import find_knickpoints, steepness
     from basinkit.analysis.channels import extract_channels
 
     # warm-up: numba kernels (cached on disk) on a tiny grid
     zz = np.add.outer(np.arange(20.0, 0, -1), np.abs(np.arange(15.0) - 7))
     fm0 = route(terrain_from_array(zz, cellsize=10))
     n0 = extract_channels(fm0, 300, geometry=False)
-    P.steepness(P.channel_profiles(fm0, n0, min_order=1))
+    steepness(P.channel_profiles(fm0, n0, min_order=1))
 
     z = np.load(dem_path(a.size))
     t = time.perf_counter()
@@ -61,12 +62,12 @@ def main(argv=None):
         t = time.perf_counter()
         nodes = P.channel_profiles(fm, net, min_order=a.min_order)
         t1 = time.perf_counter()
-        st = P.steepness(nodes)
+        st = steepness(nodes)
         t2 = time.perf_counter()
         times.append((t1 - t, t2 - t1))
     best = min(times, key=lambda p: p[0] + p[1])
     t = time.perf_counter()
-    kp = P.find_knickpoints(nodes)
+    kp = find_knickpoints(nodes)
     t_knick = time.perf_counter() - t
     res = {
         "size": a.size, "cells": int(z.size), "route_s": round(t_route, 3),

@@ -188,7 +188,7 @@ def test_polygon_keeps_hole_and_edge_flag():
     7x7 grid, everything drains south then along the bottom row to (6, 3), except the
     centre cell (an exit of its own); the outlet's polygon is the square minus one cell
     (one interior ring, area 48 cells). Common practice (no source)."""
-    from basinkit.routing import _d8
+    from basinkit.routing import _d8, _stack
     from basinkit.routing.flow_model import FlowModel
 
     n = 7
@@ -207,7 +207,7 @@ def test_polygon_keeps_hole_and_edge_flag():
                 rec[i] = -1
     rec[3 * n + 3] = -1
     rec[2 * n + 3] = 2 * n + 4
-    fm = FlowModel(t, rec, _d8.build_stack(rec))
+    fm = FlowModel(t, rec, _stack.build_stack(rec))
     d = delineate(fm, [("o", 7.0, 1.0)], snap_radius_m=0)
     g = d.polygons[0]
     assert g.geom_type == "Polygon" and len(g.interiors) == 1

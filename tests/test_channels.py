@@ -17,8 +17,9 @@ import numpy as np
 import pytest
 from affine import Affine
 
+from basinkit import write_flow_folder
 from basinkit import InputError, route, terrain_from_array
-from basinkit.routing._d8 import build_stack
+from basinkit.routing._stack import build_stack
 from basinkit.analysis.channels import constant_drop_test, extract_channels, threshold_range
 from basinkit.routing.flow_model import FlowModel
 from conftest import PYSHEDS_DIRMAP, fractal_dem, pysheds_fdir, pysheds_grid
@@ -377,7 +378,7 @@ def flow_folder(tmp_path_factory):
         ds.write(z, 1)
     from basinkit import read_dem
 
-    route(read_dem(d / "dem.tif")).save(d / "flow")
+    write_flow_folder(route(read_dem(d / "dem.tif")), d / "flow")
     return d
 
 

@@ -50,7 +50,7 @@ def run(argv, capsys=None):
 @pytest.fixture(scope="module")
 def flow(tmp_path_factory):
     """The demo DEM routed with the culvert burned (as the demo job does, 1 m deep)."""
-    from basinkit.routing.flow_model import load_flow
+    from basinkit.io.flow_folder import load_flow
 
     base = tmp_path_factory.mktemp("consistency")
     code, _, _ = run(["-q", "route", DEMO / "upland_valley.tif", "--burn",

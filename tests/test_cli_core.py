@@ -17,6 +17,7 @@ import rasterio
 from affine import Affine
 from shapely.geometry import LineString
 
+from basinkit import write_flow_folder
 import basinkit
 from basinkit import load_flow, read_dem, route
 from basinkit.cli.main import main
@@ -305,11 +306,11 @@ def test_load_flow_refuses_looping_directions_and_exits_into_nodata(tmp_path):
     import pytest
 
     from basinkit import InputError, load_flow, route, terrain_from_array
-    from basinkit.routing.flow_model import FILES
+    from basinkit.io.flow_folder import FILES
 
     z = np.add.outer(np.arange(6.0, 0, -1), np.zeros(5))
     z[0, 0] = np.nan
-    route(terrain_from_array(z, cellsize=10)).save(tmp_path / "flow")
+    write_flow_folder(route(terrain_from_array(z, cellsize=10)), tmp_path / "flow")
     path = tmp_path / "flow" / FILES["d8"]
     with rasterio.open(path) as ds:
         d = ds.read(1)

@@ -18,7 +18,7 @@ import pytest
 from numba import njit
 
 from basinkit import route, terrain_from_array
-from basinkit.routing import _d8
+from basinkit.routing import _d8, _stack
 from basinkit.conditioning.fill import exit_cells, fill_depressions
 
 from conftest import PYSHEDS_DIRMAP, fractal_dem, pysheds_fdir, pysheds_grid
@@ -98,7 +98,7 @@ def test_banded_sweep_equals_one_band_sweep(seed, nbands):
     rec = random_forest(nr, nc, seed)
     row_area = 90.0 + np.random.default_rng(seed).random(nr)  # geographic-like rows
     ref_stack, ref_count, ref_area = reference_sweep(rec, nc, row_area)
-    out = [_d8.sweep_in_bands(rec, nc, row_area, nbands, parallel=p) for p in (False, True)]
+    out = [_stack.sweep_in_bands(rec, nc, row_area, nbands, parallel=p) for p in (False, True)]
     stack, count, area = out[0]
     for a, b in zip(out[0], out[1]):
         assert np.array_equal(a, b)  # serial and parallel versions: identical
@@ -106,30 +106,30 @@ def test_banded_sweep_equals_one_band_sweep(seed, nbands):
     assert np.array_equal(count, ref_count)
     np.testing.assert_allclose(area, ref_area, rtol=1e-13, atol=0)
     # one band is the reference sweep itself, bit for bit
-    s1, c1, a1 = _d8.sweep_in_bands(rec, nc, row_area, 1)
+    s1, c1, a1 = _stack.sweep_in_bands(rec, nc, row_area, 1)
     assert np.array_equal(s1, ref_stack) and np.array_equal(c1, ref_count)
     assert np.array_equal(a1, ref_area)
     # equal cell areas: exact (sums of integers)
-    _, _, a_eq = _d8.sweep_in_bands(rec, nc, np.full(nr, 100.0), nbands)
+    _, _, a_eq = _stack.sweep_in_bands(rec, nc, np.full(nr, 100.0), nbands)
     assert np.array_equal(a_eq, 100.0 * ref_count)
     # equal cell areas whose sums round (0.1 is no short binary fraction): summed as
     # before, bit for bit on one band
     tenth = np.full(nr, 0.1)
     _, _, ref_tenth = reference_sweep(rec, nc, tenth)
-    assert np.array_equal(_d8.sweep_in_bands(rec, nc, tenth, 1)[2], ref_tenth)
-    np.testing.assert_allclose(_d8.sweep_in_bands(rec, nc, tenth, nbands)[2], ref_tenth,
+    assert np.array_equal(_stack.sweep_in_bands(rec, nc, tenth, 1)[2], ref_tenth)
+    np.testing.assert_allclose(_stack.sweep_in_bands(rec, nc, tenth, nbands)[2], ref_tenth,
                                rtol=1e-13, atol=0)
 
 
 def test_sums_exact_follows_the_float64_significand():
     """IEEE 754 binary64 has a 53-bit significand: k·a is exact for every k <= n when
     a = m·2^e (m odd) and n·m < 2^53."""
-    assert _d8._sums_exact(100.0, 10**9)          # m = 25
-    assert _d8._sums_exact(0.375, 10**12)         # 3·2^-3
-    assert not _d8._sums_exact(0.1, 10)           # m has 53 bits
-    assert not _d8._sums_exact(2.0 ** 52 + 1, 2)  # m = 2^52 + 1: 2m >= 2^53
-    assert _d8._sums_exact(2.0 ** 52 + 1, 1)
-    assert not _d8._sums_exact(float("nan"), 1)
+    assert _stack._sums_exact(100.0, 10**9)          # m = 25
+    assert _stack._sums_exact(0.375, 10**12)         # 3·2^-3
+    assert not _stack._sums_exact(0.1, 10)           # m has 53 bits
+    assert not _stack._sums_exact(2.0 ** 52 + 1, 2)  # m = 2^52 + 1: 2m >= 2^53
+    assert _stack._sums_exact(2.0 ** 52 + 1, 1)
+    assert not _stack._sums_exact(float("nan"), 1)
 
 
 def test_banded_sweep_on_a_routed_dem_matches_pysheds():
@@ -139,7 +139,7 @@ def test_banded_sweep_on_a_routed_dem_matches_pysheds():
     fm = route(terrain_from_array(z))
     nr, nc = z.shape
     row_area = 1.0 + 0.25 * np.cos(np.linspace(0, 1, nr))
-    stack, count, area = _d8.sweep_in_bands(fm.receiver, nc, row_area, 6, parallel=True)
+    stack, count, area = _stack.sweep_in_bands(fm.receiver, nc, row_area, 6, parallel=True)
     check_stack(fm.receiver, stack)
     d = fm.direction_d8()
     grid, _ = pysheds_grid(z)
@@ -166,7 +166,7 @@ def test_banded_sweep_leaves_out_cycles_like_the_reference():
     a, b = 9 * nc + 4, 10 * nc + 4  # rows 9 and 10: the boundary of 2 bands
     rec[a], rec[b] = b, a
     ref_stack, ref_count, _ = reference_sweep(rec, nc, np.ones(nr))
-    stack, count, _ = _d8.sweep_in_bands(rec, nc, np.ones(nr), 2)
+    stack, count, _ = _stack.sweep_in_bands(rec, nc, np.ones(nr), 2)
     assert ref_stack.size < nr * nc
     assert np.array_equal(np.sort(stack), np.sort(ref_stack))
     assert np.array_equal(count, ref_count)
@@ -180,14 +180,14 @@ def test_receivers_that_are_not_neighbours_fall_back_to_one_band():
     rec = np.full(n, -1, dtype=np.int32)
     rec[: n // 2] = np.arange(n // 2, n)  # every cell of the top half to the bottom half
     ref = reference_sweep(rec, nc, np.ones(nr))
-    out = _d8.sweep_in_bands(rec, nc, np.ones(nr), 4)
+    out = _stack.sweep_in_bands(rec, nc, np.ones(nr), 4)
     for a, b in zip(out, ref):
         assert np.array_equal(a, b)
 
 
 def test_sweep_bands_for_large_grids_only():
-    assert _d8.sweep_bands_for(100, 100) == 1
-    assert _d8.sweep_bands_for(1024, 1024) == _d8.SWEEP_BANDS > 1
+    assert _stack.sweep_bands_for(100, 100) == 1
+    assert _stack.sweep_bands_for(1024, 1024) == _stack.SWEEP_BANDS > 1
 
 
 def reference_d8(z, valid, seeds, base_level, dist):

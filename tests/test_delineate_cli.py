@@ -19,6 +19,7 @@ from affine import Affine
 from conftest import fractal_dem
 from pyproj import Geod
 
+from basinkit import write_flow_folder
 from basinkit import route, terrain_from_array
 from basinkit.cli.main import main
 
@@ -30,7 +31,7 @@ def flowdir(tmp_path_factory):
                            crs="EPSG:32632")
     fm = route(t)
     p = tmp_path_factory.mktemp("flow") / "flow"
-    fm.save(p)
+    write_flow_folder(fm, p)
     return p, fm
 
 
@@ -182,7 +183,7 @@ def test_fraction_rasters_on_dinf_folder(tmp_path):
     pytest.importorskip("basinkit.routing.contributing")
     z = fractal_dem(50, seed=13)
     fm = route(terrain_from_array(z, cellsize=10, crs="EPSG:32632"), method="dinf")
-    fm.save(tmp_path / "flow")
+    write_flow_folder(fm, tmp_path / "flow")
     out = tmp_path / "out"
     code = run(["-q", "delineate", tmp_path / "flow", "--outlet", "../a b=255,255",
                 "--outlet", "205,105", "-o", out, "--fraction-rasters"])

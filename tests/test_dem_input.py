@@ -12,7 +12,7 @@ import pytest
 import rasterio
 from affine import Affine
 
-import basinkit.terrain.model as terrain_mod
+import basinkit.terrain.memory as terrain_mod
 from basinkit import InputError, MemoryBudgetError, read_dem, route, terrain_from_array
 
 UTM = "EPSG:32633"
@@ -183,7 +183,7 @@ def test_memory_refusal_says_how_much(tmp_path, monkeypatch):
 
 def test_memory_message_units():
     """Sizes are printed in a unit that makes them readable (common practice, no source)."""
-    from basinkit.terrain.model import format_bytes
+    from basinkit.terrain.memory import format_bytes
 
     assert format_bytes(512) == "512 bytes"
     assert format_bytes(90000) == "87.9 KiB"

@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 from affine import Affine
 
+from basinkit import write_flow_folder
 from basinkit import route, terrain_from_array
 from basinkit.analysis.channels import extract_channels
 from basinkit.errors import InputError
@@ -301,7 +302,7 @@ def test_morphometry_command(tmp_path, capsys):
                        count=1, dtype="float32", crs="EPSG:32633",
                        transform=Affine(30, 0, 500000, 0, -30, 4000000)) as ds:
         ds.write(z, 1)
-    route(read_dem(tmp_path / "dem.tif")).save(tmp_path / "flow")
+    write_flow_folder(route(read_dem(tmp_path / "dem.tif")), tmp_path / "flow")
     fm = load_flow(tmp_path / "flow")
     acc = fm.accumulation().ravel()
     low = int(np.argmax(acc))

@@ -22,8 +22,10 @@ from affine import Affine
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from basinkit import write_flow_folder
 from basinkit import load_flow, route, terrain_from_array
-from basinkit.routing._multi import accumulate_multi, dinf_azimuth, multi_receivers
+from basinkit.routing._multi import accumulate_multi
+from basinkit.routing.multi import dinf_azimuth, multi_receivers
 from basinkit.routing.contributing import (contributing_area_m2, contributing_fraction,
                                            contributing_fractions)
 from basinkit.errors import InputError, OutletError
@@ -363,7 +365,7 @@ def test_route_save_load_round_trip(method, tmp_path):
 
     z = fractal_dem(48, 40, seed=2, relief=80, holes=2, integer=True)  # flats after fill
     fm = route(terrain_from_array(z, cellsize=25.0), method=method, mfd_exponent=1.3)
-    fm.save(tmp_path / "flow")
+    write_flow_folder(fm, tmp_path / "flow")
     back = load_flow(tmp_path / "flow")
     assert back.method == method
     for x, y in zip(fm.multi, back.multi):
@@ -419,7 +421,8 @@ def test_route_command_dinf(tmp_path, capsys):
     assert angle_diff(az[1:-1, 1:-1], 33.0).max() < 2e-3
 
 
-@pytest.mark.parametrize("module", ["basinkit.routing._multi", "basinkit.routing.contributing"])
+@pytest.mark.parametrize("module", ["basinkit.routing._multi", "basinkit.routing.multi",
+                                    "basinkit.routing.contributing"])
 def test_docstring_examples(module):
     """The Examples in the docstrings run and give what they show (hand-computed cases:
     a plane dipping south, a split of 1/4 : 3/4; common practice, no source)."""

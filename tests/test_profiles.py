@@ -17,8 +17,12 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as hst
 
+from basinkit import write_flow_folder
 from basinkit import route, terrain_from_array
 from basinkit.analysis import profiles as P
+from basinkit.analysis.steepness import find_knickpoints, steepness
+from basinkit.analysis.profile_fits import fit_concavity, hack_law_fit, slope_area_fit
+from basinkit.plot.profiles import plot_chi, plot_long_profile, plot_slope_area
 from basinkit.analysis.channels import extract_channels
 from basinkit.errors import InputError, OutletError
 from basinkit.routing.flow_model import FlowModel
@@ -71,14 +75,14 @@ def test_ksn_recovered_on_steady_state_landscape(landscape, a0):
     syn, net, outlet = landscape
     nodes = P.channel_profiles(syn, net, outlet, min_order=1, concavity=THETA,
                                reference_area_m2=a0)
-    st = P.steepness(nodes)
+    st = steepness(nodes)
     assert len(st) == int((net.segments["segment_id"].isin(nodes["segment_id"])).sum())
     expected = KS * a0 ** -THETA
     ok = st["node_count"] >= 2
     assert ok.sum() >= 10
     np.testing.assert_allclose(st.loc[ok, "ksn_m_per_m"], expected, rtol=0.02)
     # per profile too, and the local S·(A/A0)^θ near the same value on straight reaches
-    sp = P.steepness(nodes, by="profile_id")
+    sp = steepness(nodes, by="profile_id")
     np.testing.assert_allclose(sp.loc[sp["node_count"] >= 2, "ksn_m_per_m"], expected,
                                rtol=0.02)
 
@@ -116,14 +120,14 @@ def test_concavity_recovered(base_model, theta):
     syn = steady_state(base_model, theta=theta)
     outlet = int(np.nanargmax(syn.d8_upstream_area_flat()))
     net = extract_channels(syn, 1e5, outlet_cells=[outlet], geometry=False)
-    fit = P.fit_concavity(syn, net, outlet, n_bootstrap=50)
+    fit = fit_concavity(syn, net, outlet, n_bootstrap=50)
     assert fit.tributary_count >= 5
     assert abs(fit.concavity - theta) <= 0.02
     assert not fit.at_grid_edge
     rng = np.random.default_rng(7)
     noisy = FlowModel(syn.terrain, syn.receiver, syn.stack,
                       input_elevation=syn.terrain.elevation + rng.normal(0, 0.3, syn.shape))
-    fit2 = P.fit_concavity(noisy, net, outlet, elevation="raw", n_bootstrap=50)
+    fit2 = fit_concavity(noisy, net, outlet, elevation="raw", n_bootstrap=50)
     assert abs(fit2.concavity - theta) <= 0.02
     assert fit2.spread > 0 and fit2.low <= theta + 0.02 and fit2.high >= theta - 0.02
 
@@ -149,7 +153,7 @@ def test_knickpoint_found_within_two_cells(base_model):
     true_d = ms.distance_m[j - 1]
     cell_size = 30 * np.sqrt(2)
     prof = P.main_stem(knick, outlet)
-    kp = P.find_knickpoints(prof)
+    kp = find_knickpoints(prof)
     assert len(kp) == 1
     assert abs(kp["distance_from_outlet_m"].iloc[0] - true_d) <= 2 * cell_size
     assert kp["ksn_below_m_per_m"].iloc[0] == pytest.approx(KS, rel=0.02)
@@ -158,7 +162,7 @@ def test_knickpoint_found_within_two_cells(base_model):
     # in the channel network: found on the main-stem profile, within two cells
     net = extract_channels(knick, 1e5, outlet_cells=[outlet], geometry=False)
     nodes = P.channel_profiles(knick, net, outlet, min_order=1)
-    kn = P.find_knickpoints(nodes)
+    kn = find_knickpoints(nodes)
     main_id = nodes.loc[nodes["is_main_stem"], "profile_id"].iloc[0]
     on_main = kn[kn["profile_id"] == main_id]
     assert len(on_main) == 1
@@ -172,7 +176,7 @@ def test_vertical_step_found_within_two_cells(base_model):
     up = base_model.upstream_mask(int(ms.cells[j]))
     z = plain.terrain.elevation + np.where(up, 30.0, 0.0)
     stepped = FlowModel(plain.terrain.with_elevation(z), plain.receiver, plain.stack)
-    kp = P.find_knickpoints(P.main_stem(stepped, outlet))
+    kp = find_knickpoints(P.main_stem(stepped, outlet))
     assert len(kp) == 1
     assert abs(kp["distance_from_outlet_m"].iloc[0] - ms.distance_m[j]) <= 2 * 30 * np.sqrt(2)
     assert kp["kind"].iloc[0] == "vertical step up"
@@ -184,13 +188,13 @@ def test_no_knickpoint_without_one(base_model):
     """A steady-state profile of uniform k_sn, exact and with 0.5 m of noise, yields no
     knickpoint (its χ–z plot is one straight line: Perron & Royden 2013)."""
     plain, _, outlet, _, _ = _knick_setup(base_model)
-    assert len(P.find_knickpoints(P.main_stem(plain, outlet))) == 0
+    assert len(find_knickpoints(P.main_stem(plain, outlet))) == 0
     net = extract_channels(plain, 1e5, outlet_cells=[outlet], geometry=False)
-    assert len(P.find_knickpoints(P.channel_profiles(plain, net, outlet, min_order=1))) == 0
+    assert len(find_knickpoints(P.channel_profiles(plain, net, outlet, min_order=1))) == 0
     rng = np.random.default_rng(3)
     noisy = FlowModel(plain.terrain, plain.receiver, plain.stack,
                       input_elevation=plain.terrain.elevation + rng.normal(0, 0.5, plain.shape))
-    kp = P.find_knickpoints(P.main_stem(noisy, outlet), elevation="elevation_m",
+    kp = find_knickpoints(P.main_stem(noisy, outlet), elevation="elevation_m",
                             vertical_precision_m=1.0)
     assert len(kp) == 0
 
@@ -308,7 +312,7 @@ def test_jacksboro_hack_exponent(jacksboro):
     reported since (value from memory). The fit equals numpy.polyfit on log L, log A."""
     fm, outlet = jacksboro
     net = extract_channels(fm, 1e6, geometry=False)
-    h = P.hack_law_fit(fm, net)
+    h = hack_law_fit(fm, net)
     assert 0.45 < h.exponent < 0.75
     assert h.exponent_ci[0] < h.exponent < h.exponent_ci[1]
     seg = net.segments
@@ -334,18 +338,18 @@ def test_slope_area_recovers_stream_power(landscape):
     z = syn.terrain.elevation.ravel()
     S = (z[cells] - z[rec[cells]]) / syn.receiver_distance()[cells]
     A = syn.d8_upstream_area_flat()[cells]
-    f = P.slope_area_fit(A, S)
+    f = slope_area_fit(A, S)
     assert f.concavity == pytest.approx(THETA, abs=1e-9)
     assert f.steepness_index == pytest.approx(KS, rel=1e-9)
     rng = np.random.default_rng(5)
     Sn = S * np.exp(rng.normal(0, 0.3, S.size))
-    f2 = P.slope_area_fit(A, Sn, confidence=0.95)
+    f2 = slope_area_fit(A, Sn, confidence=0.95)
     ref = stats.linregress(np.log10(A), np.log10(Sn))
     t = stats.t.ppf(0.975, A.size - 2)
     assert f2.concavity_ci[1] - f2.concavity == pytest.approx(t * ref.stderr, rel=1e-9)
     assert f2.concavity_ci[0] < THETA < f2.concavity_ci[1]
     assert f2.steepness_index_ci[0] < KS < f2.steepness_index_ci[1]
-    fb = P.slope_area_fit(A, S, bins=8)
+    fb = slope_area_fit(A, S, bins=8)
     assert fb.binned and fb.concavity == pytest.approx(THETA, abs=0.02)
 
 
@@ -393,7 +397,7 @@ def test_bad_input_raises(landscape):
     with pytest.raises(InputError):
         P.channel_profiles(syn, net, outlet, min_order=0)
     with pytest.raises(InputError):
-        P.slope_area_fit([1, 2], [0.1, 0.2])
+        slope_area_fit([1, 2], [0.1, 0.2])
     with pytest.raises(InputError):
         P.main_stem(syn, outlet, slope_window_m=-3)
 
@@ -402,9 +406,9 @@ def test_plots_have_labels(landscape):
     syn, net, outlet = landscape
     ms = P.main_stem(syn, outlet)
     nodes = P.channel_profiles(syn, net, outlet, min_order=1)
-    for fig in (P.plot_long_profile(ms), P.plot_chi(nodes),
-                P.plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"],
-                                  fit=P.slope_area_fit(nodes["upstream_area_m2"],
+    for fig in (plot_long_profile(ms), plot_chi(nodes),
+                plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"],
+                                  fit=slope_area_fit(nodes["upstream_area_m2"],
                                                        nodes["slope_m_per_m"]))):
         ax = fig.axes[0]
         assert "(m" in ax.get_xlabel() and "(m" in ax.get_ylabel()
@@ -420,7 +424,7 @@ def test_profile_command(tmp_path, base_model):
 
     from basinkit.cli.main import cli
 
-    base_model.save(tmp_path / "flow")
+    write_flow_folder(base_model, tmp_path / "flow")
     outlet = int(np.nanargmax(base_model.d8_upstream_area_flat()))
     x, y = base_model.terrain.xy_of(outlet // base_model.ncols, outlet % base_model.ncols)
     pts = tmp_path / "outlets.csv"

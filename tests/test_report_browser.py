@@ -90,7 +90,7 @@ def _tables(res):
 def _check_cells(cells, tables):
     """Every per-outlet figure cell equals the CSV value (CSV keeps 10 significant digits)
     and its text is that value formatted as the report's table says."""
-    from basinkit.report.html.html import FIGURE_ROWS
+    from basinkit.report.html import FIGURE_ROWS
 
     fmt = {f"{src}:{key}": f for _, src, key, _, f in FIGURE_ROWS if src != "outlet"}
     checked = 0

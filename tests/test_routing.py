@@ -169,3 +169,23 @@ def test_parallel_and_serial_kernels_agree():
     m2, u2 = _d8.resolve_flats.parallel(f, t.valid, r2, dist)
     assert u1 == u2 == 0
     assert np.array_equal(m1, m2) and np.array_equal(r1, r2)
+
+
+def test_model_hands_out_read_only_arrays():
+    """The FlowModel owns its derived arrays: writing into what it hands out is refused, and
+    later results keep the closed-form answer of a tilted plane (accumulation down a column
+    of a plane sloping south is the row count; closed form)."""
+    rows, cols = 12, 5
+    z = np.add.outer(np.arange(rows, 0, -1, dtype=float), np.zeros(cols))
+    fm = route(terrain_from_array(z, cellsize=10.0), conditioning="none")
+    for a in (fm.upstream_area(), fm.accumulation(), fm.accumulation(unit="m2"),
+              fm.receiver_distance(), fm.d8_upstream_area_flat()):
+        with pytest.raises(ValueError):
+            a[...] = 0
+    expect = np.add.outer(np.arange(1, rows + 1), np.zeros(cols, dtype=int))
+    np.testing.assert_array_equal(fm.accumulation(), expect)
+    np.testing.assert_allclose(fm.upstream_area(), expect * 100.0)
+    # a weighted accumulation is the caller's own array
+    w = fm.accumulation(weights=np.ones((rows, cols)))
+    w[...] = 0
+    np.testing.assert_array_equal(fm.accumulation(), expect)

@@ -111,7 +111,7 @@ def command(console, flowdir, output, min_area, slope_area_exponent, slope_area_
 
     from ..analysis.channels import constant_drop_test, extract_channels, threshold_range
     from ..errors import InputError
-    from ..routing.flow_model import load_flow
+    from ..io.flow_folder import load_flow
     from ..io.writers import prepare_output_dir
 
     t0 = time.perf_counter()

@@ -66,7 +66,7 @@ def command(console, flowdir, outlets, output, labels_raster, web_geojson,
 
     from ..analysis.catchments import delineate
     from ..analysis.outlets import ERROR_COLUMNS, require_outlets
-    from ..routing.flow_model import load_flow
+    from ..io.flow_folder import load_flow
     from ..io.writers import prepare_output_dir
 
     t0 = time.perf_counter()
@@ -134,7 +134,7 @@ def _write_outputs(console, res, fm, out, outlet_file, labels_raster, web_geojso
     import pandas as pd
     import pyogrio
 
-    from ..terrain.model import file_sha256
+    from ..io.hashing import file_sha256
     from ..io.writers import atomic_path, provenance, write_csv, write_geotiff, write_json
 
     inputs = dict(fm.meta.get("inputs", {}))

@@ -47,7 +47,7 @@ def command(console, flowdir, output, outlets, min_area, slope_area_exponent,
     from ..analysis.channels import extract_channels
     from ..errors import InputError
     from ..analysis.morphometry import CAUTIONS, morphometry_table, write_hypsometric_curve
-    from ..routing.flow_model import load_flow
+    from ..io.flow_folder import load_flow
     from ..io.writers import prepare_output_dir, provenance, write_csv, write_json
 
     t0 = time.perf_counter()

@@ -66,7 +66,7 @@ def overwrite_option(f):
 
 
 def read_dem_from_options(dem, band, crs, sea_level, base_level):
-    from ..terrain.model import read_dem
+    from ..io.dem import read_dem
 
     return read_dem(dem, band=band, crs=crs, sea_level=sea_level, base_level=base_level)
 

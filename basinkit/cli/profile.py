@@ -93,7 +93,7 @@ def command(console, flowdir, output, outlets, min_order, min_area, concavity, f
     from ..analysis import profiles as P
     from ..analysis.channels import extract_channels
     from ..errors import BasinkitError, InputError, OutletError
-    from ..routing.flow_model import load_flow
+    from ..io.flow_folder import load_flow
     from ..io.writers import prepare_output_dir, provenance, write_csv, write_json
 
     t0 = time.perf_counter()
@@ -183,6 +183,9 @@ def command(console, flowdir, output, outlets, min_order, min_area, concavity, f
 
 
 def _one_outlet(P, fm, net, oid, name, cell, min_order, theta0, fit, a0, sw, sd, prec, out):
+    from ..analysis.steepness import find_knickpoints, steepness
+    from ..analysis.profile_fits import fit_concavity, hack_law_fit, slope_area_fit
+    from ..plot.profiles import plot_chi, plot_long_profile, plot_slope_area
     import numpy as np
     import pandas as pd
 
@@ -197,7 +200,7 @@ def _one_outlet(P, fm, net, oid, name, cell, min_order, theta0, fit, a0, sw, sd,
     summary = {"outlet_id": oid}
     theta = theta0
     if fit:
-        cf = P.fit_concavity(fm, net, cell, min_order=min_order, reference_area_m2=a0)
+        cf = fit_concavity(fm, net, cell, min_order=min_order, reference_area_m2=a0)
         theta = cf.concavity
         summary["concavity_fit"] = cf.to_dict()
         if cf.at_grid_edge:
@@ -208,9 +211,9 @@ def _one_outlet(P, fm, net, oid, name, cell, min_order, theta0, fit, a0, sw, sd,
     nodes = P.channel_profiles(fm, net, cell, min_order=min_order, **opts)
     nodes["outlet_id"] = oid
     nodes.insert(1, "profile_kind", "channel")
-    steep = P.steepness(nodes, by="segment_id")
+    steep = steepness(nodes, by="segment_id")
     steep["outlet_id"] = oid
-    knick = P.find_knickpoints(nodes, vertical_precision_m=prec)
+    knick = find_knickpoints(nodes, vertical_precision_m=prec)
     knick["outlet_id"] = oid
     lfp = P.longest_flow_path(fm, cell, network=net, **opts)
     ms = P.main_stem(fm, cell, network=net, **opts)
@@ -227,27 +230,27 @@ def _one_outlet(P, fm, net, oid, name, cell, min_order, theta0, fit, a0, sw, sd,
     summary["channel_node_count"] = int(len(nodes))
     summary["knickpoint_count"] = int(len(knick))
     try:
-        sa = P.slope_area_fit(nodes["upstream_area_m2"], nodes["slope_m_per_m"])
+        sa = slope_area_fit(nodes["upstream_area_m2"], nodes["slope_m_per_m"])
         summary["slope_area_fit"] = sa.to_dict()
     except Exception as exc:  # noqa: BLE001 - a failed fit is reported, not fatal
         sa = None
         summary["slope_area_fit"] = {"error": str(exc)}
     try:
-        summary["hack_law_fit"] = P.hack_law_fit(fm, net, cell).to_dict()
+        summary["hack_law_fit"] = hack_law_fit(fm, net, cell).to_dict()
     except Exception as exc:  # noqa: BLE001
         summary["hack_law_fit"] = {"error": str(exc)}
     ms_k = knick[knick["profile_id"] == nodes.loc[nodes["is_main_stem"], "profile_id"].iloc[0]] \
         if len(knick) and nodes["is_main_stem"].any() else None
     figs = [
         (f"long_profile_{name}.png",
-         P.plot_long_profile(ms, knickpoints=ms_k, title=f"main stem, outlet {oid}")),
+         plot_long_profile(ms, knickpoints=ms_k, title=f"main stem, outlet {oid}")),
         (f"longest_flow_path_{name}.png",
-         P.plot_long_profile(lfp, title=f"longest flow path, outlet {oid}")),
+         plot_long_profile(lfp, title=f"longest flow path, outlet {oid}")),
         (f"chi_elevation_{name}.png",
-         P.plot_chi(nodes, knickpoints=knick, steepness_table=steep,
+         plot_chi(nodes, knickpoints=knick, steepness_table=steep,
                     title=f"χ–elevation, outlet {oid}")),
         (f"slope_area_{name}.png",
-         P.plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"], fit=sa,
+         plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"], fit=sa,
                            title=f"slope–area, outlet {oid}")),
     ]
     for fname, fig in figs:

@@ -30,7 +30,7 @@ def command(console, run_folder, output, outlets, overwrite):
 
     from ..errors import InputError
     from ..workflow.jobs import job_from_dict, run_job
-    from ..terrain.model import file_sha256
+    from ..io.hashing import file_sha256
     from ..io.writers import atomic_path, check_output
 
     folder = Path(run_folder)

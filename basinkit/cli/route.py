@@ -32,6 +32,7 @@ def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
     import time
     from pathlib import Path
 
+    from ..io.flow_folder import write_flow_folder
     from ..routing.flow_model import route
     from ..io.writers import prepare_output_dir
 
@@ -54,6 +55,6 @@ def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
     if fm.summary:
         for line in fm.summary.lines():
             console.info(line)
-    fm.save(output, overwrite=True,
-            extra_provenance={"seconds": round(time.perf_counter() - t0, 3)})
+    write_flow_folder(fm, output, overwrite=True,
+                      extra_provenance={"seconds": round(time.perf_counter() - t0, 3)})
     console.info(f"wrote flow folder {output} ({time.perf_counter() - t0:.1f} s)")

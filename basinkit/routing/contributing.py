@@ -163,7 +163,7 @@ def _workspace(fm, n, count):
 def _graph(fm, method):
     """(rec, frac, donor start, donors) for ``method``, the donor graph built once
     per model and method."""
-    from ._multi import multi_for
+    from .multi import multi_for
 
     rec, frac, _ = multi_for(fm, method)
     key = ("donors", method)

@@ -2,36 +2,24 @@
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from . import _d8
+from . import _d8, _stack
 from ..conditioning import ConditionSummary, condition, exit_cells
 from ..errors import InputError
-from ..terrain.model import ROUTE_BYTES_PER_CELL, Terrain, check_memory
+from ..terrain.memory import ROUTE_BYTES_PER_CELL, check_memory
+from ..terrain.model import Terrain
 
-__all__ = ["FlowModel", "route", "load_flow", "D8_NODATA", "D8_NO_OUTFLOW"]
+__all__ = ["FlowModel", "route", "D8_NODATA", "D8_NO_OUTFLOW"]
 
 D8_NODATA = -32768
 D8_NO_OUTFLOW = -1
 ROUTING_METHODS = ("d8", "dinf", "mfd")
 # working memory D∞ and MFD need on top of D8 (two or eight receivers and shares per cell)
 EXTRA_BYTES_PER_CELL = {"dinf": 32, "mfd": 75}
-
-# file names inside a flow folder
-FILES = {
-    "input": "elevation_input.tif",
-    "conditioned": "elevation_conditioned.tif",
-    "d8": "direction_d8.tif",
-    "dinf": "direction_dinf.tif",
-    "cells": "accumulation_cells.tif",
-    "area": "upstream_area_m2.tif",
-    "meta": "flow.json",
-}
-
 
 @dataclass
 class FlowModel:
@@ -102,14 +90,16 @@ class FlowModel:
         Returns
         -------
         ndarray (nrows, ncols)
-            float64 (int32 for D8 cell counts); NaN on nodata.
+            float64 (int32 for D8 cell counts); NaN on nodata. Read-only: the model keeps it
+            for every later catchment, channel and profile (copy it to change it); a weighted
+            accumulation is a new array of the caller's.
         """
         method = method or self.method
         if method not in ROUTING_METHODS:
             raise InputError(f"unknown routing method {method!r}; use d8, dinf or mfd")
         key = (method, unit) if weights is None else None
         if key is not None and key in self._cache:
-            return self._cache[key]
+            return _read_only(self._cache[key])
         n = self.receiver.shape[0]
         if weights is not None:
             w = np.asarray(weights, dtype=np.float64)
@@ -123,14 +113,15 @@ class FlowModel:
             raise InputError(f"unknown accumulation unit {unit!r}; use cells or m2")
         if method == "d8":
             if weights is not None:
-                acc = _d8.accumulate(self.receiver, self.stack, w)
+                acc = _stack.accumulate(self.receiver, self.stack, w)
             elif unit == "cells":
-                acc = _d8.accumulate_count(self.receiver, self.stack, n)
+                acc = _stack.accumulate_count(self.receiver, self.stack, n)
             else:
-                acc = _d8.accumulate_area(self.receiver, self.stack, self.ncols,
+                acc = _stack.accumulate_area(self.receiver, self.stack, self.ncols,
                                           self.terrain.geometry.area)
         else:
-            from ._multi import accumulate_multi, multi_for
+            from ._multi import accumulate_multi
+            from .multi import multi_for
 
             if w is None:
                 w = (np.ones(n) if unit == "cells"
@@ -141,16 +132,28 @@ class FlowModel:
         acc = acc.reshape(self.shape)
         if acc.dtype.kind == "f":
             acc[~self.terrain.valid] = np.nan
-        if key is not None:
-            self._cache[key] = acc
-        return acc
+        if key is None:
+            return acc  # weighted: a new array of the caller's
+        return self.derived(key, lambda: acc)
+
+    def derived(self, key, make):
+        """An array derived from this model, computed once by ``make()`` and kept.
+
+        The model owns its derived arrays and hands them out read-only, so that no caller
+        can change what later catchments, channels and profiles see (copy to modify).
+        """
+        if key not in self._cache:
+            a = make()
+            if isinstance(a, np.ndarray):
+                a.flags.writeable = False
+            self._cache[key] = a
+        return _read_only(self._cache[key])
 
     def receiver_distance(self) -> np.ndarray:
-        """Distance (m, on the ground) from each cell centre to its D8 receiver, flat."""
-        if "step" not in self._cache:
-            self._cache["step"] = _d8.receiver_distance(
-                self.receiver, self.ncols, self.terrain.geometry.neighbour_distances())
-        return self._cache["step"]
+        """Distance (m, on the ground) from each cell centre to its D8 receiver, flat
+        (read-only)."""
+        return self.derived("step", lambda: _d8.receiver_distance(
+            self.receiver, self.ncols, self.terrain.geometry.neighbour_distances()))
 
     def upstream_length(self) -> np.ndarray:
         """Length (m) of the longest D8 flow path upstream of each cell, as a grid."""
@@ -191,42 +194,13 @@ class FlowModel:
         """D8 upstream area in m² as a flat float64 array (used by catchments and channels)."""
         return self.accumulation(unit="m2", method="d8").ravel()
 
-    # ------------------------------------------------------------------ persistence
-    def save(self, folder, overwrite: bool = False, extra_provenance: dict | None = None):
-        """Write the flow folder: GeoTIFFs with the input's georeferencing and flow.json."""
-        from ..io.writers import prepare_output_dir, provenance, write_geotiff, write_json
 
-        out = prepare_output_dir(folder, overwrite)
-        for name in FILES.values():  # no stale layer of an earlier run may stay listed
-            (out / name).unlink(missing_ok=True)
-        t = self.terrain
-        nod = np.float32(np.nan)
-        if self.input_elevation is not None:
-            write_geotiff(out / FILES["input"], self.input_elevation, t.transform, t.crs,
-                          nodata=nod)
-        write_geotiff(out / FILES["conditioned"], t.elevation, t.transform, t.crs, nodata=nod)
-        write_geotiff(out / FILES["d8"], self.direction_d8(), t.transform, t.crs,
-                      nodata=D8_NODATA)
-        if self.dinf_azimuth is not None:
-            write_geotiff(out / FILES["dinf"], self.dinf_azimuth, t.transform, t.crs,
-                          nodata=nod)
-        cells = self.accumulation(unit="cells")
-        if cells.dtype.kind == "i":
-            cells = np.where(t.valid, cells, 0).astype(np.int32)
-            write_geotiff(out / FILES["cells"], cells, t.transform, t.crs, nodata=0)
-        else:
-            write_geotiff(out / FILES["cells"], cells.astype(np.float32), t.transform, t.crs,
-                          nodata=nod)
-        write_geotiff(out / FILES["area"], self.upstream_area(), t.transform, t.crs,
-                      nodata=np.nan)
-        meta = provenance(self.parameters, {"dem": t.source}, crs=t.crs, shape=t.shape,
-                          conditioning=(self.summary.to_dict() if self.summary else None),
-                          files={k: v for k, v in FILES.items()
-                                 if (out / v).exists() or k == "meta"},
-                          base_level=bool(t.base_level is not None and t.base_level.any()),
-                          **(extra_provenance or {}))
-        write_json(out / FILES["meta"], meta)
-        return out
+def _read_only(a):
+    """A read-only view of a kept array (tuples and other values pass through)."""
+    if isinstance(a, np.ndarray) and a.flags.writeable:
+        a = a.view()
+        a.flags.writeable = False
+    return a
 
 
 def route(terrain: Terrain, method: str = "d8", conditioning: str = "fill",
@@ -312,78 +286,19 @@ def flow_from_conditioned(cond: Terrain, method: str, params: dict) -> FlowModel
     flat_mask_for_multi = flat_mask if method in ("dinf", "mfd") else None
     del flat_mask
     # the stack, the cell count and the upstream area come out of one sweep
-    stack, count, area = _d8.stack_count_area(rec, cond.shape[1], cond.geometry.area)
+    stack, count, area = _stack.stack_count_area(rec, cond.shape[1], cond.geometry.area)
     fm = FlowModel(cond, rec, stack, method, parameters=params)
-    fm._cache[("d8", "cells")] = count.reshape(cond.shape)
+    fm.derived(("d8", "cells"), lambda: count.reshape(cond.shape))
     area = area.reshape(cond.shape)
     area[~valid] = np.nan
-    fm._cache[("d8", "m2")] = area
+    fm.derived(("d8", "m2"), lambda: area)
     if method in ("dinf", "mfd"):
-        from ._multi import multi_receivers
+        from .multi import multi_receivers
 
         fm.multi = multi_receivers(fm, method, params.get("mfd_exponent", 1.1),
                                    flat_mask_for_multi)
         if method == "dinf":
-            from ._multi import dinf_azimuth
+            from .multi import dinf_azimuth
 
             fm.dinf_azimuth = dinf_azimuth(fm)
-    return fm
-
-
-def _read_band(path):
-    import rasterio
-
-    with rasterio.open(path) as ds:
-        return ds.read(1), ds.transform, ds.crs
-
-
-def load_flow(folder) -> FlowModel:
-    """Read a flow folder written by :meth:`FlowModel.save` (or ``basinkit route``).
-
-    The D8 receivers come from the direction raster; the stack is rebuilt (one O(N) pass).
-    """
-    from pyproj import CRS
-
-    from ..terrain.geometry import cell_geometry
-
-    p = Path(folder)
-    meta_path = p / FILES["meta"]
-    if not meta_path.exists():
-        raise InputError(f"{str(p)!r} is not a flow folder (no {FILES['meta']}); create one "
-                         "with 'basinkit route DEM -o FOLDER'")
-    try:
-        meta = json.loads(meta_path.read_text())
-    except json.JSONDecodeError as exc:
-        raise InputError(f"{str(meta_path)!r} is damaged ({exc}); run route again") from None
-    for k in ("conditioned", "d8"):
-        if not (p / FILES[k]).exists():
-            raise InputError(f"the flow folder {str(p)!r} lacks {FILES[k]}; run route again")
-    z, transform, crs = _read_band(p / FILES["conditioned"])
-    code, _, _ = _read_band(p / FILES["d8"])
-    pcrs = CRS.from_wkt(crs.to_wkt())
-    valid = np.isfinite(z)
-    rec, bad = _d8.azimuth_to_receivers(code.ravel().astype(np.int32), z.shape[1], z.shape[0])
-    if bad:
-        raise InputError(f"{FILES['d8']} in {str(p)!r} holds {bad} cells with codes other "
-                         "than 0, 45, ..., 315, -1 or -32768")
-    terrain = Terrain(z.astype(np.float32), valid, transform, pcrs,
-                      cell_geometry(transform, z.shape, pcrs), None,
-                      meta.get("inputs", {}).get("dem", {}))
-    stack = _d8.build_stack(rec)
-    if stack.size != int(valid.sum()):
-        raise InputError(f"{FILES['d8']} in {str(p)!r} has directions that loop back on "
-                         f"themselves ({int(valid.sum()) - stack.size} cells never reach an "
-                         "exit); it was edited outside basinkit: run route again")
-    params = meta.get("parameters", {})
-    fm = FlowModel(terrain, rec, stack, params.get("method", "d8"), parameters=params)
-    if (p / FILES["input"]).exists():
-        fm.input_elevation = _read_band(p / FILES["input"])[0].astype(np.float32)
-    if fm.method in ("dinf", "mfd"):
-        from ._multi import dinf_azimuth, multi_receivers
-
-        fm.multi = multi_receivers(fm, fm.method, params.get("mfd_exponent", 1.1))
-        if fm.method == "dinf":  # same kernel, same surface: equals the saved raster
-            fm.dinf_azimuth = dinf_azimuth(fm)
-    fm.parameters["flow_folder"] = str(p.resolve())
-    fm.meta = meta
     return fm

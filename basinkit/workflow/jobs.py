@@ -452,7 +452,7 @@ def _read_burn_lines(paths, crs):
 
 
 def _hashes(job):
-    from ..terrain.model import file_sha256
+    from ..io.hashing import file_sha256
 
     ins = job["inputs"]
     out = {}
@@ -605,7 +605,7 @@ def _remove_stale(folder, earlier, current):
 
 
 def _output_hashes(res):
-    from ..terrain.model import file_sha256
+    from ..io.hashing import file_sha256
 
     out = {}
     for name, p in sorted(res.files.items()):
@@ -622,8 +622,9 @@ def _add(res, path):
 
 
 def _stage_route(job, res, console):
-    from ..routing.flow_model import FILES, route
-    from ..terrain.model import read_dem
+    from ..io.flow_folder import FILES, write_flow_folder
+    from ..routing.flow_model import route
+    from ..io.dem import read_dem
 
     ins, cond, rt = job["inputs"], job["conditioning"], job["routing"]
     with _Stage(res, "read", console):
@@ -645,7 +646,7 @@ def _stage_route(job, res, console):
         for line in (fm.summary.lines() if fm.summary else []):
             console.info("  " + line)
         if job["outputs"]["rasters"]:
-            fm.save(res.folder / "flow", overwrite=True)
+            write_flow_folder(fm, res.folder / "flow", overwrite=True)
             for k, name in FILES.items():
                 p = res.folder / "flow" / name
                 if p.exists():
@@ -896,6 +897,7 @@ def _stage_profiles(job, res, console):
             st.skip("no catchments were delineated")
             return
         from ..analysis import profiles as P
+        from ..analysis.steepness import find_knickpoints, steepness
 
         fm, net = res.flow, res.network
         theta, a0 = pr["concavity"], pr["reference_area"]
@@ -911,7 +913,7 @@ def _stage_profiles(job, res, console):
                       lfp.to_frame())
             summaries.append({"outlet_id": oid, **lfp.summary()})
             try:
-                out["knickpoints_flow_path"] = P.find_knickpoints(lfp)
+                out["knickpoints_flow_path"] = find_knickpoints(lfp)
             except InputError as exc:
                 out["knickpoints_flow_path"] = None
                 console.warn(f"outlet {oid}: knickpoints of the flow path: {exc}")
@@ -923,8 +925,8 @@ def _stage_profiles(job, res, console):
                 write_csv(_add(res, res.folder / "profiles" / f"channel_nodes_{name}.csv"),
                           nodes)
                 if len(nodes):
-                    steep = P.steepness(nodes, by="profile_id")
-                    knick = P.find_knickpoints(nodes)
+                    steep = steepness(nodes, by="profile_id")
+                    knick = find_knickpoints(nodes)
                     steep["outlet_id"] = oid
                     knick["outlet_id"] = oid
                     out["steepness"], out["knickpoints"] = steep, knick

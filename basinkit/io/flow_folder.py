@@ -1,0 +1,124 @@
+"""The flow folder: a FlowModel written as GeoTIFFs plus flow.json, and read back."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+from ..routing import _d8, _stack
+from ..routing.flow_model import D8_NODATA, FlowModel
+from ..terrain.model import Terrain
+from .writers import prepare_output_dir, provenance, write_geotiff, write_json
+
+__all__ = ["FILES", "write_flow_folder", "load_flow"]
+
+# file names inside a flow folder
+FILES = {
+    "input": "elevation_input.tif",
+    "conditioned": "elevation_conditioned.tif",
+    "d8": "direction_d8.tif",
+    "dinf": "direction_dinf.tif",
+    "cells": "accumulation_cells.tif",
+    "area": "upstream_area_m2.tif",
+    "meta": "flow.json",
+}
+
+
+def write_flow_folder(fm, folder, overwrite: bool = False,
+                      extra_provenance: dict | None = None):
+    """Write the flow folder of a FlowModel: GeoTIFFs with the input's georeferencing and
+    flow.json. Returns the folder."""
+
+    out = prepare_output_dir(folder, overwrite)
+    for name in FILES.values():  # no stale layer of an earlier run may stay listed
+        (out / name).unlink(missing_ok=True)
+    t = fm.terrain
+    nod = np.float32(np.nan)
+    if fm.input_elevation is not None:
+        write_geotiff(out / FILES["input"], fm.input_elevation, t.transform, t.crs,
+                      nodata=nod)
+    write_geotiff(out / FILES["conditioned"], t.elevation, t.transform, t.crs, nodata=nod)
+    write_geotiff(out / FILES["d8"], fm.direction_d8(), t.transform, t.crs,
+                  nodata=D8_NODATA)
+    if fm.dinf_azimuth is not None:
+        write_geotiff(out / FILES["dinf"], fm.dinf_azimuth, t.transform, t.crs,
+                      nodata=nod)
+    cells = fm.accumulation(unit="cells")
+    if cells.dtype.kind == "i":
+        cells = np.where(t.valid, cells, 0).astype(np.int32)
+        write_geotiff(out / FILES["cells"], cells, t.transform, t.crs, nodata=0)
+    else:
+        write_geotiff(out / FILES["cells"], cells.astype(np.float32), t.transform, t.crs,
+                      nodata=nod)
+    write_geotiff(out / FILES["area"], fm.upstream_area(), t.transform, t.crs,
+                  nodata=np.nan)
+    meta = provenance(fm.parameters, {"dem": t.source}, crs=t.crs, shape=t.shape,
+                      conditioning=(fm.summary.to_dict() if fm.summary else None),
+                      files={k: v for k, v in FILES.items()
+                             if (out / v).exists() or k == "meta"},
+                      base_level=bool(t.base_level is not None and t.base_level.any()),
+                      **(extra_provenance or {}))
+    write_json(out / FILES["meta"], meta)
+    return out
+
+
+def _read_band(path):
+    import rasterio
+
+    with rasterio.open(path) as ds:
+        return ds.read(1), ds.transform, ds.crs
+
+
+def load_flow(folder) -> FlowModel:
+    """Read a flow folder written by :func:`write_flow_folder` (or ``basinkit route``).
+
+    The D8 receivers come from the direction raster; the stack is rebuilt (one O(N) pass).
+    """
+    from pyproj import CRS
+
+    from ..terrain.geometry import cell_geometry
+
+    p = Path(folder)
+    meta_path = p / FILES["meta"]
+    if not meta_path.exists():
+        raise InputError(f"{str(p)!r} is not a flow folder (no {FILES['meta']}); create one "
+                         "with 'basinkit route DEM -o FOLDER'")
+    try:
+        meta = json.loads(meta_path.read_text())
+    except json.JSONDecodeError as exc:
+        raise InputError(f"{str(meta_path)!r} is damaged ({exc}); run route again") from None
+    for k in ("conditioned", "d8"):
+        if not (p / FILES[k]).exists():
+            raise InputError(f"the flow folder {str(p)!r} lacks {FILES[k]}; run route again")
+    z, transform, crs = _read_band(p / FILES["conditioned"])
+    code, _, _ = _read_band(p / FILES["d8"])
+    pcrs = CRS.from_wkt(crs.to_wkt())
+    valid = np.isfinite(z)
+    rec, bad = _d8.azimuth_to_receivers(code.ravel().astype(np.int32), z.shape[1], z.shape[0])
+    if bad:
+        raise InputError(f"{FILES['d8']} in {str(p)!r} holds {bad} cells with codes other "
+                         "than 0, 45, ..., 315, -1 or -32768")
+    terrain = Terrain(z.astype(np.float32), valid, transform, pcrs,
+                      cell_geometry(transform, z.shape, pcrs), None,
+                      meta.get("inputs", {}).get("dem", {}))
+    stack = _stack.build_stack(rec)
+    if stack.size != int(valid.sum()):
+        raise InputError(f"{FILES['d8']} in {str(p)!r} has directions that loop back on "
+                         f"themselves ({int(valid.sum()) - stack.size} cells never reach an "
+                         "exit); it was edited outside basinkit: run route again")
+    params = meta.get("parameters", {})
+    fm = FlowModel(terrain, rec, stack, params.get("method", "d8"), parameters=params)
+    if (p / FILES["input"]).exists():
+        fm.input_elevation = _read_band(p / FILES["input"])[0].astype(np.float32)
+    if fm.method in ("dinf", "mfd"):
+        from ..routing.multi import dinf_azimuth, multi_receivers
+
+        fm.multi = multi_receivers(fm, fm.method, params.get("mfd_exponent", 1.1))
+        if fm.method == "dinf":  # same kernel, same surface: equals the saved raster
+            fm.dinf_azimuth = dinf_azimuth(fm)
+    fm.parameters["flow_folder"] = str(p.resolve())
+    fm.meta = meta
+    return fm
