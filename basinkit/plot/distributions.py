@@ -30,18 +30,19 @@ def histogram_bins(values, bins=30, log=False):
     return 10.0 ** edges if log else edges
 
 
-def plot_histogram(values, ax=None, *, bins=30, log=False, xlabel=None, title=None):
+def plot_histogram(values, ax=None, *, bins=None, log=False, xlabel=None, title=None):
     """Histogram of a per-catchment value, its median marked with a dashed line.
 
     Parameters
     ----------
     values : array_like
         One value per catchment; NaN (and, with ``log``, values ≤ 0) are left out and
-        counted in the title.
+        counted in the title, beside the median (also drawn as a dashed line).
     ax : matplotlib Axes, optional
         Draw into this axes; default: a new figure.
-    bins : int
-        Number of equal bins (equal in the logarithm with ``log``).
+    bins : int, optional
+        Number of equal bins (equal in the logarithm with ``log``); default about twice the
+        square root of the number of values, 5 to 30.
     log : bool
         Logarithmic value axis (areas spanning several orders of magnitude).
     xlabel, title : str, optional
@@ -53,24 +54,29 @@ def plot_histogram(values, ax=None, *, bins=30, log=False, xlabel=None, title=No
     fig, ax = S.new_axes(ax, (3.6, 2.6))
     v = np.asarray(values, dtype=float)
     ok = np.isfinite(v) & ((v > 0) if log else True)
+    if bins is None:  # about two bins per square root of the count, 5 to 30
+        bins = int(np.clip(2 * np.sqrt(max(int(ok.sum()), 1)), 5, 30))
     edges = histogram_bins(v, bins, log)
+    t = [title] if title else []
     if edges is not None:
         ax.hist(v[ok], bins=edges, color=S.ACCENT, alpha=0.75, edgecolor="white",
                 linewidth=0.4)
         med = float(np.median(v[ok]))
         ax.axvline(med, color=S.INK, lw=1.2, ls="--")
-        ax.text(0.98, 0.95, f"median {med:.3g}", transform=ax.transAxes, ha="right",
-                va="top", fontsize=7.5, color=S.INK)
+        t.append(f"median {med:.3g}")
     else:
         ax.text(0.5, 0.5, "no values", transform=ax.transAxes, ha="center", va="center",
                 color=S.MUTED)
     if log:
+        from matplotlib.ticker import LogFormatterSciNotation, NullFormatter
+
         ax.set_xscale("log")
+        ax.xaxis.set_major_formatter(LogFormatterSciNotation(labelOnlyBase=True))
+        ax.xaxis.set_minor_formatter(NullFormatter())
     left_out = int((~ok).sum())
-    t = title or ""
     if left_out:
-        t = f"{t} ({left_out} without a value)" if t else f"{left_out} without a value"
-    ax.set_title(t, fontsize=9)
+        t.append(f"{left_out} without a value")
+    ax.set_title(", ".join(t), fontsize=8.5)
     if xlabel:
         ax.set_xlabel(xlabel, fontsize=8)
     ax.set_ylabel("catchments", fontsize=8)

@@ -136,7 +136,7 @@ def _north_arrow(ax):
             bbox=dict(boxstyle="circle,pad=0.15", fc="white", ec="none", alpha=0.8))
 
 
-def _legend(ax, orders, burned, given, snapped, divides, where):
+def _legend(ax, orders, burned, lowered, given, snapped, divides, where):
     from matplotlib.lines import Line2D
 
     handles = []
@@ -150,6 +150,9 @@ def _legend(ax, orders, burned, given, snapped, divides, where):
                                   label=f"channel, Strahler order {k}"))
     if burned:
         handles.append(Line2D([], [], color=S.BURNED, lw=2.6, label="burned line (culvert)"))
+    if lowered:
+        handles.append(Line2D([], [], marker="s", ms=4, ls="none", color=S.BURNED,
+                              label="cell lowered by conditioning"))
     if given:
         handles.append(Line2D([], [], marker="o", mfc="none", mec=S.GIVEN, ls="none", ms=7,
                               label="outlet as given"))
@@ -167,7 +170,7 @@ def _legend(ax, orders, burned, given, snapped, divides, where):
 
 
 def plot_map(background=None, ax=None, *, window=None, divides=(), channels=(),
-             orders=None, burned=(), given=None, snapped=None, labels=None,
+             orders=None, burned=(), lowered=None, given=None, snapped=None, labels=None,
              geographic=False, metres_per_unit=1.0, title=None, legend="below",
              figsize=(5.6, 6.3)):
     """A map of catchments on shaded relief.
@@ -187,6 +190,9 @@ def plot_map(background=None, ax=None, *, window=None, divides=(), channels=(),
         Channel lines, coloured and widened by ``orders`` (Strahler order, one per line).
     burned : sequence of shapely lines
         Lines burned into the DEM (culverts and the like).
+    lowered : array (n, 2), optional
+        Centres of cells that conditioning lowered (burned lines, breaches), drawn as small
+        squares.
     given, snapped : array (n, 2), optional
         Outlets as given (open circles) and snapped (triangles).
     labels : sequence of str, optional
@@ -232,6 +238,9 @@ def plot_map(background=None, ax=None, *, window=None, divides=(), channels=(),
         for p in parts or ():
             ax.plot(p[:, 0], p[:, 1], color=S.BURNED, lw=2.6, zorder=5,
                     solid_capstyle="butt")
+    if lowered is not None and len(lowered):
+        lw = np.asarray(lowered, float)
+        ax.plot(lw[:, 0], lw[:, 1], marker="s", ms=2.6, ls="none", color=S.BURNED, zorder=5)
     rings, widths = [], []
     for k, poly in enumerate(divides):
         r = _rings(poly)
@@ -279,5 +288,6 @@ def plot_map(background=None, ax=None, *, window=None, divides=(), channels=(),
     _north_arrow(ax)
     if legend:
         _legend(ax, orders if len(channels) else None, len(burned) > 0,
+                lowered is not None and len(lowered) > 0,
                 given is not None and len(given) > 0, n_out > 0, len(divides) > 0, legend)
     return fig

@@ -42,8 +42,8 @@ td.num, td.n { text-align: right; font-variant-numeric: tabular-nums; white-spac
 td.unit { color: var(--muted); white-space: nowrap; }
 .tablebox { max-height: 640px; overflow: auto; border: 1px solid var(--rule); }
 table.outlets { font-size: 12.5px; }
-table.outlets th { position: sticky; top: 0; cursor: pointer; white-space: nowrap;
-                   user-select: none; }
+table.outlets th { position: sticky; top: 0; cursor: pointer; user-select: none;
+                   vertical-align: bottom; }
 table.outlets th[aria-sort="ascending"]::after { content: " \\25B2"; font-size: 9px; }
 table.outlets th[aria-sort="descending"]::after { content: " \\25BC"; font-size: 9px; }
 table.outlets td { white-space: nowrap; }

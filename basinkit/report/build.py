@@ -78,7 +78,52 @@ def _outlet_section(d, figs, oid):
     return "".join(out)
 
 
-def render_report(folder, *, report_outlets=(), full_sections_max=50, progress=None) -> str:
+_STATE: dict = {}
+
+
+def _section_job(oid):
+    return oid, _outlet_section(_STATE["d"], _STATE["figs"], oid)
+
+
+def _sections(d, figs, ids, workers, progress):
+    """The full sections, drawn in ``workers`` forked processes when there are several
+    (figures are independent and matplotlib draws on one core), else one by one; the
+    output does not depend on it."""
+    import os
+
+    if workers is None:
+        workers = min(2, os.cpu_count() or 1)
+    figs.preload()
+    _STATE.update(d=d, figs=figs)
+    try:
+        if workers > 1 and len(ids) >= 4:
+            import multiprocessing as mp
+            from concurrent.futures import ProcessPoolExecutor
+            from concurrent.futures.process import BrokenProcessPool
+
+            try:
+                ctx = mp.get_context("fork")
+            except ValueError:  # no fork on this platform
+                ctx = None
+            if ctx is not None:
+                try:
+                    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+                        it = pool.map(_section_job, ids)
+                        if progress is not None:
+                            it = progress(it, total=len(ids), desc="report sections")
+                        return dict(it)
+                except (OSError, BrokenProcessPool):
+                    pass  # drawn in this process below
+        it = (_section_job(i) for i in ids)
+        if progress is not None:
+            it = progress(it, total=len(ids), desc="report sections")
+        return dict(it)
+    finally:
+        _STATE.clear()
+
+
+def render_report(folder, *, report_outlets=(), full_sections_max=50, progress=None,
+                  workers=None) -> str:
     """The report of an output folder as one HTML string.
 
     Parameters
@@ -93,6 +138,8 @@ def render_report(folder, *, report_outlets=(), full_sections_max=50, progress=N
         report summarises.
     progress : callable, optional
         ``progress(iterable, total=, desc=)`` wrapper (e.g. a progress bar or a logger).
+    workers : int, optional
+        Processes drawing the full sections (default: up to 2; 1 draws in this process).
 
     Returns
     -------
@@ -170,11 +217,8 @@ def render_report(folder, *, report_outlets=(), full_sections_max=50, progress=N
         parts.append('<nav class="toc">' + "".join(
             f'<div><a href="#outlet-{H.esc(d.file_id[i])}">{H.esc(i)}</a></div>'
             for i in d.sections) + "</nav>")
-    it = d.sections
-    if progress is not None and it:
-        it = progress(it, total=len(it), desc="report sections")
-    for oid in it:
-        parts.append(_outlet_section(d, figs, oid))
+    done = _sections(d, figs, d.sections, workers, progress)
+    parts += [done[oid] for oid in d.sections]
     parts += ['<section class="provenance"><h2 id="provenance">Provenance</h2>',
               H.provenance_html(d), "</section>",
               "<footer>Written by basinkit from the files of this folder. Methods: "
@@ -186,7 +230,7 @@ def render_report(folder, *, report_outlets=(), full_sections_max=50, progress=N
 
 
 def write_report(folder, path=None, *, report_outlets=(), full_sections_max=50,
-                 progress=None) -> Path:
+                 progress=None, workers=None) -> Path:
     """Write the report of an output folder (see :func:`render_report`) to ``path``
     (default: ``folder/report.html``) through a temporary file, so that an interrupted run
     never leaves half a report.
@@ -200,7 +244,8 @@ def write_report(folder, path=None, *, report_outlets=(), full_sections_max=50,
 
     path = Path(folder) / "report.html" if path is None else Path(path)
     text = render_report(folder, report_outlets=report_outlets,
-                         full_sections_max=full_sections_max, progress=progress)
+                         full_sections_max=full_sections_max, progress=progress,
+                         workers=workers)
     with atomic_path(path) as tmp:
         Path(tmp).write_text(text, encoding="utf-8")
     return path

@@ -12,7 +12,14 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["depression_stats", "LOWERED_CELLS_MAX"]
+__all__ = ["depression_stats", "LOWERED_CELLS_MAX", "FILL_DEPTH_M", "FILL_FRACTION",
+           "FILL_NOISE_M"]
+
+#: Depressions filled deeper than this, or raising more than FILL_FRACTION of a
+#: catchment's cells by more than FILL_NOISE_M, earn a warning (common practice, no source).
+FILL_DEPTH_M = 1.0
+FILL_FRACTION = 0.02
+FILL_NOISE_M = 0.05
 
 #: At most this many lowered cells are kept for the maps.
 LOWERED_CELLS_MAX = 50_000
@@ -50,8 +57,6 @@ def _aggregate(d, stats, label_of):
 def depression_stats(d, progress=None):
     """``({outlet id: (max fill depth m, fraction of cells raised, volume m³)},
     lowered cells (n, 2) or None)``; empty when the flow folder lacks a DEM."""
-    from .collect import FILL_NOISE_M
-
     run = d.run
     zin = run.folder / "flow" / "elevation_input.tif"
     zc = run.folder / "flow" / "elevation_conditioned.tif"
@@ -108,10 +113,8 @@ def depression_stats(d, progress=None):
 
 def _by_polygon(d, zin, zc):
     """The check for the outlets with full sections, each inside its catchment polygon."""
-    from .collect import FILL_NOISE_M
-
+    from affine import Affine
     from rasterio.features import geometry_mask
-    from rasterio.transform import from_bounds
 
     polys = d.run.layer("catchments_gpkg", ["catchments"], columns=["outlet_id"])
     if polys is None:
@@ -128,7 +131,8 @@ def _by_polygon(d, zin, zc):
         if a is None or c is None or a.array.shape != c.array.shape:
             continue
         h, w = a.array.shape
-        tr = from_bounds(a.extent[0], a.extent[2], a.extent[1], a.extent[3], w, h)
+        tr = Affine((a.extent[1] - a.extent[0]) / w, 0.0, a.extent[0],
+                    0.0, -(a.extent[3] - a.extent[2]) / h, a.extent[3])
         inside = ~geometry_mask([g], out_shape=(h, w), transform=tr)
         diff = np.maximum(np.nan_to_num(c.array - a.array), 0.0)[inside]
         if diff.size == 0:

@@ -9,6 +9,8 @@ import math
 import numpy as np
 
 from ..analysis.outlets import LONG_SNAP_CELLS, LONG_SNAP_FRACTION, sanitize_ids
+from ..io.products import PRODUCT_FILES
+from .checks import FILL_DEPTH_M, FILL_FRACTION, depression_stats
 
 __all__ = ["CAUTIONS", "ReportData", "collect"]
 
@@ -27,11 +29,6 @@ CAUTIONS = [
     "professional practice.",
 ]
 
-#: Depressions filled deeper than this, or raising more than FILL_FRACTION of a
-#: catchment's cells by more than FILL_NOISE_M, earn a warning (common practice, no source).
-FILL_DEPTH_M = 1.0
-FILL_FRACTION = 0.02
-FILL_NOISE_M = 0.05
 
 
 class ReportData:
@@ -96,7 +93,8 @@ def _outlets(d):
         if "status" not in f.columns:
             area = f["area_km2"] if "area_km2" in f.columns else pd.Series(np.nan, f.index)
             f["status"] = np.where(np.isfinite(area.astype(float)), "ok", "failed")
-        f["error"] = f["error"].fillna("").astype(str) if "error" in f.columns else ""
+        f["error"] = (f["error"].astype(object).where(f["error"].notna(), "").astype(str)
+                      if "error" in f.columns else "")
         frames.append(f)
     if errs is not None and "outlet_id" in errs.columns:
         reason = next((c for c in ("error", "reason") if c in errs.columns), None)
@@ -109,7 +107,8 @@ def _outlets(d):
             t = run.table(key, usecols=["outlet_id", "error"])
             if t is not None and "outlet_id" in t.columns:
                 t = t.drop_duplicates("outlet_id")
-                err = t["error"].fillna("").astype(str) if "error" in t.columns else ""
+                err = (t["error"].astype(object).where(t["error"].notna(), "").astype(str)
+                       if "error" in t.columns else "")
                 frames.append(pd.DataFrame({"outlet_id": t["outlet_id"], "error": err}))
                 frames[0]["status"] = np.where(frames[0]["error"] == "", "ok", "failed")
                 break
@@ -117,8 +116,9 @@ def _outlets(d):
         return pd.DataFrame({"outlet_id": [], "status": [], "error": [], "file_id": []})
     out = pd.concat(frames, ignore_index=True)
     out["outlet_id"] = out["outlet_id"].astype(str)
-    out["status"] = out["status"].fillna("failed").astype(str)
-    out["error"] = out["error"].fillna("").astype(str)
+    out["status"] = out["status"].astype(object).where(out["status"].notna(), "failed")
+    out["status"] = out["status"].astype(str)
+    out["error"] = out["error"].astype(object).where(out["error"].notna(), "").astype(str)
     # anchors: the file_id column the one sanitiser wrote; else that sanitiser here
     fid = out["file_id"] if "file_id" in out.columns else None
     if fid is None or fid.isna().any() or fid.astype(str).str.lower().duplicated().any():
@@ -315,14 +315,10 @@ def _choose_sections(d, report_outlets, full_sections_max, summary_sections):
 def collect(run, report_outlets=(), full_sections_max=50, summary_sections=10,
             progress=None):
     """Read everything the report shows from ``run`` (an io.products.RunFolder)."""
-    from .checks import depression_stats
-
     d = ReportData()
     d.run, d.folder = run, run.folder
     d.prov = run.json("provenance") or {}
     d.flow = run.json("flow") or {}
-    from ..io.products import PRODUCT_FILES
-
     for key, (name, step) in PRODUCT_FILES.items():
         if key == "outlet_errors":
             continue

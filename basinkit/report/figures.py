@@ -32,19 +32,20 @@ DPI = 100
 
 def png_uri(fig, dpi=DPI, colours=256):
     """A figure as a PNG data URI, reduced to an adaptive palette of ``colours`` colours
-    (about a third of the bytes of full colour, no visible loss on these maps and plots)."""
+    (about a third of the bytes of full colour, no visible loss on these maps and plots).
+    The PNG holds no date, so the same figure gives the same bytes."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from PIL import Image
 
-    from ..io.figures import figure_bytes
-
-    data = figure_bytes(fig, "png", dpi)
+    fig.set_dpi(dpi)
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    im = Image.fromarray(np.asarray(canvas.buffer_rgba())[..., :3].copy())
     if colours:
-        im = Image.open(io.BytesIO(data)).convert("RGB")
         im = im.quantize(colors=colours, method=Image.Quantize.MEDIANCUT, dither=0)
-        buf = io.BytesIO()
-        im.save(buf, format="PNG", optimize=False, compress_level=6)
-        data = buf.getvalue()
-    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+    buf = io.BytesIO()
+    im.save(buf, format="PNG", compress_level=6)
+    return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
 class _PathView:
@@ -80,6 +81,16 @@ class Figures:
         self._tree = None
         self._profile = None
         self.overview_labels = None
+
+    def preload(self):
+        """Read every layer and table the sections draw from (before forking workers)."""
+        import shapely
+
+        self.polygons()
+        geoms, _ = self.channels()
+        if len(geoms) and self._tree is None:
+            self._tree = shapely.STRtree(geoms)
+        self._profiles()
 
     # ------------------------------------------------------------------ layers
     def polygons(self):
@@ -129,17 +140,14 @@ class Figures:
         return terrain_image(w.array, dx, dy), w.extent
 
     def _lowered_in(self, window):
+        """Cells lowered by conditioning inside ``window`` (none when there are so many
+        that they would hide the map)."""
         pts = self.d.lowered_cells
         if pts is None or not len(pts):
-            return []
+            return None
         x0, x1, y0, y1 = window
         sel = pts[(pts[:, 0] >= x0) & (pts[:, 0] <= x1) & (pts[:, 1] >= y0) & (pts[:, 1] <= y1)]
-        if not len(sel) or len(sel) > 5000:
-            return []
-        import shapely
-
-        cs = self.dem.get("cell_size", (1.0, 1.0))
-        return list(shapely.buffer(shapely.points(sel), 0.3 * min(cs), quad_segs=1))
+        return sel if 0 < len(sel) <= 5000 else None
 
     # ------------------------------------------------------------------ maps
     def _window(self, poly, points, min_size_m=400.0, margin=0.12):
@@ -177,7 +185,7 @@ class Figures:
         geoms, orders = self._channels_in(win)
         fig = plot_map(self._background(win), window=win,
                        divides=[poly] if poly is not None else [], channels=geoms,
-                       orders=orders, burned=self._lowered_in(win),
+                       orders=orders, lowered=self._lowered_in(win),
                        given=given[np.isfinite(given).all(axis=1)],
                        snapped=snapped[np.isfinite(snapped).all(axis=1)],
                        geographic=self.dem.get("geographic", False),
@@ -220,9 +228,9 @@ class Figures:
             if not ok.any():
                 return None
             window = (pts[ok, 0].min(), pts[ok, 0].max(), pts[ok, 1].min(), pts[ok, 1].max())
-        lowered = self._lowered_in(window) if not d.summary_mode else []
+        lowered = self._lowered_in(window) if not d.summary_mode else None
         fig = plot_map(bg, window=window, divides=divides, channels=geoms, orders=orders,
-                       burned=lowered, snapped=pts[ok], labels=labels,
+                       lowered=lowered, snapped=pts[ok], labels=labels,
                        geographic=self.dem.get("geographic", False),
                        metres_per_unit=self.dem.get("metres_per_unit", 1.0),
                        title="Overview: the whole DEM", legend="right", figsize=(8.2, 6.0))
@@ -249,7 +257,7 @@ class Figures:
         fig = Figure(figsize=(2.9 * ncol, 2.35 * nrow), dpi=DPI)
         for k, (vals, label, log) in enumerate(panels):
             ax = fig.add_subplot(nrow, ncol, k + 1)
-            plot_histogram(vals, ax=ax, log=log, xlabel=label, bins=30)
+            plot_histogram(vals, ax=ax, log=log, xlabel=label)
         fig.tight_layout()
         return png_uri(fig), [p[1] for p in panels]
 
@@ -296,7 +304,7 @@ class Figures:
                        zip(view.x, view.y, view.distance_m)}
                 knick["distance_from_outlet_m"] = [pos[(round(x, 6), round(y, 6))]
                                                    for x, y in zip(knick["x"], knick["y"])]
-        fig = plot_long_profile(view, knickpoints=knick,
+        fig = plot_long_profile(view, ax=_plot_axes(), knickpoints=knick,
                                 title=f"Longest flow path of {oid}")
         return png_uri(fig)
 
@@ -316,7 +324,7 @@ class Figures:
         if steep is not None and "concavity" in steep.columns:
             theta = float(np.nanmedian(steep["concavity"].to_numpy(float)))
         nodes.attrs["concavity"] = theta
-        fig = plot_chi(nodes, knickpoints=self._rows("knickpoints", oid),
+        fig = plot_chi(nodes, ax=_plot_axes(), knickpoints=self._rows("knickpoints", oid),
                        steepness_table=steep, title=f"χ–elevation, channels above {oid}")
         return png_uri(fig)
 
@@ -330,6 +338,12 @@ class Figures:
         fig = plot_hypsometric_curve(rows.sort_values("relative_height"), integral=hi,
                                      label=oid, title=f"Hypsometric curve of {oid}")
         return png_uri(fig)
+
+
+def _plot_axes(size=(5.4, 3.5)):
+    from matplotlib.figure import Figure
+
+    return Figure(figsize=size, dpi=DPI).add_subplot(1, 1, 1)
 
 
 def _num(v):

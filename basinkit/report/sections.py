@@ -52,16 +52,16 @@ FIGURE_ROWS = [
 
 #: Columns of the outlet table: (heading, [(table, column), ...] tried in turn, format).
 TABLE_COLUMNS = [
-    ("Area (km²)", [("catchment", "area_km2"), ("morphometry", "area_km2")], "{:.4g}"),
-    ("Area (acres)", [("catchment", "area_acres"), ("calc", "area_acres")], "{:,.1f}"),
-    ("Area (mi²)", [("catchment", "area_mi2"), ("calc", "area_mi2")], "{:.4g}"),
-    ("Relief (m)", [("catchment", "relief_m"), ("morphometry", "relief_m")], "{:.1f}"),
-    ("Mean slope (m/m)", [("morphometry", "mean_slope_m_per_m")], "{:.3f}"),
+    ("Area km²", [("catchment", "area_km2"), ("morphometry", "area_km2")], "{:.4g}"),
+    ("Area acres", [("catchment", "area_acres"), ("calc", "area_acres")], "{:,.1f}"),
+    ("Area mi²", [("catchment", "area_mi2"), ("calc", "area_mi2")], "{:.4g}"),
+    ("Relief m", [("catchment", "relief_m"), ("morphometry", "relief_m")], "{:.1f}"),
+    ("Mean slope m/m", [("morphometry", "mean_slope_m_per_m")], "{:.3f}"),
     ("Hypsometric integral", [("morphometry", "hypsometric_integral")], "{:.3f}"),
-    ("Longest flow path (m)", [("path", "length_m"), ("morphometry", "longest_flow_path_m")],
+    ("Longest flow path m", [("path", "length_m"), ("morphometry", "longest_flow_path_m")],
      "{:,.0f}"),
-    ("10–85 slope (m/m)", [("path", "slope_10_85_m_per_m")], "{:.4f}"),
-    ("Snap (m)", [("catchment", "snap_distance_m")], "{:.1f}"),
+    ("10–85 slope m/m", [("path", "slope_10_85_m_per_m")], "{:.4f}"),
+    ("Snap distance m", [("catchment", "snap_distance_m")], "{:.1f}"),
 ]
 
 
@@ -255,7 +255,10 @@ def figure_table_html(d, oid) -> str:
 
 def warnings_html(d, oid) -> str:
     flags = d.flags.get(oid, [])
-    notes = [n for n in d.notes.get(oid, []) if n not in {t for _, t in flags}]
+    # a note of the run that opens with the same words as one of the report's own
+    # warnings says the same thing (with the run's rounding): shown once
+    heads = {" ".join(t.split()[:8]) for _, t in flags}
+    notes = [n for n in d.notes.get(oid, []) if " ".join(n.split()[:8]) not in heads]
     if not flags and not notes:
         return '<p class="ok">No warnings for this outlet.</p>'
     parts = ['<div class="warnings"><h3>Warnings</h3>']
