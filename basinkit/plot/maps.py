@@ -185,7 +185,8 @@ def plot_map(background=None, ax=None, *, window=None, divides=(), channels=(),
     window : (xmin, xmax, ymin, ymax), optional
         Part of the map shown (default: the background's extent).
     divides : sequence of shapely (Multi)Polygons
-        Catchments whose boundaries are drawn; the first is drawn thickest.
+        Catchments whose boundaries are drawn; the first is drawn thickest (all thin when
+        there are more than 50).
     channels : sequence of shapely (Multi)LineStrings
         Channel lines, coloured and widened by ``orders`` (Strahler order, one per line).
     burned : sequence of shapely lines
@@ -245,7 +246,8 @@ def plot_map(background=None, ax=None, *, window=None, divides=(), channels=(),
     for k, poly in enumerate(divides):
         r = _rings(poly)
         rings.extend(r)
-        widths.extend([1.8 if k == 0 else 0.9] * len(r))
+        widths.extend([1.8 if k == 0 and len(divides) <= 50 else
+                       0.9 if len(divides) <= 50 else 0.5] * len(r))
     if rings:
         ax.add_collection(LineCollection(rings, colors=S.DIVIDE, linewidths=widths, zorder=4))
     n_out = 0

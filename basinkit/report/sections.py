@@ -234,6 +234,10 @@ def figure_table_html(d, oid) -> str:
         if src == "outlet":
             pre = "snapped" if key == "xy_snapped" else "given"
             text = _xy_text(cat.get(f"x_{pre}"), cat.get(f"y_{pre}"))
+            if d.dem.get("geographic"):
+                unit = "° (longitude, latitude)"
+            elif abs(d.dem.get("metres_per_unit", 0.0) - 1.0) < 1e-12:
+                unit = "m (easting, northing)"
             rows.append(f'<tr><th>{esc(label)}</th><td class="num" data-key="outlet:{key}">'
                         f'{text}</td><td class="unit">{esc(unit)}</td></tr>')
             continue
