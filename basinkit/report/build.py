@@ -82,7 +82,12 @@ _STATE: dict = {}
 
 
 def _section_job(oid):
-    return oid, _outlet_section(_STATE["d"], _STATE["figs"], oid)
+    import warnings
+
+    with warnings.catch_warnings():  # empty legends, all-NaN medians: the figure says it
+        warnings.simplefilter("ignore", UserWarning)
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return oid, _outlet_section(_STATE["d"], _STATE["figs"], oid)
 
 
 def _sections(d, figs, ids, workers, progress):
