@@ -25,6 +25,7 @@ from .terrain import Terrain, terrain_from_array  # noqa: E402
 _LAZY = {
     "breach_depressions": "conditioning.breach",
     "burn_lines": "conditioning.burn",
+    "read_lines": "io.lines",
     "delineate": "analysis.catchments",
     "Delineation": "analysis.catchments",
     "prepare_outlets": "analysis.outlets",

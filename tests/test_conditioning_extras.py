@@ -22,6 +22,7 @@ from shapely.geometry import LineString, Polygon
 from basinkit import InputError, condition, fill_depressions, route, terrain_from_array
 from basinkit.conditioning.breach import breach_depressions
 from basinkit.conditioning.burn import burn_lines, line_cell_paths
+from basinkit.io.lines import read_lines
 
 from conftest import fractal_dem
 
@@ -257,7 +258,7 @@ def test_burn_from_reprojected_geopackage(tmp_path):
     gdf = gpd.GeoDataFrame(geometry=[line], crs="EPSG:32633").to_crs("EPSG:4326")
     path = tmp_path / "culverts.gpkg"
     gdf.to_file(path, driver="GPKG")
-    from_file, n_file = burn_lines(t, path, 3.0)
+    from_file, n_file = burn_lines(t, read_lines(path, t.crs), 3.0)
     direct, n_direct = burn_lines(t, [line], 3.0)
     assert n_file == n_direct == 7
     assert np.array_equal(from_file.elevation, direct.elevation)
@@ -268,12 +269,12 @@ def test_burn_bad_inputs(tmp_path):
 
     z, t, culvert = embankment_valley()
     with pytest.raises(InputError, match="does not exist"):
-        burn_lines(t, tmp_path / "nothing.gpkg", 2.0)
+        read_lines(tmp_path / "nothing.gpkg", t.crs)
     poly = tmp_path / "ponds.geojson"
     gpd.GeoDataFrame(geometry=[Polygon([(0, 0), (50, 0), (50, 50)])],
                      crs="EPSG:32633").to_file(poly, driver="GeoJSON")
     with pytest.raises(InputError, match="no lines"):
-        burn_lines(t, poly, 2.0)
+        read_lines(poly, t.crs)
     with pytest.raises(InputError, match="none of the burn lines"):
         burn_lines(t, [LineString([(-500, -500), (-400, -300)])], 2.0)
     with pytest.raises(InputError, match="burn depth"):
@@ -281,7 +282,9 @@ def test_burn_bad_inputs(tmp_path):
     text = tmp_path / "notes.gpkg"
     text.write_text("not a geopackage")
     with pytest.raises(InputError, match="cannot read"):
-        burn_lines(t, text, 2.0)
+        read_lines(text, t.crs)
+    with pytest.raises(InputError, match="not a file name"):  # algorithms take no paths
+        burn_lines(t, poly, 2.0)
 
 
 @pytest.mark.parametrize("module", ["basinkit.conditioning.breach", "basinkit.conditioning.burn"])

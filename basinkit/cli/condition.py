@@ -36,7 +36,12 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
     terrain = read_dem_from_options(dem, band, crs, sea_level, base_level)
     console.info(f"read {dem}: {terrain.shape[0]} x {terrain.shape[1]} cells")
     mbl = parse_length(max_breach_length, "--max-breach-length") if max_breach_length else None
-    cond, summary = condition(terrain, method=method, epsilon=epsilon, burn=burn,
+    if burn:
+        from ..io.lines import read_lines
+
+        lines = read_lines(burn, terrain.crs)
+    cond, summary = condition(terrain, method=method, epsilon=epsilon,
+                              burn=lines if burn else None,
                               burn_depth=burn_depth if burn else 0.0,
                               max_breach_depth=max_breach_depth, max_breach_length=mbl)
     write_geotiff(out, cond.elevation, cond.transform, cond.crs, nodata=float("nan"))

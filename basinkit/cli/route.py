@@ -45,9 +45,13 @@ def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
     mbl = parse_length(max_breach_length, "--max-breach-length") if max_breach_length else None
     opts = dict(epsilon=epsilon, max_breach_depth=max_breach_depth, max_breach_length=mbl)
     if burn:
-        opts.update(burn=burn, burn_depth=burn_depth)
+        from ..io.lines import read_lines
+
+        opts.update(burn=read_lines(burn, terrain.crs), burn_depth=burn_depth)
     fm = route(terrain, method=method, conditioning=conditioning, mfd_exponent=mfd_exponent,
                **opts)
+    if burn:  # the layer's name, not the geometries, in the provenance
+        fm.parameters["burn"] = str(burn)
     if sea_level is not None:
         fm.parameters["sea_level"] = sea_level
     if base_level is not None:

@@ -9,20 +9,20 @@ import numpy as np
 from ..errors import InputError
 from ..terrain.model import Terrain
 
-__all__ = ["burn_lines", "read_lines", "line_cell_paths"]
+__all__ = ["burn_lines", "line_geometries", "line_cell_paths"]
 
 _LINE_TYPES = ("LineString", "MultiLineString", "LinearRing")
 
 
-def read_lines(lines, crs=None) -> list:
-    """Line geometries from a vector file or a sequence of shapely lines.
+def line_geometries(lines, crs=None) -> list:
+    """Line geometries from shapely lines, a GeoSeries or a GeoDataFrame.
 
     Parameters
     ----------
-    lines : str, Path, or sequence of shapely geometries (or a GeoSeries/GeoDataFrame)
-        A file is read with geopandas and reprojected to ``crs`` when it states its own CRS
-        (one without a CRS is taken to be in ``crs`` already). Multi-lines are split into
-        their parts; points and polygons are ignored.
+    lines : shapely geometry, sequence of shapely geometries, GeoSeries or GeoDataFrame
+        Reprojected to ``crs`` when they carry a CRS of their own. Multi-lines are split
+        into their parts; points and polygons are ignored. Files are read by
+        :func:`basinkit.read_lines` (``basinkit.io.lines``), not here.
     crs : pyproj.CRS, optional
         Target CRS (the DEM's).
 
@@ -33,34 +33,28 @@ def read_lines(lines, crs=None) -> list:
     import shapely
 
     if isinstance(lines, (str, Path)):
-        import geopandas as gpd
-
-        p = Path(lines)
-        if not p.exists():
-            raise InputError(f"the line layer {str(p)!r} does not exist")
-        try:
-            gdf = gpd.read_file(p)
-        except Exception as exc:  # noqa: BLE001 - any reader failure is an input problem
-            raise InputError(f"cannot read the line layer {str(p)!r}: {exc}") from None
-        if gdf.crs is not None and crs is not None:
-            gdf = gdf.to_crs(crs.to_wkt())
-        geoms = list(gdf.geometry)
-        what = f"the layer {str(p)!r}"
+        raise InputError(f"burn lines must be line geometries, not a file name ({str(lines)!r});"
+                         " read the layer first with basinkit.read_lines(path, terrain.crs)")
+    if hasattr(lines, "geometry") and not hasattr(lines, "geom_type"):  # GeoDataFrame
+        gs = lines.geometry
+        if gs.crs is not None and crs is not None:
+            gs = gs.to_crs(crs.to_wkt())
+        geoms = list(gs)
+    elif hasattr(lines, "to_crs") and hasattr(lines, "crs"):  # GeoSeries
+        gs = lines.to_crs(crs.to_wkt()) if (lines.crs is not None and crs is not None) \
+            else lines
+        geoms = list(gs)
+    elif isinstance(lines, shapely.Geometry):
+        geoms = [lines]
     else:
-        if hasattr(lines, "geometry") and not hasattr(lines, "geom_type"):  # GeoDataFrame
-            gs = lines.geometry
-            if gs.crs is not None and crs is not None:
-                gs = gs.to_crs(crs.to_wkt())
-            geoms = list(gs)
-        elif hasattr(lines, "to_crs") and hasattr(lines, "crs"):  # GeoSeries
-            gs = lines.to_crs(crs.to_wkt()) if (lines.crs is not None and crs is not None) \
-                else lines
-            geoms = list(gs)
-        elif isinstance(lines, shapely.Geometry):
-            geoms = [lines]
-        else:
-            geoms = list(lines)
-        what = "the burn lines"
+        geoms = list(lines)
+    return only_lines(geoms, "the burn lines")
+
+
+def only_lines(geoms, what) -> list:
+    """The line parts of ``geoms`` (multi-lines split); refuses a set with no line."""
+    import shapely
+
     out = []
     for g in geoms:
         if g is None or not isinstance(g, shapely.Geometry) or g.is_empty:
@@ -113,9 +107,9 @@ def burn_lines(terrain: Terrain, lines, depth: float):
     Parameters
     ----------
     terrain : Terrain
-    lines : str, Path or sequence of shapely lines
-        A line layer (GeoPackage, GeoJSON, shapefile, ...; reprojected to the DEM's CRS) or
-        line geometries in the DEM's CRS.
+    lines : sequence of shapely lines, GeoSeries or GeoDataFrame
+        Line geometries in the DEM's CRS, or carrying their own CRS (reprojected); a layer
+        on disk is read with :func:`basinkit.read_lines` first.
     depth : float
         Metres to lower every cell a line crosses (0 allowed).
 
@@ -151,7 +145,7 @@ def burn_lines(terrain: Terrain, lines, depth: float):
     if not (d >= 0 and np.isfinite(d)):
         raise InputError(f"the burn depth must be zero or a positive number of metres, "
                          f"got {depth!r}")
-    geoms = read_lines(lines, terrain.crs)
+    geoms = line_geometries(lines, terrain.crs)
     paths = line_cell_paths(terrain, geoms)
     if not paths:
         raise InputError("none of the burn lines crosses a valid cell of the DEM; check that "

@@ -443,7 +443,7 @@ def _module_available(name):
 
 
 def _read_burn_lines(paths, crs):
-    from ..conditioning.burn import read_lines
+    from ..io.lines import read_lines
 
     geoms = []
     for p in paths:
