@@ -279,8 +279,9 @@ def plot_map(background=None, ax=None, *, window=None, divides=(), channels=(),
         f.set_scientific(False)
         axis.set_major_formatter(f)
     ax.tick_params(labelsize=7)
-    ax.set_xlabel("longitude (°)" if geographic else "easting (map units)", fontsize=8)
-    ax.set_ylabel("latitude (°)" if geographic else "northing (map units)", fontsize=8)
+    unit = "m" if abs(metres_per_unit - 1.0) < 1e-12 else "map units"
+    ax.set_xlabel("longitude (°)" if geographic else f"easting ({unit})", fontsize=8)
+    ax.set_ylabel("latitude (°)" if geographic else f"northing ({unit})", fontsize=8)
     for lab in ax.get_yticklabels():
         lab.set_rotation(90)
         lab.set_va("center")
