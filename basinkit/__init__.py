@@ -51,7 +51,7 @@ _LAZY = {
     "demo_job_path": "workflow.jobfile",
     "JOB_SCHEMA": "workflow.jobfile",
     "run_job": "workflow.runner",
-    "write_report": "report.html",
+    "write_report": "report",
 }
 
 

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from basinkit.report.html import write_report
+from basinkit.report import write_report
 from basinkit.workflow.jobfile import demo_job_path, read_job
 from basinkit.workflow.runner import run_job
 

@@ -191,6 +191,6 @@ def finish(console, failed=0):
 def report_writer():
     """The report room's writer, handed to the job runner (the workflow room does not
     import the report room)."""
-    from ..report.html import write_report
+    from ..report import write_report
 
     return write_report

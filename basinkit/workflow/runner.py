@@ -269,9 +269,8 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
 
 
 def _report(job, out, res, timer, rep, write_report):
-    """The report stage: ``write_report`` is given the output folder (or, for a report
-    writer that takes a job result, this run's result)."""
-    import inspect
+    """The report stage: ``write_report`` (the report room's, handed in by the caller) reads
+    the output folder."""
 
     known = set() if res.outlets is None else set(res.outlets["outlet_id"].astype(str))
     unknown = [i for i in job["outputs"]["report_outlets"] if i not in known]
@@ -280,19 +279,10 @@ def _report(job, out, res, timer, rep, write_report):
                + ", ".join(unknown))
         res.warnings.setdefault("job", []).append(msg)
         rep.warn(msg)
-    with timer("report"):
-        first = next(iter(inspect.signature(write_report).parameters))
-        target = out.path("report.html")
-        if first == "res":  # the report of a job result (in memory)
-            write_report(res, target, progress=rep.progress)
-        else:  # the report built from the files in the output folder
-            kw = {}
-            params = inspect.signature(write_report).parameters
-            if "progress" in params:
-                kw["progress"] = rep.progress
-            if "reporter" in params:
-                kw["reporter"] = rep
-            write_report(out.folder, **kw)
+    with timer("report"):  # built only from the files the steps wrote (report room)
+        write_report(out.folder, out.path("report.html"),
+                     report_outlets=tuple(job["outputs"]["report_outlets"]),
+                     progress=rep.progress)
         out.adopt("report.html")
 
 

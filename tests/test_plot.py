@@ -1,0 +1,126 @@
+"""Figures (basinkit.plot) and writing them (basinkit.io.figures).
+
+External references: the PNG signature and the pHYs chunk (PNG specification, ISO/IEC
+15948 §5.2, §11.3.5.3) read back with Pillow; the PDF header (ISO 32000-1 §7.5.2); SVG as
+XML (W3C SVG 1.1) parsed with the standard library. The rest is common practice (no
+source): the same figure gives the same bytes, every plotting function takes ``ax=None``.
+"""
+
+import hashlib
+import io
+import re
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+
+def _figure():
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(4, 3))
+    ax = fig.add_subplot(1, 1, 1)
+    ax.plot([0, 1, 2], [1, 0, 2], label="a line")
+    ax.legend()
+    return fig
+
+
+@pytest.mark.parametrize("fmt", ["png", "svg", "pdf"])
+def test_figures_are_written_the_same_every_time(fmt, tmp_path):
+    """Two saves of equal figures give equal bytes (no dates, fixed SVG ids), with the
+    format's signature; the file lands under its name only when complete."""
+    from basinkit.io.figures import figure_bytes, save_figure
+
+    a = figure_bytes(_figure(), fmt, dpi=90)
+    b = save_figure(_figure(), tmp_path / f"f.{fmt}", dpi=90).read_bytes()
+    assert hashlib.sha256(a).digest() == hashlib.sha256(b).digest()
+    if fmt == "png":
+        assert a[:8] == b"\x89PNG\r\n\x1a\n"
+    elif fmt == "pdf":
+        assert a.startswith(b"%PDF-") and b"CreationDate" not in a and b"ModDate" not in a
+    else:
+        root = ET.fromstring(a)
+        assert root.tag.endswith("svg")
+        assert not re.search(rb"<dc:date>", a)
+    assert [p.name for p in tmp_path.iterdir()] == [f"f.{fmt}"]
+
+
+def test_png_resolution_is_the_chosen_dpi():
+    """A 4 × 3 inch figure at 75 dpi is 300 × 225 pixels and records 75 dpi in pHYs."""
+    from PIL import Image
+
+    from basinkit.io.figures import figure_bytes
+
+    im = Image.open(io.BytesIO(figure_bytes(_figure(), "png", dpi=75)))
+    assert im.size == (300, 225)
+    assert im.info["dpi"] == pytest.approx((75, 75), abs=0.01)
+
+
+def test_bad_format_or_dpi_is_one_clear_error(tmp_path):
+    from basinkit.errors import InputError
+    from basinkit.io.figures import figure_bytes, save_figure
+
+    with pytest.raises(InputError, match="png, svg, pdf"):
+        save_figure(_figure(), tmp_path / "f.gif")
+    with pytest.raises(InputError, match="positive"):
+        figure_bytes(_figure(), "png", dpi=0)
+
+
+def _calls():
+    import shapely
+
+    from basinkit.plot.distributions import plot_histogram
+    from basinkit.plot.hypsometry import plot_hypsometric_curve
+    from basinkit.plot.maps import plot_map, terrain_image
+
+    z = np.add.outer(np.arange(20.0), np.arange(30.0))
+    img = terrain_image(z, 10.0, 10.0)
+    curve = pd.DataFrame({"relative_height": np.linspace(0, 1, 11),
+                          "relative_area_above": 1 - np.linspace(0, 1, 11) ** 0.5})
+    poly = shapely.box(50, 50, 200, 150)
+    line = shapely.LineString([(60, 60), (190, 140)])
+    return [
+        lambda ax: plot_map((img, (0, 300, 0, 200)), ax=ax, divides=[poly], channels=[line],
+                            orders=[2], given=[[61, 59]], snapped=[[60, 60]],
+                            labels=["x"], legend=None),
+        lambda ax: plot_hypsometric_curve(curve, ax=ax, integral=0.4, label="x"),
+        lambda ax: plot_histogram(np.arange(1.0, 50.0), ax=ax, log=True),
+    ]
+
+
+def test_every_plot_takes_ax_none_and_returns_its_figure():
+    """ax=None makes a new Figure; a given axes is drawn into and its figure returned."""
+    from matplotlib.figure import Figure
+
+    for call in _calls():
+        fig = call(None)
+        assert isinstance(fig, Figure) and fig.axes
+        host = Figure()
+        ax = host.add_subplot(1, 1, 1)
+        assert call(ax) is host
+        assert ax.has_data() or ax.images
+
+
+def test_plot_room_never_selects_a_backend():
+    """No module of basinkit/plot calls matplotlib.use (the CLI alone may)."""
+    root = Path(__file__).resolve().parents[1] / "basinkit" / "plot"
+    for p in root.glob("*.py"):
+        assert "matplotlib.use(" not in p.read_text(encoding="utf-8"), p.name
+
+
+def test_terrain_image_is_transparent_outside_the_data():
+    """NaN cells are transparent; on a plane rising to the south every row is one colour:
+    the shading of a plane is uniform (Horn 1981: the reflectance depends on the slope and
+    aspect only) and the tint follows the elevation, constant along a row."""
+    from basinkit.plot.maps import terrain_image
+
+    z = np.add.outer(np.arange(10.0), np.zeros(12))  # rises to the south: one slope
+    z[0, 0] = np.nan
+    img = terrain_image(z, 10.0, 10.0)
+    assert img.shape == (10, 12, 4)
+    assert img[0, 0, 3] == 0 and (img[1:, 1:, 3] == 1).all()
+    inner = img[2:-2, 2:-2, :3]
+    assert np.ptp(inner, axis=1).max() < 1e-9
+    assert np.ptp(inner[:, 0, 0]) > 0  # the tint changes with elevation
