@@ -251,11 +251,13 @@ def velocity_method_segments(profile, inputs: VelocityMethodInputs, channel=None
     z = np.asarray(profile.elevation_conditioned_m, dtype=np.float64)
     area = np.asarray(profile.upstream_area_m2, dtype=np.float64)
     s_node = L - d  # distance from the head, decreasing with the node index
-    if channel is None:
-        if inputs.channel_threshold_m2 is None:
-            raise InputError("the velocity method needs the channel threshold (upstream "
-                             "area from which the path is a channel) or a channel network")
+    if channel is None and inputs.channel_threshold_m2 is not None:
         channel = area >= inputs.channel_threshold_m2
+    if channel is None:
+        missing = inputs.missing(needs_channel=True)
+        missing.append("the channel threshold (upstream area from which the path is a "
+                       "channel) or a channel network")
+        raise InputError("the velocity method needs " + ", ".join(missing))
     channel = np.asarray(channel, dtype=bool)
     # the channel starts at the channel node nearest the head
     idx = np.nonzero(channel)[0]

@@ -392,7 +392,8 @@ def _peak_rows(area_m2, tc_h, tc_label, cn: CurveNumbers, c_mean, s, hyd_summary
     r = {"method": "nrcs_unit_hydrograph", "tc_method_used": tc_label, "tc_h": tc_h,
          "tc_min": tc_h * 60.0, **{k: h[k] for k in (
              "peak_discharge_m3_per_s", "direct_runoff_peak_m3_per_s", "time_to_peak_h",
-             "lag_h", "lag_rain_centroid_to_peak_h", "time_step_min", "hydrograph_volume_m3",
+             "lag_h", "lag_excess_centroid_to_peak_h", "centroid_lag_h", "rain_centroid_h",
+             "excess_centroid_h", "time_step_min", "hydrograph_volume_m3",
              "mass_balance_error_fraction", "unit_hydrograph_volume_ratio")},
          "unit_hydrograph_time_to_peak_h": h["time_to_peak_uh_h"],
          "peak_rate_factor_us": h["peak_rate_factor_us"],

@@ -153,24 +153,33 @@ def summarise_hydrograph(time_h, direct_m3_per_s, rain_mm, excess_mm, step_h,
                          base_flow_m3_per_s=0.0) -> dict:
     """Peak, time to peak, lags and volume of a hydrograph at steps of ``step_h``.
 
-    The rain and excess centroids take each step's depth at the step's middle; the lag is
-    the time from the centroid of the excess rainfall to the peak (the NRCS definition of
-    lag); ``lag_rain_centroid_to_peak_h`` measures from the centroid of all rainfall.
+    Each step's rain and excess count at the step's middle. Lags:
+
+    - ``lag_h``: from the centroid of the rainfall to the peak;
+    - ``lag_excess_centroid_to_peak_h``: from the centroid of the excess rainfall to the
+      peak (the NRCS definition of lag, NEH 630 ch. 15-16; for a short burst it is
+      0.6·Tc, but for a long storm whose excess goes on after the peak it can be small or
+      negative);
+    - ``centroid_lag_h``: from the centroid of the excess to the centroid of the direct
+      runoff (always positive; the centroid lag of the unit hydrograph).
     """
     q = np.asarray(direct_m3_per_s, dtype=np.float64)
     t = np.asarray(time_h, dtype=np.float64)
     k = int(np.argmax(q))
-    mids = (np.arange(len(rain_mm)) + 0.5) * step_h
     rain = np.asarray(rain_mm, dtype=np.float64)
     ex = np.asarray(excess_mm, dtype=np.float64)
-    c_rain = float(np.sum(rain * mids) / rain.sum()) if rain.sum() > 0 else np.nan
-    c_ex = float(np.sum(ex * mids[:ex.size]) / ex.sum()) if ex.sum() > 0 else np.nan
+    mids = (np.arange(max(rain.size, ex.size)) + 0.5) * step_h
+
+    def centroid(w, x):
+        return float(np.sum(w * x[:w.size]) / w.sum()) if w.sum() > 0 else np.nan
+
+    c_rain, c_ex, c_q = centroid(rain, mids), centroid(ex, mids), centroid(q, t)
     vol = float(q.sum() * step_h * 3600.0)
     return {"peak_discharge_m3_per_s": float(q[k] + base_flow_m3_per_s),
             "direct_runoff_peak_m3_per_s": float(q[k]),
             "time_to_peak_h": float(t[k]),
-            "excess_centroid_h": c_ex, "rain_centroid_h": c_rain,
-            "lag_h": float(t[k] - c_ex) if np.isfinite(c_ex) else np.nan,
-            "lag_rain_centroid_to_peak_h": float(t[k] - c_rain) if np.isfinite(c_rain)
-            else np.nan,
+            "rain_centroid_h": c_rain, "excess_centroid_h": c_ex,
+            "lag_h": float(t[k] - c_rain),
+            "lag_excess_centroid_to_peak_h": float(t[k] - c_ex),
+            "centroid_lag_h": float(c_q - c_ex),
             "hydrograph_volume_m3": vol}
