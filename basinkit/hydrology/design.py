@@ -10,7 +10,7 @@ and the outlets that failed with the reason.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -47,6 +47,9 @@ PEAK_RANGES = {
         "from memory); large catchments are commonly split into sub-areas and routed"),
 }
 TC_CHOICES = tcm.TC_METHODS + ("shortest", "longest", "mean")
+HYDROGRAPH_COLUMNS = ["outlet_id", "time_h", "time_min", "rainfall_in_step_mm",
+                      "excess_in_step_mm", "direct_runoff_m3_per_s", "base_flow_m3_per_s",
+                      "discharge_m3_per_s", "discharge_cfs"]
 SEGMENT_COLUMNS = ["outlet_id", "segment", "flow_regime", "start_distance_from_head_m",
                    "end_distance_from_head_m", "length_m", "length_ft", "drop_m",
                    "slope_m_per_m", "slope_raised", "velocity_m_per_s", "velocity_ft_per_s",
@@ -107,6 +110,7 @@ class DesignFlowSettings:
     time_step_min: float | None = None
     base_flow_m3_per_s: float = 0.0
     rational_min_duration_min: float = 5.0
+    p2_24h_from_idf: bool = field(default=False, init=False)
 
     def __post_init__(self):
         if not isinstance(self.storm, Hyetograph):
@@ -151,9 +155,9 @@ class DesignFlowSettings:
                 p2 = self.idf.depth_mm(24.0, 2.0)
             except InputError:
                 p2 = None
-            if p2 is not None:
-                self.velocity.p2_24h_mm = p2
-                self._p2_from_idf = True
+            if p2 is not None:  # a copy: the caller's inputs stay as given
+                self.velocity = replace(self.velocity, p2_24h_mm=p2)
+                self.p2_24h_from_idf = True
 
     def describe(self) -> dict:
         """Every input used, as plain values (for tables, JSON and reports)."""
@@ -174,7 +178,7 @@ class DesignFlowSettings:
              "base_flow_m3_per_s": self.base_flow_m3_per_s,
              "rational_min_duration_min": self.rational_min_duration_min,
              "velocity_method": self.velocity.to_dict(),
-             "p2_24h_from_idf": bool(getattr(self, "_p2_from_idf", False))}
+             "p2_24h_from_idf": self.p2_24h_from_idf}
         return d
 
 
@@ -343,13 +347,13 @@ def _hydrograph(area_m2, tc_h, cn: CurveNumbers, s: DesignFlowSettings):
         last = max(int(np.nonzero(q > 1e-6 * peak)[0][-1]) + 2, rain.size + 1)
         q, t, n = q[:last], t[:last], min(last, n)
     summ = hg.summarise_hydrograph(t, q, rain, excess, dt, s.base_flow_m3_per_s)
-    frame = pd.DataFrame({
+    frame = {  # plain arrays; one DataFrame for all outlets is built at the end
         "time_h": t, "time_min": t * 60.0,
         "rainfall_in_step_mm": np.pad(rain, (0, max(n - rain.size, 0)))[:n],
         "excess_in_step_mm": np.pad(excess, (0, max(n - excess.size, 0)))[:n],
         "direct_runoff_m3_per_s": q,
-        "base_flow_m3_per_s": s.base_flow_m3_per_s,
-        "discharge_m3_per_s": q + s.base_flow_m3_per_s})
+        "base_flow_m3_per_s": np.full(n, s.base_flow_m3_per_s),
+        "discharge_m3_per_s": q + s.base_flow_m3_per_s}
     frame["discharge_cfs"] = frame["discharge_m3_per_s"] * CFS_PER_CMS
     depth = float(cum_ex[-1])
     vol_expected = depth * 1e-3 * area_m2
@@ -458,18 +462,14 @@ def _one_outlet(fm, network, cell, area_m2, mean_slope, cn, c_mean, s, oid):
                   tc_spread_ratio=max(tcs) / min(tcs) if min(tcs) > 0 else np.nan,
                   tc_methods_computed=len(tcs))
     rows = [{**common, **r} for r in tc_rows + peak_rows]
-    frame.insert(0, "outlet_id", oid)
-    seg = pd.DataFrame(segs)
-    geoms = []
-    if len(seg):
-        geoms = _segment_geometry(profile, segs)
-        seg.insert(0, "outlet_id", oid)
-        seg.insert(1, "segment", np.arange(1, len(seg) + 1))
-        seg["length_ft"] = seg["length_m"] / 0.3048
-        seg["velocity_ft_per_s"] = seg["velocity_m_per_s"] / 0.3048
-        seg["travel_time_min"] = seg["travel_time_h"] * 60.0
-        seg["cumulative_time_h"] = seg["travel_time_h"].cumsum()
-        seg = seg[SEGMENT_COLUMNS]
+    geoms = _segment_geometry(profile, segs) if segs else []
+    cum = 0.0
+    for k, sg in enumerate(segs, start=1):
+        cum += sg["travel_time_h"]
+        sg.update(outlet_id=oid, segment=k, length_ft=sg["length_m"] / 0.3048,
+                  velocity_ft_per_s=sg["velocity_m_per_s"] / 0.3048,
+                  travel_time_min=sg["travel_time_h"] * 60.0, cumulative_time_h=cum)
+    seg = segs
     return rows, frame, seg, geoms
 
 
@@ -606,21 +606,20 @@ def design_flows(fm, delineation, settings: DesignFlowSettings, network=None,
             warns.append(f"outlet {oid!r}: {e}")
             continue
         rows += r
-        hyds.append(h)
-        if len(sg):
-            segs.append(sg)
-            geoms += g
+        hyds.append((oid, h))
+        segs += sg
+        geoms += g
         for x in r:
             if x.get("range_flags"):
                 warns.append(f"outlet {oid!r}, {x['method']}: outside its range of "
                              f"applicability ({'; '.join(x['range_flags'])})")
     table = _finish_table(rows, file_ids)
-    hyd = (pd.concat(hyds, ignore_index=True) if hyds else pd.DataFrame(
-        columns=["outlet_id", "time_h", "time_min", "rainfall_in_step_mm",
-                 "excess_in_step_mm", "direct_runoff_m3_per_s", "base_flow_m3_per_s",
-                 "discharge_m3_per_s", "discharge_cfs"]))
-    seg = (pd.concat(segs, ignore_index=True) if segs
-           else pd.DataFrame(columns=SEGMENT_COLUMNS))
+    hyd = pd.DataFrame({"outlet_id": np.repeat(
+        np.array([h[0] for h in hyds], dtype=object), [h[1]["time_h"].size for h in hyds])})
+    for c in HYDROGRAPH_COLUMNS[1:]:
+        hyd[c] = (np.concatenate([h[1][c] for h in hyds]) if hyds
+                  else np.zeros(0, dtype=np.float64))
+    seg = pd.DataFrame(segs, columns=SEGMENT_COLUMNS)
     errors = pd.DataFrame(errs, columns=["outlet_id", "reason"])
     inputs = settings.describe()
     inputs["ranges_of_applicability"] = {**tcm.TC_RANGES, **PEAK_RANGES}
