@@ -4,7 +4,9 @@ The data path runs one way: read a DEM (:func:`read_dem`) into a :class:`Terrain
 condition it (:func:`condition`), route flow (:func:`route`) into a :class:`FlowModel`, then
 derive catchments (:func:`delineate`), channels (:func:`extract_channels`), profiles
 (:func:`longest_flow_path`, :func:`main_stem`, :func:`chi_transform`) and morphometry
-(:func:`basin_morphometry`) from that model.
+(:func:`basin_morphometry`) from that model, and design flows at outlets
+(:func:`design_flows`: time of concentration, curve-number runoff, peak discharge and the
+design hydrograph).
 
 DEM-derived boundaries and flow paths are estimates: culverts, storm sewers and diversions
 are represented only where burned in; verify in the field and defer to local codes and
@@ -52,6 +54,16 @@ _LAZY = {
     "JOB_SCHEMA": "workflow.jobfile",
     "run_job": "workflow.runner",
     "write_report": "report",
+    "design_flows": "hydrology.design",
+    "DesignFlowSettings": "hydrology.design",
+    "VelocityMethodInputs": "hydrology.concentration",
+    "design_storm": "hydrology.rainfall",
+    "storm_from_idf": "hydrology.rainfall",
+    "IDFTable": "hydrology.rainfall",
+    "read_idf_table": "io.rainfall",
+    "read_hyetograph": "io.rainfall",
+    "read_land_values": "io.landcover",
+    "plot_design_hydrograph": "plot.hydrograph",
 }
 
 

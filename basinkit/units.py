@@ -1,11 +1,13 @@
 """Quantities with units, as users write them: areas ('2ha', '0.5km2', '5000m2') and
-lengths ('200m', '1.5km'); bare numbers are square metres and metres."""
+lengths ('200m', '1.5km'), where bare numbers are square metres and metres; rainfall depths
+('110mm', '4.3in'), durations ('24h', '30min') and intensities ('45mm/h'), which must always
+name their unit."""
 
 from __future__ import annotations
 
 from .errors import InputError
 
-__all__ = ["parse_area", "parse_length"]
+__all__ = ["parse_area", "parse_length", "parse_depth", "parse_duration", "parse_intensity"]
 
 _AREA = {"m2": 1.0, "ha": 1e4, "km2": 1e6}
 _LENGTH = {"m": 1.0, "km": 1e3}
@@ -38,3 +40,48 @@ def parse_area(text, what="the area"):
 def parse_length(text, what="the length"):
     """'200m', '1.5km' (bare numbers are metres) → metres."""
     return _parse_quantity(text, _LENGTH, what, "m")
+
+
+# ------------------------------------------------------------------ rainfall quantities
+# Rainfall has no default unit: a bare number is refused (a depth in inches read as
+# millimetres is a 25-fold error), so every depth, intensity and duration names its unit.
+_DEPTH = {"mm": 1.0, "cm": 10.0, "in": 25.4, "inch": 25.4, "inches": 25.4}
+_DURATION = {"min": 1.0 / 60.0, "minutes": 1.0 / 60.0, "h": 1.0, "hr": 1.0, "hours": 1.0,
+             "d": 24.0, "days": 24.0}
+_INTENSITY = {"mm/h": 1.0, "mm/hr": 1.0, "in/h": 25.4, "in/hr": 25.4}
+
+
+def _parse_required_unit(text, units, what, example):
+    if isinstance(text, (int, float)) and not isinstance(text, bool):
+        raise InputError(f"{what} {text!r} has no unit; write it with one, e.g. {example!r}")
+    s = str(text).strip().lower().replace(" ", "")
+    for u in sorted(units, key=len, reverse=True):
+        if s.endswith(u) and s[: -len(u)]:
+            num = s[: -len(u)]
+            break
+    else:
+        raise InputError(f"{what} {text!r} has no unit (or an unknown one); write it with "
+                         f"one of {', '.join(units)}, e.g. {example!r}")
+    try:
+        v = float(num)
+    except ValueError:
+        raise InputError(f"cannot read {what} {text!r}; write a number with a unit, e.g. "
+                         f"{example!r}") from None
+    if not (v >= 0 and v < float("inf")):
+        raise InputError(f"{what} must be zero or positive, got {text!r}")
+    return v * units[u]
+
+
+def parse_depth(text, what="the rainfall depth"):
+    """'110mm', '4.3in', '11cm' → millimetres. A bare number is refused."""
+    return _parse_required_unit(text, _DEPTH, what, "110mm")
+
+
+def parse_duration(text, what="the duration"):
+    """'24h', '30min', '1d' → hours. A bare number is refused."""
+    return _parse_required_unit(text, _DURATION, what, "24h")
+
+
+def parse_intensity(text, what="the rainfall intensity"):
+    """'45mm/h', '1.8in/h' → millimetres per hour. A bare number is refused."""
+    return _parse_required_unit(text, _INTENSITY, what, "45mm/h")

@@ -1,0 +1,138 @@
+"""The design-storm figure: hyetograph on top (rainfall and the part that runs off), design
+hydrograph below with the peak, the lag and the recession marked and the base flow shaded.
+
+Like every function in :mod:`basinkit.plot` it takes axes or makes a bare Figure (no
+pyplot, no backend chosen) and returns the figure.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["plot_design_hydrograph", "COLOURS"]
+
+COLOURS = {"rain": "#9ab7d3", "excess": "#2f5d8a", "flow": "#23395b", "direct": "#5b7fa6",
+           "base": "#d9cfa8", "peak": "#b5533c", "lag": "#3c6e71", "recession": "#8a6d3b"}
+
+
+def _style(ax):
+    for s in ("top", "right"):
+        ax.spines[s].set_visible(False)
+    ax.grid(True, color="#e6e6e6", linewidth=0.6)
+    ax.set_axisbelow(True)
+
+
+def _axes(ax):
+    """(figure, rain axes, flow axes) from None, a pair of axes or one axes."""
+    if ax is None:
+        from matplotlib.figure import Figure
+
+        fig = Figure(figsize=(8.0, 5.6), dpi=120)
+        gs = fig.add_gridspec(2, 1, height_ratios=(1, 2.6), hspace=0.08)
+        flow = fig.add_subplot(gs[1])
+        rain = fig.add_subplot(gs[0], sharex=flow)
+        return fig, rain, flow, "new"
+    if isinstance(ax, (tuple, list)):
+        rain, flow = ax
+        return flow.figure, rain, flow, "pair"
+    rain = ax.twinx()  # one axes: the hyetograph hangs from the top on its own scale
+    return ax.figure, rain, ax, "twin"
+
+
+def _value(summary, key, default):
+    if summary is None:
+        return default
+    try:
+        v = summary[key]
+    except (KeyError, IndexError, TypeError):
+        return default
+    v = float(v)
+    return v if np.isfinite(v) else default
+
+
+def plot_design_hydrograph(hydrograph, summary=None, ax=None, title=None, xlim_h=None):
+    """Hyetograph and design hydrograph of one outlet.
+
+    Parameters
+    ----------
+    hydrograph : pandas.DataFrame
+        One outlet's rows of :attr:`basinkit.hydrology.design.DesignFlows.hydrographs`
+        (``time_h, rainfall_in_step_mm, excess_in_step_mm, direct_runoff_m3_per_s,
+        base_flow_m3_per_s, discharge_m3_per_s``).
+    summary : mapping, optional
+        The outlet's ``nrcs_unit_hydrograph`` row of the design-flow table (peak, lag,
+        rain centroid); computed from ``hydrograph`` when absent.
+    ax : matplotlib Axes or (Axes, Axes), optional
+        None: a new figure with the hyetograph above the hydrograph; a pair: (hyetograph
+        axes, hydrograph axes); one Axes: the hydrograph on it and the hyetograph hanging
+        from the top on a twin axis.
+    title : str, optional
+    xlim_h : (float, float), optional
+        Time window to show (default: the whole storm and hydrograph).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    fig, rain_ax, ax, layout = _axes(ax)
+    t = hydrograph["time_h"].to_numpy(float)
+    q = hydrograph["discharge_m3_per_s"].to_numpy(float)
+    base = hydrograph["base_flow_m3_per_s"].to_numpy(float)
+    rain = hydrograph["rainfall_in_step_mm"].to_numpy(float)
+    excess = hydrograph["excess_in_step_mm"].to_numpy(float)
+    step = float(t[1] - t[0]) if t.size > 1 else 1.0
+    # ---- hyetograph (depth in each step, drawn over the step)
+    rain_ax.bar(t, rain, width=step, align="edge", color=COLOURS["rain"],
+                label="rainfall", linewidth=0)
+    rain_ax.bar(t, excess, width=step, align="edge", color=COLOURS["excess"],
+                label="excess (runs off)", linewidth=0)
+    # hangs from the top (over the upper third of a shared axes)
+    rain_ax.set_ylim(max(rain.max(), 1e-9) * (3.0 if layout == "twin" else 1.15), 0)
+    rain_ax.set_ylabel(f"rain per {step * 60:.3g} min (mm)")
+    rain_ax.legend(frameon=False, fontsize=8,
+                   loc="center right" if layout == "twin" else "lower right")
+    # ---- hydrograph
+    k = int(np.argmax(q))
+    qpk = _value(summary, "peak_discharge_m3_per_s", float(q[k]))
+    tpk = _value(summary, "time_to_peak_h", float(t[k]))
+    ax.fill_between(t, 0, base, color=COLOURS["base"], alpha=0.8, linewidth=0,
+                    label=f"base flow ({base.max():.3g} m³/s)" if base.max() > 0
+                    else "base flow (none)")
+    ax.plot(t[:k + 1], q[:k + 1], color=COLOURS["flow"], lw=1.8, label="design hydrograph")
+    ax.plot(t[k:], q[k:], color=COLOURS["recession"], lw=1.8, label="recession limb")
+    ax.plot([tpk], [qpk], marker="o", color=COLOURS["peak"], ms=7, ls="none")
+    ax.annotate(f"peak {qpk:.3g} m³/s\nat {tpk:.2f} h", (tpk, qpk), xytext=(12, -4),
+                textcoords="offset points", fontsize=8, color=COLOURS["peak"], va="top",
+                bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.85))
+    # lag: from the rainfall centroid to the peak
+    mids = t + step / 2
+    c_rain = _value(summary, "rain_centroid_h",
+                    float(np.sum(rain * mids) / rain.sum()) if rain.sum() > 0 else np.nan)
+    if np.isfinite(c_rain):
+        y = 0.55 * qpk
+        ax.annotate("", xy=(tpk, y), xytext=(c_rain, y),
+                    arrowprops=dict(arrowstyle="<->", color=COLOURS["lag"], lw=1.2))
+        ax.axvline(c_rain, color=COLOURS["lag"], lw=0.8, ls=":")
+        ax.annotate(f"lag {tpk - c_rain:.2f} h\n(rain centroid to peak)", (max(c_rain, tpk), y),
+                    xytext=(8, 0), textcoords="offset points", color=COLOURS["lag"],
+                    fontsize=8, ha="left", va="center",
+                    bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.85))
+        rain_ax.axvline(c_rain, color=COLOURS["lag"], lw=0.8, ls=":")
+    ax.set_ylim(0, qpk * 1.15 if qpk > 0 else 1.0)
+    ax.set_xlabel("time from the start of the storm (h)")
+    ax.set_ylabel("discharge (m³/s)")
+    ax.legend(frameon=False, fontsize=8, loc="upper right")
+    if xlim_h is not None:
+        ax.set_xlim(*xlim_h)
+    else:
+        ax.set_xlim(0, t[-1] + step)
+    if layout == "new":
+        rain_ax.tick_params(labelbottom=False)
+        fig.text(0.01, 0.005, "Planning-level estimate: follow the local drainage manual; "
+                 "design is the work of a licensed professional.", fontsize=6.5,
+                 color="#666666", ha="left", va="bottom")
+    for a in (ax, rain_ax):
+        _style(a)
+    (ax if layout == "twin" else rain_ax).set_title(title or "design storm and hydrograph",
+                                                    fontsize=10)
+    return fig
