@@ -86,7 +86,7 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
 
     from ...analysis.catchments import delineate
     from ...analysis.morphometry import morphometry_table
-    from ...plot.morphometry import plot_hypsometric_curve
+    from ...plot.hypsometry import plot_hypsometric_curve
 
     s = (settings or MorphometrySettings()).check()
     rep = as_reporter(reporter)
