@@ -17,7 +17,7 @@ from basinkit import route, terrain_from_array
 from basinkit.analysis.channels import extract_channels
 from basinkit.errors import InputError
 from basinkit.analysis.morphometry import (basin_morphometry, hypsometric_curve,
-                                           morphometry_table, write_hypsometric_curve)
+                                           morphometry_table)
 from conftest import fractal_dem
 from test_channels import binary_tree_model
 
@@ -277,26 +277,28 @@ def test_every_column_names_its_unit():
         assert k in dimensionless or k.endswith(units) or k.startswith("stream_count_order"), k
 
 
-def test_hypsometric_outputs(tmp_path):
-    """CSV and PNG written (PNG read back by matplotlib; common practice)."""
+def test_hypsometric_outputs():
+    """The curve's columns, and the figure drawn twice gives the same PNG bytes
+    (deterministic outputs: project rule; PNG read back by matplotlib, common practice)."""
+    import io
+
     import matplotlib.image as mpimg
-    import pandas as pd
+
+    from basinkit.plot.hypsometry import plot_hypsometric_curve
+    from basinkit.workflow.output import png_bytes
 
     t, mask, centre = _disc_surface("cone", radius=20)
     fm = route(t, conditioning="none")
     m, curve = basin_morphometry(fm, mask, centre, return_curve=True)
-    write_hypsometric_curve(curve, tmp_path / "h.csv", tmp_path / "h.png", label="cone",
-                            integral=m["hypsometric_integral"])
-    back = pd.read_csv(tmp_path / "h.csv")
-    assert list(back.columns) == ["relative_height", "relative_area_above", "elevation_m",
-                                  "area_above_km2"]
-    img = mpimg.imread(tmp_path / "h.png")
+    assert {"relative_height", "relative_area_above", "elevation_m",
+            "area_above_m2"} <= set(curve.columns)
+    pngs = [png_bytes(plot_hypsometric_curve(curve, integral=m["hypsometric_integral"],
+                                             label="cone")) for _ in range(2)]
+    assert pngs[0] == pngs[1]
+    img = mpimg.imread(io.BytesIO(pngs[0]), format="png")
     assert img.shape[0] > 100 and img.shape[1] > 100
-    png = (tmp_path / "h.png").read_bytes()
-    write_hypsometric_curve(curve, tmp_path / "h.csv", tmp_path / "h.png", label="cone",
-                            integral=m["hypsometric_integral"])
-    assert (tmp_path / "h.png").read_bytes() == png  # deterministic outputs (project rule)
     json.dumps({k: v for k, v in m.items()}, default=float)
+
 
 
 # ------------------------------------------------------------------ command line

@@ -14,7 +14,7 @@ from . import _channels
 from ..errors import InputError, OutletError
 
 __all__ = ["basin_morphometry", "morphometry_table", "hypsometric_curve",
-           "write_hypsometric_curve", "ASPECT_SECTORS", "CAUTIONS"]
+           "ASPECT_SECTORS", "CAUTIONS"]
 
 ASPECT_SECTORS = ("n", "ne", "e", "se", "s", "sw", "w", "nw")
 HYPSOMETRIC_LEVELS = 101
@@ -524,40 +524,3 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
     other = [c for c in table.columns if c not in order_cols and c != "error"]
     table = table[other + order_cols + ["error"]]
     return (table, curves) if return_curves else table
-
-
-def write_hypsometric_curve(curve, csv_path, png_path=None, label="catchment",
-                            integral=None):
-    """Write a hypsometric curve as CSV and (optionally) a PNG figure.
-
-    The figure plots relative height h/H against relative area a/A (Strahler 1952) with
-    labelled axes and the integral in the legend.
-    """
-    from ..io.writers import atomic_path, write_csv
-
-    frame = curve.copy()
-    frame["area_above_km2"] = frame.pop("area_above_m2") / 1e6
-    write_csv(csv_path, frame)
-    if png_path is None:
-        return
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(5, 4.5), dpi=100)
-    text = f"{label}" + (f" (integral {integral:.3f})" if integral is not None
-                         and np.isfinite(integral) else "")
-    ax.plot(curve["relative_area_above"], curve["relative_height"], lw=2, label=text)
-    ax.plot([0, 1], [1, 0], ls=":", lw=1, color="0.5", label="integral 0.5 (reference)")
-    ax.set_xlabel("relative area above, a/A (–)")
-    ax.set_ylabel("relative height, h/H (–)")
-    ax.set_xlim(0, 1)
-    ax.set_ylim(0, 1)
-    ax.set_title("Hypsometric curve")
-    ax.legend(loc="upper right", fontsize=8)
-    ax.grid(alpha=0.3)
-    fig.tight_layout()
-    with atomic_path(png_path) as tmp:
-        fig.savefig(tmp, format="png", metadata={"Software": "basinkit"})
-    plt.close(fig)
