@@ -1,4 +1,5 @@
-"""Outlets: reading points, placing them on the grid and snapping them to the flow network.
+"""Outlets: points from values or arrays, placing them on the grid and snapping them to the
+flow network (outlet files are read by :mod:`basinkit.io.outlets`).
 
 An outlet table is a pandas DataFrame with one row per outlet. Outlets that cannot be used
 (unparseable or missing coordinates, a repeated id, outside the grid, on nodata, no channel
@@ -17,7 +18,7 @@ import pandas as pd
 
 from ..errors import InputError, OutletError
 
-__all__ = ["outlets_from_text", "outlets_from_points", "read_outlet_file", "locate_outlets",
+__all__ = ["outlets_from_text", "outlets_from_points", "locate_outlets",
            "snap_outlets", "prepare_outlets", "sanitize_ids", "ERROR_COLUMNS",
            "FILE_ID_MAX_LENGTH"]
 
@@ -37,10 +38,6 @@ DEFAULT_RADIUS_CELLS = 3
 DEFAULT_CHANNEL_RADIUS_CELLS = 10
 MAX_WINDOW_CELLS = 4_000_000  # candidate cells per outlet (a radius of ~1000 cells)
 
-_ID_COLUMNS = ("outlet_id", "id", "name", "outlet", "site", "station", "gauge")
-_XY_COLUMNS = (("x", "y"), ("easting", "northing"), ("east", "north"))
-_LONLAT_COLUMNS = (("lon", "lat"), ("longitude", "latitude"), ("lng", "lat"),
-                   ("long", "lat"))
 _WINDOWS_RESERVED = {"con", "prn", "aux", "nul", *(f"com{i}" for i in range(1, 10)),
                      *(f"lpt{i}" for i in range(1, 10))}
 
@@ -131,122 +128,6 @@ def outlets_from_points(x, y, ids=None, crs=None, source="points"):
         raise InputError(f"{len(ids)} ids for {x.size} outlets")
     return _raw_frame(zip(ids, [f"{source} {i + 1}" for i in range(x.size)], x, y,
                           [None if crs is None else str(crs)] * x.size))
-
-
-def _find_column(columns, names):
-    low = {str(c).strip().lower(): c for c in columns}
-    for n in names:
-        if n in low:
-            return low[n]
-    return None
-
-
-def read_outlet_file(path, crs=None, id_column=None):
-    """Read outlets from a CSV table or a point layer (GeoJSON, GeoPackage, ...).
-
-    Parameters
-    ----------
-    path : str or Path
-        CSV: an id column (``outlet_id``, ``id``, ``name``, ...; else the row number) and
-        ``x``/``y`` (also ``easting``/``northing``) or ``lon``/``lat`` columns. Vector
-        files: point features in the layer's own CRS.
-    crs : optional
-        CRS of CSV coordinates. Default: the DEM's CRS for x/y columns, EPSG:4326 for
-        lon/lat columns. Ignored for vector files that declare their CRS.
-    id_column : str, optional
-        Column holding the outlet ids.
-
-    Returns
-    -------
-    (DataFrame, DataFrame)
-        Outlets and errors, as :func:`outlets_from_text`.
-    """
-    p = Path(path)
-    if not p.exists():
-        raise InputError(f"the outlet file {str(p)!r} does not exist")
-    if p.suffix.lower() in (".csv", ".txt", ".tsv"):
-        return _read_csv(p, crs, id_column)
-    return _read_vector(p, crs, id_column)
-
-
-def _read_csv(p, crs, id_column):
-    try:
-        df = pd.read_csv(p, dtype=str, keep_default_na=False,
-                         sep="\t" if p.suffix.lower() == ".tsv" else None, engine="python")
-    except Exception as exc:  # pandas raises several kinds for malformed tables
-        raise InputError(f"cannot read the outlet table {str(p)!r}: {exc}") from None
-    cols = list(df.columns)
-    idc = id_column if id_column is not None else _find_column(cols, _ID_COLUMNS)
-    if id_column is not None and id_column not in cols:
-        raise InputError(f"the outlet table {p.name!r} has no column {id_column!r}; its "
-                         f"columns are {', '.join(map(str, cols))}")
-    xc = yc = None
-    lonlat = False
-    for a, b in _XY_COLUMNS:
-        xc, yc = _find_column(cols, (a,)), _find_column(cols, (b,))
-        if xc is not None and yc is not None:
-            break
-    else:
-        for a, b in _LONLAT_COLUMNS:
-            xc, yc = _find_column(cols, (a,)), _find_column(cols, (b,))
-            if xc is not None and yc is not None:
-                lonlat = True
-                break
-    if xc is None or yc is None:
-        raise InputError(f"the outlet table {p.name!r} needs x and y (or lon and lat) "
-                         f"columns; its columns are {', '.join(map(str, cols))}")
-    given_crs = str(crs) if crs is not None else ("EPSG:4326" if lonlat else None)
-    rows, errs = [], []
-    for i, rec in enumerate(df.itertuples(index=False), start=2):
-        vals = dict(zip(cols, rec))
-        oid = str(vals[idc]).strip() if idc is not None else ""
-        oid = oid or f"{p.stem}_{i - 1}"
-        src = f"{p.name} line {i}"
-        xs, ys = str(vals[xc]).strip(), str(vals[yc]).strip()
-        x, y = _to_float(xs), _to_float(ys)
-        if x is None or y is None:
-            bad = xs if x is None else ys
-            reason = ("missing coordinate" if bad == "" else
-                      f"cannot read the coordinate {bad!r} as a number")
-            errs.append((oid, src, np.nan if x is None else x, np.nan if y is None else y,
-                         reason))
-            continue
-        rows.append((oid, src, x, y, given_crs))
-    return _raw_frame(rows), _errors_frame(errs)
-
-
-def _read_vector(p, crs, id_column):
-    import geopandas as gpd
-
-    try:
-        gdf = gpd.read_file(p)
-    except Exception as exc:  # pyogrio raises its own error classes
-        raise InputError(f"cannot read the outlet layer {str(p)!r}: {exc}") from None
-    cols = [c for c in gdf.columns if c != gdf.geometry.name]
-    idc = id_column if id_column is not None else _find_column(cols, _ID_COLUMNS)
-    if id_column is not None and id_column not in cols:
-        raise InputError(f"the outlet layer {p.name!r} has no column {id_column!r}")
-    if gdf.crs is not None:
-        given_crs = gdf.crs.to_string()
-    elif p.suffix.lower() in (".geojson", ".json"):
-        given_crs = "EPSG:4326"  # RFC 7946: GeoJSON coordinates are WGS 84 lon/lat
-    else:
-        given_crs = None if crs is None else str(crs)
-    rows, errs = [], []
-    for i, (geom, rec) in enumerate(zip(gdf.geometry, gdf[cols].itertuples(index=False))):
-        vals = dict(zip(cols, rec))
-        oid = str(vals[idc]).strip() if idc is not None and vals[idc] is not None else ""
-        oid = oid or f"{p.stem}_{i + 1}"
-        src = f"{p.name} feature {i + 1}"
-        if geom is None or geom.is_empty:
-            errs.append((oid, src, np.nan, np.nan, "feature without geometry"))
-            continue
-        if geom.geom_type != "Point":
-            errs.append((oid, src, np.nan, np.nan,
-                         f"outlets must be points, this feature is a {geom.geom_type}"))
-            continue
-        rows.append((oid, src, float(geom.x), float(geom.y), given_crs))
-    return _raw_frame(rows), _errors_frame(errs)
 
 
 FILE_ID_MAX_LENGTH = 64  # longest file id (characters), hash suffix included
@@ -593,14 +474,16 @@ def prepare_outlets(fm, outlets, crs=None, radius_m=None, channel_area_m2=None,
     Parameters
     ----------
     fm : FlowModel
-    outlets : path, DataFrame, sequence of (x, y) or (id, x, y), or array (n, 2)
-        A file (CSV, GeoJSON, GeoPackage), an outlet frame from this module, or points.
+    outlets : (DataFrame, DataFrame), DataFrame, sequence of (x, y) or (id, x, y), or array
+        The pair read from a file by :func:`basinkit.read_outlet_file` (its rows that could
+        not be read join the errors), an outlet frame from this module, or points.
     crs : optional
         CRS of the coordinates when they carry none (default: the DEM's).
     radius_m, channel_area_m2 : float, optional
         See :func:`snap_outlets`.
     id_column : str, optional
-        Id column of an outlet file.
+        Unused (kept for callers of earlier versions; give it to
+        :func:`basinkit.read_outlet_file`).
 
     Returns
     -------
@@ -609,7 +492,11 @@ def prepare_outlets(fm, outlets, crs=None, radius_m=None, channel_area_m2=None,
     """
     errs = [_errors_frame()]
     if isinstance(outlets, (str, Path)):
-        raw, e = read_outlet_file(outlets, crs=crs, id_column=id_column)
+        raise InputError(f"outlets given as a file name ({str(outlets)!r}): read the file "
+                         "first with basinkit.read_outlet_file(path) and pass the "
+                         "(outlets, errors) pair it returns")
+    if _is_read_pair(outlets):
+        raw, e = outlets
         errs.append(e)
     elif isinstance(outlets, pd.DataFrame):
         raw = outlets
@@ -636,6 +523,13 @@ def prepare_outlets(fm, outlets, crs=None, radius_m=None, channel_area_m2=None,
     snapped["file_id"] = sanitize_ids(snapped["outlet_id"])
     errors = pd.concat([x for x in errs if len(x)] or [_errors_frame()], ignore_index=True)
     return snapped, errors[ERROR_COLUMNS]
+
+
+def _is_read_pair(obj) -> bool:
+    """True for the (outlets, errors) pair of :func:`basinkit.read_outlet_file`."""
+    return (isinstance(obj, tuple) and len(obj) == 2
+            and all(isinstance(o, pd.DataFrame) for o in obj)
+            and "given_crs" in obj[0].columns and "reason" in obj[1].columns)
 
 
 def require_outlets(snapped, errors):

@@ -377,15 +377,19 @@ def read_job(path) -> JobSpec:
     >>> job["channels"]["min_area"]  # '2ha' in the file, m² here
     20000.0
     """
+    from ..io.text import read_text
+
     p = Path(path)
     if not p.exists():
         raise JobFileError(f"the job file {str(p)!r} does not exist")
     if p.is_dir():
         raise JobFileError(f"{str(p)!r} is a folder; give the job file (a .toml file)")
+    try:  # a byte-order mark is dropped; TOML is UTF-8, so other encodings are refused
+        text = read_text(p, "the job file", fallback=None).text
+    except InputError as exc:
+        raise JobFileError(f"{exc} (a job file is TOML text)") from None
     try:
-        data = tomllib.loads(p.read_text(encoding="utf-8"))
-    except UnicodeDecodeError:
-        raise JobFileError(f"{str(p)!r} is not a text file; a job file is TOML") from None
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise JobFileError(f"cannot read the job file {str(p)!r}: {exc}") from None
     return job_from_dict(data, base=p.resolve().parent, path=p.resolve())

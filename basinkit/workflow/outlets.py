@@ -5,8 +5,6 @@ command and for job files."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from pathlib import Path
-
 import numpy as np
 
 from ..errors import InputError
@@ -58,7 +56,8 @@ class OutletSpec:
         rows that could not be read (``outlet_id, source, x_given, y_given, reason``)."""
         import pandas as pd
 
-        from ..analysis.outlets import ERROR_COLUMNS, outlets_from_text, read_outlet_file
+        from ..analysis.outlets import ERROR_COLUMNS, outlets_from_text
+        from ..io.outlets import read_outlets
 
         self.require()
         raws, errs = [], []
@@ -67,17 +66,19 @@ class OutletSpec:
             raws.append(r)
             errs.append(e)
         if self.file:
-            r, e = read_outlet_file(self.file, crs=self.crs, id_column=self.id_column)
-            raws.append(r)
-            errs.append(e)
+            f = read_outlets(self.file, crs=self.crs, id_column=self.id_column)
+            raws.append(f.raw)
+            errs.append(f.errors)
+            self._descriptions, self.notes = f.descriptions, f.notes
         raw = pd.concat(raws, ignore_index=True)
         nonempty = [e for e in errs if len(e)]
         errors = pd.concat(nonempty, ignore_index=True) if nonempty else errs[0]
         return raw, errors[ERROR_COLUMNS].reset_index(drop=True)
 
     def descriptions(self) -> dict:
-        """``{outlet id: description}`` from a CSV file's ``description`` column."""
-        return _descriptions(self.file, self.id_column) if self.file else {}
+        """``{outlet id: description}`` from a CSV file's ``description`` column (known
+        once :meth:`read` has run)."""
+        return dict(getattr(self, "_descriptions", {}) or {})
 
     def inputs(self) -> dict:
         """The outlet file and its SHA-256 (for provenance records)."""
@@ -169,6 +170,8 @@ def place_outlets(fm, spec: OutletSpec, raw=None, read_errors=None,
     parts = [x for x in (read_errors, errs) if len(x)]
     errors = (pd.concat(parts, ignore_index=True) if parts else errs)[ERROR_COLUMNS]
     rep = as_reporter(reporter)
+    for note in getattr(spec, "notes", []):
+        rep.warn(note)
     for r in errors.itertuples(index=False):
         rep.outlet_failed(str(r.outlet_id), str(r.reason), "outlets", source=str(r.source))
     require_outlets(table, errors)
@@ -190,29 +193,3 @@ def place_outlets(fm, spec: OutletSpec, raw=None, read_errors=None,
     }
     return PlacedOutlets(table.reset_index(drop=True), errors.reset_index(drop=True),
                          int(len(raw) + len(read_errors)), snapping)
-
-
-def _descriptions(path, id_column=None) -> dict:
-    """``{outlet id: description}`` from a CSV's ``description`` column (else empty)."""
-    import pandas as pd
-
-    if Path(path).suffix.lower() not in (".csv", ".txt", ".tsv"):
-        return {}
-    try:
-        df = pd.read_csv(path, dtype=str, keep_default_na=False,
-                         sep="\t" if Path(path).suffix.lower() == ".tsv" else None,
-                         engine="python")
-    except Exception:  # noqa: BLE001 - the outlet reader reports unreadable files
-        return {}
-    low = {str(c).strip().lower(): c for c in df.columns}
-    from ..analysis.outlets import _ID_COLUMNS
-
-    idc = id_column if id_column in df.columns else next(
-        (low[c] for c in _ID_COLUMNS if c in low), None)
-    dc = low.get("description")
-    if idc is None or dc is None:
-        return {}
-    out = {}
-    for k, v in zip(df[idc].astype(str).str.strip(), df[dc]):
-        out.setdefault(k, v)
-    return out
