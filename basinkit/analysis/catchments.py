@@ -210,7 +210,8 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     crs : optional
         CRS of coordinates that carry none (e.g. ``"EPSG:4326"``).
     snap_radius_m : float, optional
-        Snap search radius in metres (default: 3 cells; 0: no snapping).
+        Snap search radius in metres (default: the larger of 30 m and one cell; 0: no
+        snapping).
     snap_to_channel_m2 : float, optional
         Snap to the nearest cell whose upstream area is at least this (m²) instead of to
         the greatest upstream area within the radius.

@@ -19,7 +19,7 @@ import pandas as pd
 from ..errors import InputError, OutletError
 
 __all__ = ["outlets_from_text", "outlets_from_points", "locate_outlets",
-           "snap_outlets", "prepare_outlets", "sanitize_ids", "ERROR_COLUMNS",
+           "snap_outlets", "default_snap_radius", "prepare_outlets", "sanitize_ids", "ERROR_COLUMNS",
            "FILE_ID_MAX_LENGTH"]
 
 ERROR_COLUMNS = ["outlet_id", "source", "x_given", "y_given", "reason"]
@@ -34,8 +34,12 @@ AREA_JUMP_FACTOR = 10.0
 # has probably moved across a confluence: the catchment is then not the one asked for
 ON_CHANNEL_CELLS = 100
 CONFLUENCE_FACTOR = 1.5
-DEFAULT_RADIUS_CELLS = 3
-DEFAULT_CHANNEL_RADIUS_CELLS = 10
+# a point placed on a channel should stay within about a cell or two of where it was put:
+# the default search radius is max(30 m, one cell) on the ground (common practice, no
+# source), in both modes; a wider search is the user's choice (--snap-radius)
+DEFAULT_SNAP_RADIUS_M = 30.0
+# any snap that changes the upstream area by more than this fraction is reported
+AREA_CHANGE_WARN = 0.05
 MAX_WINDOW_CELLS = 4_000_000  # candidate cells per outlet (a radius of ~1000 cells)
 
 _WINDOWS_RESERVED = {"con", "prn", "aux", "nul", *(f"com{i}" for i in range(1, 10)),
@@ -336,9 +340,9 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     located : DataFrame
         As returned by :func:`locate_outlets`.
     radius_m : float, optional
-        Search radius on the ground in metres. Default: 3 cells (10 in channel mode), the
-        cell size taken as the larger side of a cell in the grid's middle row. 0 keeps
-        every outlet on its own cell.
+        Search radius on the ground in metres. Default: ``max(30 m, one cell)``
+        (:func:`default_snap_radius`), the cell size taken as the larger side of a cell in
+        the grid's middle row. 0 keeps every outlet on its own cell.
     channel_area_m2 : float, optional
         Minimum upstream area of a channel cell (m²).
 
@@ -355,7 +359,8 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     Distances are planar in metres on projected grids and geodesic (Karney 2013, through
     pyproj) on geographic grids. The warnings (a snap longer than half the radius and five
     cells; an upstream area at least 10 times the area at the given cell, which suggests a
-    different branch) are common practice (no source).
+    different branch; any change of the upstream area by more than 5 %) are common
+    practice (no source).
     """
     t = fm.terrain
     nr, nc = t.shape
@@ -365,7 +370,7 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     cell_area = float(g.area[mid])
     channel = channel_area_m2 is not None
     if radius_m is None:
-        radius_m = (DEFAULT_CHANNEL_RADIUS_CELLS if channel else DEFAULT_RADIUS_CELLS) * cell_m
+        radius_m = default_snap_radius(fm)
     radius_m = float(radius_m)
     if not radius_m >= 0 or not math.isfinite(radius_m):
         raise InputError(f"the snap radius must be a finite length >= 0, got {radius_m}")
@@ -442,6 +447,10 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
             w.append(f"the given point already drains {a0 / 1e6:.3g} km2 but the snap moved "
                      f"it to {a1 / 1e6:.3g} km2, probably across a confluence; check the "
                      "position or use a smaller --snap-radius")
+        elif a0 > 0 and abs(a1 - a0) > AREA_CHANGE_WARN * a0:
+            w.append(f"snapping changed the upstream area by {100 * (a1 - a0) / a0:+.1f} % "
+                     f"({a0 / 1e6:.4g} km2 at the given point, {a1 / 1e6:.4g} km2 at the "
+                     "snapped cell); check the position or set --snap-radius")
         warn.append("; ".join(w))
     errs = out.loc[~found, ["outlet_id", "source", "x_given", "y_given"]].copy()
     errs["reason"] = (f"no channel cell (upstream area >= {channel_area_m2:g} m2) within "
@@ -465,6 +474,25 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     out["snap_radius_m"] = radius_m
     out = out.loc[found].reset_index(drop=True)
     return out, errs[ERROR_COLUMNS].reset_index(drop=True)
+
+
+def default_snap_radius(fm) -> float:
+    """The default snap search radius (m): ``max(30 m, one cell)``, the cell taken as the
+    larger side of a cell in the grid's middle row (metres on the ground).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> z = np.add.outer(np.arange(5.0, 0, -1), np.zeros(4))
+    >>> default_snap_radius(route(terrain_from_array(z, cellsize=10)))
+    30.0
+    >>> default_snap_radius(route(terrain_from_array(z, cellsize=90)))
+    90.0
+    """
+    g = fm.terrain.geometry
+    mid = fm.terrain.shape[0] // 2
+    return max(DEFAULT_SNAP_RADIUS_M, float(max(g.dx[mid], g.dy_down[mid])))
 
 
 def prepare_outlets(fm, outlets, crs=None, radius_m=None, channel_area_m2=None,

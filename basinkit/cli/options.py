@@ -179,8 +179,10 @@ def outlet_options(f=None, *, purpose="An outlet position"):
                               "outlet_id, id, name, ...; else the row number]."),
             click.option("--snap-radius", default=None, metavar="LENGTH",
                          help="Move each outlet to the cell of greatest upstream area "
-                              "within this distance (e.g. 30m, 0.1km; 0 = no snapping) "
-                              "[default: 3 cells; 10 cells with --snap-to-channel]."),
+                              "within this distance on the ground (e.g. 30m, 0.1km; 0 = no "
+                              "snapping); a snap that changes the upstream area by more "
+                              "than 5 % is warned about [default: the larger of 30 m and "
+                              "one cell]."),
             click.option("--snap-to-channel", default=None, metavar="AREA",
                          help="Instead, move each outlet to the nearest cell whose upstream "
                               "area is at least this (e.g. 1ha, 0.5km2, 5000m2) within "

@@ -106,8 +106,8 @@ JOB_SCHEMA = {
     "outlets": {
         "snap_radius_m": _S(kind="float", default=None,
                             help="Snap search radius in metres, as basinkit delineate "
-                                 "--snap-radius (default: 3 cells; 10 cells with "
-                                 "snap_min_area; 0: no snapping)."),
+                                 "--snap-radius (default: the larger of 30 m and one "
+                                 "cell; 0: no snapping)."),
         "snap_min_area": _S(kind="area", default=None,
                             help="Snap to the nearest cell with at least this upstream "
                                  "area, as basinkit delineate --snap-to-channel (default: "

@@ -29,7 +29,7 @@ class OutletSpec:
         CRS of values and CSV x/y columns (default: the DEM's; lon/lat: EPSG:4326).
     id_column : str, optional
     snap_radius_m : float, optional
-        Search radius (default 3 cells; 10 cells with ``snap_to_channel_m2``; 0: none).
+        Search radius (default max(30 m, one cell); 0: none).
     snap_to_channel_m2 : float, optional
         Snap to the nearest cell with at least this upstream area instead of to the cell
         of greatest upstream area.
@@ -155,8 +155,8 @@ def place_outlets(fm, spec: OutletSpec, raw=None, read_errors=None,
     """
     import pandas as pd
 
-    from ..analysis.outlets import (DEFAULT_CHANNEL_RADIUS_CELLS, DEFAULT_RADIUS_CELLS,
-                                    ERROR_COLUMNS, prepare_outlets, require_outlets)
+    from ..analysis.outlets import (AREA_CHANGE_WARN, DEFAULT_SNAP_RADIUS_M, ERROR_COLUMNS,
+                                    prepare_outlets, require_outlets)
 
     if raw is None:
         raw, read_errors = spec.read()
@@ -178,18 +178,35 @@ def place_outlets(fm, spec: OutletSpec, raw=None, read_errors=None,
     desc = spec.descriptions()
     if desc:
         table["description"] = [desc.get(str(o), "") for o in table["outlet_id"]]
+    _tell_snap_warnings(rep, table)
     radius = float(table["snap_radius_m"].iloc[0])
-    cells = DEFAULT_CHANNEL_RADIUS_CELLS if spec.snap_to_channel_m2 is not None \
-        else DEFAULT_RADIUS_CELLS
     snapping = {
         "mode": ("nearest cell with upstream area >= snap_to_channel_m2"
                  if spec.snap_to_channel_m2 is not None
                  else "greatest upstream area within the radius"),
         "radius_m": radius,
         "radius_given": spec.snap_radius_m is not None,
-        "default_radius_cells": None if spec.snap_radius_m is not None else cells,
+        "radius_default": spec.snap_radius_m is None,
+        "default_radius_rule": f"max({DEFAULT_SNAP_RADIUS_M:g} m, one cell)",
+        "area_change_warning_percent": 100 * AREA_CHANGE_WARN,
+        "outlets_with_snap_warning": int((table["snap_warning"].astype(str) != "").sum()),
         "snap_to_channel_m2": spec.snap_to_channel_m2,
         "outlet_crs": None if spec.crs is None else str(spec.crs),
     }
     return PlacedOutlets(table.reset_index(drop=True), errors.reset_index(drop=True),
                          int(len(raw) + len(read_errors)), snapping)
+
+
+SNAP_WARNINGS_SHOWN = 20  # snap warnings printed one by one; the rest are counted
+
+
+def _tell_snap_warnings(rep, table):
+    """Print each outlet's snap warning (long snap, area changed by more than 5 %, another
+    branch, a shared cell) once, as every command that places outlets does."""
+    warned = [(o, w) for o, w in zip(table["outlet_id"], table["snap_warning"].astype(str))
+              if w]
+    for o, w in warned[:SNAP_WARNINGS_SHOWN]:
+        rep.warn(f"outlet {o!r}: {w}")
+    if len(warned) > SNAP_WARNINGS_SHOWN:
+        rep.warn(f"... and {len(warned) - SNAP_WARNINGS_SHOWN} more outlets with snap "
+                 "warnings (see the warning column of the tables)")
