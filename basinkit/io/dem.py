@@ -155,7 +155,9 @@ def read_dem(path, band: int | None = None, crs=None, sea_level: float | None = 
 
 
 def _shorter_than_its_data(p, ds, band) -> bool:
-    """True when an uncompressed file is smaller than its cells (a cut-off header)."""
+    """True when an uncompressed GeoTIFF is smaller than its cells (a cut-off header)."""
+    if ds.driver != "GTiff":
+        return False
     try:
         need = ds.width * ds.height * np.dtype(ds.dtypes[band - 1]).itemsize
     except TypeError:

@@ -136,7 +136,7 @@ def _read_csv(p, crs, id_column) -> OutletFile:
                          "give a CSV with id, x, y columns")
     lines = text.splitlines()
     delim = "\t" if p.suffix.lower() == ".tsv" else sniff_delimiter(lines)
-    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delim)
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delim, strict=True)
     records = []  # (line number, fields)
     try:
         start = 1
@@ -146,7 +146,10 @@ def _read_csv(p, crs, id_column) -> OutletFile:
             start = reader.line_num + 1
     except csv.Error as exc:
         raise InputError(f"{what} {str(p)!r} cannot be read as CSV at line "
-                         f"{reader.line_num}: {exc} (an unclosed quote?)") from None
+                         f"{reader.line_num}: {exc} (an unclosed or stray quote?)") from None
+    if not records:
+        raise InputError(f"{what} {str(p)!r} holds only separators, no values; give a "
+                         "header such as id,x,y and one row per outlet")
     header = [h.strip() for h in records[0][1]]
     rows = records[1:]
     if all(_number(h, True) is not None for h in header if h):
