@@ -31,7 +31,7 @@ _LAZY = {
     "delineate": "analysis.catchments",
     "Delineation": "analysis.catchments",
     "prepare_outlets": "analysis.outlets",
-    "read_outlet_file": "analysis.outlets",
+    "read_outlet_file": "io.outlets",
     "contributing_fraction": "routing.contributing",
     "contributing_area_m2": "routing.contributing",
     "extract_channels": "analysis.channels",

@@ -27,8 +27,9 @@ from shapely.geometry import LineString, Point
 from basinkit import route, terrain_from_array
 from basinkit.errors import InputError
 from basinkit.analysis.outlets import (locate_outlets, outlets_from_points,
-                                       outlets_from_text, prepare_outlets, read_outlet_file,
-                                       sanitize_ids, snap_outlets)
+                                       outlets_from_text, prepare_outlets, sanitize_ids,
+                                       snap_outlets)
+from basinkit.io.outlets import read_outlet_file
 
 
 @pytest.fixture(scope="module")

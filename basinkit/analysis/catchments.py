@@ -203,13 +203,15 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     ----------
     fm : FlowModel
         From :func:`basinkit.route` or :func:`basinkit.load_flow`.
-    outlets : path, DataFrame, sequence of (x, y) / (id, x, y), or array (n, 2)
-        See :func:`basinkit.analysis.outlets.prepare_outlets`. Coordinates are in ``crs``
-        (default: the DEM's); files carry their own CRS.
+    outlets : (DataFrame, DataFrame), DataFrame, sequence of (x, y) / (id, x, y), or array
+        See :func:`basinkit.analysis.outlets.prepare_outlets`; an outlet file is read first
+        by :func:`basinkit.read_outlet_file`. Coordinates are in ``crs`` (default: the
+        DEM's); files carry their own CRS.
     crs : optional
         CRS of coordinates that carry none (e.g. ``"EPSG:4326"``).
     snap_radius_m : float, optional
-        Snap search radius in metres (default: 3 cells; 0: no snapping).
+        Snap search radius in metres (default: the larger of 30 m and one cell; 0: no
+        snapping).
     snap_to_channel_m2 : float, optional
         Snap to the nearest cell whose upstream area is at least this (m²) instead of to
         the greatest upstream area within the radius.
@@ -218,7 +220,7 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     workers : int
         Worker processes for the polygons (forked; 1 = in this process).
     id_column : str, optional
-        Id column of an outlet file.
+        Unused (give it to :func:`basinkit.read_outlet_file`).
     progress : callable, optional
         ``progress(iterable, total=, desc=)`` wrapper (e.g. a tqdm-like bar).
     fraction_callback : callable, optional

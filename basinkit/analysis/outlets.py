@@ -1,4 +1,5 @@
-"""Outlets: reading points, placing them on the grid and snapping them to the flow network.
+"""Outlets: points from values or arrays, placing them on the grid and snapping them to the
+flow network (outlet files are read by :mod:`basinkit.io.outlets`).
 
 An outlet table is a pandas DataFrame with one row per outlet. Outlets that cannot be used
 (unparseable or missing coordinates, a repeated id, outside the grid, on nodata, no channel
@@ -17,8 +18,8 @@ import pandas as pd
 
 from ..errors import InputError, OutletError
 
-__all__ = ["outlets_from_text", "outlets_from_points", "read_outlet_file", "locate_outlets",
-           "snap_outlets", "prepare_outlets", "sanitize_ids", "ERROR_COLUMNS",
+__all__ = ["outlets_from_text", "outlets_from_points", "locate_outlets",
+           "snap_outlets", "default_snap_radius", "prepare_outlets", "sanitize_ids", "ERROR_COLUMNS",
            "FILE_ID_MAX_LENGTH"]
 
 ERROR_COLUMNS = ["outlet_id", "source", "x_given", "y_given", "reason"]
@@ -33,14 +34,14 @@ AREA_JUMP_FACTOR = 10.0
 # has probably moved across a confluence: the catchment is then not the one asked for
 ON_CHANNEL_CELLS = 100
 CONFLUENCE_FACTOR = 1.5
-DEFAULT_RADIUS_CELLS = 3
-DEFAULT_CHANNEL_RADIUS_CELLS = 10
+# a point placed on a channel should stay within about a cell or two of where it was put:
+# the default search radius is max(30 m, one cell) on the ground (common practice, no
+# source), in both modes; a wider search is the user's choice (--snap-radius)
+DEFAULT_SNAP_RADIUS_M = 30.0
+# any snap that changes the upstream area by more than this fraction is reported
+AREA_CHANGE_WARN = 0.05
 MAX_WINDOW_CELLS = 4_000_000  # candidate cells per outlet (a radius of ~1000 cells)
 
-_ID_COLUMNS = ("outlet_id", "id", "name", "outlet", "site", "station", "gauge")
-_XY_COLUMNS = (("x", "y"), ("easting", "northing"), ("east", "north"))
-_LONLAT_COLUMNS = (("lon", "lat"), ("longitude", "latitude"), ("lng", "lat"),
-                   ("long", "lat"))
 _WINDOWS_RESERVED = {"con", "prn", "aux", "nul", *(f"com{i}" for i in range(1, 10)),
                      *(f"lpt{i}" for i in range(1, 10))}
 
@@ -131,122 +132,6 @@ def outlets_from_points(x, y, ids=None, crs=None, source="points"):
         raise InputError(f"{len(ids)} ids for {x.size} outlets")
     return _raw_frame(zip(ids, [f"{source} {i + 1}" for i in range(x.size)], x, y,
                           [None if crs is None else str(crs)] * x.size))
-
-
-def _find_column(columns, names):
-    low = {str(c).strip().lower(): c for c in columns}
-    for n in names:
-        if n in low:
-            return low[n]
-    return None
-
-
-def read_outlet_file(path, crs=None, id_column=None):
-    """Read outlets from a CSV table or a point layer (GeoJSON, GeoPackage, ...).
-
-    Parameters
-    ----------
-    path : str or Path
-        CSV: an id column (``outlet_id``, ``id``, ``name``, ...; else the row number) and
-        ``x``/``y`` (also ``easting``/``northing``) or ``lon``/``lat`` columns. Vector
-        files: point features in the layer's own CRS.
-    crs : optional
-        CRS of CSV coordinates. Default: the DEM's CRS for x/y columns, EPSG:4326 for
-        lon/lat columns. Ignored for vector files that declare their CRS.
-    id_column : str, optional
-        Column holding the outlet ids.
-
-    Returns
-    -------
-    (DataFrame, DataFrame)
-        Outlets and errors, as :func:`outlets_from_text`.
-    """
-    p = Path(path)
-    if not p.exists():
-        raise InputError(f"the outlet file {str(p)!r} does not exist")
-    if p.suffix.lower() in (".csv", ".txt", ".tsv"):
-        return _read_csv(p, crs, id_column)
-    return _read_vector(p, crs, id_column)
-
-
-def _read_csv(p, crs, id_column):
-    try:
-        df = pd.read_csv(p, dtype=str, keep_default_na=False,
-                         sep="\t" if p.suffix.lower() == ".tsv" else None, engine="python")
-    except Exception as exc:  # pandas raises several kinds for malformed tables
-        raise InputError(f"cannot read the outlet table {str(p)!r}: {exc}") from None
-    cols = list(df.columns)
-    idc = id_column if id_column is not None else _find_column(cols, _ID_COLUMNS)
-    if id_column is not None and id_column not in cols:
-        raise InputError(f"the outlet table {p.name!r} has no column {id_column!r}; its "
-                         f"columns are {', '.join(map(str, cols))}")
-    xc = yc = None
-    lonlat = False
-    for a, b in _XY_COLUMNS:
-        xc, yc = _find_column(cols, (a,)), _find_column(cols, (b,))
-        if xc is not None and yc is not None:
-            break
-    else:
-        for a, b in _LONLAT_COLUMNS:
-            xc, yc = _find_column(cols, (a,)), _find_column(cols, (b,))
-            if xc is not None and yc is not None:
-                lonlat = True
-                break
-    if xc is None or yc is None:
-        raise InputError(f"the outlet table {p.name!r} needs x and y (or lon and lat) "
-                         f"columns; its columns are {', '.join(map(str, cols))}")
-    given_crs = str(crs) if crs is not None else ("EPSG:4326" if lonlat else None)
-    rows, errs = [], []
-    for i, rec in enumerate(df.itertuples(index=False), start=2):
-        vals = dict(zip(cols, rec))
-        oid = str(vals[idc]).strip() if idc is not None else ""
-        oid = oid or f"{p.stem}_{i - 1}"
-        src = f"{p.name} line {i}"
-        xs, ys = str(vals[xc]).strip(), str(vals[yc]).strip()
-        x, y = _to_float(xs), _to_float(ys)
-        if x is None or y is None:
-            bad = xs if x is None else ys
-            reason = ("missing coordinate" if bad == "" else
-                      f"cannot read the coordinate {bad!r} as a number")
-            errs.append((oid, src, np.nan if x is None else x, np.nan if y is None else y,
-                         reason))
-            continue
-        rows.append((oid, src, x, y, given_crs))
-    return _raw_frame(rows), _errors_frame(errs)
-
-
-def _read_vector(p, crs, id_column):
-    import geopandas as gpd
-
-    try:
-        gdf = gpd.read_file(p)
-    except Exception as exc:  # pyogrio raises its own error classes
-        raise InputError(f"cannot read the outlet layer {str(p)!r}: {exc}") from None
-    cols = [c for c in gdf.columns if c != gdf.geometry.name]
-    idc = id_column if id_column is not None else _find_column(cols, _ID_COLUMNS)
-    if id_column is not None and id_column not in cols:
-        raise InputError(f"the outlet layer {p.name!r} has no column {id_column!r}")
-    if gdf.crs is not None:
-        given_crs = gdf.crs.to_string()
-    elif p.suffix.lower() in (".geojson", ".json"):
-        given_crs = "EPSG:4326"  # RFC 7946: GeoJSON coordinates are WGS 84 lon/lat
-    else:
-        given_crs = None if crs is None else str(crs)
-    rows, errs = [], []
-    for i, (geom, rec) in enumerate(zip(gdf.geometry, gdf[cols].itertuples(index=False))):
-        vals = dict(zip(cols, rec))
-        oid = str(vals[idc]).strip() if idc is not None and vals[idc] is not None else ""
-        oid = oid or f"{p.stem}_{i + 1}"
-        src = f"{p.name} feature {i + 1}"
-        if geom is None or geom.is_empty:
-            errs.append((oid, src, np.nan, np.nan, "feature without geometry"))
-            continue
-        if geom.geom_type != "Point":
-            errs.append((oid, src, np.nan, np.nan,
-                         f"outlets must be points, this feature is a {geom.geom_type}"))
-            continue
-        rows.append((oid, src, float(geom.x), float(geom.y), given_crs))
-    return _raw_frame(rows), _errors_frame(errs)
 
 
 FILE_ID_MAX_LENGTH = 64  # longest file id (characters), hash suffix included
@@ -455,9 +340,9 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     located : DataFrame
         As returned by :func:`locate_outlets`.
     radius_m : float, optional
-        Search radius on the ground in metres. Default: 3 cells (10 in channel mode), the
-        cell size taken as the larger side of a cell in the grid's middle row. 0 keeps
-        every outlet on its own cell.
+        Search radius on the ground in metres. Default: ``max(30 m, one cell)``
+        (:func:`default_snap_radius`), the cell size taken as the larger side of a cell in
+        the grid's middle row. 0 keeps every outlet on its own cell.
     channel_area_m2 : float, optional
         Minimum upstream area of a channel cell (m²).
 
@@ -474,7 +359,8 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     Distances are planar in metres on projected grids and geodesic (Karney 2013, through
     pyproj) on geographic grids. The warnings (a snap longer than half the radius and five
     cells; an upstream area at least 10 times the area at the given cell, which suggests a
-    different branch) are common practice (no source).
+    different branch; any change of the upstream area by more than 5 %) are common
+    practice (no source).
     """
     t = fm.terrain
     nr, nc = t.shape
@@ -484,7 +370,7 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     cell_area = float(g.area[mid])
     channel = channel_area_m2 is not None
     if radius_m is None:
-        radius_m = (DEFAULT_CHANNEL_RADIUS_CELLS if channel else DEFAULT_RADIUS_CELLS) * cell_m
+        radius_m = default_snap_radius(fm)
     radius_m = float(radius_m)
     if not radius_m >= 0 or not math.isfinite(radius_m):
         raise InputError(f"the snap radius must be a finite length >= 0, got {radius_m}")
@@ -561,6 +447,10 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
             w.append(f"the given point already drains {a0 / 1e6:.3g} km2 but the snap moved "
                      f"it to {a1 / 1e6:.3g} km2, probably across a confluence; check the "
                      "position or use a smaller --snap-radius")
+        elif a0 > 0 and abs(a1 - a0) > AREA_CHANGE_WARN * a0:
+            w.append(f"snapping changed the upstream area by {100 * (a1 - a0) / a0:+.1f} % "
+                     f"({a0 / 1e6:.4g} km2 at the given point, {a1 / 1e6:.4g} km2 at the "
+                     "snapped cell); check the position or set --snap-radius")
         warn.append("; ".join(w))
     errs = out.loc[~found, ["outlet_id", "source", "x_given", "y_given"]].copy()
     errs["reason"] = (f"no channel cell (upstream area >= {channel_area_m2:g} m2) within "
@@ -586,6 +476,25 @@ def snap_outlets(fm, located, radius_m=None, channel_area_m2=None):
     return out, errs[ERROR_COLUMNS].reset_index(drop=True)
 
 
+def default_snap_radius(fm) -> float:
+    """The default snap search radius (m): ``max(30 m, one cell)``, the cell taken as the
+    larger side of a cell in the grid's middle row (metres on the ground).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> z = np.add.outer(np.arange(5.0, 0, -1), np.zeros(4))
+    >>> default_snap_radius(route(terrain_from_array(z, cellsize=10)))
+    30.0
+    >>> default_snap_radius(route(terrain_from_array(z, cellsize=90)))
+    90.0
+    """
+    g = fm.terrain.geometry
+    mid = fm.terrain.shape[0] // 2
+    return max(DEFAULT_SNAP_RADIUS_M, float(max(g.dx[mid], g.dy_down[mid])))
+
+
 def prepare_outlets(fm, outlets, crs=None, radius_m=None, channel_area_m2=None,
                     id_column=None):
     """Read, locate and snap outlets in one call.
@@ -593,14 +502,16 @@ def prepare_outlets(fm, outlets, crs=None, radius_m=None, channel_area_m2=None,
     Parameters
     ----------
     fm : FlowModel
-    outlets : path, DataFrame, sequence of (x, y) or (id, x, y), or array (n, 2)
-        A file (CSV, GeoJSON, GeoPackage), an outlet frame from this module, or points.
+    outlets : (DataFrame, DataFrame), DataFrame, sequence of (x, y) or (id, x, y), or array
+        The pair read from a file by :func:`basinkit.read_outlet_file` (its rows that could
+        not be read join the errors), an outlet frame from this module, or points.
     crs : optional
         CRS of the coordinates when they carry none (default: the DEM's).
     radius_m, channel_area_m2 : float, optional
         See :func:`snap_outlets`.
     id_column : str, optional
-        Id column of an outlet file.
+        Unused (kept for callers of earlier versions; give it to
+        :func:`basinkit.read_outlet_file`).
 
     Returns
     -------
@@ -609,7 +520,11 @@ def prepare_outlets(fm, outlets, crs=None, radius_m=None, channel_area_m2=None,
     """
     errs = [_errors_frame()]
     if isinstance(outlets, (str, Path)):
-        raw, e = read_outlet_file(outlets, crs=crs, id_column=id_column)
+        raise InputError(f"outlets given as a file name ({str(outlets)!r}): read the file "
+                         "first with basinkit.read_outlet_file(path) and pass the "
+                         "(outlets, errors) pair it returns")
+    if _is_read_pair(outlets):
+        raw, e = outlets
         errs.append(e)
     elif isinstance(outlets, pd.DataFrame):
         raw = outlets
@@ -636,6 +551,13 @@ def prepare_outlets(fm, outlets, crs=None, radius_m=None, channel_area_m2=None,
     snapped["file_id"] = sanitize_ids(snapped["outlet_id"])
     errors = pd.concat([x for x in errs if len(x)] or [_errors_frame()], ignore_index=True)
     return snapped, errors[ERROR_COLUMNS]
+
+
+def _is_read_pair(obj) -> bool:
+    """True for the (outlets, errors) pair of :func:`basinkit.read_outlet_file`."""
+    return (isinstance(obj, tuple) and len(obj) == 2
+            and all(isinstance(o, pd.DataFrame) for o in obj)
+            and "given_crs" in obj[0].columns and "reason" in obj[1].columns)
 
 
 def require_outlets(snapped, errors):

@@ -19,7 +19,7 @@ from .options import (conditioning_options, dem_options, finish, overwrite_optio
               help="Also write the summary as JSON here (default: OUTPUT with .json).")
 @click.pass_obj
 def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_length,
-            burn, burn_depth, band, crs, sea_level, base_level, overwrite, summary_path):
+            burn, burn_depth, band, crs, sea_level, base_level, overwrite, summary_path, dem_checks):
     """Condition a DEM so that every cell drains to an exit.
 
     \b
@@ -37,7 +37,7 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
     js = check_output(summary_path or Path(output).with_suffix(".json"), overwrite)
     mbl = parse_length(max_breach_length, "--max-breach-length") if max_breach_length else None
     with console.stage("read"):
-        terrain = read_dem_from_options(dem, band, crs, sea_level, base_level)
+        terrain = read_dem_from_options(dem, band, crs, sea_level, base_level, dem_checks)
         lines = [g for p in burn for g in read_lines(p, terrain.crs)]
     console.info(f"read {dem}: {terrain.shape[0]} x {terrain.shape[1]} cells")
     with console.stage("condition"):
@@ -49,11 +49,21 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
                   tags={"cautions": CAUTION_TEXT})
     params = {"method": method, "epsilon": epsilon, "burn": [str(p) for p in burn],
               "burn_depth": burn_depth, "max_breach_depth": max_breach_depth,
-              "max_breach_length_m": mbl, "sea_level": sea_level, "base_level": base_level}
+              "max_breach_length_m": mbl, "sea_level": sea_level, "base_level": base_level, **{k: (list(v) if isinstance(v, tuple) else v)
+                                            for k, v in dem_checks.items()}}
     write_json(js, provenance(params, {"dem": terrain.source}, crs=terrain.crs,
                               shape=terrain.shape, summary=summary.to_dict(),
                               cautions=CAUTION_TEXT))
+    _tell_screened(console, terrain)
     for line in summary.lines():
         console.info(line)
     console.info(f"wrote {out} and {js}")
     return finish(console)
+
+
+def _tell_screened(console, terrain):
+    n = terrain.source.get("implausible_elevation_cells", 0)
+    if n:
+        lo, hi = terrain.source["elevation_range_m"]
+        console.warn(f"{n:,} cells with elevations outside {lo:g} to {hi:g} m were treated "
+                     "as nodata (--implausible-elevations nodata)")

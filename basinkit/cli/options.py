@@ -27,18 +27,69 @@ class LengthParam(click.ParamType):
 LENGTH = LengthParam()
 
 
+def _number_pair(text, option):
+    """'A,B' as two floats (for --origin and --elevation-range)."""
+    parts = [t.strip() for t in str(text).replace(";", ",").split(",")]
+    try:
+        a, b = (float(t) for t in parts)
+    except ValueError:
+        raise click.BadParameter(f"{option} takes two numbers separated by a comma, got "
+                                 f"{text!r}") from None
+    return a, b
+
+
 def dem_options(f):
-    """Options for reading a DEM: band, CRS, base level."""
-    f = click.option("--base-level", "base_level", type=click.Path(),
+    """Options for reading a DEM: band, CRS, base level, georeferencing and the elevation
+    check. The command gets ``band, crs, sea_level, base_level`` and one keyword
+    ``dem_checks`` (a dict of the keyword arguments of :func:`basinkit.read_dem` and of
+    :class:`basinkit.workflow.steps.FlowSettings` for the rest)."""
+    import functools
+
+    from ..terrain.checks import PLAUSIBLE_ELEVATION_M
+
+    @functools.wraps(f)
+    def wrapper(*args, **kw):
+        rng = kw.pop("elevation_range")
+        origin = kw.pop("origin")
+        kw["dem_checks"] = dict(
+            replace_crs=kw.pop("replace_crs"), cell_size=kw.pop("cell_size"),
+            origin=None if origin is None else _number_pair(origin, "--origin"),
+            elevation_range=(PLAUSIBLE_ELEVATION_M if rng is None
+                             else _number_pair(rng, "--elevation-range")),
+            implausible_elevations=kw.pop("implausible_elevations"))
+        return f(*args, **kw)
+
+    lo, hi = PLAUSIBLE_ELEVATION_M
+    opts = [
+        click.option("--band", type=int, default=None,
+                     help="Band holding elevation (1-based); needed for multi-band files."),
+        click.option("--crs", default=None,
+                     help="CRS of a DEM that has none, e.g. EPSG:32633 (a DEM with a "
+                          "different CRS is refused: see --replace-crs)."),
+        click.option("--replace-crs", default=None, metavar="CRS",
+                     help="Use this CRS instead of the one the DEM file states (a "
+                          "mislabelled file); the outputs record the replacement."),
+        click.option("--cell-size", type=float, default=None,
+                     help="Cell size, in the CRS's units, of a raster without "
+                          "georeferencing (e.g. a PNG); with --origin."),
+        click.option("--origin", default=None, metavar="X,Y",
+                     help="Upper-left corner of a raster without georeferencing, in the "
+                          "CRS's units (rows run top-down); with --cell-size."),
+        click.option("--elevation-range", default=None, metavar="MIN,MAX",
+                     help=f"Plausible elevations in metres [default: {lo:g},{hi:g}]."),
+        click.option("--implausible-elevations", type=click.Choice(["refuse", "nodata"]),
+                     default="refuse", show_default=True,
+                     help="Cells outside --elevation-range: refuse the DEM, or treat them "
+                          "as nodata (their count is printed and recorded)."),
+        click.option("--sea-level", type=float, default=None,
+                     help="Cells at or below this elevation (m) are exits (base level)."),
+        click.option("--base-level", "base_level", type=click.Path(),
                      help="Mask raster on the DEM's grid (non-zero = exit) or polygon layer "
-                          "(sea, lake, reservoir) whose cells are exits.")(f)
-    f = click.option("--sea-level", type=float, default=None,
-                     help="Cells at or below this elevation (m) are exits (base level).")(f)
-    f = click.option("--crs", default=None,
-                     help="CRS to assume when the DEM has none, e.g. EPSG:32633.")(f)
-    f = click.option("--band", type=int, default=None,
-                     help="Band holding elevation (1-based); needed for multi-band files.")(f)
-    return f
+                          "(sea, lake, reservoir) whose cells are exits."),
+    ]
+    for o in reversed(opts):
+        wrapper = o(wrapper)
+    return wrapper
 
 
 def conditioning_options(f):
@@ -66,10 +117,11 @@ def overwrite_option(f):
                         help="Replace outputs that already exist.")(f)
 
 
-def read_dem_from_options(dem, band, crs, sea_level, base_level):
+def read_dem_from_options(dem, band, crs, sea_level, base_level, dem_checks=None):
     from ..io.dem import read_dem
 
-    return read_dem(dem, band=band, crs=crs, sea_level=sea_level, base_level=base_level)
+    return read_dem(dem, band=band, crs=crs, sea_level=sea_level, base_level=base_level,
+                    **(dem_checks or {}))
 
 
 # ---------------------------------------------------------------------- outlets
@@ -127,8 +179,10 @@ def outlet_options(f=None, *, purpose="An outlet position"):
                               "outlet_id, id, name, ...; else the row number]."),
             click.option("--snap-radius", default=None, metavar="LENGTH",
                          help="Move each outlet to the cell of greatest upstream area "
-                              "within this distance (e.g. 30m, 0.1km; 0 = no snapping) "
-                              "[default: 3 cells; 10 cells with --snap-to-channel]."),
+                              "within this distance on the ground (e.g. 30m, 0.1km; 0 = no "
+                              "snapping); a snap that changes the upstream area by more "
+                              "than 5 % is warned about [default: the larger of 30 m and "
+                              "one cell]."),
             click.option("--snap-to-channel", default=None, metavar="AREA",
                          help="Instead, move each outlet to the nearest cell whose upstream "
                               "area is at least this (e.g. 1ha, 0.5km2, 5000m2) within "

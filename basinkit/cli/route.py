@@ -23,7 +23,7 @@ from .options import (conditioning_options, dem_options, finish, output_folder,
 @click.pass_obj
 def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
             max_breach_depth, max_breach_length, burn, burn_depth, band, crs, sea_level,
-            base_level, overwrite):
+            base_level, overwrite, dem_checks):
     """Route flow over a DEM and write the flow folder later commands read.
 
     \b
@@ -39,7 +39,7 @@ def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
         max_breach_length_m=(parse_length(max_breach_length, "--max-breach-length")
                              if max_breach_length else None),
         burn_lines=list(burn), burn_depth_m=burn_depth, method=method,
-        mfd_exponent=mfd_exponent)
+        mfd_exponent=mfd_exponent, **FlowSettings.dem_check_fields(dem_checks))
     out = output_folder(output, overwrite)
     with console.stage("read"):
         terrain = read_terrain(settings)

@@ -51,7 +51,7 @@ __all__ = ["JobSpec", "read_job", "job_from_dict", "demo_job_path", "JOB_SCHEMA"
 
 # ----------------------------------------------------------------------------- schema
 # kind: "str", "path", "paths", "float", "int", "bool", "area", "length", "choice:<a|b>",
-#       "strs"; default None means optional with no value.
+#       "strs", "pair" (two numbers); default None means optional with no value.
 _S = dict
 JOB_SCHEMA = {
     "job": {
@@ -70,7 +70,19 @@ JOB_SCHEMA = {
         "burn_lines": _S(kind="paths", default=[],
                          help="Line layers of culverts or known channels to burn in."),
         "band": _S(kind="int", default=None, help="Band holding elevation (1-based)."),
-        "crs": _S(kind="str", default=None, help="CRS to assume when the DEM has none."),
+        "crs": _S(kind="str", default=None,
+                  help="CRS of a DEM that has none (a different one is refused)."),
+        "replace_crs": _S(kind="str", default=None,
+                          help="CRS to use instead of the one the DEM file states."),
+        "cell_size": _S(kind="float", default=None,
+                        help="Cell size (CRS units) of a raster without georeferencing."),
+        "origin": _S(kind="pair", default=None,
+                     help="Upper-left corner [X, Y] of a raster without georeferencing."),
+        "elevation_range_m": _S(kind="pair", default=[-500.0, 9000.0],
+                                help="Plausible elevations [MIN, MAX] in metres."),
+        "implausible_elevations": _S(kind="choice:refuse|nodata", default="refuse",
+                                     help="Cells outside elevation_range_m: refuse the DEM "
+                                          "or treat them as nodata."),
         "sea_level_m": _S(kind="float", default=None,
                           help="Cells at or below this elevation are exits."),
         "base_level": _S(kind="path", default=None,
@@ -94,8 +106,8 @@ JOB_SCHEMA = {
     "outlets": {
         "snap_radius_m": _S(kind="float", default=None,
                             help="Snap search radius in metres, as basinkit delineate "
-                                 "--snap-radius (default: 3 cells; 10 cells with "
-                                 "snap_min_area; 0: no snapping)."),
+                                 "--snap-radius (default: the larger of 30 m and one "
+                                 "cell; 0: no snapping)."),
         "snap_min_area": _S(kind="area", default=None,
                             help="Snap to the nearest cell with at least this upstream "
                                  "area, as basinkit delineate --snap-to-channel (default: "
@@ -187,6 +199,16 @@ def _check_value(section, key, value, spec, base: Path):
         if not isinstance(value, list) or not all(isinstance(v, str) and v for v in value):
             raise bad("a list of file paths")
         return [_resolve(v, base) for v in value]
+    if kind == "pair":  # two numbers, as [a, b] or "a,b"
+        if isinstance(value, str):
+            value = [v.strip() for v in value.split(",")]
+        try:
+            a, b = (float(v) for v in value)
+        except (TypeError, ValueError):
+            raise bad("two numbers such as [-500, 9000]") from None
+        if not (np.isfinite(a) and np.isfinite(b)):
+            raise bad("two finite numbers")
+        return [a, b]
     if kind == "bool":
         if not isinstance(value, bool):
             raise bad("true or false")
@@ -312,6 +334,18 @@ def job_from_dict(data: dict, base=".", path=None) -> JobSpec:
         if sections[sec][key] is not None and sections[sec][key] < 0:
             raise JobFileError(f"[{sec}] {key} must be zero or positive, got "
                                f"{sections[sec][key]!r}")
+    lo, hi = ins["elevation_range_m"]
+    if not lo < hi:
+        raise JobFileError(f"[inputs] elevation_range_m must be [MIN, MAX] with MIN < MAX, "
+                           f"got {[lo, hi]!r}")
+    if (ins["cell_size"] is None) != (ins["origin"] is None):
+        raise JobFileError("[inputs] cell_size and origin go together (a raster without "
+                           "georeferencing needs both)")
+    if ins["cell_size"] is not None and ins["cell_size"] <= 0:
+        raise JobFileError(f"[inputs] cell_size must be positive, got {ins['cell_size']!r}")
+    if ins["crs"] is not None and ins["replace_crs"] is not None:
+        raise JobFileError("[inputs] give either crs (a DEM without one) or replace_crs "
+                           "(replace the DEM's), not both")
     c = sections["profiles"]["concavity"]
     if not 0.0 <= c <= 2.0:
         raise JobFileError(f"[profiles] concavity must lie between 0 and 2 (typical 0.45), "
@@ -343,15 +377,19 @@ def read_job(path) -> JobSpec:
     >>> job["channels"]["min_area"]  # '2ha' in the file, m² here
     20000.0
     """
+    from ..io.text import read_text
+
     p = Path(path)
     if not p.exists():
         raise JobFileError(f"the job file {str(p)!r} does not exist")
     if p.is_dir():
         raise JobFileError(f"{str(p)!r} is a folder; give the job file (a .toml file)")
+    try:  # a byte-order mark is dropped; TOML is UTF-8, so other encodings are refused
+        text = read_text(p, "the job file", fallback=None).text
+    except InputError as exc:
+        raise JobFileError(f"{exc} (a job file is TOML text)") from None
     try:
-        data = tomllib.loads(p.read_text(encoding="utf-8"))
-    except UnicodeDecodeError:
-        raise JobFileError(f"{str(p)!r} is not a text file; a job file is TOML") from None
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise JobFileError(f"cannot read the job file {str(p)!r}: {exc}") from None
     return job_from_dict(data, base=p.resolve().parent, path=p.resolve())

@@ -5,8 +5,6 @@ command and for job files."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from pathlib import Path
-
 import numpy as np
 
 from ..errors import InputError
@@ -31,7 +29,7 @@ class OutletSpec:
         CRS of values and CSV x/y columns (default: the DEM's; lon/lat: EPSG:4326).
     id_column : str, optional
     snap_radius_m : float, optional
-        Search radius (default 3 cells; 10 cells with ``snap_to_channel_m2``; 0: none).
+        Search radius (default max(30 m, one cell); 0: none).
     snap_to_channel_m2 : float, optional
         Snap to the nearest cell with at least this upstream area instead of to the cell
         of greatest upstream area.
@@ -58,7 +56,8 @@ class OutletSpec:
         rows that could not be read (``outlet_id, source, x_given, y_given, reason``)."""
         import pandas as pd
 
-        from ..analysis.outlets import ERROR_COLUMNS, outlets_from_text, read_outlet_file
+        from ..analysis.outlets import ERROR_COLUMNS, outlets_from_text
+        from ..io.outlets import read_outlets
 
         self.require()
         raws, errs = [], []
@@ -67,17 +66,19 @@ class OutletSpec:
             raws.append(r)
             errs.append(e)
         if self.file:
-            r, e = read_outlet_file(self.file, crs=self.crs, id_column=self.id_column)
-            raws.append(r)
-            errs.append(e)
+            f = read_outlets(self.file, crs=self.crs, id_column=self.id_column)
+            raws.append(f.raw)
+            errs.append(f.errors)
+            self._descriptions, self.notes = f.descriptions, f.notes
         raw = pd.concat(raws, ignore_index=True)
         nonempty = [e for e in errs if len(e)]
         errors = pd.concat(nonempty, ignore_index=True) if nonempty else errs[0]
         return raw, errors[ERROR_COLUMNS].reset_index(drop=True)
 
     def descriptions(self) -> dict:
-        """``{outlet id: description}`` from a CSV file's ``description`` column."""
-        return _descriptions(self.file, self.id_column) if self.file else {}
+        """``{outlet id: description}`` from a CSV file's ``description`` column (known
+        once :meth:`read` has run)."""
+        return dict(getattr(self, "_descriptions", {}) or {})
 
     def inputs(self) -> dict:
         """The outlet file and its SHA-256 (for provenance records)."""
@@ -154,8 +155,8 @@ def place_outlets(fm, spec: OutletSpec, raw=None, read_errors=None,
     """
     import pandas as pd
 
-    from ..analysis.outlets import (DEFAULT_CHANNEL_RADIUS_CELLS, DEFAULT_RADIUS_CELLS,
-                                    ERROR_COLUMNS, prepare_outlets, require_outlets)
+    from ..analysis.outlets import (AREA_CHANGE_WARN, DEFAULT_SNAP_RADIUS_M, ERROR_COLUMNS,
+                                    prepare_outlets, require_outlets)
 
     if raw is None:
         raw, read_errors = spec.read()
@@ -169,22 +170,26 @@ def place_outlets(fm, spec: OutletSpec, raw=None, read_errors=None,
     parts = [x for x in (read_errors, errs) if len(x)]
     errors = (pd.concat(parts, ignore_index=True) if parts else errs)[ERROR_COLUMNS]
     rep = as_reporter(reporter)
+    for note in getattr(spec, "notes", []):
+        rep.warn(note)
     for r in errors.itertuples(index=False):
         rep.outlet_failed(str(r.outlet_id), str(r.reason), "outlets", source=str(r.source))
     require_outlets(table, errors)
     desc = spec.descriptions()
     if desc:
         table["description"] = [desc.get(str(o), "") for o in table["outlet_id"]]
+    _tell_snap_warnings(rep, table)
     radius = float(table["snap_radius_m"].iloc[0])
-    cells = DEFAULT_CHANNEL_RADIUS_CELLS if spec.snap_to_channel_m2 is not None \
-        else DEFAULT_RADIUS_CELLS
     snapping = {
         "mode": ("nearest cell with upstream area >= snap_to_channel_m2"
                  if spec.snap_to_channel_m2 is not None
                  else "greatest upstream area within the radius"),
         "radius_m": radius,
         "radius_given": spec.snap_radius_m is not None,
-        "default_radius_cells": None if spec.snap_radius_m is not None else cells,
+        "radius_default": spec.snap_radius_m is None,
+        "default_radius_rule": f"max({DEFAULT_SNAP_RADIUS_M:g} m, one cell)",
+        "area_change_warning_percent": 100 * AREA_CHANGE_WARN,
+        "outlets_with_snap_warning": int((table["snap_warning"].astype(str) != "").sum()),
         "snap_to_channel_m2": spec.snap_to_channel_m2,
         "outlet_crs": None if spec.crs is None else str(spec.crs),
     }
@@ -192,27 +197,16 @@ def place_outlets(fm, spec: OutletSpec, raw=None, read_errors=None,
                          int(len(raw) + len(read_errors)), snapping)
 
 
-def _descriptions(path, id_column=None) -> dict:
-    """``{outlet id: description}`` from a CSV's ``description`` column (else empty)."""
-    import pandas as pd
+SNAP_WARNINGS_SHOWN = 20  # snap warnings printed one by one; the rest are counted
 
-    if Path(path).suffix.lower() not in (".csv", ".txt", ".tsv"):
-        return {}
-    try:
-        df = pd.read_csv(path, dtype=str, keep_default_na=False,
-                         sep="\t" if Path(path).suffix.lower() == ".tsv" else None,
-                         engine="python")
-    except Exception:  # noqa: BLE001 - the outlet reader reports unreadable files
-        return {}
-    low = {str(c).strip().lower(): c for c in df.columns}
-    from ..analysis.outlets import _ID_COLUMNS
 
-    idc = id_column if id_column in df.columns else next(
-        (low[c] for c in _ID_COLUMNS if c in low), None)
-    dc = low.get("description")
-    if idc is None or dc is None:
-        return {}
-    out = {}
-    for k, v in zip(df[idc].astype(str).str.strip(), df[dc]):
-        out.setdefault(k, v)
-    return out
+def _tell_snap_warnings(rep, table):
+    """Print each outlet's snap warning (long snap, area changed by more than 5 %, another
+    branch, a shared cell) once, as every command that places outlets does."""
+    warned = [(o, w) for o, w in zip(table["outlet_id"], table["snap_warning"].astype(str))
+              if w]
+    for o, w in warned[:SNAP_WARNINGS_SHOWN]:
+        rep.warn(f"outlet {o!r}: {w}")
+    if len(warned) > SNAP_WARNINGS_SHOWN:
+        rep.warn(f"... and {len(warned) - SNAP_WARNINGS_SHOWN} more outlets with snap "
+                 "warnings (see the warning column of the tables)")

@@ -85,7 +85,11 @@ def settings_of(job: JobSpec) -> dict:
     return {
         "flow": FlowSettings(
             dem=ins["dem"], band=ins["band"], crs=ins["crs"], sea_level_m=ins["sea_level_m"],
-            base_level=ins["base_level"], conditioning=cond["method"],
+            base_level=ins["base_level"], replace_crs=ins["replace_crs"],
+            cell_size=ins["cell_size"],
+            origin=None if ins["origin"] is None else tuple(ins["origin"]),
+            elevation_range_m=tuple(ins["elevation_range_m"]),
+            implausible_elevations=ins["implausible_elevations"], conditioning=cond["method"],
             epsilon=cond["epsilon"], max_breach_depth_m=cond["max_breach_depth_m"],
             max_breach_length_m=cond["max_breach_length"],
             burn_lines=list(ins["burn_lines"]), burn_depth_m=cond["burn_depth_m"],

@@ -239,9 +239,12 @@ def _tell(rep, d, errors, given):
         rep.info(f"  {len(tab)} catchments covering "
                  f"{tab['subcatchment_area_m2'].sum() / 1e6:.4g} km2 in all, "
                  f"{int(tab['touches_edge'].sum())} reaching the grid edge or nodata")
-    for m in d.warnings[:20]:
+    told = {f"outlet {o!r}: {w}" for o, w in zip(tab["outlet_id"], tab["snap_warning"])
+            if w}  # printed when the outlets were placed
+    rest = [m for m in d.warnings if m not in told]
+    for m in rest[:20]:
         rep.warn(m)
-    if len(d.warnings) > 20:
-        rep.warn(f"... and {len(d.warnings) - 20} more warnings (see catchments.csv)")
+    if len(rest) > 20:
+        rep.warn(f"... and {len(rest) - 20} more warnings (see catchments.csv)")
     rep.info(f"{len(tab)} of {given} outlets delineated"
              + (f", {len(errors)} failed (see outlet_errors.csv)" if len(errors) else ""))

@@ -6,6 +6,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from ...terrain.checks import PLAUSIBLE_ELEVATION_M
 from ..progress import as_reporter
 from ._common import CAUTION_TEXT
 
@@ -21,6 +22,12 @@ class FlowSettings:
     dem : str or Path
     band, crs, sea_level_m, base_level
         How to read the DEM (see :func:`basinkit.read_dem`).
+    replace_crs, cell_size, origin
+        A CRS replacing the file's; the georeferencing of a raster without any.
+    elevation_range_m : (float, float)
+        Plausible elevations (default -500 to 9 000 m).
+    implausible_elevations : {"refuse", "nodata"}
+        What to do with cells outside ``elevation_range_m``.
     conditioning : {"fill", "breach", "none"}
     epsilon, max_breach_depth_m, max_breach_length_m
         Conditioning options (see :func:`basinkit.condition`).
@@ -35,6 +42,11 @@ class FlowSettings:
     crs: object = None
     sea_level_m: float | None = None
     base_level: object = None
+    replace_crs: object = None
+    cell_size: float | None = None
+    origin: tuple | None = None
+    elevation_range_m: tuple = PLAUSIBLE_ELEVATION_M
+    implausible_elevations: str = "refuse"
     conditioning: str = "fill"
     epsilon: float = 0.0
     max_breach_depth_m: float | None = None
@@ -49,6 +61,11 @@ class FlowSettings:
                 "crs": None if self.crs is None else str(self.crs),
                 "sea_level_m": self.sea_level_m,
                 "base_level": None if self.base_level is None else str(self.base_level),
+                "replace_crs": None if self.replace_crs is None else str(self.replace_crs),
+                "cell_size": self.cell_size,
+                "origin": None if self.origin is None else list(self.origin),
+                "elevation_range_m": list(self.elevation_range_m),
+                "implausible_elevations": self.implausible_elevations,
                 "conditioning": self.conditioning, "epsilon": self.epsilon,
                 "max_breach_depth_m": self.max_breach_depth_m,
                 "max_breach_length_m": self.max_breach_length_m,
@@ -56,13 +73,25 @@ class FlowSettings:
                 "burn_depth_m": self.burn_depth_m, "method": self.method,
                 "mfd_exponent": self.mfd_exponent}
 
+    @staticmethod
+    def dem_check_fields(dem_checks: dict | None) -> dict:
+        """Settings fields from :func:`basinkit.read_dem` keyword arguments (the
+        command's ``dem_checks``)."""
+        d = dict(dem_checks or {})
+        if "elevation_range" in d:
+            d["elevation_range_m"] = tuple(d.pop("elevation_range"))
+        return d
+
 
 def read_terrain(settings: FlowSettings):
     """Read the DEM as the settings say (raises InputError for a bad DEM)."""
     from ...io.dem import read_dem
 
     return read_dem(settings.dem, band=settings.band, crs=settings.crs,
-                    sea_level=settings.sea_level_m, base_level=settings.base_level)
+                    sea_level=settings.sea_level_m, base_level=settings.base_level,
+                    replace_crs=settings.replace_crs, cell_size=settings.cell_size,
+                    origin=settings.origin, elevation_range=settings.elevation_range_m,
+                    implausible_elevations=settings.implausible_elevations)
 
 
 def read_burn_lines(settings: FlowSettings, crs) -> list:
@@ -108,6 +137,14 @@ def flow_step(out, settings: FlowSettings, terrain=None, burn=None, reporter=Non
         terrain = read_terrain(settings)
     rep.info(f"read {settings.dem}: {terrain.shape[0]} x {terrain.shape[1]} cells, "
              f"{int(terrain.valid.sum()):,} valid")
+    src = terrain.source or {}
+    if src.get("implausible_elevation_cells"):
+        lo, hi = src["elevation_range_m"]
+        rep.warn(f"{src['implausible_elevation_cells']:,} cells with elevations outside "
+                 f"{lo:g} to {hi:g} m were treated as nodata (implausible elevations)")
+    if str(src.get("crs_from", "")).startswith("--replace-crs, replacing"):
+        rep.warn(f"the DEM's CRS {src['crs_in_file']} was replaced by "
+                 f"{settings.replace_crs} (--replace-crs); the outputs record it")
     if burn is None:
         burn = read_burn_lines(settings, terrain.crs)
     opts = dict(epsilon=settings.epsilon, max_breach_depth=settings.max_breach_depth_m,
