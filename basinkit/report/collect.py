@@ -54,6 +54,9 @@ class ReportData:
         self.summary_mode = False
         self.section_note = ""
         self.lowered_cells = None      # (n, 2) x, y of cells lowered by conditioning
+        self.design = {}               # outlet id -> rows of design_flows.csv
+        self.design_meta = {}          # design_flows.json
+        self.design_hydrographs = {}   # outlet id -> its rows of hydrographs.csv
 
 
 def _records(frame, key="outlet_id"):
@@ -345,6 +348,9 @@ def collect(run, report_outlets=(), full_sections_max=50, summary_sections=10,
     if isinstance(extra, list):
         d.cautions += [str(c) for c in extra if str(c) not in d.cautions]
     _choose_sections(d, report_outlets, full_sections_max, summary_sections)
+    from .design import collect_design
+
+    collect_design(d)
     fill, d.lowered_cells = depression_stats(d, progress=progress)
     _flags(d, radius, fill)
     _notes(d)
