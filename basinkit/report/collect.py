@@ -106,9 +106,11 @@ def _outlets(d):
         frames.append(pd.DataFrame({"outlet_id": e["outlet_id"], "status": "failed",
                                     "error": e[reason].astype(str) if reason else ""}))
     if not frames:
-        for key in ("morphometry", "flow_paths"):
-            t = run.table(key, usecols=["outlet_id", "error"])
+        for key in ("morphometry", "flow_paths", "design_flows"):
+            t = run.table(key, usecols=["outlet_id", "error", "status", "note"])
             if t is not None and "outlet_id" in t.columns:
+                if "error" not in t.columns and "status" in t.columns:  # design_flows.csv
+                    t["error"] = t["note"].where(t["status"] == "failed", "")
                 t = t.drop_duplicates("outlet_id")
                 err = (t["error"].astype(object).where(t["error"].notna(), "").astype(str)
                        if "error" in t.columns else "")
