@@ -77,7 +77,9 @@ def test_expected_outputs_exist(runs):
                  "channel_segments.csv", "channels.gpkg", "channels.json",
                  "strahler_order.tif", "profile.csv", "steepness.csv", "knickpoints.csv",
                  "flow_paths.csv", "profiles.gpkg", "profiles.json", "morphometry.csv",
-                 "hypsometry.csv", "morphometry.json", "figures/crossing_long_profile.png",
+                 "hypsometry.csv", "morphometry.json", "design_flows.csv",
+                 "hydrographs.csv", "design_flows.gpkg", "design_flows.json",
+                 "figures/crossing_design_hydrograph.png", "figures/crossing_long_profile.png",
                  "figures/crossing_hypsometry.png", "report.html", "provenance.json"):
         assert (folder / name).is_file(), name
     # figures only for the figure outlets ([outputs] report_outlets), no per-outlet tables
@@ -225,6 +227,11 @@ def _commands_for_the_demo_job(out):
         ["profile", out / "flow", *o, "--min-area", "2ha", "--min-order", "1",
          "--concavity", "0.45", "--reference-area", "1m2", "-o", out / "profiles"],
         ["morphometry", out / "flow", *o, "--min-area", "2ha", "-o", out / "morphometry"],
+        ["design-flow", out / "flow", *o, "--idf-table", DEMO / "design_idf.csv",
+         "--return-period", "100", "--rainfall-pattern", "nrcs_type_ii", "--curve-number",
+         "74", "--runoff-coefficient", "0.35", "--tc-method", "tr55_velocity",
+         "--sheet-flow-n", "0.24", "--channel-n", "0.045", "--hydraulic-radius", "0.5m",
+         "--channel-threshold", "2ha", "-o", out / "design_flow"],
     ]
 
 
@@ -244,7 +251,7 @@ def test_demo_job_and_commands_give_the_same_products(runs, tmp_path):
             main(["-q", *map(str, argv)])
         assert e.value.code == 0, argv
     made = {}
-    for sub in ("flow", "catchments", "channels", "profiles", "morphometry"):
+    for sub in ("flow", "catchments", "channels", "profiles", "morphometry", "design_flow"):
         for p in (tmp_path / sub).rglob("*"):
             if p.is_file():
                 rel = p.relative_to(tmp_path / sub).as_posix()
@@ -253,7 +260,7 @@ def test_demo_job_and_commands_give_the_same_products(runs, tmp_path):
               if p.is_file()}
     assert set(in_job) - set(made) == {"provenance.json"}
     assert set(made) <= set(in_job)
-    assert len(made) > 70  # 5 products, 13 outlets' figures
+    assert len(made) > 80  # 6 products, 13 outlets' figures
     for name, p in sorted(made.items()):
         q = in_job[name]
         if name.endswith(".json"):
@@ -271,8 +278,10 @@ def test_demo_job_and_commands_give_the_same_products(runs, tmp_path):
                 assert np.array_equal(a.read(), b.read(), equal_nan=True), name
         assert p.read_bytes() == q.read_bytes(), name
     # the products that must be there, by the contract
-    for name in ("catchments.gpkg", "channels.gpkg", "profiles.gpkg"):
+    for name in ("catchments.gpkg", "channels.gpkg", "profiles.gpkg", "design_flows.gpkg"):
         assert name in made
+    assert [n for n, _ in pyogrio.list_layers(made["design_flows.gpkg"])] == \
+        ["flow_path_segments", "outlets"]
     assert [n for n, _ in pyogrio.list_layers(made["catchments.gpkg"])] == \
         ["outlets", "catchments", "subcatchments", "errors"]
     assert [n for n, _ in pyogrio.list_layers(made["channels.gpkg"])] == \

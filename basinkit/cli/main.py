@@ -45,6 +45,7 @@ SUBCOMMANDS = {
     "channels": "channels",
     "profile": "profile",
     "morphometry": "morphometry",
+    "design-flow": "design_flow",
     "run": "run_job",
     "demo": "demo",
     "report": "report",

@@ -26,8 +26,9 @@ def command(console, job_file, output, overwrite, check):
 
     A job file is TOML with the tables [job], [inputs] (dem, outlets, burn_lines),
     [conditioning], [routing], [outlets] (snap_radius_m, snap_min_area), [channels]
-    (min_area, min_order), [profiles] (concavity, reference_area), [morphometry] and
-    [outputs] (folder, rasters, figures, report, report_outlets). Areas take m2, ha or
+    (min_area, min_order), [profiles] (concavity, reference_area), [morphometry],
+    [design_flow] (the options of basinkit design-flow with underscores) and [outputs]
+    (folder, rasters, figures, report, report_outlets). Areas take m2, ha or
     km2 ("2ha"); paths are relative to the job file.
     """
     from ..workflow.jobfile import read_job
@@ -61,3 +62,7 @@ def print_summary(console, res):
         console.info(f"{len(res.failures)} outlet failure(s): see outlet_errors.csv and the "
                      "error columns of the tables")
     console.info(f"outputs in {res.folder}")
+    if "design_flow" in res.stages:  # the design-flow cautions come first (shown once)
+        from ..workflow.steps.design_flow import design_flow_cautions
+
+        console.cautions(design_flow_cautions())

@@ -21,7 +21,7 @@ from . import concentration as tcm
 from . import hydrograph as hg
 from .catchment_values import catchment_sums, check_grid, label_ranges, mean_land_slope, \
     value_distributions
-from .rainfall import Hyetograph, IDFTable
+from .rainfall import Hyetograph, IDFDurationError, IDFTable
 from .runoff import CurveNumbers, check_curve_numbers, check_runoff_coefficients
 from .tables import (ACRE_M2, CFS_PER_CMS, M3_PER_ACRE_FT, MM_PER_IN, PEAK_RATE_FACTOR_US)
 
@@ -48,8 +48,9 @@ PEAK_RANGES = {
 }
 TC_CHOICES = tcm.TC_METHODS + ("shortest", "longest", "mean")
 HYDROGRAPH_COLUMNS = ["outlet_id", "time_h", "time_min", "rainfall_in_step_mm",
-                      "excess_in_step_mm", "direct_runoff_m3_per_s", "base_flow_m3_per_s",
-                      "discharge_m3_per_s", "discharge_cfs"]
+                      "rainfall_in_step_in", "excess_in_step_mm", "excess_in_step_in",
+                      "direct_runoff_m3_per_s", "base_flow_m3_per_s", "discharge_m3_per_s",
+                      "discharge_cfs"]
 SEGMENT_COLUMNS = ["outlet_id", "segment", "flow_regime", "start_distance_from_head_m",
                    "end_distance_from_head_m", "length_m", "length_ft", "drop_m",
                    "slope_m_per_m", "slope_raised", "velocity_m_per_s", "velocity_ft_per_s",
@@ -355,6 +356,8 @@ def _hydrograph(area_m2, tc_h, cn: CurveNumbers, s: DesignFlowSettings):
         "base_flow_m3_per_s": np.full(n, s.base_flow_m3_per_s),
         "discharge_m3_per_s": q + s.base_flow_m3_per_s}
     frame["discharge_cfs"] = frame["discharge_m3_per_s"] * CFS_PER_CMS
+    frame["rainfall_in_step_in"] = frame["rainfall_in_step_mm"] / MM_PER_IN
+    frame["excess_in_step_in"] = frame["excess_in_step_mm"] / MM_PER_IN
     depth = float(cum_ex[-1])
     vol_expected = depth * 1e-3 * area_m2
     summ.update(info)
@@ -601,6 +604,9 @@ def design_flows(fm, delineation, settings: DesignFlowSettings, network=None,
             cn = CurveNumbers(vals, w, **cn_kw)
             r, h, sg, g = _one_outlet(fm, network, int(cells[i]), float(areas[i]),
                                       float(slopes[i]), cn, c_means[i], settings, oid)
+        except IDFDurationError as e:  # the table, not the outlet: stop with one line
+            raise IDFDurationError(f"{e} (needed at outlet {oid!r}: the Rational method's "
+                                   "intensity for a duration equal to Tc)") from None
         except InputError as e:
             errs.append({"outlet_id": oid, "reason": str(e)})
             warns.append(f"outlet {oid!r}: {e}")

@@ -25,8 +25,13 @@ from ..errors import InputError
 from ..units import parse_depth, parse_duration
 from .tables import MM_PER_IN, NRCS_24H_DISTRIBUTIONS, NRCS_24H_TIME_H, NRCS_PATTERNS
 
-__all__ = ["Hyetograph", "IDFTable", "design_storm", "storm_from_idf", "user_hyetograph",
-           "PATTERNS"]
+__all__ = ["Hyetograph", "IDFTable", "IDFDurationError", "design_storm", "storm_from_idf",
+           "user_hyetograph", "PATTERNS"]
+
+
+class IDFDurationError(InputError):
+    """The IDF table does not cover a duration that is needed (a table-wide input
+    problem: design flows stop with it rather than fail outlet by outlet)."""
 
 PATTERNS = NRCS_PATTERNS + ("uniform",)
 _PATTERN_ALIASES = {"type_i": "nrcs_type_i", "type_ia": "nrcs_type_ia",
@@ -379,7 +384,7 @@ class IDFTable:
         lo, hi = d[0], d[-1]
         tol = 1e-9 * hi
         if not (lo - tol <= x <= hi + tol):
-            raise InputError(f"the IDF table lacks the needed duration {x * 60:.1f} min for "
+            raise IDFDurationError(f"the IDF table lacks the needed duration {x * 60:.1f} min for "
                              f"the {float(return_period_yr):g}-year return period: it covers "
                              f"{lo * 60:g}-{hi * 60:g} min; add rows for that duration")
         if d.size == 1:

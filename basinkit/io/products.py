@@ -33,6 +33,9 @@ PRODUCT_FILES = {
     "steepness": ("steepness.csv", "the profiles step (profile)"),
     "knickpoints": ("knickpoints.csv", "the profiles step (profile)"),
     "flow_paths": ("flow_paths.csv", "the profiles step (profile)"),
+    "design_flows": ("design_flows.csv", "the design-flow step (design-flow)"),
+    "hydrographs": ("hydrographs.csv", "the design-flow step (design-flow)"),
+    "design_flows_json": ("design_flows.json", "the design-flow step (design-flow)"),
 }
 
 #: Rasters of the flow folder, in the order they are tried for a map background.
@@ -94,7 +97,8 @@ class RunFolder:
 
     # ------------------------------------------------------------------ JSON
     def json(self, key):
-        """The parsed JSON product ``key`` (``provenance`` or ``flow``), or None."""
+        """The parsed JSON product ``key`` (``provenance``, ``flow`` or
+        ``design_flows_json``), or None."""
         if key not in self._json:
             p = self.path(key)
             value = None

@@ -56,6 +56,12 @@ table.outlets td.w { color: var(--warn); }
 .pair { display: grid; grid-template-columns: 1fr 1fr; gap: 18px; align-items: start;
         margin-top: 12px; }
 figure { margin: 0; }
+.design { margin-top: 16px; }
+.design figure img { max-width: 860px; }
+.design h4 { font-size: 14px; margin: 14px 0 4px; }
+table.design td.w, .design strong.w { color: var(--warn); }
+table.design td.note { color: var(--muted); }
+table.design.inputs th { width: 34%%; }
 figure img { width: 100%%; height: auto; display: block; border: 1px solid var(--rule);
              background: white; }
 figcaption { font-size: 12.5px; color: var(--muted); margin-top: 3px; }

@@ -19,6 +19,7 @@ from pathlib import Path
 
 from . import sections as H
 from ._assets import CSS, SCRIPT
+from .design import design_html
 
 __all__ = ["write_report", "render_report", "SUMMARY_SECTIONS"]
 
@@ -71,6 +72,7 @@ def _outlet_section(d, figs, oid):
         missing.append("the hypsometric curve (hypsometry.csv)")
     out.append("<div>" + H.warnings_html(d, oid) + "</div>")
     out.append("</div>")
+    out.append(design_html(d, oid))
     if missing:
         out.append('<p class="note">Not shown, not in this folder for this outlet: '
                    + H.esc("; ".join(missing)) + ".</p>")

@@ -54,6 +54,9 @@ class ReportData:
         self.summary_mode = False
         self.section_note = ""
         self.lowered_cells = None      # (n, 2) x, y of cells lowered by conditioning
+        self.design = {}               # outlet id -> rows of design_flows.csv
+        self.design_meta = {}          # design_flows.json
+        self.design_hydrographs = {}   # outlet id -> its rows of hydrographs.csv
 
 
 def _records(frame, key="outlet_id"):
@@ -103,9 +106,11 @@ def _outlets(d):
         frames.append(pd.DataFrame({"outlet_id": e["outlet_id"], "status": "failed",
                                     "error": e[reason].astype(str) if reason else ""}))
     if not frames:
-        for key in ("morphometry", "flow_paths"):
-            t = run.table(key, usecols=["outlet_id", "error"])
+        for key in ("morphometry", "flow_paths", "design_flows"):
+            t = run.table(key, usecols=["outlet_id", "error", "status", "note"])
             if t is not None and "outlet_id" in t.columns:
+                if "error" not in t.columns and "status" in t.columns:  # design_flows.csv
+                    t["error"] = t["note"].where(t["status"] == "failed", "")
                 t = t.drop_duplicates("outlet_id")
                 err = (t["error"].astype(object).where(t["error"].notna(), "").astype(str)
                        if "error" in t.columns else "")
@@ -345,6 +350,9 @@ def collect(run, report_outlets=(), full_sections_max=50, summary_sections=10,
     if isinstance(extra, list):
         d.cautions += [str(c) for c in extra if str(c) not in d.cautions]
     _choose_sections(d, report_outlets, full_sections_max, summary_sections)
+    from .design import collect_design
+
+    collect_design(d)
     fill, d.lowered_cells = depression_stats(d, progress=progress)
     _flags(d, radius, fill)
     _notes(d)

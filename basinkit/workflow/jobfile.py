@@ -45,6 +45,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError, JobFileError
+from .steps.design_flow import DESIGN_FLOW_SCHEMA
 
 __all__ = ["JobSpec", "read_job", "job_from_dict", "demo_job_path", "JOB_SCHEMA"]
 
@@ -146,6 +147,7 @@ JOB_SCHEMA = {
     "morphometry": {
         "enabled": _S(kind="bool", default=True, help="Compute basin morphometry."),
     },
+    "design_flow": DESIGN_FLOW_SCHEMA,
     "outputs": {
         "folder": _S(kind="path", default="basinkit-output",
                      help="Output folder (relative to the job file)."),
@@ -223,6 +225,14 @@ def _check_value(section, key, value, spec, base: Path):
         if not np.isfinite(value):
             raise bad("a finite number")
         return float(value)
+    if kind in ("depth", "duration"):  # text with its unit, kept as given (the step parses)
+        from ..units import parse_depth, parse_duration
+
+        try:
+            (parse_depth if kind == "depth" else parse_duration)(value, where)
+        except InputError as exc:
+            raise JobFileError(f"{exc} (in the job file)") from None
+        return value
     if kind in ("area", "length"):
         if isinstance(value, bool) or not isinstance(value, (int, float, str)):
             raise bad("a number or a quantity with a unit such as "
@@ -364,6 +374,9 @@ def job_from_dict(data: dict, base=".", path=None) -> JobSpec:
     for key in ("slope_window", "slope_drop", "vertical_precision"):
         if pr[key] is not None and pr[key] <= 0:
             raise JobFileError(f"[profiles] {key} must be positive, got {pr[key]!r}")
+    df = sections["design_flow"]  # on when the section is given, unless enabled = false
+    if df["enabled"] is None:
+        df["enabled"] = "design_flow" in data
     return JobSpec(path=None if path is None else Path(path), base=base, sections=sections)
 
 

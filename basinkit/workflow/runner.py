@@ -76,8 +76,8 @@ def settings_of(job: JobSpec) -> dict:
     """The step settings a job file stands for (the same objects the commands build from
     their options)."""
     from .outlets import OutletSpec
-    from .steps import (CatchmentSettings, ChannelSettings, FlowSettings,
-                        MorphometrySettings, ProfileSettings)
+    from .steps import (CatchmentSettings, ChannelSettings, DesignFlowStepSettings,
+                        FlowSettings, MorphometrySettings, ProfileSettings)
 
     ins, cond, rt = job["inputs"], job["conditioning"], job["routing"]
     oc, ch, pr, outs = job["outlets"], job["channels"], job["profiles"], job["outputs"]
@@ -110,6 +110,8 @@ def settings_of(job: JobSpec) -> dict:
         "morphometry": MorphometrySettings(min_area_m2=ch["min_area"],
                                            figures=outs["figures"],
                                            figure_outlets=figure_outlets),
+        "design_flow": DesignFlowStepSettings.from_job(job["design_flow"], outs["figures"],
+                                                       figure_outlets),
     }
 
 
@@ -191,6 +193,7 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
         raw = read_errors = None
         if spec:
             raw, read_errors = spec.read()
+        design = _design_flow_inputs(job, st, terrain, inputs)
     out.open()
     res.terrain = terrain
     with timer("flow"):
@@ -243,6 +246,13 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
         else:
             timer.skip("morphometry",
                        "turned off in the job file ([morphometry] enabled = false)")
+        if design is not None:
+            from .steps import design_flow_step
+
+            with timer("design_flow"):
+                dres = design_flow_step(out, fm, placed, st["design_flow"], hydro=design,
+                                        delineation=cres.delineation, reporter=rep)
+            failures.append(dres.failures.assign(stage="design_flow"))
     cols = ["outlet_id", "source", "stage", "reason"]
     parts = [f[cols] for f in failures if len(f)]
     res.failures = (pd.concat(parts, ignore_index=True) if parts
@@ -270,6 +280,19 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
                  "error columns of the tables")
     rep.info(f"wrote {out.folder} ({res.provenance['seconds_total']:.1f} s)")
     return res
+
+
+def _design_flow_inputs(job, st, terrain, inputs):
+    """The design-flow settings of ``[design_flow]`` with their files read and checked (in
+    the read stage, before anything is written); None when the section is off."""
+    if not job["design_flow"]["enabled"]:
+        return None
+    if not job["inputs"]["outlets"]:
+        from ..errors import JobFileError
+
+        raise JobFileError("[design_flow] needs outlets: give [inputs] outlets")
+    inputs.update(st["design_flow"].inputs())
+    return st["design_flow"].build(terrain)
 
 
 def _report(job, out, res, timer, rep, write_report):

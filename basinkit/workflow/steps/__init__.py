@@ -14,6 +14,8 @@ profiles_step      ``profile``             profile.csv, steepness.csv, knickpoin
                                            flow_paths.csv, profiles.gpkg/.json, figures/
 morphometry_step   ``morphometry``         morphometry.csv, hypsometry.csv,
                                            morphometry.json, figures/
+design_flow_step   ``design-flow``         design_flows.csv/.gpkg/.json, hydrographs.csv,
+                                           figures/
 =================  ======================  ===============================================
 
 Each step takes the output folder, its inputs (a FlowModel, the placed outlets, ...), a
@@ -23,6 +25,7 @@ through ``reporter.outlet_failed``; the other outlets go on.
 """
 
 from .catchments import CatchmentSettings, CatchmentsResult, catchments_step
+from .design_flow import DesignFlowResult, DesignFlowStepSettings, design_flow_step
 from .channels import ChannelSettings, ChannelsResult, build_network, channels_step
 from .flow import FlowSettings, flow_step, read_terrain
 from .morphometry import MorphometryResult, MorphometrySettings, morphometry_step
@@ -32,4 +35,5 @@ __all__ = ["FlowSettings", "read_terrain", "flow_step",
            "CatchmentSettings", "CatchmentsResult", "catchments_step",
            "ChannelSettings", "ChannelsResult", "build_network", "channels_step",
            "ProfileSettings", "ProfilesResult", "profiles_step",
-           "MorphometrySettings", "MorphometryResult", "morphometry_step"]
+           "MorphometrySettings", "MorphometryResult", "morphometry_step",
+           "DesignFlowStepSettings", "DesignFlowResult", "design_flow_step"]
