@@ -15,16 +15,24 @@ licensed professional practice.
 
 __version__ = "0.1.0"
 
-from .conditioning import ConditionSummary, condition, fill_depressions  # noqa: E402
-from .errors import (BasinkitError, InputError, MemoryBudgetError, OutletError,
-                     OutputExistsError)
-from .io.dem import read_dem  # noqa: E402
-from .io.flow_folder import load_flow, write_flow_folder  # noqa: E402
-from .routing import FlowModel, route  # noqa: E402
-from .terrain import Terrain, terrain_from_array  # noqa: E402
-
-# loaded on first use, so that importing basinkit (and starting the CLI) stays quick
+# every public name is loaded on first use (PEP 562), so that importing basinkit, and
+# starting the CLI, loads neither numba nor the kernels until a command needs them
 _LAZY = {
+    "ConditionSummary": "conditioning",
+    "condition": "conditioning",
+    "fill_depressions": "conditioning",
+    "BasinkitError": "errors",
+    "InputError": "errors",
+    "MemoryBudgetError": "errors",
+    "OutletError": "errors",
+    "OutputExistsError": "errors",
+    "read_dem": "io.dem",
+    "load_flow": "io.flow_folder",
+    "write_flow_folder": "io.flow_folder",
+    "FlowModel": "routing",
+    "route": "routing",
+    "Terrain": "terrain",
+    "terrain_from_array": "terrain",
     "breach_depressions": "conditioning.breach",
     "burn_lines": "conditioning.burn",
     "read_lines": "io.lines",
@@ -82,10 +90,4 @@ def __dir__():
     return sorted(list(globals()) + list(_LAZY))
 
 
-__all__ = [
-    "__version__", "Terrain", "read_dem", "terrain_from_array", "condition",
-    "fill_depressions", "ConditionSummary", "route", "FlowModel", "load_flow",
-    "write_flow_folder",
-    "BasinkitError", "InputError", "MemoryBudgetError", "OutputExistsError", "OutletError",
-    *_LAZY,
-]
+__all__ = ["__version__", *_LAZY]

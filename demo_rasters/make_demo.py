@@ -290,7 +290,9 @@ def main(out_dir=None):
 
     z, info = build()
     rng = np.random.default_rng(SEED + 1)
-    write_geotiff(out / "upland_valley.tif", z, TRANSFORM, CRS, nodata=float("nan"))
+    # DEFLATE level 6, which every GDAL reads (the products are written with ZSTD)
+    write_geotiff(out / "upland_valley.tif", z, TRANSFORM, CRS, nodata=float("nan"),
+                  codec="deflate", level=6)
     outlets = sampling_points(z, info, rng)
     write_csv(out / "outlets.csv", pd.DataFrame(outlets))
     crs_obj = {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}}

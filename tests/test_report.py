@@ -8,9 +8,11 @@ are named beside each check.
 
 import base64
 import io
+import json
 import re
 import shutil
 from html.parser import HTMLParser
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -118,6 +120,15 @@ def test_demo_report_is_self_contained_and_images_decode(demo):
         assert np.asarray(im.convert("L")).std() > 5
 
 
+def input_dem(folder):
+    """The DEM as route read it: flow.json names the file (no copy without --copy-input;
+    README, the flow folder)."""
+    rec = json.loads((folder / "flow" / "flow.json").read_text())["input_elevation"]
+    assert rec["stored"] == "reference" and rec["band"] == 1
+    assert not (folder / "flow" / "elevation_input.tif").exists()
+    return Path(rec["path"])
+
+
 def test_demo_report_states_cautions_and_the_dem(demo):
     """The cautions of the house rules; the DEM's cell size and CRS as the GeoTIFF says
     (read back with rasterio, a reference library); the snapping of the job file; the
@@ -129,7 +140,7 @@ def test_demo_report_states_cautions_and_the_dem(demo):
                    "unless they were burned into the DEM", "in the field",
                    "local drainage manual", "local codes", "licensed professional practice"):
         assert phrase in text, phrase
-    with rasterio.open(folder / "flow" / "elevation_input.tif") as ds:
+    with rasterio.open(input_dem(folder)) as ds:
         res, epsg = ds.res, ds.crs.to_epsg()
     assert f"{res[0]:g} × {res[1]:g} m" in text
     assert f"EPSG:{epsg}" in text
@@ -188,7 +199,7 @@ def test_demo_report_warns_where_conditioning_filled_deep(demo):
     from rasterio.features import geometry_mask
 
     folder, text, _ = demo
-    with rasterio.open(folder / "flow" / "elevation_input.tif") as a, \
+    with rasterio.open(input_dem(folder)) as a, \
             rasterio.open(folder / "flow" / "elevation_conditioned.tif") as c:
         diff = c.read(1).astype(float) - a.read(1).astype(float)
         tr, shape = a.transform, a.shape

@@ -17,11 +17,15 @@ from .options import (conditioning_options, dem_options, finish, output_folder,
               help="Exponent of the multiple-flow-direction partition (Freeman 1991).")
 @click.option("--condition", "conditioning", type=click.Choice(["fill", "breach", "none"]),
               default="fill", show_default=True, help="Conditioning to run first.")
+@click.option("--copy-input", is_flag=True,
+              help="Keep a copy of the DEM as read in the flow folder "
+                   "(elevation_input.tif); by default flow.json names the DEM file and its "
+                   "SHA-256, and later commands read it from there.")
 @conditioning_options
 @dem_options
 @overwrite_option
 @click.pass_obj
-def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
+def command(console, dem, output, method, mfd_exponent, copy_input, conditioning, epsilon,
             max_breach_depth, max_breach_length, burn, burn_depth, band, crs, sea_level,
             base_level, overwrite, dem_checks):
     """Route flow over a DEM and write the flow folder later commands read.
@@ -39,7 +43,8 @@ def command(console, dem, output, method, mfd_exponent, conditioning, epsilon,
         max_breach_length_m=(parse_length(max_breach_length, "--max-breach-length")
                              if max_breach_length else None),
         burn_lines=list(burn), burn_depth_m=burn_depth, method=method,
-        mfd_exponent=mfd_exponent, **FlowSettings.dem_check_fields(dem_checks))
+        mfd_exponent=mfd_exponent, copy_input=copy_input,
+        **FlowSettings.dem_check_fields(dem_checks))
     out = output_folder(output, overwrite)
     with console.stage("read"):
         terrain = read_terrain(settings)

@@ -11,7 +11,8 @@ from ..errors import InputError
 from ..routing import _d8, _stack
 from ..routing.flow_model import D8_NODATA, FlowModel
 from ..terrain.model import Terrain
-from .writers import prepare_output_dir, provenance, write_geotiff, write_json
+from .writers import (prepare_output_dir, provenance, raster_codec, write_geotiff,
+                      write_json)
 
 __all__ = ["FILES", "write_flow_folder", "load_flow"]
 
@@ -28,18 +29,34 @@ FILES = {
 
 
 def write_flow_folder(fm, folder, overwrite: bool = False,
-                      extra_provenance: dict | None = None):
+                      extra_provenance: dict | None = None, copy_input: bool | None = None):
     """Write the flow folder of a FlowModel: GeoTIFFs with the input's georeferencing and
-    flow.json. Returns the folder."""
+    flow.json. Returns the folder.
+
+    The DEM as read is not copied when it came from a file: flow.json names that file and
+    its SHA-256, and :func:`load_flow` reads it from there (refusing a file that changed).
+    ``copy_input=True`` (``basinkit route --copy-input``) writes the copy,
+    elevation_input.tif, as well, so that the folder stands on its own; a DEM that did not
+    come from a file (an array) is always copied.
+    """
 
     out = prepare_output_dir(folder, overwrite)
     for name in FILES.values():  # no stale layer of an earlier run may stay listed
         (out / name).unlink(missing_ok=True)
     t = fm.terrain
     nod = np.float32(np.nan)
+    src = t.source if isinstance(t.source, dict) else {}
+    input_record = None
     if fm.input_elevation is not None:
-        write_geotiff(out / FILES["input"], fm.input_elevation, t.transform, t.crs,
-                      nodata=nod)
+        if copy_input is None:
+            copy_input = not (src.get("path") and src.get("sha256"))
+        if copy_input:
+            write_geotiff(out / FILES["input"], fm.input_elevation, t.transform, t.crs,
+                          nodata=nod)
+            input_record = {"stored": "copy", "file": FILES["input"]}
+        else:
+            input_record = {"stored": "reference", "path": src["path"],
+                            "sha256": src["sha256"], "band": src.get("band") or 1}
     write_geotiff(out / FILES["conditioned"], t.elevation, t.transform, t.crs, nodata=nod)
     write_geotiff(out / FILES["d8"], fm.direction_d8(), t.transform, t.crs,
                   nodata=D8_NODATA)
@@ -60,6 +77,7 @@ def write_flow_folder(fm, folder, overwrite: bool = False,
                       files={k: v for k, v in FILES.items()
                              if (out / v).exists() or k == "meta"},
                       base_level=bool(t.base_level is not None and t.base_level.any()),
+                      input_elevation=input_record, raster_codec=raster_codec(),
                       **(extra_provenance or {}))
     write_json(out / FILES["meta"], meta)
     return out
@@ -70,6 +88,29 @@ def _read_band(path):
 
     with rasterio.open(path) as ds:
         return ds.read(1), ds.transform, ds.crs
+
+
+def _read_referenced_input(rec, folder, shape, crs):
+    """The DEM as read by route, from the file flow.json names, if it is unchanged."""
+    from .dem import read_dem
+
+    path = Path(rec["path"])
+    again = ("run route again, or run it with --copy-input to keep a copy of the DEM in "
+             "the flow folder")
+    if not path.is_file():
+        raise InputError(f"the flow folder {str(folder)!r} reads the DEM as given to route "
+                         f"from {str(path)!r}, which is no longer there; put it back or "
+                         f"{again}")
+    terrain = read_dem(path, band=int(rec.get("band") or 1), crs=crs.to_wkt(),
+                       check_ram=False)
+    if terrain.source.get("sha256") != rec.get("sha256"):
+        raise InputError(f"the DEM {str(path)!r} changed since the flow folder "
+                         f"{str(folder)!r} was made from it (its SHA-256 differs); {again}")
+    z = terrain.elevation
+    if z.shape != shape:
+        raise InputError(f"the DEM {str(path)!r} is not on the grid of the flow folder "
+                         f"{str(folder)!r}; {again}")
+    return z
 
 
 def load_flow(folder) -> FlowModel:
@@ -113,6 +154,9 @@ def load_flow(folder) -> FlowModel:
     fm = FlowModel(terrain, rec, stack, params.get("method", "d8"), parameters=params)
     if (p / FILES["input"]).exists():
         fm.input_elevation = _read_band(p / FILES["input"])[0].astype(np.float32)
+    elif (meta.get("input_elevation") or {}).get("stored") == "reference":
+        fm.input_elevation = _read_referenced_input(meta["input_elevation"], p, z.shape,
+                                                    pcrs)
     if fm.method in ("dinf", "mfd"):
         from ..routing.multi import dinf_azimuth, multi_receivers
 

@@ -161,7 +161,35 @@ class RunFolder:
     # ------------------------------------------------------------------ rasters
     def elevation_raster(self):
         """Path of the DEM as read (else the conditioned DEM) in the flow folder, or None."""
-        return self.first_existing(ELEVATION_RASTERS)
+        return self.input_elevation_raster() or self.first_existing(ELEVATION_RASTERS)
+
+    def input_elevation_raster(self):
+        """Path of the DEM as route read it: the flow folder's copy (elevation_input.tif)
+        or the file flow.json names, when it is unchanged (same SHA-256), north-up and on
+        the flow folder's grid; else None."""
+        if "input_elevation" not in self._json:
+            self._json["input_elevation"] = self._input_elevation_raster()
+        return self._json["input_elevation"]
+
+    def _input_elevation_raster(self):
+        copy = self.first_existing(ELEVATION_RASTERS[:1])
+        if copy is not None:
+            return copy
+        rec = (self.json("flow") or {}).get("input_elevation") or {}
+        cond = self.first_existing(ELEVATION_RASTERS[1:])
+        if rec.get("stored") != "reference" or rec.get("band", 1) != 1 or cond is None:
+            return None
+        p = Path(str(rec.get("path", "")))
+        try:
+            from .hashing import file_sha256
+
+            if not p.is_file() or file_sha256(p) != rec.get("sha256"):
+                return None
+            a, b = self.raster_info(p), self.raster_info(cond)
+        except Exception as exc:  # noqa: BLE001 - an unreadable DEM is a note, not a stop
+            self._problem(str(p), exc)
+            return None
+        return p if a[:2] == b[:2] else None
 
     def raster_info(self, path):
         """``(transform, shape, crs, units)`` of a raster (units: the band's unit string,

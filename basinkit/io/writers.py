@@ -13,7 +13,7 @@ import numpy as np
 
 from ..errors import OutputExistsError
 
-__all__ = ["atomic_path", "write_geotiff", "write_json", "write_csv", "provenance",
+__all__ = ["atomic_path", "write_geotiff", "raster_codec", "codec_available", "write_json", "write_csv", "provenance",
            "prepare_output_dir", "check_output"]
 
 
@@ -57,15 +57,83 @@ def atomic_path(path):
         raise
 
 
-def write_geotiff(path, array, transform, crs, nodata=None, tags=None):
-    """Write one band as a tiled, compressed GeoTIFF with the given georeferencing."""
+#: GeoTIFF codec of the products: ZSTD level 1 (about as small as DEFLATE level 6 on
+#: elevations, directions and accumulations, and 5-10 times faster to write), compressed
+#: in GDAL's worker threads. GDAL reads ZSTD from version 2.3 on; a GDAL built without it
+#: writes DEFLATE instead (see :func:`raster_codec`).
+DEFAULT_CODEC = "zstd"
+#: compression level per codec when none is given; DEFLATE, when it stands in for a
+#: missing ZSTD, is written at its fast level 1
+CODEC_LEVELS = {"zstd": 1, "deflate": 1}
+_CODEC_SUPPORT: dict = {}
+
+
+def codec_available(codec: str) -> bool:
+    """Whether this GDAL writes GeoTIFFs compressed with ``codec`` (probed once, in
+    memory: GDAL ignores a codec it lacks, with a warning, and writes the file
+    uncompressed)."""
+    codec = codec.lower()
+    if codec not in _CODEC_SUPPORT:
+        import warnings
+
+        import rasterio
+        from rasterio.io import MemoryFile
+
+        ok = False
+        try:
+            with warnings.catch_warnings(), rasterio.Env(CPL_LOG="/dev/null"):
+                warnings.simplefilter("ignore")
+                with MemoryFile() as mem:
+                    with mem.open(driver="GTiff", height=1, width=1, count=1,
+                                  dtype="uint8", compress=codec) as ds:
+                        ds.write(np.zeros((1, 1, 1), np.uint8))
+                    with mem.open() as ds:
+                        ok = str(ds.profile.get("compress", "")).lower() == codec
+        except Exception:  # noqa: BLE001 - any failure means: do not use this codec
+            ok = False
+        _CODEC_SUPPORT[codec] = ok
+    return _CODEC_SUPPORT[codec]
+
+
+def raster_codec() -> str:
+    """The codec :func:`write_geotiff` uses by default here: ``"zstd"``, or ``"deflate"``
+    where this GDAL lacks ZSTD."""
+    return DEFAULT_CODEC if codec_available(DEFAULT_CODEC) else "deflate"
+
+
+def write_geotiff(path, array, transform, crs, nodata=None, tags=None, *, codec=None,
+                  level=None):
+    """Write one band as a tiled, compressed GeoTIFF with the given georeferencing.
+
+    Parameters
+    ----------
+    codec : {"zstd", "deflate"}, optional
+        Default :func:`raster_codec` (ZSTD level 1, or DEFLATE level 1 where GDAL lacks
+        ZSTD). Files shipped for others to read (the demo DEM) pass ``"deflate"``.
+    level : int, optional
+        Compression level (default :data:`CODEC_LEVELS`).
+
+    Notes
+    -----
+    Tiles of 256 x 256 cells are compressed in GDAL's worker threads (``NUM_THREADS``);
+    the file's bytes do not depend on the number of threads. float32 bands use the
+    floating-point predictor (about 12 % smaller elevations); integer and float64 bands
+    none, which measured smaller and faster for directions, counts and areas.
+    """
     import rasterio
 
     array = np.asarray(array)
+    codec = (codec or raster_codec()).lower()
+    if level is None:
+        level = CODEC_LEVELS.get(codec, 6)
     profile = dict(driver="GTiff", height=array.shape[0], width=array.shape[1], count=1,
                    dtype=array.dtype, transform=transform, crs=_rio_crs(crs), nodata=nodata,
-                   compress="deflate", predictor=2 if array.dtype.kind in "iu" else 3,
-                   zlevel=6)
+                   compress=codec, num_threads="ALL_CPUS")
+    if codec == "zstd":
+        profile.update(zstd_level=level,
+                       predictor=3 if array.dtype == np.float32 else 1)
+    else:
+        profile.update(zlevel=level, predictor=2 if array.dtype.kind in "iu" else 3)
     if array.shape[0] >= 256 and array.shape[1] >= 256:
         profile.update(tiled=True, blockxsize=256, blockysize=256)
     with atomic_path(path) as tmp:

@@ -58,9 +58,9 @@ def depression_stats(d, progress=None):
     """``({outlet id: (max fill depth m, fraction of cells raised, volume m³)},
     lowered cells (n, 2) or None)``; empty when the flow folder lacks a DEM."""
     run = d.run
-    zin = run.folder / "flow" / "elevation_input.tif"
+    zin = run.input_elevation_raster()
     zc = run.folder / "flow" / "elevation_conditioned.tif"
-    if not (zin.is_file() and zc.is_file()):
+    if zin is None or not zc.is_file():
         return {}, None
     labels = run.first_existing(("subcatchment_labels.tif", "catchment_labels.tif"))
     cat = d.tables["catchment"]

@@ -88,6 +88,9 @@ JOB_SCHEMA = {
                           help="Cells at or below this elevation are exits."),
         "base_level": _S(kind="path", default=None,
                          help="Mask raster or polygon layer of exit cells (sea, lake)."),
+        "copy_input": _S(kind="bool", default=False,
+                         help="Keep a copy of the DEM as read in flow/elevation_input.tif "
+                              "(default: flow.json names the DEM and its SHA-256)."),
     },
     "conditioning": {
         "method": _S(kind="choice:fill|breach|none", default="fill",

@@ -35,6 +35,9 @@ class FlowSettings:
         Line layers (culverts, known channels) burned ``burn_depth_m`` deep first.
     method : {"d8", "dinf", "mfd"}
     mfd_exponent : float
+    copy_input : bool
+        Keep a copy of the DEM as read in the flow folder (elevation_input.tif); by
+        default flow.json names the DEM file and its SHA-256 instead.
     """
 
     dem: object
@@ -55,6 +58,7 @@ class FlowSettings:
     burn_depth_m: float = 2.0
     method: str = "d8"
     mfd_exponent: float = 1.1
+    copy_input: bool = False
 
     def parameters(self) -> dict:
         return {"dem": str(self.dem), "band": self.band,
@@ -168,7 +172,7 @@ def flow_step(out, settings: FlowSettings, terrain=None, burn=None, reporter=Non
         inputs = {f"burn_lines_{i + 1}": {"path": str(p), "sha256": file_sha256(p)}
                   for i, p in enumerate(settings.burn_lines)}
     folder = out.folder
-    write_flow_folder(fm, folder, overwrite=True,
+    write_flow_folder(fm, folder, overwrite=True, copy_input=settings.copy_input,
                       extra_provenance={"cautions": CAUTION_TEXT, "burn_line_inputs": inputs,
                                         "seconds": round(time.perf_counter() - t0, 3)})
     for name in FILES.values():

@@ -1,0 +1,164 @@
+"""The flow folder's files: codec, the DEM referenced instead of copied, byte-identical runs.
+
+Sources: the GDAL GTiff driver documentation (COMPRESS=ZSTD/DEFLATE, ZSTD_LEVEL, PREDICTOR,
+NUM_THREADS; a codec GDAL lacks is ignored with a warning), read back with rasterio (a
+reference library); the output contract in DESIGN.md (byte-identical reruns, one clear
+line for a bad input).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+
+import numpy as np
+import pytest
+import rasterio
+from affine import Affine
+
+from basinkit import load_flow, read_dem, route, write_flow_folder
+from basinkit.errors import InputError
+from basinkit.io import writers
+from basinkit.io.flow_folder import FILES
+
+TR = Affine(10, 0, 500000, 0, -10, 5000000)
+
+
+def write_dem(path, z):
+    with rasterio.open(path, "w", driver="GTiff", height=z.shape[0], width=z.shape[1],
+                       count=1, dtype="float32", crs="EPSG:32633", transform=TR,
+                       nodata=np.nan) as ds:
+        ds.write(z.astype(np.float32), 1)
+    return path
+
+
+@pytest.fixture
+def dem300(tmp_path, fractal):
+    # more than one 256-cell tile each way, so that tiles compress in GDAL's threads
+    z = fractal(300, 280, seed=3, holes=2)
+    return write_dem(tmp_path / "dem.tif", z), z
+
+
+def digest(path):
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def test_products_are_tiled_zstd_and_read_back_exactly(tmp_path, dem300):
+    """GDAL GTiff driver: ZSTD with 256 x 256 tiles; the floating-point predictor on the
+    float32 band only. Values read back unchanged (the codecs are lossless)."""
+    dem, z = dem300
+    fm = route(read_dem(dem))
+    out = write_flow_folder(fm, tmp_path / "flow")
+    meta = json.loads((out / FILES["meta"]).read_text())
+    assert meta["raster_codec"] == "zstd"
+    for key, pred in (("conditioned", 3), ("d8", 1), ("cells", 1), ("area", 1)):
+        with rasterio.open(out / FILES[key]) as ds:
+            assert ds.profile["compress"].lower() == "zstd", key
+            assert ds.profile["tiled"] and ds.block_shapes[0] == (256, 256), key
+            assert int(ds.tags(ns="IMAGE_STRUCTURE").get("PREDICTOR", 1)) == pred, key
+            a = ds.read(1)
+    with rasterio.open(out / FILES["conditioned"]) as ds:
+        np.testing.assert_array_equal(ds.read(1), fm.terrain.elevation)
+    with rasterio.open(out / FILES["area"]) as ds:
+        np.testing.assert_array_equal(ds.read(1), fm.upstream_area())
+    assert a.shape == z.shape
+
+
+def test_without_zstd_the_rasters_are_deflate(tmp_path, dem300, monkeypatch):
+    """A GDAL built without ZSTD (simulated: the probe says no) writes DEFLATE, which every
+    GDAL reads, says so in flow.json, and the values are the same."""
+    dem, _ = dem300
+    fm = route(read_dem(dem))
+    monkeypatch.setitem(writers._CODEC_SUPPORT, "zstd", False)
+    assert writers.raster_codec() == "deflate"
+    out = write_flow_folder(fm, tmp_path / "flow")
+    assert json.loads((out / FILES["meta"]).read_text())["raster_codec"] == "deflate"
+    for key in ("conditioned", "d8", "cells", "area"):
+        with rasterio.open(out / FILES[key]) as ds:
+            assert ds.profile["compress"].lower() == "deflate", key
+    with rasterio.open(out / FILES["d8"]) as ds:
+        np.testing.assert_array_equal(ds.read(1), fm.direction_d8())
+
+
+def test_the_codec_probe_says_no_to_a_codec_gdal_lacks():
+    """GDAL ignores an unknown COMPRESS value (GTiff driver documentation): the probe must
+    see that the file came out uncompressed. DEFLATE is in every GDAL build."""
+    assert writers.codec_available("deflate")
+    assert not writers.codec_available("no-such-codec")
+
+
+def test_two_runs_give_byte_identical_rasters(tmp_path, dem300):
+    """Output contract: the same input gives the same bytes, threaded compression
+    included."""
+    dem, _ = dem300
+    a = write_flow_folder(route(read_dem(dem)), tmp_path / "a")
+    b = write_flow_folder(route(read_dem(dem)), tmp_path / "b")
+    for key in ("conditioned", "d8", "cells", "area"):
+        assert digest(a / FILES[key]) == digest(b / FILES[key]), key
+
+
+def test_the_dem_is_referenced_and_read_back_from_its_file(tmp_path, dem300):
+    """No copy of the DEM by default: flow.json names it with its SHA-256 (hashlib, the
+    standard library), and load_flow reads the DEM as route read it."""
+    dem, z = dem300
+    fm = route(read_dem(dem))
+    out = write_flow_folder(fm, tmp_path / "flow")
+    assert not (out / FILES["input"]).exists()
+    rec = json.loads((out / FILES["meta"]).read_text())["input_elevation"]
+    assert rec == {"stored": "reference", "path": str(dem.resolve()),
+                   "sha256": digest(dem), "band": 1}
+    back = load_flow(out)
+    np.testing.assert_array_equal(back.input_elevation, z.astype(np.float32))
+    np.testing.assert_array_equal(back.input_elevation, fm.input_elevation)
+
+
+def test_copy_input_keeps_the_dem_in_the_folder(tmp_path, dem300):
+    """copy_input=True (route --copy-input) writes elevation_input.tif; the folder then
+    reads without the original file."""
+    dem, z = dem300
+    out = write_flow_folder(route(read_dem(dem)), tmp_path / "flow", copy_input=True)
+    rec = json.loads((out / FILES["meta"]).read_text())["input_elevation"]
+    assert rec == {"stored": "copy", "file": FILES["input"]}
+    dem.unlink()
+    np.testing.assert_array_equal(load_flow(out).input_elevation, z.astype(np.float32))
+
+
+def test_an_array_dem_is_always_copied(tmp_path, fractal):
+    """A Terrain built from an array has no file to name: the copy is written."""
+    from basinkit import terrain_from_array
+
+    z = fractal(40, seed=5)
+    out = write_flow_folder(route(terrain_from_array(z, cellsize=10)), tmp_path / "flow")
+    assert (out / FILES["input"]).exists()
+    np.testing.assert_array_equal(load_flow(out).input_elevation, z)
+
+
+def test_a_changed_or_missing_dem_is_refused_with_what_to_do(tmp_path, dem300):
+    """Output contract: a bad input is one clear line (InputError) saying what to do."""
+    dem, z = dem300
+    out = write_flow_folder(route(read_dem(dem)), tmp_path / "flow")
+    write_dem(dem, z + 1)
+    with pytest.raises(InputError, match="changed since.*--copy-input"):
+        load_flow(out)
+    dem.unlink()
+    with pytest.raises(InputError, match="no longer there.*--copy-input"):
+        load_flow(out)
+
+
+def test_cli_delineate_on_a_folder_whose_dem_changed_exits_2(tmp_path, dem300, capsys):
+    """The commands map that InputError to exit status 2, one line, no traceback."""
+    from basinkit.cli.main import main
+
+    def run(*argv):
+        with pytest.raises(SystemExit) as exc:
+            main([str(a) for a in argv])
+        return exc.value.code or 0, capsys.readouterr().err
+
+    dem, z = dem300
+    flow = tmp_path / "flow"
+    assert run("route", dem, "-o", flow)[0] == 0
+    write_dem(dem, z[::-1].copy())
+    x, y = TR @ (150.5, 140.5)
+    code, err = run("delineate", flow, "--outlet", f"{x},{y}", "-o", tmp_path / "out")
+    assert code == 2
+    assert "changed since" in err and "Traceback" not in err
