@@ -177,7 +177,7 @@ def test_implausible_elevations(tmp_path, capsys):
     assert code == 0, err
     rec = json.loads((tmp_path / "n" / "flow.json").read_text())["inputs"]["dem"]
     assert rec["implausible_elevation_cells"] == 2
-    with rasterio.open(tmp_path / "n" / "elevation_input.tif") as ds:
+    with rasterio.open(tmp_path / "n" / "elevation_conditioned.tif") as ds:
         zi = ds.read(1)
     assert np.isnan(zi[5, 5]) and np.nanmax(zi) < 300
     refused(["route", write_tif(tmp_path / "ok.tif", plane()), "--elevation-range", "0,150",
