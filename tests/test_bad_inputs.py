@@ -489,3 +489,19 @@ def test_snapping_is_recorded_in_every_output(tmp_path, flow_dir, capsys):
                      "-o", tmp_path / "p"], capsys)
     rec = json.loads((tmp_path / "p" / "catchments.json").read_text())["snapping"]
     assert rec["radius_m"] == 15.0 and rec["radius_default"] is False
+
+
+def test_reading_notes_are_recorded(tmp_path, capsys):
+    """How an outlet file was read (here ';' and decimal commas) is written into
+    catchments.json beside the snapping, not only printed (DESIGN.md, provenance)."""
+    p = write_tif(tmp_path / "plane.tif", plane())
+    code, err = run(["route", p, "-o", tmp_path / "flow"], capsys)
+    assert code == 0, err
+    b = tmp_path / "comma.csv"
+    b.write_text("id;x;y\nA;500155,5;4999655,25\n")
+    code, err = run(["delineate", tmp_path / "flow", "--outlets", b, "-o", tmp_path / "c"],
+                    capsys)
+    assert code == 0, err
+    rec = json.loads((tmp_path / "c" / "catchments.json").read_text())
+    notes = rec["snapping"]["outlet_file_notes"]
+    assert len(notes) == 1 and "decimal commas" in notes[0]

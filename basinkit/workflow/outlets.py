@@ -116,7 +116,8 @@ class PlacedOutlets:
     given : int
         Number of outlets given.
     snapping : dict
-        The snapping used (mode, radius in metres, channel area).
+        The snapping used (mode, radius in metres, channel area) and the notes made
+        reading the outlet file (``outlet_file_notes``), as every step's JSON records them.
     """
 
     table: object
@@ -192,6 +193,8 @@ def place_outlets(fm, spec: OutletSpec, raw=None, read_errors=None,
         "outlets_with_snap_warning": int((table["snap_warning"].astype(str) != "").sum()),
         "snap_to_channel_m2": spec.snap_to_channel_m2,
         "outlet_crs": None if spec.crs is None else str(spec.crs),
+        # how the outlet file was read (encoding fallback, ';' and decimal commas)
+        "outlet_file_notes": list(getattr(spec, "notes", [])),
     }
     return PlacedOutlets(table.reset_index(drop=True), errors.reset_index(drop=True),
                          int(len(raw) + len(read_errors)), snapping)
