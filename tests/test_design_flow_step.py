@@ -237,7 +237,8 @@ def _refused(basin, tmp_path, capsys, *args, match, base=None, rain=None):
     out = tmp_path / "refused"
     rain = ["--idf-table", d / "idf.csv", "--return-period", "100"] if rain is None else rain
     code, _, err = run(["-q", "design-flow", d / "flow", "--outlets", d / "outlets.csv",
-                        *OUTLETS, *rain, *(BASE if base is None else base), *args, "-o", out], capsys)
+                        *OUTLETS, *rain, *(BASE if base is None else base), *args,
+                        "-o", out], capsys)
     lines = [ln for ln in err.strip().splitlines() if ln.strip()]
     assert code == 2, err
     assert len(lines) == 1 and "Traceback" not in err, err

@@ -133,6 +133,14 @@ def _uh(rows):
     return next((r for r in rows if r.get("method") == "nrcs_unit_hydrograph"), {})
 
 
+def _intensity_text(rat):
+    if _f(rat.get("rainfall_intensity_mm_per_h")) is None:
+        return "–"
+    return (f"{_fmt(rat.get('rainfall_intensity_mm_per_h'), '{:.1f}')} mm/h "
+            f"({_fmt(rat.get('rainfall_intensity_in_per_h'), '{:.2f}')} in/h) for "
+            f"{_fmt(rat.get('rainfall_duration_used_min'), '{:.1f}')} min")
+
+
 def _inputs_table(d, rows):
     uh = _uh(rows)
     rat = next((r for r in rows if r.get("method") == "rational"), {})
@@ -157,18 +165,15 @@ def _inputs_table(d, rows):
                          f"{_fmt(uh.get('initial_abstraction_ratio'), '{:g}')}"),
         ("Runoff coefficient C", _fmt(rat.get("runoff_coefficient"), "{:.3f}")
          if _f(rat.get("runoff_coefficient")) is not None else "not given"),
-        ("Rational intensity", (f"{_fmt(rat.get('rainfall_intensity_mm_per_h'), '{:.1f}')} "
-                                f"mm/h ({_fmt(rat.get('rainfall_intensity_in_per_h'), '{:.2f}')}"
-                                f" in/h) for {_fmt(rat.get('rainfall_duration_used_min'), '{:.1f}')}"
-                                " min") if _f(rat.get("rainfall_intensity_mm_per_h")) else "–"),
+        ("Rational intensity", _intensity_text(rat)),
         ("Mean land slope", f"{_fmt(uh.get('mean_land_slope_m_per_m'), '{:.3f}')} m/m"),
         ("Peak rate factor", f"{_fmt(uh.get('peak_rate_factor_us'), '{:g}')} (US) = "
                              f"{_fmt(uh.get('peak_rate_factor_si'), '{:.4f}')} (SI)"),
         ("Time step", f"{_fmt(uh.get('time_step_min'), '{:g}')} min"),
         ("Base flow", f"{_fmt(uh.get('base_flow_m3_per_s'), '{:g}')} m³/s"),
-        ("Mass balance", f"hydrograph volume within "
-                         f"{_fmt(abs(_f(uh.get('mass_balance_error_fraction')) or 0) * 100, '{:.3g}')}"
-                         " % of runoff depth × area"),
+        ("Mass balance", "hydrograph volume within "
+                         + _fmt(abs(_f(uh.get("mass_balance_error_fraction")) or 0) * 100,
+                                "{:.2g}") + " % of runoff depth × area"),
     ]
     for k, label in (("sheet_flow_n", "Sheet-flow Manning's n"),
                      ("p2_24h_mm", "2-year 24-hour rainfall (mm)"),
