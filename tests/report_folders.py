@@ -1,5 +1,5 @@
 """Output folders for the report tests, built with the workflow as it stands, and an adapter
-that adds the products of the contract (PRODUCTS.md) the job does not write yet, from the
+that adds the products of the contract (io/products.py) the job does not write yet, from the
 outputs of the ``profile`` command and the job's own per-outlet files:
 
 - ``profile.csv``, ``steepness.csv``, ``knickpoints.csv``: copied from ``basinkit profile``

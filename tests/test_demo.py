@@ -239,7 +239,7 @@ def test_demo_job_and_commands_give_the_same_products(runs, tmp_path):
     """The demo job and the same steps run as commands give the same products: the same
     file names (the job's folder holds each command's files, the flow folder in flow/,
     plus provenance.json), the same GeoPackage layers, columns and values, and tables,
-    rasters and figures byte for byte (products contract, PRODUCTS.md)."""
+    rasters and figures byte for byte (the products contract, io/products.py)."""
     import pyogrio
     import rasterio
 

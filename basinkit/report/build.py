@@ -1,7 +1,7 @@
 """The report of an output folder: one self-contained HTML file (figures embedded as PNG,
 style and script inline, nothing fetched from the network), printable from a browser.
 
-Built only from the files the workflow steps wrote (see PRODUCTS.md): catchments.csv and
+Built only from the files the workflow steps wrote (listed in io/products.py): catchments.csv and
 .gpkg, channels.gpkg, morphometry.csv, hypsometry.csv, profile.csv, steepness.csv,
 knickpoints.csv, flow_paths.csv, provenance.json and the flow folder. A product that is not
 there leaves its part out, and the report says so.

@@ -31,7 +31,7 @@ relative to the job file's folder. Example (abridged from the bundled demo,
 Every key, its type and default is listed in :data:`JOB_SCHEMA`; ``basinkit run JOB --check``
 prints a job with the defaults filled in. Each section maps onto the options of one command
 (``[channels] min_area`` is ``basinkit channels --min-area``, ...), and running a job writes
-the products of those commands into one folder (see ``/PRODUCTS.md`` of the project and
+the products of those commands into one folder (listed in :data:`basinkit.io.products.PRODUCT_FILES`; see
 :mod:`basinkit.workflow.steps`).
 """
 
