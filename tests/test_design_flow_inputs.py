@@ -158,6 +158,15 @@ def test_plot_design_hydrograph(model):
     assert px[0] == pytest.approx(row["time_to_peak_h"])
     shaded = [c for c in flow_ax.collections if isinstance(c, PolyCollection)]
     assert shaded and "base flow" in flow_ax.get_legend().get_texts()[0].get_text()
+    # the default window holds the rain centroid, the peak and the recession down to 5 %
+    # of the peak (common practice, no source) and is narrower than the 24-hour storm
+    lo, hi = flow_ax.get_xlim()
+    assert lo <= row["rain_centroid_h"] and hi > row["time_to_peak_h"]
+    direct = (h["discharge_m3_per_s"] - h["base_flow_m3_per_s"]).to_numpy()
+    late = h["time_h"].to_numpy()[direct >= 0.05 * direct.max()].max()
+    assert hi >= late and hi - lo < 24
+    whole = plot_design_hydrograph(h, row, xlim_h="all").axes[0].get_xlim()
+    assert whole[0] == 0 and whole[1] >= 24
     f2 = Figure()
     a = f2.add_subplot(1, 1, 1)
     assert plot_design_hydrograph(h, None, ax=a) is f2

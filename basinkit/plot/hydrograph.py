@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_design_hydrograph", "COLOURS"]
+__all__ = ["plot_design_hydrograph", "flood_window", "COLOURS"]
 
 COLOURS = {"rain": "#9ab7d3", "excess": "#2f5d8a", "flow": "#23395b", "direct": "#5b7fa6",
            "base": "#d9cfa8", "peak": "#b5533c", "lag": "#3c6e71", "recession": "#8a6d3b"}
@@ -67,8 +67,12 @@ def plot_design_hydrograph(hydrograph, summary=None, ax=None, title=None, xlim_h
         axes, hydrograph axes); one Axes: the hydrograph on it and the hyetograph hanging
         from the top on a twin axis.
     title : str, optional
-    xlim_h : (float, float), optional
-        Time window to show (default: the whole storm and hydrograph).
+    xlim_h : (float, float) or "all", optional
+        Time window to show. Default: the flood itself -- from the rain centroid or the
+        rise of the hydrograph (5 % of the peak above base flow), whichever is earlier, to
+        the end of the recession (5 % again), with a margin; on a small catchment under a
+        24-hour storm the whole storm would squeeze the hydrograph into a spike. The figure
+        then says what part of the storm it shows. ``"all"``: the whole storm.
 
     Returns
     -------
@@ -124,10 +128,14 @@ def plot_design_hydrograph(hydrograph, summary=None, ax=None, title=None, xlim_h
     ax.set_xlabel("time from the start of the storm (h)")
     ax.set_ylabel("discharge (m³/s)")
     ax.legend(frameon=False, fontsize=8, loc="upper right")
-    if xlim_h is not None:
-        ax.set_xlim(*xlim_h)
-    else:
-        ax.set_xlim(0, t[-1] + step)
+    full = (0.0, float(t[-1] + step)) if t.size else (0.0, step)
+    window = full if xlim_h == "all" else (xlim_h if xlim_h is not None else
+                                           flood_window(t, q - base, c_rain, step))
+    ax.set_xlim(*window)
+    if tuple(window) != full and xlim_h is None:
+        ax.text(0.01, 0.98, f"shown: {window[0]:.1f}–{window[1]:.1f} h of a storm and "
+                f"hydrograph lasting {full[1]:.1f} h", transform=ax.transAxes, fontsize=7,
+                color="#666666", va="top", ha="left")
     if layout == "new":
         rain_ax.tick_params(labelbottom=False)
         fig.text(0.01, 0.005, "Planning-level estimate: follow the local drainage manual; "
@@ -138,3 +146,30 @@ def plot_design_hydrograph(hydrograph, summary=None, ax=None, title=None, xlim_h
     (ax if layout == "twin" else rain_ax).set_title(title or "design storm and hydrograph",
                                                     fontsize=10)
     return fig
+
+
+def flood_window(t, direct, rain_centroid=np.nan, step=1.0, fraction=0.05):
+    """The time window of a flood: from the rain centroid or the first time the direct
+    runoff exceeds ``fraction`` of its peak, whichever is earlier, to the last time it
+    does, widened by a fifth on each side and clipped to the record.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = np.arange(0, 24, 0.1)
+    >>> q = np.exp(-((t - 12.5) / 0.5) ** 2)
+    >>> lo, hi = flood_window(t, q, rain_centroid=12.0, step=0.1)
+    >>> bool(10.5 < lo < 11.5 and 13.5 < hi < 14.5)
+    True
+    """
+    t = np.asarray(t, float)
+    direct = np.asarray(direct, float)
+    end = float(t[-1] + step) if t.size else step
+    if not t.size or not np.nanmax(direct) > 0:
+        return 0.0, end
+    above = np.flatnonzero(direct >= fraction * np.nanmax(direct))
+    lo, hi = float(t[above[0]]), float(t[above[-1]] + step)
+    if np.isfinite(rain_centroid):
+        lo = min(lo, float(rain_centroid))
+    pad = 0.2 * (hi - lo)
+    return max(0.0, lo - pad), min(end, hi + pad)
