@@ -30,11 +30,14 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
 
     from ..conditioning import condition
     from ..io.lines import read_lines
-    from ..io.writers import check_output, provenance, write_geotiff, write_json
+    from ..io.writers import provenance, write_geotiff, write_json
     from ..workflow.cautions import CAUTION_TEXT
 
-    out = check_output(output, overwrite)
-    js = check_output(summary_path or Path(output).with_suffix(".json"), overwrite)
+    from ..io.hashing import file_sha256
+    from ..io.transaction import FileTransaction
+
+    out, js = Path(output), Path(summary_path or Path(output).with_suffix(".json"))
+    tx = FileTransaction([out, js], overwrite, record=js).check()
     mbl = parse_length(max_breach_length, "--max-breach-length") if max_breach_length else None
     with console.stage("read"):
         terrain = read_dem_from_options(dem, band, crs, sea_level, base_level)
@@ -45,14 +48,18 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
                                   burn=lines if burn else None,
                                   burn_depth=burn_depth if burn else 0.0,
                                   max_breach_depth=max_breach_depth, max_breach_length=mbl)
-    write_geotiff(out, cond.elevation, cond.transform, cond.crs, nodata=float("nan"),
-                  tags={"cautions": CAUTION_TEXT})
     params = {"method": method, "epsilon": epsilon, "burn": [str(p) for p in burn],
               "burn_depth": burn_depth, "max_breach_depth": max_breach_depth,
               "max_breach_length_m": mbl, "sea_level": sea_level, "base_level": base_level}
-    write_json(js, provenance(params, {"dem": terrain.source}, crs=terrain.crs,
-                              shape=terrain.shape, summary=summary.to_dict(),
-                              cautions=CAUTION_TEXT))
+    with tx:  # both files written beside their names, renamed into place at the end
+        write_geotiff(tx.staged(out), cond.elevation, cond.transform, cond.crs,
+                      nodata=float("nan"), tags={"cautions": CAUTION_TEXT})
+        write_json(tx.staged(js), provenance(
+            params, {"dem": terrain.source}, crs=terrain.crs, shape=terrain.shape,
+            summary=summary.to_dict(), cautions=CAUTION_TEXT,
+            files={out.name: file_sha256(tx.staged(out))}))
+    for name, kept, why in tx.kept:
+        console.warn(f"kept {name} as {kept} ({why})")
     for line in summary.lines():
         console.info(line)
     console.info(f"wrote {out} and {js}")
