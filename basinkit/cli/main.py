@@ -104,6 +104,7 @@ def main(argv=None):
                       debug=debug)
     try:
         rv = cli.main(args=args, prog_name="basinkit", standalone_mode=False)
+        _settle_outputs(True, console)  # an output opened without ``with``: swap it in
         code = rv if isinstance(rv, int) else 0
     except click.exceptions.Abort:
         click.echo("aborted", err=True)
@@ -150,7 +151,16 @@ def main(argv=None):
                           + ("" if debug else " (run it again with --debug to see the "
                                                "traceback)"), kind="InternalError")
             code = 3
+    finally:
+        _settle_outputs(False)  # after an error: drop the staging folders, release locks
     sys.exit(code)
+
+
+def _settle_outputs(ok, console=None):
+    """Commit (or, after an error, abort) output folders a command left open."""
+    mod = sys.modules.get("basinkit.workflow.output")
+    if mod is not None:
+        mod.settle_open_folders(ok, console)
 
 
 def _is_gdal_io_error(exc) -> bool:

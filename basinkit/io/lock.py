@@ -165,6 +165,14 @@ class OutputLock:
         raise OutputError(f"cannot take the lock {str(self.path)!r} (other runs keep "
                           "taking it); wait for them to finish or choose another output")
 
+    def check(self) -> "OutputLock":
+        """Refuse (without taking anything) when a live run holds the lock, so that a
+        command can say so before doing any work."""
+        owner = _read(self.path)
+        if owner is not None and owner and _alive(owner):
+            raise self._refusal(owner)
+        return self
+
     def _clear_stale(self):
         """Remove the lock file when its owner is dead; refuse when it lives."""
         owner = _read(self.path)

@@ -56,7 +56,7 @@ from ..errors import OutputError, OutputExistsError, os_error_message
 from .lock import OutputLock, short_name
 
 __all__ = ["FolderTransaction", "FileTransaction", "MANIFEST", "read_manifest",
-           "kept_name", "recover"]
+           "kept_name", "recover", "real_target", "check_folder"]
 
 MANIFEST = ".basinkit-manifest.json"
 JOURNAL = ".basinkit-staging.json"
@@ -302,7 +302,7 @@ class FolderTransaction:
     """
 
     def __init__(self, target, overwrite: bool = False):
-        self.target = _real_target(target)
+        self.target = real_target(target)
         self.overwrite = bool(overwrite)
         self.lock = OutputLock(self.target)
         self.container = _container(self.target, os.getpid())
@@ -484,18 +484,22 @@ def _write_json(path: Path, obj):
     write_json(path, obj)
 
 
-def _real_target(target) -> Path:
+def real_target(target) -> Path:
     """The target as an absolute path (a symlink to a folder followed), refused when it
     is the current folder or one above it (it cannot be swapped)."""
     p = Path(os.path.abspath(target))
-    if p.is_symlink():
-        p = Path(os.path.realpath(p))
-    cwd = Path.cwd().resolve()
-    with contextlib.suppress(OSError):
-        rp = p.resolve()
-        if rp == cwd or rp in cwd.parents:
-            raise OutputError(f"the output {str(target)!r} is the current folder or holds "
-                              "it; choose a new folder for the outputs (e.g. -o results)")
+    try:
+        if p.is_symlink():
+            p = Path(os.path.realpath(p))
+    except OSError as exc:
+        raise OutputError(os_error_message(exc, target, "use the output")) from None
+    try:
+        cwd, rp = Path.cwd().resolve(), p.resolve()
+    except OSError:
+        return p
+    if rp == cwd or rp in cwd.parents:
+        raise OutputError(f"the output {str(target)!r} is the current folder or holds it; "
+                          "choose a new folder for the outputs (e.g. -o results)")
     return p
 
 
@@ -506,11 +510,14 @@ def check_folder(target: Path, overwrite: bool):
             if not target.is_dir():
                 raise OutputExistsError(f"{str(target)!r} exists and is not a folder; "
                                         "choose another output")
+            if os.path.ismount(target):
+                raise OutputError(f"{str(target)!r} is a mount point, which cannot be "
+                                  "swapped for a new run; choose a folder inside it")
             if not overwrite and any(target.iterdir()):
                 raise OutputExistsError(f"the folder {str(target)!r} already holds files; "
                                         "choose another output or pass --overwrite to "
                                         "replace them")
-    except OutputExistsError:
+    except (OutputExistsError, OutputError):
         raise
     except OSError as exc:
         raise OutputError(os_error_message(exc, target, "use the output folder")) from None
@@ -540,8 +547,11 @@ class FileTransaction:
         self.kept: list = []
         self.active = False
 
-    def check(self) -> "FileTransaction":
-        """Refuse a folder in the way or (unless ``overwrite``) an existing file."""
+    def check(self, lock: bool = True) -> "FileTransaction":
+        """Refuse a folder in the way, (unless ``overwrite``) an existing file, or (with
+        ``lock``) a run writing the same output now."""
+        if lock:
+            self.lock.check()
         for t in self.targets:
             try:
                 if t.is_dir():
@@ -572,7 +582,7 @@ class FileTransaction:
         try:
             for pid, c in _containers(self.targets[0]):
                 _drop_staging(c)
-            self.check()
+            self.check(lock=False)
             self.container.parent.mkdir(parents=True, exist_ok=True)
             self.container.mkdir()
             _write_json(self.container / JOURNAL, {"targets": [str(t) for t in self.targets],

@@ -16,7 +16,8 @@ from pathlib import Path
 
 from ..errors import OutputError, OutputExistsError
 
-__all__ = ["OutputFolder", "fixed_gpkg_timestamp", "png_bytes", "GPKG_TIMESTAMP"]
+__all__ = ["OutputFolder", "fixed_gpkg_timestamp", "png_bytes", "GPKG_TIMESTAMP",
+           "settle_open_folders"]
 
 # the timestamp GDAL writes into GeoPackage tables; fixed, so that the same inputs give a
 # byte-identical file
@@ -85,10 +86,16 @@ class OutputFolder:
     def check(self):
         """Refuse an existing file in the way, or a folder that already holds files unless
         ``overwrite``; creates nothing."""
-        from ..io.transaction import check_folder
+        from ..io.transaction import check_folder, real_target
 
-        check_folder(self.root / self._prefix if self._prefix else self.root,
-                     self.overwrite)
+        from ..io.lock import OutputLock
+
+        if self._prefix:
+            check_folder(self.root / self._prefix, self.overwrite)
+            return self
+        target = real_target(self.root)
+        check_folder(target, self.overwrite)
+        OutputLock(target).check()  # a run writing there now: say so before any work
         return self
 
     def open(self, reporter=None):
@@ -99,6 +106,7 @@ class OutputFolder:
         self.check()
         tx = FolderTransaction(self.root, self.overwrite).begin()
         self._shared["tx"] = tx
+        _OPEN.append(self)
         self._shared["reporter"] = reporter
         for line in tx.recovered:
             if reporter is not None:
@@ -116,6 +124,7 @@ class OutputFolder:
         tx = self._shared["tx"]
         if tx is None or not tx.active:
             return []
+        _forget(self)
         kept = tx.commit(self.hashes())
         rep = reporter or self._shared.get("reporter")
         if kept and rep is not None:
@@ -128,6 +137,7 @@ class OutputFolder:
     def abort(self):
         """Drop the staging folder and release the lock; the folder stays as it was."""
         tx = self._shared["tx"]
+        _forget(self)
         if tx is not None and tx.active:
             tx.abort()
 
@@ -284,6 +294,29 @@ class OutputFolder:
     def adopt(self, name) -> Path:
         """Record a file that another writer put at :meth:`path` ``(name)``."""
         return self.record(name)
+
+
+# folders opened and not yet committed or aborted (see settle_open_folders)
+_OPEN: list = []
+
+
+def _forget(folder):
+    for i, f in enumerate(_OPEN):
+        if f is folder:
+            del _OPEN[i]
+            break
+
+
+def settle_open_folders(ok: bool, reporter=None):
+    """Commit (``ok``) or abort every output folder opened and not yet committed: the
+    command line's safety net for a command that calls ``out.open()`` without ``with``."""
+    while _OPEN:
+        f = _OPEN[-1]
+        if ok:
+            f.commit(reporter)
+        else:
+            f.abort()
+        _forget(f)
 
 
 def _is_os_error(exc) -> bool:
