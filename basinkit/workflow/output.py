@@ -48,6 +48,9 @@ class OutputFolder:
     overwrite : bool
         Allow a folder that already holds files: the files an earlier run recorded (and
         that are unchanged since) are replaced; anything else is kept and named.
+    reporter : optional
+        Where the folder's notes go (files kept, leftovers of killed runs cleaned up);
+        :meth:`open` and :meth:`commit` may also be given one.
 
     Notes
     -----
@@ -61,12 +64,12 @@ class OutputFolder:
     the flow folder into ``flow/``).
     """
 
-    def __init__(self, root, overwrite: bool = False):
+    def __init__(self, root, overwrite: bool = False, reporter=None):
         self.root = Path(root)
         self.overwrite = bool(overwrite)
         self._prefix = ""
         self._files: dict = {}
-        self._shared: dict = {"tx": None, "reporter": None}
+        self._shared: dict = {"tx": None, "reporter": reporter}
 
     def __repr__(self):
         return f"OutputFolder({str(self.root / self._prefix)!r})"
@@ -107,6 +110,7 @@ class OutputFolder:
         tx = FolderTransaction(self.root, self.overwrite).begin()
         self._shared["tx"] = tx
         _OPEN.append(self)
+        reporter = reporter or self._shared.get("reporter")
         self._shared["reporter"] = reporter
         for line in tx.recovered:
             if reporter is not None:

@@ -166,7 +166,8 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
     if not isinstance(job, JobSpec):
         job = read_job(job)
     folder = Path(output) if output is not None else job["outputs"]["folder"]
-    out = OutputFolder(folder, overwrite).check()
+    # written into a staging folder beside it (out.open()), swapped in at the end
+    out = OutputFolder(folder, overwrite, reporter=rep).check()
     try:
         return _run(job, out, rep, report)
     except BaseException:
@@ -197,7 +198,7 @@ def _run(job, out, rep, report):
         raw = read_errors = None
         if spec:
             raw, read_errors = spec.read()
-    out.open(rep)  # written into a staging folder beside it, swapped in at the end
+    out.open()
     res.terrain = terrain
     with timer("flow"):
         flow_step(out.sub("flow"), st["flow"], terrain=terrain, burn=burn, reporter=rep)
