@@ -30,14 +30,13 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
 
     from ..conditioning import condition
     from ..io.lines import read_lines
+    from ..io.transaction import FileTransaction
     from ..io.writers import provenance, write_geotiff, write_json
     from ..workflow.cautions import CAUTION_TEXT
 
-    from ..io.hashing import file_sha256
-    from ..io.transaction import FileTransaction
-
-    out, js = Path(output), Path(summary_path or Path(output).with_suffix(".json"))
-    tx = FileTransaction([out, js], overwrite, record=js).check()
+    # both files are written beside their names and renamed into place at the end
+    tx = FileTransaction([output, summary_path or Path(output).with_suffix(".json")],
+                         overwrite, record=True).check()
     mbl = parse_length(max_breach_length, "--max-breach-length") if max_breach_length else None
     with console.stage("read"):
         terrain = read_dem_from_options(dem, band, crs, sea_level, base_level)
@@ -48,19 +47,17 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
                                   burn=lines if burn else None,
                                   burn_depth=burn_depth if burn else 0.0,
                                   max_breach_depth=max_breach_depth, max_breach_length=mbl)
+    out, js = tx.begin().staged_paths()
+    write_geotiff(out, cond.elevation, cond.transform, cond.crs, nodata=float("nan"),
+                  tags={"cautions": CAUTION_TEXT})
     params = {"method": method, "epsilon": epsilon, "burn": [str(p) for p in burn],
               "burn_depth": burn_depth, "max_breach_depth": max_breach_depth,
               "max_breach_length_m": mbl, "sea_level": sea_level, "base_level": base_level}
-    with tx:  # both files written beside their names, renamed into place at the end
-        write_geotiff(tx.staged(out), cond.elevation, cond.transform, cond.crs,
-                      nodata=float("nan"), tags={"cautions": CAUTION_TEXT})
-        write_json(tx.staged(js), provenance(
-            params, {"dem": terrain.source}, crs=terrain.crs, shape=terrain.shape,
-            summary=summary.to_dict(), cautions=CAUTION_TEXT,
-            files={out.name: file_sha256(tx.staged(out))}))
-    for name, kept, why in tx.kept:
-        console.warn(f"kept {name} as {kept} ({why})")
+    write_json(js, provenance(params, {"dem": terrain.source}, crs=terrain.crs,
+                              shape=terrain.shape, summary=summary.to_dict(),
+                              cautions=CAUTION_TEXT))
     for line in summary.lines():
         console.info(line)
+    out, js = tx.commit(console)
     console.info(f"wrote {out} and {js}")
     return finish(console)

@@ -161,6 +161,9 @@ def _settle_outputs(ok, console=None):
     mod = sys.modules.get("basinkit.workflow.output")
     if mod is not None:
         mod.settle_open_folders(ok, console)
+    tx = sys.modules.get("basinkit.io.transaction")
+    if tx is not None and not ok:
+        tx.abort_all()
 
 
 def _is_gdal_io_error(exc) -> bool:

@@ -56,10 +56,28 @@ from ..errors import OutputError, OutputExistsError, os_error_message
 from .lock import OutputLock, short_name
 
 __all__ = ["FolderTransaction", "FileTransaction", "MANIFEST", "read_manifest",
-           "kept_name", "recover", "real_target", "check_folder"]
+           "kept_name", "recover", "real_target", "check_folder", "abort_all"]
 
 MANIFEST = ".basinkit-manifest.json"
 JOURNAL = ".basinkit-staging.json"
+
+
+# transactions begun and not yet committed or aborted in this process
+ACTIVE: list = []
+
+
+def _forget(tx):
+    for i, t in enumerate(ACTIVE):
+        if t is tx:
+            del ACTIVE[i]
+            break
+
+
+def abort_all():
+    """Abort every transaction still open in this process (the command line calls it after
+    an error, so that no lock or staging folder outlives the command)."""
+    while ACTIVE:
+        ACTIVE[-1].abort()
 
 
 def _hash(path) -> str:
@@ -338,11 +356,13 @@ class FolderTransaction:
             self.abort()
             raise
         self.active = True
+        ACTIVE.append(self)
         return self
 
     def abort(self):
         """Drop the staging folder and release the lock; the target is not touched."""
         self.active = False
+        _forget(self)
         with contextlib.suppress(OSError):
             _drop_staging(self.container)
         self.lock.release()
@@ -404,6 +424,7 @@ class FolderTransaction:
             raise
         # the new run is in place; what follows only tidies up
         self.active = False
+        _forget(self)
         try:
             moved = _finish_old(aside, target, journal)
             self.kept += [(rel, dest, "added during the run") for rel, dest in moved]
@@ -533,14 +554,18 @@ class FileTransaction:
     overwrite : bool
         Allow existing files (replaced; an existing file that ``record`` does not list
         with its current hash is kept under a ``.kept`` name).
-    record : str or Path, optional
-        The JSON record among the targets whose ``files`` ({name: SHA-256}) says which
-        files the earlier run wrote.
+    record : str, Path or True, optional
+        The JSON record among the targets (True: the last one). At commit its ``files``
+        gets ``{name: SHA-256}`` of the other targets; in an earlier run's record it says
+        which files that run wrote.
     """
 
     def __init__(self, targets, overwrite: bool = False, record=None):
+        self.given = [Path(t) for t in targets]
         self.targets = [Path(os.path.abspath(t)) for t in targets]
         self.overwrite = bool(overwrite)
+        if record is True:
+            record = self.targets[-1]
         self.record = Path(os.path.abspath(record)) if record is not None else None
         self.lock = OutputLock(self.targets[0])
         self.container = _container(self.targets[0], os.getpid())
@@ -575,6 +600,10 @@ class FileTransaction:
         """Where to write ``target`` during the run."""
         return self.container / Path(target).name
 
+    def staged_paths(self) -> list:
+        """Where to write each target during the run (in the order given)."""
+        return [self.staged(t) for t in self.targets]
+
     def begin(self) -> "FileTransaction":
         self.check()
         _make_parent(self.targets[0])
@@ -597,24 +626,32 @@ class FileTransaction:
             self.abort()
             raise
         self.active = True
+        ACTIVE.append(self)
         return self
 
     def abort(self):
         self.active = False
+        _forget(self)
         with contextlib.suppress(OSError):
             _drop_staging(self.container)
         self.lock.release()
 
-    def commit(self) -> list:
+    def commit(self, reporter=None) -> list:
         """Rename the staged files onto their names (existing files not recorded by the
-        earlier run are kept under ``.kept`` names first). Returns ``[(name, kept as,
-        reason)]``."""
+        earlier run are kept under ``.kept`` names first, listed in :attr:`kept` and told
+        to ``reporter``). Returns the targets."""
         recorded = {}
         if self.record is not None and self.record.is_file():
             meta = _read_json(self.record)
             if isinstance(meta, dict) and isinstance(meta.get("files"), dict):
                 recorded = meta["files"]
         try:
+            if self.record is not None and self.staged(self.record).is_file():
+                new = _read_json(self.staged(self.record))
+                if isinstance(new, dict):
+                    new["files"] = {t.name: _hash(self.staged(t)) for t in self.targets
+                                    if t != self.record and self.staged(t).is_file()}
+                    _write_json(self.staged(self.record), new)
             for t in self.targets:
                 if not t.exists():
                     continue
@@ -635,7 +672,10 @@ class FileTransaction:
                 raise
             raise OutputError(os_error_message(exc, exc.filename)) from None
         self.abort()  # the staging folder is empty but for the journal; release the lock
-        return self.kept
+        if reporter is not None:
+            for name, kept, why in self.kept:
+                reporter.warn(f"kept {name} as {kept} ({why})")
+        return list(self.given)
 
     def __enter__(self):
         return self.begin()
