@@ -80,7 +80,9 @@ def test_route_writes_flow_folder(tmp_path, capsys, fractal_tif):
     code, _, err = run(["route", dem, "-o", out], capsys)
     assert code == 0, err
     assert "wrote flow folder" in err
-    assert {p.name for p in out.iterdir()} == FLOW_FILES  # nothing temporary left over
+    # nothing temporary left over: the products and the manifest of the run's files
+    assert {p.name for p in out.iterdir()} == FLOW_FILES | {".basinkit-manifest.json"}
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["dem.tif", "flow"]
     for name in FLOW_FILES - {"flow.json"}:
         with rasterio.open(out / name) as ds:
             assert ds.transform == TR

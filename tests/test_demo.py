@@ -180,7 +180,7 @@ def test_provenance(runs):
         assert st["status"] == "done" and st["seconds"] >= 0, name
     # every file written is listed with its hash, and the hashes are those of the files
     on_disk = {str(p.relative_to(res.folder)) for p in res.folder.rglob("*") if p.is_file()}
-    assert set(prov["files"]) == on_disk - {"provenance.json"}
+    assert set(prov["files"]) == on_disk - {"provenance.json", ".basinkit-manifest.json"}
     for name, h in prov["files"].items():
         assert hashlib.sha256((res.folder / name).read_bytes()).hexdigest() == h, name
     assert prov["cell_size"]["x"] == 10.0 and prov["vertical_units"].startswith("m")
@@ -255,10 +255,11 @@ def test_demo_job_and_commands_give_the_same_products(runs, tmp_path):
         for p in (tmp_path / sub).rglob("*"):
             if p.is_file():
                 rel = p.relative_to(tmp_path / sub).as_posix()
-                made["flow/" + rel if sub == "flow" else rel] = p
+                if rel != ".basinkit-manifest.json":  # each folder's own record
+                    made["flow/" + rel if sub == "flow" else rel] = p
     in_job = {p.relative_to(job.folder).as_posix(): p for p in job.folder.rglob("*")
               if p.is_file()}
-    assert set(in_job) - set(made) == {"provenance.json"}
+    assert set(in_job) - set(made) == {"provenance.json", ".basinkit-manifest.json"}
     assert set(made) <= set(in_job)
     assert len(made) > 80  # 6 products, 13 outlets' figures
     for name, p in sorted(made.items()):

@@ -80,8 +80,7 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
     with console.stage("read"):
         fm = load_flow_folder(console, flowdir)
     placed = place(console, fm, outlets) if outlets else None
-    out.open()
-    with console.stage("channels"):
+    with out.open(console), console.stage("channels"):
         channels_step(out, fm, settings,
                       outlet_cells=None if placed is None else placed.cells,
                       reporter=console,

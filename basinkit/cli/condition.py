@@ -30,11 +30,13 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
 
     from ..conditioning import condition
     from ..io.lines import read_lines
-    from ..io.writers import check_output, provenance, write_geotiff, write_json
+    from ..io.transaction import FileTransaction
+    from ..io.writers import provenance, write_geotiff, write_json
     from ..workflow.cautions import CAUTION_TEXT
 
-    out = check_output(output, overwrite)
-    js = check_output(summary_path or Path(output).with_suffix(".json"), overwrite)
+    # both files are written beside their names and renamed into place at the end
+    tx = FileTransaction([output, summary_path or Path(output).with_suffix(".json")],
+                         overwrite, record=True).check()
     mbl = parse_length(max_breach_length, "--max-breach-length") if max_breach_length else None
     with console.stage("read"):
         terrain = read_dem_from_options(dem, band, crs, sea_level, base_level, dem_checks)
@@ -45,6 +47,7 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
                                   burn=lines if burn else None,
                                   burn_depth=burn_depth if burn else 0.0,
                                   max_breach_depth=max_breach_depth, max_breach_length=mbl)
+    out, js = tx.begin().staged_paths()
     write_geotiff(out, cond.elevation, cond.transform, cond.crs, nodata=float("nan"),
                   tags={"cautions": CAUTION_TEXT})
     params = {"method": method, "epsilon": epsilon, "burn": [str(p) for p in burn],
@@ -57,6 +60,7 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
     _tell_screened(console, terrain)
     for line in summary.lines():
         console.info(line)
+    out, js = tx.commit(console)
     console.info(f"wrote {out} and {js}")
     return finish(console)
 

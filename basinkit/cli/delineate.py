@@ -48,8 +48,7 @@ def command(console, flowdir, outlets, output, labels_raster, web_geojson,
     with console.stage("read"):
         fm = load_flow_folder(console, flowdir)
     placed = place(console, fm, outlets)
-    out.open()
-    with console.stage("catchments"):
+    with out.open(console), console.stage("catchments"):
         res = catchments_step(out, fm, placed,
                               CatchmentSettings(labels_raster=labels_raster,
                                                 web_geojson=web_geojson,

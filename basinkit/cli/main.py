@@ -105,6 +105,7 @@ def main(argv=None):
                       debug=debug)
     try:
         rv = cli.main(args=args, prog_name="basinkit", standalone_mode=False)
+        _settle_outputs(True, console)  # an output opened without ``with``: swap it in
         code = rv if isinstance(rv, int) else 0
     except click.exceptions.Abort:
         click.echo("aborted", err=True)
@@ -122,6 +123,13 @@ def main(argv=None):
             traceback.print_exc()
         console.error(str(exc), kind=type(exc).__name__)
         code = exc.exit_code
+    except OSError as exc:  # the environment (permissions, full disk, long names, ...)
+        from ..errors import os_error_message
+
+        if debug:
+            traceback.print_exc()
+        console.error(os_error_message(exc, doing="read or write"), kind="OutputError")
+        code = 2
     except KeyboardInterrupt:
         click.echo("interrupted", err=True)
         code = 130
@@ -133,12 +141,38 @@ def main(argv=None):
     except Exception as exc:  # noqa: BLE001 - anything else is a bug
         if debug:
             traceback.print_exc()
-        console.error(f"internal error ({type(exc).__name__}: {exc}); this is a bug in "
-                      "basinkit, please report it with the command you ran"
-                      + ("" if debug else " (run it again with --debug to see the "
-                                           "traceback)"), kind="InternalError")
-        code = 3
+        if _is_gdal_io_error(exc):  # GDAL's report of a full disk, a damaged file, ...
+            from ..errors import os_error_message
+
+            console.error(os_error_message(exc, doing="read or write"), kind="OutputError")
+            code = 2
+        else:
+            console.error(f"internal error ({type(exc).__name__}: {exc}); this is a bug in "
+                          "basinkit, please report it with the command you ran"
+                          + ("" if debug else " (run it again with --debug to see the "
+                                               "traceback)"), kind="InternalError")
+            code = 3
+    finally:
+        _settle_outputs(False)  # after an error: drop the staging folders, release locks
     sys.exit(code)
+
+
+def _settle_outputs(ok, console=None):
+    """Commit (or, after an error, abort) output folders a command left open."""
+    mod = sys.modules.get("basinkit.workflow.output")
+    if mod is not None:
+        mod.settle_open_folders(ok, console)
+    tx = sys.modules.get("basinkit.io.transaction")
+    if tx is not None and not ok:
+        tx.abort_all()
+
+
+def _is_gdal_io_error(exc) -> bool:
+    """rasterio's or pyogrio's report of a file that cannot be read or written."""
+    mod = type(exc).__module__ or ""
+    return mod.startswith(("rasterio", "pyogrio")) and (
+        "IOError" in type(exc).__name__ or "FileIO" in type(exc).__name__
+        or "DataSource" in type(exc).__name__)
 
 
 if __name__ == "__main__":

@@ -52,8 +52,7 @@ def command(console, flowdir, output, outlets, min_area, slope_area_exponent,
     with console.stage("read"):
         fm = load_flow_folder(console, flowdir)
     placed = place(console, fm, outlets)
-    out.open()
-    with console.stage("morphometry"):
+    with out.open(console), console.stage("morphometry"):
         res = morphometry_step(out, fm, placed, settings=settings, reporter=console,
                                parameters={"flowdir": str(flowdir), **outlets.parameters()},
                                inputs=outlets.inputs())

@@ -89,8 +89,7 @@ def command(console, flowdir, output, outlets, min_order, min_area, concavity, f
         net = build_network(fm, min_area_m2, outlet_cells=placed.cells)
     console.info(f"channel network: {len(net.segments):,} segments, highest Strahler order "
                  f"{net.max_order()}")
-    out.open()
-    with console.stage("profiles"):
+    with out.open(console), console.stage("profiles"):
         res = profiles_step(out, fm, placed, net, settings, reporter=console,
                             parameters={"flowdir": str(flowdir), "min_area_m2": min_area_m2,
                                         **outlets.parameters()},

@@ -49,7 +49,6 @@ def command(console, dem, output, method, mfd_exponent, copy_input, conditioning
     with console.stage("read"):
         terrain = read_terrain(settings)
         lines = read_burn_lines(settings, terrain.crs)
-    out.open()
-    with console.stage("flow"):
+    with out.open(console), console.stage("flow"):
         flow_step(out, settings, terrain=terrain, burn=lines, reporter=console)
     return finish(console)

@@ -86,8 +86,16 @@ def write_flow_folder(fm, folder, overwrite: bool = False,
 def _read_band(path):
     import rasterio
 
-    with rasterio.open(path) as ds:
-        return ds.read(1), ds.transform, ds.crs
+    try:
+        with rasterio.open(path) as ds:
+            return ds.read(1), ds.transform, ds.crs
+    except Exception as exc:  # noqa: BLE001 - a truncated or damaged raster (GDAL's errors)
+        if not isinstance(exc, OSError) and not \
+                (type(exc).__module__ or "").startswith("rasterio"):
+            raise
+        why = " ".join(str(exc).split())[:200]
+        raise InputError(f"cannot read {str(path)!r} ({why}); the flow folder is damaged "
+                         "or incomplete: run 'basinkit route' again") from None
 
 
 def _read_referenced_input(rec, folder, shape, crs):

@@ -2,8 +2,9 @@
 
 Every step receives an :class:`OutputFolder` and writes through it (CSV, JSON, GeoTIFF,
 GeoPackage, PNG), so that the folder knows every file it holds (for provenance and for
-removing what an earlier run left) and so that the target can later be swapped for a
-staging folder that is renamed into place when the run is complete. Each file is written
+the manifest that says what a later ``--overwrite`` may replace), and so that the run is
+written into a staging folder that is swapped in when complete
+(:mod:`basinkit.io.transaction`). Each file is written
 beside its final name and renamed (see :mod:`basinkit.io.writers`), so an interrupted run
 never leaves a half-written file under the final name.
 """
@@ -15,7 +16,8 @@ from pathlib import Path
 
 from ..errors import OutputError, OutputExistsError
 
-__all__ = ["OutputFolder", "fixed_gpkg_timestamp", "png_bytes", "GPKG_TIMESTAMP"]
+__all__ = ["OutputFolder", "fixed_gpkg_timestamp", "png_bytes", "GPKG_TIMESTAMP",
+           "settle_open_folders"]
 
 # the timestamp GDAL writes into GeoPackage tables; fixed, so that the same inputs give a
 # byte-identical file
@@ -36,61 +38,122 @@ def fixed_gpkg_timestamp():
 
 
 class OutputFolder:
-    """A folder the steps write into, recording every file written.
+    """A folder the steps write into, recording every file written, changed as a
+    transaction (DESIGN.md, the output contract).
 
     Parameters
     ----------
     root : str or Path
         The folder.
     overwrite : bool
-        Allow a folder that already holds files (files of the same name are replaced).
+        Allow a folder that already holds files: the files an earlier run recorded (and
+        that are unchanged since) are replaced; anything else is kept and named.
+    reporter : optional
+        Where the folder's notes go (files kept, leftovers of killed runs cleaned up);
+        :meth:`open` and :meth:`commit` may also be given one.
 
     Notes
     -----
     :meth:`check` refuses a folder that holds files (unless ``overwrite``) without creating
-    anything, so that a command can check its output before doing any work; the folder
-    itself is created on the first write. :meth:`sub` gives a view on a subfolder that
-    shares the record (a job writes the flow folder into ``flow/``).
+    anything, so that a command can check its output before doing any work.
+    :meth:`open` takes the folder's lock and starts a staging folder beside it
+    (:class:`basinkit.io.transaction.FolderTransaction`): every step writes there, and
+    :meth:`commit` swaps it in, so that a failed or killed run leaves the previous run as it
+    was. Use it as ``with out.open(reporter): ...`` (commit at the end of the block, abort on
+    an error). :meth:`sub` gives a view on a subfolder that shares the record (a job writes
+    the flow folder into ``flow/``).
     """
 
-    def __init__(self, root, overwrite: bool = False):
+    def __init__(self, root, overwrite: bool = False, reporter=None):
         self.root = Path(root)
         self.overwrite = bool(overwrite)
         self._prefix = ""
         self._files: dict = {}
+        self._shared: dict = {"tx": None, "reporter": reporter}
 
     def __repr__(self):
         return f"OutputFolder({str(self.root / self._prefix)!r})"
 
     # ------------------------------------------------------------------ the folder
     @property
+    def base(self) -> Path:
+        """Where the files go now: the staging folder while a run is open, else the root."""
+        tx = self._shared["tx"]
+        return tx.staging if tx is not None and tx.active else self.root
+
+    @property
     def folder(self) -> Path:
         """The folder this view writes into."""
-        return self.root / self._prefix if self._prefix else self.root
+        return self.base / self._prefix if self._prefix else self.base
 
     def check(self):
         """Refuse an existing file in the way, or a folder that already holds files unless
         ``overwrite``; creates nothing."""
-        p = self.folder
-        if p.exists():
-            if not p.is_dir():
-                raise OutputExistsError(f"{str(p)!r} exists and is not a folder; choose "
-                                        "another output")
-            if not self.overwrite and any(p.iterdir()):
-                raise OutputExistsError(f"the folder {str(p)!r} already holds files; "
-                                        "choose another output or pass --overwrite to "
-                                        "replace them")
+        from ..io.transaction import check_folder, real_target
+
+        from ..io.lock import OutputLock
+
+        if self._prefix:
+            check_folder(self.root / self._prefix, self.overwrite)
+            return self
+        target = real_target(self.root)
+        check_folder(target, self.overwrite)
+        OutputLock(target).check()  # a run writing there now: say so before any work
         return self
 
-    def open(self):
-        """Check the folder and create it."""
+    def open(self, reporter=None):
+        """Check the folder, take its lock and start the staging folder the steps write
+        into (see :meth:`commit`). Returns the folder (a context manager)."""
+        from ..io.transaction import FolderTransaction
+
         self.check()
-        try:
-            self.folder.mkdir(parents=True, exist_ok=True)
-        except OSError as exc:
-            raise OutputError(f"cannot create the output folder {str(self.folder)!r}: "
-                              f"{exc.strerror or exc}") from None
+        tx = FolderTransaction(self.root, self.overwrite).begin()
+        self._shared["tx"] = tx
+        _OPEN.append(self)
+        reporter = reporter or self._shared.get("reporter")
+        self._shared["reporter"] = reporter
+        for line in tx.recovered:
+            if reporter is not None:
+                reporter.info(line)
+        if tx.lock.taken_over and reporter is not None:
+            o = tx.lock.taken_over
+            reporter.info(f"took over the lock of a run that is gone (pid {o.get('pid')}, "
+                          f"started {o.get('started')})")
         return self
+
+    def commit(self, reporter=None) -> list:
+        """Swap the staging folder in: the run's files replace the earlier run's; the
+        user's files and edited outputs of the old folder are kept (and named in a warning).
+        Returns ``[(name, kept as, reason)]``."""
+        tx = self._shared["tx"]
+        if tx is None or not tx.active:
+            return []
+        _forget(self)
+        kept = tx.commit(self.hashes())
+        rep = reporter or self._shared.get("reporter")
+        if kept and rep is not None:
+            names = ", ".join(n if n == k else f"{n} (as {k})" for n, k, _ in kept[:10])
+            more = f" and {len(kept) - 10} more" if len(kept) > 10 else ""
+            rep.warn(f"kept {len(kept)} file(s) in {self.root} that this run did not write "
+                     f"(the user's own or edited since): {names}{more}")
+        return kept
+
+    def abort(self):
+        """Drop the staging folder and release the lock; the folder stays as it was."""
+        tx = self._shared["tx"]
+        _forget(self)
+        if tx is not None and tx.active:
+            tx.abort()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, exc_type, exc, tb):
+        if exc_type is None:
+            self.commit()
+        else:
+            self.abort()
+        return False
 
     def sub(self, name) -> "OutputFolder":
         """A view on the subfolder ``name`` sharing this folder's record of files."""
@@ -99,6 +162,7 @@ class OutputFolder:
         view.overwrite = self.overwrite
         view._prefix = f"{self._prefix}/{name}".strip("/")
         view._files = self._files
+        view._shared = self._shared
         return view
 
     def name_of(self, name) -> str:
@@ -107,30 +171,32 @@ class OutputFolder:
 
     def path(self, name) -> Path:
         """Target path of ``name`` (its parent folders are created)."""
+        from ..errors import os_error_message
+
         p = self.folder / name
         try:
             p.parent.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
-            raise OutputError(f"cannot create the folder {str(p.parent)!r}: "
-                              f"{exc.strerror or exc}") from None
+            raise OutputError(os_error_message(exc, p.parent, "create the folder")) \
+                from None
         return p
 
     def record(self, name) -> Path:
         """Record ``name`` (relative to this view) as written by this run."""
-        p = self.folder / name
-        self._files[self.name_of(name)] = p
-        return p
+        self._files[self.name_of(name)] = None
+        return self.folder / name
 
     @property
     def files(self) -> dict:
-        """``{name relative to the root: Path}`` of every file written, in writing order."""
-        return dict(self._files)
+        """``{name relative to the root: Path}`` of every file written, in writing order
+        (in the staging folder while the run is open)."""
+        return {k: self.base / k for k in self._files}
 
     def hashes(self) -> dict:
         """``{name: SHA-256}`` of every file written (sorted by name)."""
         from ..io.hashing import file_sha256
 
-        return {k: file_sha256(p) for k, p in sorted(self._files.items()) if p.is_file()}
+        return {k: file_sha256(p) for k, p in sorted(self.files.items()) if p.is_file()}
 
     # ------------------------------------------------------------------ writers
     @contextlib.contextmanager
@@ -138,11 +204,15 @@ class OutputFolder:
         target = self.path(name)
         try:
             yield target
-        except OSError as exc:
-            if isinstance(exc, (OutputError, OutputExistsError)):
+        except (OutputError, OutputExistsError):
+            raise
+        except Exception as exc:  # noqa: BLE001 - only the OS's and GDAL's errors
+            if not _is_os_error(exc):
                 raise
-            raise OutputError(f"cannot write {str(target)!r}: {exc.strerror or exc}; check "
-                              "the folder's permissions and free space") from None
+            from ..errors import os_error_message
+
+            raise OutputError(os_error_message(exc, self.root / self.name_of(name))) \
+                from None
         self.record(name)
 
     def csv(self, name, frame) -> Path:
@@ -228,6 +298,40 @@ class OutputFolder:
     def adopt(self, name) -> Path:
         """Record a file that another writer put at :meth:`path` ``(name)``."""
         return self.record(name)
+
+
+# folders opened and not yet committed or aborted (see settle_open_folders)
+_OPEN: list = []
+
+
+def _forget(folder):
+    for i, f in enumerate(_OPEN):
+        if f is folder:
+            del _OPEN[i]
+            break
+
+
+def settle_open_folders(ok: bool, reporter=None):
+    """Commit (``ok``) or abort every output folder opened and not yet committed: the
+    command line's safety net for a command that calls ``out.open()`` without ``with``."""
+    while _OPEN:
+        f = _OPEN[-1]
+        if ok:
+            f.commit(reporter)
+        else:
+            f.abort()
+        _forget(f)
+
+
+def _is_os_error(exc) -> bool:
+    """An error of the operating system, or GDAL's report of one (rasterio's and pyogrio's
+    I/O errors), rather than a bug."""
+    if isinstance(exc, OSError):
+        return True
+    mod = type(exc).__module__ or ""
+    return mod.startswith(("rasterio", "pyogrio")) and any(
+        w in str(exc).lower() for w in ("space", "permission", "write", "i/o", "disk",
+                                        "read-only", "too long", "no such file"))
 
 
 def png_bytes(fig, dpi: int = 100) -> bytes:

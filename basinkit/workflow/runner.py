@@ -127,8 +127,9 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
     output : str or Path, optional
         Output folder; overrides ``[outputs] folder``.
     overwrite : bool
-        Allow a folder that holds files; files an earlier job run listed in its
-        provenance.json and this run did not write again are removed (nothing else).
+        Allow a folder that holds files. The run is written beside the folder and swapped
+        in when complete; of the old folder's files only those the earlier run recorded
+        (its manifest) and that are unchanged go, anything else is kept and named.
     console : reporter, optional
         Where progress goes (see :mod:`basinkit.workflow.progress`); silent by default.
     report : callable, optional
@@ -166,21 +167,31 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
     >>> res.exit_status  # doctest: +SKIP
     0
     """
-    import pandas as pd
-
-    from ..io.flow_folder import load_flow
     from .output import OutputFolder
-    from .steps import (catchments_step, channels_step, flow_step, morphometry_step,
-                        profiles_step)
-    from .steps.flow import read_burn_lines, read_terrain
 
     rep = as_reporter(console)
     if not isinstance(job, JobSpec):
         job = read_job(job)
     folder = Path(output) if output is not None else job["outputs"]["folder"]
-    out = OutputFolder(folder, overwrite).check()
-    earlier = _files_of_earlier_run(folder)
-    res = JobResult(folder=out.folder, job=job)
+    # written into a staging folder beside it (out.open()), swapped in at the end
+    out = OutputFolder(folder, overwrite, reporter=rep).check()
+    try:
+        return _run(job, out, rep, report)
+    except BaseException:
+        out.abort()  # the staging folder goes; the folder stays as the earlier run left it
+        raise
+
+
+def _run(job, out, rep, report):
+    """The stages of :func:`run_job`, written into ``out`` (checked, not yet open)."""
+    import pandas as pd
+
+    from ..io.flow_folder import load_flow
+    from .steps import (catchments_step, channels_step, flow_step, morphometry_step,
+                        profiles_step)
+    from .steps.flow import read_burn_lines, read_terrain
+
+    res = JobResult(folder=out.root, job=job)
     timer = StageTimer(rep)
     res.stages = timer.stages
     t_start = time.perf_counter()
@@ -201,6 +212,7 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
         flow_step(out.sub("flow"), st["flow"], terrain=terrain, burn=burn, reporter=rep)
         del terrain
         fm = load_flow(out.folder / "flow")  # as the commands read it
+        fm.parameters["flow_folder"] = "flow"  # in the output folder (not the staging's)
     res.flow = fm
     placed = cres = None
     failures = []
@@ -272,10 +284,8 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
     res.provenance["files"] = {k: v for k, v in out.hashes().items()
                                if k != "provenance.json"}
     out.json("provenance.json", res.provenance)
+    out.commit(rep)  # the earlier run's files go, the user's are kept (and named)
     res.files = out.files
-    stale = _remove_stale(out.folder, earlier, set(res.files))
-    if stale:
-        rep.info(f"removed {stale} file(s) left from an earlier job run in {out.folder}")
     if len(res.failures):
         rep.warn(f"{len(res.failures)} outlet failure(s): see outlet_errors.csv and the "
                  "error columns of the tables")
@@ -407,34 +417,3 @@ def _hashes(job):
     if job.path is not None:
         out["job_file"] = {"path": str(job.path), "sha256": file_sha256(job.path)}
     return out
-
-
-def _files_of_earlier_run(folder):
-    """Files an earlier job wrote into ``folder``, as listed in its provenance.json (only
-    those are ever removed, never anything else a user keeps there)."""
-    import json
-
-    p = Path(folder) / "provenance.json"
-    try:
-        listed = json.loads(p.read_text(encoding="utf-8")).get("files", [])
-    except (OSError, ValueError, AttributeError):
-        return set()
-    return {str(f) for f in listed if isinstance(f, str)} | {"provenance.json"}
-
-
-def _remove_stale(folder, earlier, current):
-    """Remove files of an earlier run that this run did not write again (an outlet dropped
-    from the job, a stage turned off), and folders left empty by that. Returns the count."""
-    root = Path(folder).resolve()
-    removed = 0
-    for name in sorted(earlier - current - {"provenance.json"}):
-        p = (root / name).resolve()
-        if root not in p.parents or not p.is_file():
-            continue  # only plain files inside the output folder
-        p.unlink()
-        removed += 1
-        d = p.parent
-        while d != root and d.is_dir() and not any(d.iterdir()):
-            d.rmdir()
-            d = d.parent
-    return removed
