@@ -71,3 +71,23 @@ def test_flow_folder_is_the_same_after_a_warmup(tmp_path, fractal):
     for f in ("direction_d8.tif", "accumulation_cells.tif", "upstream_area_m2.tif"):
         assert (hashlib.sha256((a / f).read_bytes()).digest()
                 == hashlib.sha256((b / f).read_bytes()).digest()), f
+
+
+def test_import_and_help_load_no_kernels():
+    """`import basinkit` and `basinkit --help` load neither numba nor rasterio (module
+    __getattr__, PEP 562), so that the CLI starts quickly; a public name still resolves."""
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    root = str(Path(__file__).resolve().parents[1])
+    code = ("import sys, basinkit\nfrom basinkit.cli.main import main\n"
+            "try:\n    main(['--help'])\nexcept SystemExit:\n    pass\n"
+            "print(sorted(k for k in ('numba', 'rasterio', 'pyproj') if k in sys.modules))\n"
+            "basinkit.route\nprint('numba' in sys.modules)\n")
+    env = {**os.environ, "PYTHONPATH": root}
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         env=env, check=True).stdout.splitlines()
+    assert out[-2:] == ["[]", "True"], out
+    assert any("route" in line for line in out)
