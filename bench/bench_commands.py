@@ -78,8 +78,14 @@ def env_with_package(**extra):
     return env
 
 
+#: CPU seconds (user + system) of every timed child, in order: on a shared machine they
+#: move less than wall times
+CPU_SECONDS: list = []
+
+
 def timed(cmd, env=None):
-    """Run ``cmd``; return (wall seconds, peak resident MB, exit status)."""
+    """Run ``cmd``; return (wall seconds, peak resident MB, exit status). Its CPU seconds
+    go to :data:`CPU_SECONDS`."""
     t0 = time.perf_counter()
     proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL,
                             stderr=subprocess.PIPE)
@@ -88,6 +94,7 @@ def timed(cmd, env=None):
     err = proc.stderr.read().decode(errors="replace")
     proc.stderr.close()
     proc.returncode = os.waitstatus_to_exitcode(status)
+    CPU_SECONDS.append(ru.ru_utime + ru.ru_stime)
     if proc.returncode not in (0, 1):
         raise SystemExit(f"{' '.join(map(str, cmd))} failed ({proc.returncode}):\n{err}")
     return wall, ru.ru_maxrss / 1024.0, proc.returncode
@@ -179,9 +186,11 @@ def bench_batch(n, outlets, runs):
         a, b = [], []
         for _ in range(runs):
             a.append(timed(bk, env_with_package())[0])
+            ca = CPU_SECONDS[-1]
             b.append(timed(ps, env_with_package())[0])
-            print(f"  {n}², {outlets} outlets: basinkit job {a[-1]:.1f} s, pysheds "
-                  f"{b[-1]:.1f} s", flush=True)
+            print(f"  {n}², {outlets} outlets: basinkit job {a[-1]:.1f} s ({ca:.1f} s "
+                  f"CPU), pysheds {b[-1]:.1f} s ({CPU_SECONDS[-1]:.1f} s CPU), load "
+                  f"{os.getloadavg()[0]:.1f}", flush=True)
         prov = json.loads((tmp / "job_out" / "provenance.json").read_text())
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -238,9 +247,12 @@ def bench_route(sizes, runs):
             a, b, mem_a, mem_b = [], [], [], []
             for _ in range(runs):
                 wa, ma, _ = timed(bk, env_with_package())
+                ca = CPU_SECONDS[-1]
                 wb, mb, _ = timed(ps, env_with_package())
+                cb = CPU_SECONDS[-1]
                 a.append(wa), b.append(wb), mem_a.append(ma), mem_b.append(mb)
-                print(f"  {n}²: basinkit {wa:.2f} s, pysheds {wb:.2f} s", flush=True)
+                print(f"  {n}²: basinkit {wa:.2f} s ({ca:.2f} s CPU), pysheds {wb:.2f} s "
+                      f"({cb:.2f} s CPU), load {os.getloadavg()[0]:.1f}", flush=True)
             size_mb = sum(f.stat().st_size for f in (tmp / "flow").iterdir()) / 1e6
             ip = [run_inproc(n) for _ in range(max(1, runs // 2))]
         finally:
@@ -273,10 +285,15 @@ def bench_startup(runs):
                           ("demo", basinkit_cmd("demo", "-o", tmp / "demo",
                                                 "--overwrite"))):
             timed(cmd, env)
-            t = [timed(cmd, env)[0] for _ in range(runs)]
+            t, cpu = [], []
+            for _ in range(runs):
+                t.append(timed(cmd, env)[0])
+                cpu.append(CPU_SECONDS[-1])
             out[name] = t
             print(f"warm {name}: median {statistics.median(t):.2f} s "
-                  f"(min {min(t):.2f}, max {max(t):.2f}, {runs} runs)", flush=True)
+                  f"(min {min(t):.2f}, max {max(t):.2f}, {runs} runs; CPU median "
+                  f"{statistics.median(cpu):.2f} s; load {os.getloadavg()[0]:.1f})",
+                  flush=True)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     return out
@@ -292,7 +309,8 @@ def bench_cold_demo(runs):
             w, _, _ = timed(basinkit_cmd("demo", "-o", tmp / "demo", "--overwrite"),
                             env_with_package(NUMBA_CACHE_DIR=str(cache)))
             t.append(w)
-            print(f"  cold demo run {i + 1}: {w:.1f} s", flush=True)
+            print(f"  cold demo run {i + 1}: {w:.1f} s ({CPU_SECONDS[-1]:.1f} s CPU, load "
+                  f"{os.getloadavg()[0]:.1f})", flush=True)
         print(f"cold demo: median {statistics.median(t):.1f} s (min {min(t):.1f}, "
               f"max {max(t):.1f}, {runs} runs)", flush=True)
     finally:
