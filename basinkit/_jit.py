@@ -7,7 +7,9 @@ grids. Both give identical results; only large jobs pay the parallel compile, on
 versions are cached on disk).
 """
 
+import contextlib
 import functools
+import threading
 import types
 
 import numpy as np
@@ -15,6 +17,27 @@ from numba import njit
 
 #: grids with at least this many cells use the parallel version of a kernel
 PARALLEL_MIN_CELLS = 1_000_000
+
+_THREAD = threading.local()
+
+
+def wants_parallel(size) -> bool:
+    """Whether a grid of ``size`` cells runs the parallel versions of the kernels: from
+    PARALLEL_MIN_CELLS on, or always inside :func:`parallel_versions` (this thread)."""
+    return size >= PARALLEL_MIN_CELLS or getattr(_THREAD, "parallel", False)
+
+
+@contextlib.contextmanager
+def parallel_versions():
+    """Within this block, in this thread only, small grids take the parallel versions too
+    (to load the kernels a large grid will use on a small one; the results are the
+    same)."""
+    old = getattr(_THREAD, "parallel", False)
+    _THREAD.parallel = True
+    try:
+        yield
+    finally:
+        _THREAD.parallel = old
 
 
 def _copy_function(fn, suffix):
@@ -38,7 +61,7 @@ def parallel_for_large_grids(fn=None, **options):
     @functools.wraps(fn)
     def call(*args):
         size = next((a.size for a in args if isinstance(a, np.ndarray)), 0)
-        return (parallel if size >= PARALLEL_MIN_CELLS else serial)(*args)
+        return (parallel if wants_parallel(size) else serial)(*args)
 
     call.serial = serial
     call.parallel = parallel

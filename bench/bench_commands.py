@@ -6,6 +6,7 @@ Run by hand (not part of the tests):
     python bench/bench_commands.py startup --runs 5        # warm --help and warm demo
     python bench/bench_commands.py cold-demo --runs 3      # demo with an empty kernel cache
     python bench/bench_commands.py inproc --sizes 4096     # route() alone, in process
+    python bench/bench_commands.py batch --sizes 2048 --outlets 1000 --runs 1
 
 ``route`` runs ``basinkit route DEM -o FOLDER`` and a pysheds script doing the same work
 (``fill_pits``, ``fill_depressions``, ``resolve_flats``, ``flowdir``, ``accumulation``, then
@@ -14,6 +15,10 @@ pysheds, basinkit, pysheds, ... The figure is the median wall time of the runs, 
 ratio is taken pair by pair (so a drift of the machine's speed moves both). It also times
 ``read_dem`` and ``route()`` inside one process (kernels loaded beforehand) so that the
 share of the command spent outside the algorithms (start-up, reading, writing) shows.
+
+``batch`` runs a whole job (``basinkit run``: route, catchments with polygons, channels,
+morphometry, profiles, report) for ``--outlets`` outlets on channel cells, beside pysheds
+routing followed by ``catchment`` and ``polygonize`` for each outlet.
 
 The DEM is the fractal surface of ``bench_core.py`` (same seed), written once as a tiled
 DEFLATE GeoTIFF (EPSG:32633, 10 m cells) under bench/out/, which git ignores.
@@ -73,8 +78,14 @@ def env_with_package(**extra):
     return env
 
 
+#: CPU seconds (user + system) of every timed child, in order: on a shared machine they
+#: move less than wall times
+CPU_SECONDS: list = []
+
+
 def timed(cmd, env=None):
-    """Run ``cmd``; return (wall seconds, peak resident MB, exit status)."""
+    """Run ``cmd``; return (wall seconds, peak resident MB, exit status). Its CPU seconds
+    go to :data:`CPU_SECONDS`."""
     t0 = time.perf_counter()
     proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL,
                             stderr=subprocess.PIPE)
@@ -83,6 +94,7 @@ def timed(cmd, env=None):
     err = proc.stderr.read().decode(errors="replace")
     proc.stderr.close()
     proc.returncode = os.waitstatus_to_exitcode(status)
+    CPU_SECONDS.append(ru.ru_utime + ru.ru_stime)
     if proc.returncode not in (0, 1):
         raise SystemExit(f"{' '.join(map(str, cmd))} failed ({proc.returncode}):\n{err}")
     return wall, ru.ru_maxrss / 1024.0, proc.returncode
@@ -110,6 +122,85 @@ def pysheds_script(dem, out):
     acc = grid.accumulation(fdir)
     grid.to_raster(fdir, str(out / "fdir.tif"))
     grid.to_raster(acc, str(out / "acc.tif"))
+
+
+def pysheds_batch_script(dem, outlets_csv, out):
+    """pysheds routing as in :func:`pysheds_script`, then per outlet ``catchment`` and
+    ``polygonize``; the polygons are written as one GeoJSON file."""
+    if not hasattr(np, "in1d"):
+        np.in1d = np.isin
+    from pysheds.grid import Grid
+
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    grid = Grid.from_raster(str(dem))
+    z = grid.read_raster(str(dem))
+    z = grid.resolve_flats(grid.fill_depressions(grid.fill_pits(z)))
+    fdir = grid.flowdir(z)
+    acc = grid.accumulation(fdir)
+    grid.to_raster(fdir, str(out / "fdir.tif"))
+    grid.to_raster(acc, str(out / "acc.tif"))
+    features = []
+    for line in Path(outlets_csv).read_text().splitlines()[1:]:
+        oid, x, y = line.split(",")
+        mask = grid.catchment(x=float(x), y=float(y), fdir=fdir, xytype="coordinate")
+        for geom, value in grid.polygonize(mask.astype(np.uint8)):
+            if value:
+                features.append({"type": "Feature", "geometry": geom,
+                                 "properties": {"outlet_id": oid}})
+    (out / "catchments.geojson").write_text(json.dumps(
+        {"type": "FeatureCollection", "features": features}))
+
+
+def batch_inputs(n, outlets, folder):
+    """outlets.csv (``outlets`` distinct cell centres with at least 1 000 upstream cells,
+    fixed seed) and job.toml (everything on, report included) for the n x n DEM."""
+    from basinkit import read_dem, route
+
+    folder.mkdir(parents=True, exist_ok=True)
+    dem = dem_tif(n)
+    fm = route(read_dem(dem))
+    count = np.asarray(fm.accumulation(unit="cells")).ravel()
+    cand = np.flatnonzero(count >= 1000)
+    cells = np.sort(np.random.default_rng(5).choice(cand, size=outlets, replace=False))
+    x, y = fm.terrain.xy_of(cells // fm.ncols, cells % fm.ncols)
+    rows = [f"o{i:05d},{a:.3f},{b:.3f}" for i, (a, b) in enumerate(zip(x, y))]
+    (folder / "outlets.csv").write_text("id,x,y\n" + "\n".join(rows) + "\n")
+    (folder / "job.toml").write_text(
+        f'[job]\nname = "bench: {outlets} outlets on the {n}-cell fractal DEM"\n'
+        f'[inputs]\ndem = "{dem}"\noutlets = "outlets.csv"\n'
+        '[outlets]\nsnap_radius_m = 0\n'
+        '[channels]\nmin_area = "0.1km2"\n'
+        '[outputs]\nfolder = "job_out"\n')
+    return folder / "job.toml", folder / "outlets.csv"
+
+
+def bench_batch(n, outlets, runs):
+    tmp = Path(tempfile.mkdtemp(prefix="bench_commands_"))
+    try:
+        job, csv = batch_inputs(n, outlets, tmp)
+        bk = basinkit_cmd("run", job, "-o", tmp / "job_out", "--overwrite")
+        ps = [sys.executable, str(Path(__file__).resolve()), "_pysheds_batch",
+              str(dem_tif(n)), str(csv), str(tmp / "pysheds")]
+        timed(bk, env_with_package())
+        a, b = [], []
+        for _ in range(runs):
+            a.append(timed(bk, env_with_package())[0])
+            ca = CPU_SECONDS[-1]
+            b.append(timed(ps, env_with_package())[0])
+            print(f"  {n}², {outlets} outlets: basinkit job {a[-1]:.1f} s ({ca:.1f} s "
+                  f"CPU), pysheds {b[-1]:.1f} s ({CPU_SECONDS[-1]:.1f} s CPU), load "
+                  f"{os.getloadavg()[0]:.1f}", flush=True)
+        prov = json.loads((tmp / "job_out" / "provenance.json").read_text())
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    ratio = statistics.median(y / x for x, y in zip(a, b))
+    print(f"{n}², {outlets} outlets: basinkit job {statistics.median(a):.1f} s (route, "
+          f"catchments with polygons, channels, morphometry, profiles, report), pysheds "
+          f"routing + catchment and polygonize per outlet {statistics.median(b):.1f} s, "
+          f"ratio {ratio:.2f}×; stages of the last job: "
+          f"{ {k: v.get('seconds') for k, v in prov.get('stages', {}).items()} }", flush=True)
+    return {"basinkit_s": a, "pysheds_s": b, "ratio_median": ratio}
 
 
 def inproc(n):
@@ -156,9 +247,12 @@ def bench_route(sizes, runs):
             a, b, mem_a, mem_b = [], [], [], []
             for _ in range(runs):
                 wa, ma, _ = timed(bk, env_with_package())
+                ca = CPU_SECONDS[-1]
                 wb, mb, _ = timed(ps, env_with_package())
+                cb = CPU_SECONDS[-1]
                 a.append(wa), b.append(wb), mem_a.append(ma), mem_b.append(mb)
-                print(f"  {n}²: basinkit {wa:.2f} s, pysheds {wb:.2f} s", flush=True)
+                print(f"  {n}²: basinkit {wa:.2f} s ({ca:.2f} s CPU), pysheds {wb:.2f} s "
+                      f"({cb:.2f} s CPU), load {os.getloadavg()[0]:.1f}", flush=True)
             size_mb = sum(f.stat().st_size for f in (tmp / "flow").iterdir()) / 1e6
             ip = [run_inproc(n) for _ in range(max(1, runs // 2))]
         finally:
@@ -191,10 +285,15 @@ def bench_startup(runs):
                           ("demo", basinkit_cmd("demo", "-o", tmp / "demo",
                                                 "--overwrite"))):
             timed(cmd, env)
-            t = [timed(cmd, env)[0] for _ in range(runs)]
+            t, cpu = [], []
+            for _ in range(runs):
+                t.append(timed(cmd, env)[0])
+                cpu.append(CPU_SECONDS[-1])
             out[name] = t
             print(f"warm {name}: median {statistics.median(t):.2f} s "
-                  f"(min {min(t):.2f}, max {max(t):.2f}, {runs} runs)", flush=True)
+                  f"(min {min(t):.2f}, max {max(t):.2f}, {runs} runs; CPU median "
+                  f"{statistics.median(cpu):.2f} s; load {os.getloadavg()[0]:.1f})",
+                  flush=True)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     return out
@@ -210,7 +309,8 @@ def bench_cold_demo(runs):
             w, _, _ = timed(basinkit_cmd("demo", "-o", tmp / "demo", "--overwrite"),
                             env_with_package(NUMBA_CACHE_DIR=str(cache)))
             t.append(w)
-            print(f"  cold demo run {i + 1}: {w:.1f} s", flush=True)
+            print(f"  cold demo run {i + 1}: {w:.1f} s ({CPU_SECONDS[-1]:.1f} s CPU, load "
+                  f"{os.getloadavg()[0]:.1f})", flush=True)
         print(f"cold demo: median {statistics.median(t):.1f} s (min {min(t):.1f}, "
               f"max {max(t):.1f}, {runs} runs)", flush=True)
     finally:
@@ -221,19 +321,24 @@ def bench_cold_demo(runs):
 def main():
     if len(sys.argv) > 1 and sys.argv[1] == "_pysheds":
         return pysheds_script(sys.argv[2], sys.argv[3])
+    if len(sys.argv) > 1 and sys.argv[1] == "_pysheds_batch":
+        return pysheds_batch_script(*sys.argv[2:5])
     if len(sys.argv) > 1 and sys.argv[1] == "_inproc":
         print(json.dumps(inproc(int(sys.argv[2]))))
         return None
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("what", choices=["route", "startup", "cold-demo", "inproc"])
+    ap.add_argument("what", choices=["route", "batch", "startup", "cold-demo", "inproc"])
     ap.add_argument("--sizes", type=int, nargs="+", default=[2048, 4096])
     ap.add_argument("--runs", type=int, default=3)
+    ap.add_argument("--outlets", type=int, default=1000, help="outlets of 'batch'")
     ap.add_argument("--json", type=Path, help="also write the figures to this file")
     a = ap.parse_args()
     print(f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, load average "
           f"{os.getloadavg()[0]:.2f}, {os.cpu_count()} cores", flush=True)
     if a.what == "route":
         res = bench_route(a.sizes, a.runs)
+    elif a.what == "batch":
+        res = {n: bench_batch(n, a.outlets, a.runs) for n in a.sizes}
     elif a.what == "startup":
         res = bench_startup(a.runs)
     elif a.what == "cold-demo":

@@ -63,6 +63,19 @@ def _cached(fm, key, make):
     return fm.derived(("profiles", key), make)
 
 
+def _preferred_donor(rec, order, key, tie):
+    """:func:`_profiles.preferred_donor` called with one set of types (int32 indices,
+    read-only float64 keys), so that numba compiles it once, not once per caller."""
+    def ro(a):
+        a = np.asarray(a, dtype=np.float64).view()
+        a.flags.writeable = False
+        return a
+
+    return _profiles.preferred_donor(np.ascontiguousarray(rec, dtype=np.int32),
+                                     np.ascontiguousarray(order, dtype=np.int32),
+                                     ro(key), ro(tie))
+
+
 def _area_flat(fm):
     return fm.d8_upstream_area_flat()
 
@@ -331,7 +344,7 @@ def longest_flow_path(fm, outlet_cell, network=None, concavity=DEFAULT_CONCAVITY
     def make():
         up = _upstream_length_flat(fm)
         key = up + fm.receiver_distance()
-        return _profiles.preferred_donor(fm.receiver, fm.stack, key, _area_flat(fm))
+        return _preferred_donor(fm.receiver, fm.stack, key, _area_flat(fm))
 
     donor = _cached(fm, "donor_longest", make)
     cells = _profiles.trace_donors(donor, c)
@@ -377,7 +390,7 @@ def main_stem(fm, outlet_cell, network=None, concavity=DEFAULT_CONCAVITY,
 
     def make():
         tie = _upstream_length_flat(fm) + fm.receiver_distance()
-        return _profiles.preferred_donor(fm.receiver, fm.stack, _area_flat(fm), tie)
+        return _preferred_donor(fm.receiver, fm.stack, _area_flat(fm), tie)
 
     donor = _cached(fm, "donor_area", make)
     cells = _profiles.trace_donors(donor, c)
@@ -460,7 +473,7 @@ def _build_tree(fm, network, outlet_cell, min_order, outlet_ids=None) -> _Tree:
     zc = zc_all[sel].astype(np.float64)
     zr = zr_all[sel].astype(np.float64)
     order = np.arange(sel.size, dtype=np.int64)
-    ldonor = _profiles.preferred_donor(lrec, order, area, area)
+    ldonor = _preferred_donor(lrec, order, area, area)
     distance = _profiles.cumulate_upstream(lrec, step)
     profile = _profiles.stream_ids(lrec, ldonor)
     down = np.where(lrec >= 0, sel[np.maximum(lrec, 0)], -1)

@@ -11,7 +11,7 @@ import numba
 import numpy as np
 from numba import njit, prange
 
-from .._jit import PARALLEL_MIN_CELLS, parallel_for_large_grids
+from .._jit import parallel_for_large_grids, wants_parallel
 
 
 def stack_and_count(rec):
@@ -113,7 +113,7 @@ def sweep_bands_for(nrows, ncols):
     """Number of bands the sweep uses for a grid: one below PARALLEL_MIN_CELLS (the
     serial sweep, as on small grids always), else SWEEP_BANDS (bands of 4 rows at least).
     """
-    if nrows * ncols < PARALLEL_MIN_CELLS or nrows < 4 * SWEEP_BANDS:
+    if not wants_parallel(nrows * ncols) or nrows < 4 * SWEEP_BANDS:
         return 1
     return SWEEP_BANDS
 
@@ -146,7 +146,7 @@ def sweep_in_bands(rec, ncols, row_area, nbands, parallel=None):
     n = rec.shape[0]
     with_area = row_area is not None
     if parallel is None:
-        parallel = n >= PARALLEL_MIN_CELLS
+        parallel = wants_parallel(n)
     count_donors = _count_donors.parallel if parallel else _count_donors.serial
     sweep = _sweep_bands.parallel if parallel else _sweep_bands.serial
     nrows = n // ncols if ncols > 0 else 0

@@ -88,14 +88,34 @@ class FlowSettings:
 
 
 def read_terrain(settings: FlowSettings):
-    """Read the DEM as the settings say (raises InputError for a bad DEM)."""
-    from ...io.dem import read_dem
+    """Read the DEM as the settings say (raises InputError for a bad DEM).
 
-    return read_dem(settings.dem, band=settings.band, crs=settings.crs,
-                    sea_level=settings.sea_level_m, base_level=settings.base_level,
-                    replace_crs=settings.replace_crs, cell_size=settings.cell_size,
-                    origin=settings.origin, elevation_range=settings.elevation_range_m,
-                    implausible_elevations=settings.implausible_elevations)
+    The kernels of ``route`` load in a background thread meanwhile
+    (:mod:`basinkit.workflow.warmup`)."""
+    from ..warmup import start_warmup
+
+    warm = start_warmup(_raster_cells(settings.dem), settings.method, settings.conditioning)
+    try:
+        from ...io.dem import read_dem
+
+        return read_dem(settings.dem, band=settings.band, crs=settings.crs,
+                        sea_level=settings.sea_level_m, base_level=settings.base_level,
+                        replace_crs=settings.replace_crs, cell_size=settings.cell_size,
+                        origin=settings.origin, elevation_range=settings.elevation_range_m,
+                        implausible_elevations=settings.implausible_elevations)
+    finally:
+        warm.join()
+
+
+def _raster_cells(path) -> int:
+    """Cells of a raster from its header (0 when it cannot be opened: read_dem says why)."""
+    try:
+        import rasterio
+
+        with rasterio.open(path) as ds:
+            return ds.width * ds.height
+    except Exception:  # noqa: BLE001 - read_dem reports an unreadable file properly
+        return 0
 
 
 def read_burn_lines(settings: FlowSettings, crs) -> list:
