@@ -71,9 +71,9 @@ def dem_tif(n) -> Path:
     return p
 
 
-def env_with_package(**extra):
+def env_with_package(root=ROOT, **extra):
     env = dict(os.environ)
-    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+    env["PYTHONPATH"] = str(root) + os.pathsep + env.get("PYTHONPATH", "")
     env.update(extra)
     return env
 
@@ -234,7 +234,9 @@ def run_inproc(n):
 
 
 # ---------------------------------------------------------------- the comparisons
-def bench_route(sizes, runs):
+def bench_route(sizes, runs, before=None):
+    """``before``: another checkout of basinkit (an earlier commit), timed in the same
+    rounds (before, basinkit, pysheds, before, ...)."""
     rows = []
     for n in sizes:
         dem = dem_tif(n)
@@ -244,8 +246,15 @@ def bench_route(sizes, runs):
             ps = [sys.executable, str(Path(__file__).resolve()), "_pysheds", str(dem),
                   str(tmp / "pysheds")]
             timed(bk, env_with_package())  # warm the file cache and the kernel cache
-            a, b, mem_a, mem_b = [], [], [], []
+            a, b, mem_a, mem_b, old = [], [], [], [], []
+            if before is not None:
+                bk_old = basinkit_cmd("route", dem, "-o", tmp / "flow_before", "--overwrite")
+                timed(bk_old, env_with_package(before))
             for _ in range(runs):
+                if before is not None:
+                    old.append(timed(bk_old, env_with_package(before))[0])
+                    print(f"  {n}²: before {old[-1]:.2f} s ({CPU_SECONDS[-1]:.2f} s CPU)",
+                          flush=True)
                 wa, ma, _ = timed(bk, env_with_package())
                 ca = CPU_SECONDS[-1]
                 wb, mb, _ = timed(ps, env_with_package())
@@ -264,7 +273,7 @@ def bench_route(sizes, runs):
                "ratio_median": statistics.median(y / x for x, y in zip(a, b)),
                "basinkit_peak_mb": max(mem_a), "pysheds_peak_mb": max(mem_b),
                "flow_folder_mb": size_mb, "inproc": ip, "route_s": route_s,
-               "outside_route_share": 1 - route_s / med_a}
+               "outside_route_share": 1 - route_s / med_a, "before_s": old}
         rows.append(row)
         print(f"{n}²: basinkit {med_a:.2f} s (median of {runs}), pysheds "
               f"{row['pysheds_median_s']:.2f} s, ratio {row['ratio_median']:.2f}×; "
@@ -273,6 +282,10 @@ def bench_route(sizes, runs):
               f"writing {100 * row['outside_route_share']:.0f} % of the command; flow "
               f"folder {size_mb:.0f} MB; peak {row['basinkit_peak_mb']:.0f} MB vs "
               f"{row['pysheds_peak_mb']:.0f} MB", flush=True)
+        if old:
+            print(f"{n}²: before {statistics.median(old):.2f} s (median), ratio pysheds / "
+                  f"before {statistics.median(y / x for x, y in zip(old, b)):.2f}×",
+                  flush=True)
     return rows
 
 
@@ -331,12 +344,15 @@ def main():
     ap.add_argument("--sizes", type=int, nargs="+", default=[2048, 4096])
     ap.add_argument("--runs", type=int, default=3)
     ap.add_argument("--outlets", type=int, default=1000, help="outlets of 'batch'")
+    ap.add_argument("--before", type=Path,
+                    help="route: also time this other checkout of basinkit (e.g. a "
+                         "'git worktree' of an earlier commit) in the same rounds")
     ap.add_argument("--json", type=Path, help="also write the figures to this file")
     a = ap.parse_args()
     print(f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, load average "
           f"{os.getloadavg()[0]:.2f}, {os.cpu_count()} cores", flush=True)
     if a.what == "route":
-        res = bench_route(a.sizes, a.runs)
+        res = bench_route(a.sizes, a.runs, a.before)
     elif a.what == "batch":
         res = {n: bench_batch(n, a.outlets, a.runs) for n in a.sizes}
     elif a.what == "startup":
