@@ -96,6 +96,12 @@ class Delineation:
         hi = lab + int(self._subtree_size[lab]) - 1
         return (self.labels >= lab) & (self.labels <= hi)
 
+    def label_ranges(self) -> np.ndarray:
+        """(lo, hi) label range of every table row's full catchment (int64, shape (n, 2)):
+        the catchment is the cells with ``lo <= label <= hi``."""
+        lab = self.table["label"].to_numpy(np.int64)
+        return np.column_stack([lab, lab + self._subtree_size[lab] - 1])
+
     def subcatchment_mask(self, outlet_id) -> np.ndarray:
         """Boolean grid of an outlet's sub-catchment (its catchment minus those of the
         outlets upstream)."""

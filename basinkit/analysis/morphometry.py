@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 
-from . import _channels
+from . import _catchments, _channels
 from ..errors import InputError, OutletError
 
 __all__ = ["basin_morphometry", "morphometry_table", "hypsometric_curve",
@@ -48,11 +48,48 @@ class _Context:
         if network is not None and network.mask.shape != t.shape:
             raise InputError("the channel network is not on the flow model's grid")
 
+    slope = aspect = None
+
+    def horn(self, r0, r1, c0, c1):
+        """Horn slope and aspect of the window rows r0..r1, cols c0..c1 (inclusive)."""
+        zp = np.where(self.valid[r0:r1 + 1, c0:c1 + 1], self.z[r0:r1 + 1, c0:c1 + 1],
+                      np.nan).astype(np.float64)
+        return _channels.horn_slope_aspect(zp, self.dx[r0:r1 + 1], self.dy_up[r0:r1 + 1],
+                                           self.dy_down[r0:r1 + 1])
+
+    def use_full_grid_slope(self, rmin, rmax, cmin, cmax, which):
+        """Compute slope and aspect once for the whole grid when the catchments' padded
+        windows cover more cells in all than the grid (nested catchments)."""
+        which = np.asarray(which)
+        if which.ndim == 2:  # label ranges: the boxes are per catchment
+            r0, r1, c0, c1 = rmin, rmax, cmin, cmax
+        else:
+            k = which[(which > 0) & (which < rmin.size)]
+            r0, r1, c0, c1 = rmin[k], rmax[k], cmin[k], cmax[k]
+        ok = r1 >= r0
+        cells = float(np.sum((r1[ok] - r0[ok] + 3.0) * (c1[ok] - c0[ok] + 3.0)))
+        nr, nc = self.valid.shape
+        if cells > nr * nc:
+            self.slope, self.aspect = self.horn(0, nr - 1, 0, nc - 1)
+
     @property
     def downstream_length(self):
         if self._dl is None:
             self._dl = self.fm.downstream_length().ravel()
         return self._dl
+
+
+def _range_boxes(ranges, rmin, rmax, cmin, cmax):
+    """Bounding box of each label range (lo, hi) from the boxes of the labels."""
+    n = ranges.shape[0]
+    out = (np.full(n, 2 ** 62, np.int64), np.full(n, -1, np.int64),
+           np.full(n, 2 ** 62, np.int64), np.full(n, -1, np.int64))
+    for i in range(n):
+        lo, hi = int(ranges[i, 0]), int(ranges[i, 1]) + 1
+        if 0 < lo < hi <= rmin.size:
+            out[0][i], out[1][i] = rmin[lo:hi].min(), rmax[lo:hi].max()
+            out[2][i], out[3][i] = cmin[lo:hi].min(), cmax[lo:hi].max()
+    return out
 
 
 def _hypsometry(z, w, levels=HYPSOMETRIC_LEVELS):
@@ -61,10 +98,24 @@ def _hypsometry(z, w, levels=HYPSOMETRIC_LEVELS):
     if z.size == 0:
         return h, np.full(h.shape, np.nan), np.full(h.shape, np.nan)
     zmin, zmax = z.min(), z.max()
+    elev = zmin + h * (zmax - zmin)
+    w0 = w[0]
+    if w0 == np.floor(w0) and w0 * z.size < 2.0 ** 52 and np.all(w == w0):
+        # equal whole-number cell areas (projected grids): the running sums of the sorted
+        # areas are exact, so area above a level is w0 times the count of cells at or above
+        # it; the counts come from binning against the levels, without a sort
+        n = z.size
+        if zmax > zmin:
+            j = np.searchsorted(elev, z, side="right")  # levels at or below each cell
+            below = np.cumsum(np.bincount(j, minlength=elev.size + 1))[:elev.size]
+            below[-1] = n - int(np.count_nonzero(z == zmax))  # top level: z < zmax
+            a = w0 * (n - below).astype(np.float64)
+        else:
+            a = np.full(h.shape, w0 * n)
+        return h, a, elev
     order = np.argsort(z, kind="stable")
     zs = z[order]
     above = np.concatenate([np.cumsum(w[order][::-1])[::-1], [0.0]])  # area with z >= zs[i]
-    elev = zmin + h * (zmax - zmin)
     if zmax > zmin:
         idx = np.searchsorted(zs, elev, side="left")
         # guard the top level against rounding: the highest cells are at relative height 1
@@ -208,10 +259,10 @@ def _farthest_vertex(fm, poly, x0, y0):
 
 def _percentiles(v, qs):
     """Linear-interpolation percentiles of a 1-D array (numpy's default rule)."""
-    s = np.sort(v)
-    pos = np.asarray(qs, dtype=float) / 100.0 * (s.size - 1)
+    pos = np.asarray(qs, dtype=float) / 100.0 * (v.size - 1)
     lo = np.floor(pos).astype(np.int64)
-    hi = np.minimum(lo + 1, s.size - 1)
+    hi = np.minimum(lo + 1, v.size - 1)
+    s = np.partition(v, np.unique(np.concatenate([lo, hi])))  # those ranks in place
     return s[lo] + (s[hi] - s[lo]) * (pos - lo)
 
 
@@ -278,15 +329,18 @@ def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve, poly=None):
     curve = _curve_frame(h, a_above, elev) if want_curve else None
     out["hypsometric_integral"] = hi if relief > 0 else np.nan
     out["elevation_relief_ratio"] = (zmean - zmin) / relief if relief > 0 else np.nan
-    # ---- slope and aspect (Horn 1981) on the window padded by one cell
-    pr0, pr1 = max(r0 - 1, 0), min(r1 + 1, t.shape[0] - 1)
-    pc0, pc1 = max(c0 - 1, 0), min(c1 + 1, t.shape[1] - 1)
-    zp = np.where(ctx.valid[pr0:pr1 + 1, pc0:pc1 + 1], ctx.z[pr0:pr1 + 1, pc0:pc1 + 1],
-                  np.nan).astype(np.float64)
-    s, asp = _channels.horn_slope_aspect(zp, ctx.dx[pr0:pr1 + 1], ctx.dy_up[pr0:pr1 + 1],
-                                         ctx.dy_down[pr0:pr1 + 1])
-    inner = (slice(r0 - pr0, r0 - pr0 + mwin.shape[0]),
-             slice(c0 - pc0, c0 - pc0 + mwin.shape[1]))
+    # ---- slope and aspect (Horn 1981) on the window padded by one cell (or read from the
+    # whole grid's, computed once: the same values, as every cell of the catchment sees
+    # its true neighbours either way)
+    if ctx.slope is not None:
+        s, asp = ctx.slope[win], ctx.aspect[win]
+        inner = (slice(None), slice(None))
+    else:
+        pr0, pr1 = max(r0 - 1, 0), min(r1 + 1, t.shape[0] - 1)
+        pc0, pc1 = max(c0 - 1, 0), min(c1 + 1, t.shape[1] - 1)
+        s, asp = ctx.horn(pr0, pr1, pc0, pc1)
+        inner = (slice(r0 - pr0, r0 - pr0 + mwin.shape[0]),
+                 slice(c0 - pc0, c0 - pc0 + mwin.shape[1]))
     sm = s[inner][mwin]
     good = np.isfinite(sm)
     sw, aw = sm[good], am[good]
@@ -411,7 +465,7 @@ def basin_morphometry(fm, mask, outlet_cell, network=None, return_curve=False):
 
 
 def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
-                      return_curves=False, progress=None):
+                      return_curves=False, progress=None, label_ranges=None):
     """Morphometry of many catchments, one row each (see :func:`basin_morphometry`).
 
     Parameters
@@ -431,6 +485,11 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
         Also return ``{id: hypsometric curve DataFrame}``.
     progress : callable, optional
         ``progress(iterable, total=, desc=)`` wrapper (e.g. a progress bar).
+    label_ranges : array of int (n, 2), optional
+        With a label grid: catchment ``i`` is the cells labelled ``label_ranges[i, 0]`` to
+        ``label_ranges[i, 1]`` (the depth-first labels of
+        :class:`~basinkit.analysis.catchments.Delineation`, where a nested catchment is a
+        contiguous label range), measured in its bounding box without full-grid masks.
 
     Returns
     -------
@@ -467,12 +526,20 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
         labels = masks_or_labels
         if labels.shape != fm.shape:
             raise InputError(f"the label grid has shape {labels.shape}, the grid {fm.shape}")
-        nlab = int(max(ids.max() if n else 0, 0)) + 1
         lab32 = labels if labels.dtype == np.int32 else labels.astype(np.int64)
+        if label_ranges is not None:
+            ranges = np.asarray(label_ranges, dtype=np.int64).reshape(-1, 2)
+            if ranges.shape[0] != n:
+                raise InputError(f"{ranges.shape[0]} label ranges for {n} outlets")
+            nlab = int(max(ranges[:, 1].max() if n else 0, 0)) + 1
+        else:
+            nlab = int(max(ids.max() if n else 0, 0)) + 1
         rmin, rmax, cmin, cmax = _channels.label_bounding_boxes(lab32, nlab)
+        if label_ranges is not None:
+            rmin, rmax, cmin, cmax = _range_boxes(ranges, rmin, rmax, cmin, cmax)
         # polygons: one polygonize of the whole label grid beats one call per window
         # once there are many catchments (a call costs about as much as ~25 000 cells)
-        if n * 25_000 > labels.size:
+        if label_ranges is None and n * 25_000 > labels.size:
             from .polygons import labels_to_polygons
 
             wanted = [int(i) for i in ids if 0 < int(i) < nlab]
@@ -482,6 +549,9 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
                  and hasattr(masks_or_labels, "__len__") else list(masks_or_labels))
         if len(masks) != n:
             raise InputError(f"{len(masks)} catchment masks for {n} outlets")
+    if labels is not None:
+        ctx.use_full_grid_slope(rmin, rmax, cmin, cmax, ranges if label_ranges is not None
+                                else ids)
     import rasterio
 
     with rasterio.Env():  # one GDAL environment for every polygon of the batch
@@ -492,7 +562,13 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
             cid = ids[i]
             rec = {"catchment_id": cid.item() if hasattr(cid, "item") else cid}
             try:
-                if labels is not None:
+                if labels is not None and label_ranges is not None:
+                    if rmin[i] > rmax[i]:
+                        raise InputError(f"catchment {cid} has no cells in the label grid")
+                    r0, r1, c0, c1 = rmin[i], rmax[i], cmin[i], cmax[i]
+                    mwin = _catchments.range_mask(labels[r0:r1 + 1, c0:c1 + 1],
+                                                  ranges[i, 0], ranges[i, 1]).view(bool)
+                elif labels is not None:
                     if cid <= 0 or rmin[cid] > rmax[cid]:
                         raise InputError(f"catchment {cid} has no cells in the label grid")
                     r0, r1, c0, c1 = rmin[cid], rmax[cid], cmin[cid], cmax[cid]
@@ -508,7 +584,8 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
                     r0, r1, c0, c1 = rr[0], rr[-1], cc[0], cc[-1]
                     mwin = m[r0:r1 + 1, c0:c1 + 1]
                 out, curve = _measure(ctx, r0, r1, c0, c1, mwin, outlets[i], return_curves,
-                                      polys.get(int(cid)) if labels is not None else None)
+                                      polys.get(int(cid)) if labels is not None
+                                      and label_ranges is None else None)
                 rec.update(out)
                 rec["error"] = ""
                 if return_curves:

@@ -104,14 +104,15 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
                  "Horton ratios, drainage density) are left out")
     nested = bool((tab["upstream_outlet_count"] > 0).any())
     cells = tab["cell"].to_numpy(np.int64)
-    if nested:  # full catchments overlap: one mask per outlet, made when measured
-        masks = _Masks(d)
+    ranges = None
+    if nested:  # full catchments overlap: each is a depth-first label range
         ids = np.arange(1, len(tab) + 1)
+        ranges = d.label_ranges()
     else:  # each sub-catchment is a full catchment: the label grid, one window each
-        masks = d.labels
         ids = tab["label"].to_numpy(np.int64)
-    table, curves = morphometry_table(fm, masks, cells, ids=ids, network=network,
-                                      return_curves=True, progress=rep.progress)
+    table, curves = morphometry_table(fm, d.labels, cells, ids=ids, network=network,
+                                      return_curves=True, progress=rep.progress,
+                                      label_ranges=ranges)
     curves = [curves.get(i.item() if hasattr(i, "item") else i) for i in table["catchment_id"]]
     table = table.drop(columns="catchment_id")
     table.insert(0, "outlet_id", tab["outlet_id"].astype(str).to_numpy())
@@ -167,18 +168,3 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
              + (f"; {len(bad)} of {len(table)} outlets could not be measured (see the error "
                 "column)" if len(bad) else ""))
     return MorphometryResult(table, hyps, by_id)
-
-
-class _Masks:
-    """The full-catchment masks of a delineation, one made each time it is asked for (a
-    list of thousands of full-grid masks would not fit in memory)."""
-
-    def __init__(self, d):
-        self.d = d
-        self.ids = d.table["outlet_id"].astype(str).tolist()
-
-    def __len__(self):
-        return len(self.ids)
-
-    def __getitem__(self, i):
-        return self.d.catchment_mask(self.ids[i])
