@@ -206,6 +206,38 @@ def test_segments_layer_sums_to_the_velocity_tc(command_run):
             uh.loc[r.outlet_id, "peak_discharge_m3_per_s"])
 
 
+def test_width_depth_relation_in_channels(basin, tmp_path):
+    """Channel segments with a bankfull width-depth relation instead of one hydraulic
+    radius: r = w·d/(w + 2d) of a rectangular section with w = a·A^b, d = c·A^f
+    (Leopold & Maddock 1953 form; closed form), and Manning's V = r^(2/3)·S^(1/2)/n (SI)."""
+    import pyogrio
+
+    d, _ = basin
+    base = [v for v in BASE if v not in ("--hydraulic-radius", "0.5m")]
+    out = tmp_path / "wd"
+    code, _, _ = run(["-q", "design-flow", d / "flow", "--outlets", d / "outlets.csv",
+                      *OUTLETS, "--idf-table", d / "idf.csv", "--return-period", "100",
+                      *base, "--bankfull-width", "4.0,0.4", "--bankfull-depth", "0.35,0.25",
+                      "-o", out])
+    assert code == 0
+    seg = pyogrio.read_dataframe(out / "design_flows.gpkg", layer="flow_path_segments")
+    ch = seg[seg["flow_regime"] == "channel"]
+    assert len(ch)
+    a_km2 = ch["upstream_area_m2"].to_numpy() / 1e6
+    w, dep = 4.0 * a_km2 ** 0.4, 0.35 * a_km2 ** 0.25
+    np.testing.assert_allclose(ch["hydraulic_radius_m"], w * dep / (w + 2 * dep), rtol=1e-9)
+    np.testing.assert_allclose(ch["velocity_m_per_s"],
+                               ch["hydraulic_radius_m"] ** (2 / 3)
+                               * ch["slope_m_per_m"] ** 0.5 / 0.045, rtol=1e-9)
+    # both ways of giving the channel at once, or half a relation, are refused
+    for extra in (["--hydraulic-radius", "0.5m", "--bankfull-width", "4,0.4",
+                   "--bankfull-depth", "0.35,0.25"], ["--bankfull-width", "4,0.4"]):
+        code, _, _ = run(["-q", "design-flow", d / "flow", "--outlets", d / "outlets.csv",
+                          *OUTLETS, "--idf-table", d / "idf.csv", "--return-period", "100",
+                          *base, *extra, "-o", tmp_path / "bad"])
+        assert code == 2 and not (tmp_path / "bad").exists()
+
+
 def test_json_records_inputs_ranges_and_cautions(command_run, basin):
     d, _ = basin
     j = json.loads((command_run / "design_flows.json").read_text())

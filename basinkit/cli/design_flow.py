@@ -3,7 +3,7 @@ at one or more outlets (the design-flow step of :mod:`basinkit.workflow.steps`).
 
 import click
 
-from .options import (LENGTH, figure_options, load_flow_folder, outlet_options,
+from .options import (LENGTH, NUMBER_PAIR, figure_options, load_flow_folder, outlet_options,
                       output_folder, overwrite_option, parse_area, place)
 
 _PATTERNS = ["nrcs_type_i", "nrcs_type_ia", "nrcs_type_ii", "nrcs_type_iii", "uniform"]
@@ -68,6 +68,12 @@ def _area(value, name):
 @click.option("--channel-n", type=float, default=None, help="Manning's n of the channels.")
 @click.option("--hydraulic-radius", type=LENGTH, default=None,
               help="Bankfull hydraulic radius of the channels (e.g. 0.6m).")
+@click.option("--bankfull-width", type=NUMBER_PAIR, default=None, metavar="A,B",
+              help="Instead of --hydraulic-radius, a width-depth relation: bankfull width "
+                   "A*area^B in m, area upstream in km2 (your region's relation); with "
+                   "--bankfull-depth.")
+@click.option("--bankfull-depth", type=NUMBER_PAIR, default=None, metavar="C,F",
+              help="Bankfull depth C*area^F in m (area in km2); with --bankfull-width.")
 @click.option("--channel-threshold", default=None, metavar="AREA",
               help="Upstream area from which a flow path is a channel (e.g. 2ha).")
 @click.option("--peak-rate-factor", type=float, default=484.0, show_default=True,

@@ -27,6 +27,24 @@ class LengthParam(click.ParamType):
 LENGTH = LengthParam()
 
 
+class NumberPairParam(click.ParamType):
+    """A click option value 'A,B' converted to a pair of floats."""
+
+    name = "A,B"
+
+    def convert(self, value, param, ctx):
+        if value is None or isinstance(value, tuple):
+            return value
+        opt = f"--{param.name.replace('_', '-')}" if param else "the value"
+        try:
+            return _number_pair(value, opt)
+        except click.BadParameter as exc:
+            self.fail(exc.message, param, ctx)
+
+
+NUMBER_PAIR = NumberPairParam()
+
+
 def _number_pair(text, option):
     """'A,B' as two floats (for --origin and --elevation-range)."""
     parts = [t.strip() for t in str(text).replace(";", ",").split(",")]

@@ -92,6 +92,12 @@ DESIGN_FLOW_SCHEMA = {
     "channel_n": _S(kind="float", default=None, help="Manning's n of the channels."),
     "hydraulic_radius": _S(kind="length", default=None,
                            help="Bankfull hydraulic radius of the channels."),
+    "bankfull_width": _S(kind="pair", default=None,
+                         help="Instead of hydraulic_radius: bankfull width a·A^b in m "
+                              "(A upstream area in km²), as [a, b]; with bankfull_depth."),
+    "bankfull_depth": _S(kind="pair", default=None,
+                         help="Bankfull depth c·A^f in m (A in km²), as [c, f]; with "
+                              "bankfull_width."),
     "channel_threshold": _S(kind="area", default=None,
                             help="Upstream area from which a flow path is a channel."),
     "peak_rate_factor": _S(kind="float", default=484.0,
@@ -101,6 +107,22 @@ DESIGN_FLOW_SCHEMA = {
     "base_flow_m3_per_s": _S(kind="float", default=0.0,
                              help="Constant base flow added to the hydrograph."),
 }
+
+
+def _bankfull(width, depth, hydraulic_radius) -> dict:
+    """The width-depth relation as :class:`VelocityMethodInputs` fields (both or neither,
+    and not with a hydraulic radius)."""
+    if width is None and depth is None:
+        return {}
+    if width is None or depth is None:
+        raise InputError("give the bankfull width and depth relations together "
+                         "(--bankfull-width A,B and --bankfull-depth C,F)")
+    if hydraulic_radius is not None:
+        raise InputError("give either a hydraulic radius or the bankfull width and depth "
+                         "relations, not both")
+    (a, b), (c, f) = width, depth
+    return {"width_coefficient": a, "width_exponent": b, "depth_coefficient": c,
+            "depth_exponent": f}
 
 
 def design_flow_cautions() -> str:
@@ -142,6 +164,8 @@ class DesignFlowStepSettings:
     shallow_surface: str = "unpaved"
     channel_n: float | None = None
     hydraulic_radius: float | None = None
+    bankfull_width: tuple | None = None
+    bankfull_depth: tuple | None = None
     channel_threshold: float | None = None
     peak_rate_factor: float = 484.0
     time_step_min: float | None = None
@@ -228,6 +252,7 @@ class DesignFlowStepSettings:
             p2_24h_mm=(parse_depth(self.p2_24h, "the 2-year 24-hour rainfall (--p2-24h)")
                        if self.p2_24h is not None else None),
             channel_n=self.channel_n, hydraulic_radius_m=self.hydraulic_radius,
+            **_bankfull(self.bankfull_width, self.bankfull_depth, self.hydraulic_radius),
             channel_threshold_m2=self.channel_threshold,
             sheet_flow_max_length_m=self.sheet_flow_max_length,
             shallow_surface=self.shallow_surface)
