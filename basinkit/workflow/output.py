@@ -86,6 +86,11 @@ class OutputFolder:
         """The folder this view writes into."""
         return self.base / self._prefix if self._prefix else self.base
 
+    @property
+    def destination(self) -> Path:
+        """Where this view's files will be once the run is swapped in (for messages)."""
+        return self.root / self._prefix if self._prefix else self.root
+
     def check(self):
         """Refuse an existing file in the way, or a folder that already holds files unless
         ``overwrite``; creates nothing."""

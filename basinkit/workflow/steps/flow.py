@@ -198,5 +198,5 @@ def flow_step(out, settings: FlowSettings, terrain=None, burn=None, reporter=Non
     for name in FILES.values():
         if (Path(folder) / name).exists():
             out.adopt(name)
-    rep.info(f"wrote flow folder {folder} ({time.perf_counter() - t0:.1f} s)")
+    rep.info(f"wrote flow folder {out.destination} ({time.perf_counter() - t0:.1f} s)")
     return fm
