@@ -273,6 +273,29 @@ def test_overwrite_keeps_edited_outputs_and_the_users_files(tiny, tmp_path):
     _no_leftovers(out)
 
 
+def test_report_rewritten_in_a_run_folder_stays_basinkits(tiny, tmp_path, capsys):
+    """``basinkit report RUN`` rewrites report.html under the folder's lock and records
+    its new hash, so the next ``--overwrite`` replaces it rather than keeping it as the
+    user's; a report written elsewhere leaves the run's manifest alone."""
+    from basinkit.report import write_report
+    from basinkit.workflow.runner import run_job
+
+    out = tmp_path / "OUT"
+    run_job(tiny / "job.toml", output=out, report=write_report)
+    before = (out / "report.html").read_bytes()
+    code, err = _main(["-q", "report", out, "--full-sections-max", "0"], capsys)
+    assert code == 0, err
+    assert (out / "report.html").read_bytes() != before
+    _consistent(out)
+    code, err = _main(["-q", "report", out, "-o", tmp_path / "elsewhere.html"], capsys)
+    assert code == 0, err
+    _consistent(out)
+    run_job(tiny / "job.toml", output=out, overwrite=True, report=write_report)
+    assert not (out / "report.kept.html").exists()
+    _consistent(out)
+    _no_leftovers(out)
+
+
 def test_delineate_overwrite_leaves_nothing_of_the_earlier_run(tiny, tmp_path, capsys):
     """``delineate --overwrite`` with a good outlet and no label raster over a run with a
     failed outlet and a label raster: outlet_errors.csv and the raster go."""

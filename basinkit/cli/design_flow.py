@@ -115,10 +115,10 @@ def command(console, flowdir, output, outlets, figures, figures_for, overwrite,
     placed = place(console, fm, outlets)
     with console.stage("design flows"):
         res = compute_design_flows(fm, placed, settings, hydro=hydro, reporter=console)
-    out.open()
-    write_design_flows(out, fm, placed, res, settings, reporter=console,
-                       parameters={"flowdir": str(flowdir), **outlets.parameters()},
-                       inputs=outlets.inputs())
+    with out.open(console):
+        write_design_flows(out, fm, placed, res, settings, reporter=console,
+                           parameters={"flowdir": str(flowdir), **outlets.parameters()},
+                           inputs=outlets.inputs())
     console.info(f"wrote {out.folder}")
     console.cautions(design_flow_cautions())
     return 1 if res.failed or len(placed.errors) else 0

@@ -35,7 +35,14 @@ def command(console, run_folder, output, outlets, full_sections_max, overwrite):
         raise InputError(f"{str(folder)!r} is not a folder; give the output folder of "
                          "'basinkit run', 'basinkit demo' or a command")
     out = check_output(output or folder / "report.html", overwrite or output is None)
-    write_report(folder, out, report_outlets=list(outlets),
-                 full_sections_max=full_sections_max,
-                 progress=getattr(console, "progress", None))
+    kw = dict(report_outlets=list(outlets), full_sections_max=full_sections_max,
+              progress=getattr(console, "progress", None))
+    if out.resolve().parent == folder.resolve():
+        # a file of the run folder: written under its lock and recorded in its manifest
+        from ..io.transaction import rewrite_in_folder
+
+        with rewrite_in_folder(folder, out.name) as path:
+            write_report(folder, path, **kw)
+    else:
+        write_report(folder, out, **kw)
     console.info(f"wrote {out}")

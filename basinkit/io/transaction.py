@@ -56,6 +56,7 @@ from ..errors import OutputError, OutputExistsError, os_error_message
 from .lock import OutputLock, short_name
 
 __all__ = ["FolderTransaction", "FileTransaction", "MANIFEST", "read_manifest",
+           "rewrite_in_folder",
            "kept_name", "recover", "real_target", "check_folder", "abort_all"]
 
 MANIFEST = ".basinkit-manifest.json"
@@ -133,6 +134,29 @@ def read_manifest(folder) -> dict:
         rec.update({str(k): (str(v) if isinstance(v, str) else None)
                     for k, v in prov["files"].items()})
     return rec
+
+
+@contextlib.contextmanager
+def rewrite_in_folder(folder, name):
+    """Rewrite one file of a committed output folder (``basinkit report RUN`` rewriting
+    ``report.html``) under the folder's lock, and record its new SHA-256 in the folder's
+    manifest, so that a later ``--overwrite`` still knows the file as basinkit's.
+
+    Yields the path to write (the caller writes it atomically). A folder without a
+    manifest (not written by a transaction) is left without one.
+    """
+    folder = Path(folder)
+    lock = OutputLock(folder).acquire()
+    try:
+        yield folder / name
+        man = _read_json(folder / MANIFEST)
+        if isinstance(man, dict) and isinstance(man.get("files"), dict) and \
+                (folder / name).is_file():
+            man["files"][str(name)] = _hash(folder / name)
+            man["files"] = dict(sorted(man["files"].items()))
+            _write_json(folder / MANIFEST, man)
+    finally:
+        lock.release()
 
 
 def _read_json(path):
