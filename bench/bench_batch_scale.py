@@ -17,7 +17,7 @@ turn and each in a fresh process, ``basinkit run JOB`` and a pysheds 0.5 script 
 ``fill_pits``, ``fill_depressions``, ``resolve_flats``, ``flowdir``, ``accumulation`` and, for
 every outlet, ``catchment`` + ``polygonize``: basinkit, pysheds, basinkit, ... The figures
 are wall times of the whole processes (start-up, reading, writing included), the ratio is
-taken pair by pair, and the stage seconds come from the job's provenance.json.
+taken pair by pair, and the stage seconds come from the job's --log-json records.
 
 ``stages`` times, in one process with the kernels loaded, route() and then the functions
 the steps call: ``delineate`` with polygons (the polygons alone = with minus without),
@@ -44,6 +44,8 @@ HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(ROOT))
+
+from _stages import stage_seconds  # noqa: E402 - bench/ is on the path now
 
 CELL = 10.0
 CHANNEL_M2 = 1e5  # 1 000 cells of 100 m²
@@ -115,7 +117,7 @@ def timed_process(cmd, env):
     code = os.waitstatus_to_exitcode(status)
     if code not in (0, 1) or "Traceback" in err:
         raise SystemExit(f"{' '.join(map(str, cmd))} failed ({code}):\n{err[-3000:]}")
-    return wall, ru.ru_maxrss / 1024.0, out
+    return wall, ru.ru_maxrss / 1024.0, out, err
 
 
 def env():
@@ -129,22 +131,21 @@ def bench_job(size, n, runs, pysheds=True):
     try:
         job, dem, cells = build_job(tmp / "in", size, n)
         np.save(tmp / "cells.npy", cells)
-        bk = [sys.executable, "-m", "basinkit.cli", "--quiet", "run", str(job), "-o",
+        bk = [sys.executable, "-m", "basinkit.cli", "--log-json", "run", str(job), "-o",
               str(tmp / "run"), "--overwrite"]
         ps = [sys.executable, str(Path(__file__).resolve()), "_pysheds", str(dem),
               str(tmp / "cells.npy")]
         a, b, stages = [], [], []
         for i in range(runs):
             print(f"  run {i + 1}: load average {os.getloadavg()[0]:.2f}", flush=True)
-            w, mem, _ = timed_process(bk, env())
-            prov = json.loads((tmp / "run" / "provenance.json").read_text())
-            st = {k: v["seconds"] for k, v in prov["stages"].items()}
+            w, mem, _, log = timed_process(bk, env())
+            st = stage_seconds(log)
             stages.append(st)
             a.append(w)
             print(f"    basinkit run: {w:.1f} s wall, peak {mem:.0f} MB; stages "
                   + ", ".join(f"{k} {v:.1f}" for k, v in st.items()), flush=True)
             if pysheds:
-                w2, mem2, out = timed_process(ps, env())
+                w2, mem2, out, _ = timed_process(ps, env())
                 r = json.loads(out.strip().splitlines()[-1])
                 b.append(w2)
                 print(f"    pysheds: {w2:.1f} s wall (routing {r['route_s']:.1f} s, "

@@ -48,6 +48,8 @@ ROOT = HERE.parent
 OUT = HERE / "out"
 sys.path.insert(0, str(HERE))
 
+from _stages import stage_seconds  # noqa: E402 - bench/ is on the path now
+
 
 def dem_tif(n) -> Path:
     """The bench_core fractal DEM of n x n cells as a GeoTIFF (cached)."""
@@ -81,6 +83,8 @@ def env_with_package(root=ROOT, **extra):
 #: CPU seconds (user + system) of every timed child, in order: on a shared machine they
 #: move less than wall times
 CPU_SECONDS: list = []
+#: stderr of the last timed child (its --log-json records, for stage timings)
+LAST_LOG: list = [""]
 
 
 def timed(cmd, env=None):
@@ -95,6 +99,7 @@ def timed(cmd, env=None):
     proc.stderr.close()
     proc.returncode = os.waitstatus_to_exitcode(status)
     CPU_SECONDS.append(ru.ru_utime + ru.ru_stime)
+    LAST_LOG[0] = err
     if proc.returncode not in (0, 1):
         raise SystemExit(f"{' '.join(map(str, cmd))} failed ({proc.returncode}):\n{err}")
     return wall, ru.ru_maxrss / 1024.0, proc.returncode
@@ -179,19 +184,18 @@ def bench_batch(n, outlets, runs):
     tmp = Path(tempfile.mkdtemp(prefix="bench_commands_"))
     try:
         job, csv = batch_inputs(n, outlets, tmp)
-        bk = basinkit_cmd("run", job, "-o", tmp / "job_out", "--overwrite")
+        bk = basinkit_cmd("--log-json", "run", job, "-o", tmp / "job_out", "--overwrite")
         ps = [sys.executable, str(Path(__file__).resolve()), "_pysheds_batch",
               str(dem_tif(n)), str(csv), str(tmp / "pysheds")]
         timed(bk, env_with_package())
         a, b = [], []
         for _ in range(runs):
             a.append(timed(bk, env_with_package())[0])
-            ca = CPU_SECONDS[-1]
+            ca, log = CPU_SECONDS[-1], LAST_LOG[0]
             b.append(timed(ps, env_with_package())[0])
             print(f"  {n}², {outlets} outlets: basinkit job {a[-1]:.1f} s ({ca:.1f} s "
                   f"CPU), pysheds {b[-1]:.1f} s ({CPU_SECONDS[-1]:.1f} s CPU), load "
                   f"{os.getloadavg()[0]:.1f}", flush=True)
-        prov = json.loads((tmp / "job_out" / "provenance.json").read_text())
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     ratio = statistics.median(y / x for x, y in zip(a, b))
@@ -199,7 +203,7 @@ def bench_batch(n, outlets, runs):
           f"catchments with polygons, channels, morphometry, profiles, report), pysheds "
           f"routing + catchment and polygonize per outlet {statistics.median(b):.1f} s, "
           f"ratio {ratio:.2f}×; stages of the last job: "
-          f"{ {k: v.get('seconds') for k, v in prov.get('stages', {}).items()} }", flush=True)
+          f"{stage_seconds(log)}", flush=True)
     return {"basinkit_s": a, "pysheds_s": b, "ratio_median": ratio}
 
 

@@ -177,7 +177,9 @@ def test_provenance(runs):
     assert prov["parameters"]["channels"]["min_area"] == 2e4
     assert prov["crs_epsg"] == 32633
     for name, st in prov["stages"].items():
-        assert st["status"] == "done" and st["seconds"] >= 0, name
+        # no timings in the files: they differ from run to run (the console has them)
+        assert st["status"] == "done" and "seconds" not in st, name
+    assert "seconds_total" not in prov
     # every file written is listed with its hash, and the hashes are those of the files
     on_disk = {str(p.relative_to(res.folder)) for p in res.folder.rglob("*") if p.is_file()}
     assert set(prov["files"]) == on_disk - {"provenance.json", ".basinkit-manifest.json"}

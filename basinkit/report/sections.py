@@ -282,8 +282,6 @@ def provenance_html(d) -> str:
         return ("<p>This folder holds no provenance.json: the versions, parameters and input "
                 "hashes of the run are not known to this report.</p>")
     parts = [f"<p>{esc(prov.get('software', 'basinkit'))} {esc(prov.get('version', '?'))}"]
-    if _float(prov.get("seconds_total")) is not None:
-        parts.append(f"; the run took {float(prov['seconds_total']):.1f} s")
     parts.append(".</p>")
     ins = prov.get("inputs") or {}
     if ins:
@@ -301,13 +299,10 @@ def provenance_html(d) -> str:
                 continue
             status = "writing this report" if st.get("status") == "running" else \
                 st.get("status", "")
-            secs = _float(st.get("seconds"))
             rows.append(f"<tr><td>{esc(name)}</td><td>{esc(status)}</td>"
-                        f'<td class="num">{"" if secs is None else f"{secs:.2f}"}</td>'
                         f"<td>{esc(st.get('note', ''))}</td></tr>")
         parts.append("<h3>Steps</h3><table><thead><tr><th>Step</th><th>Status</th>"
-                     '<th style="text-align:right">Seconds</th><th>Note</th></tr></thead>'
-                     "<tbody>" + "".join(rows) + "</tbody></table>")
+                     "<th>Note</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
     params = prov.get("parameters")
     if params:
         parts.append("<h3>Parameters</h3><pre class=\"params\">"

@@ -80,7 +80,8 @@ def as_reporter(obj=None) -> Reporter:
 
 
 class StageTimer:
-    """Times the stages of a run and records status and notes (for provenance.json)."""
+    """Times the stages of a run (for the caller) and records status and notes (for
+    provenance.json, see :meth:`record`)."""
 
     def __init__(self, reporter):
         self.reporter = reporter
@@ -102,6 +103,11 @@ class StageTimer:
             rec["seconds"] = round(time.perf_counter() - t0, 3)
         if rec["status"] == "running":
             rec["status"] = "done"
+
+    def record(self) -> dict:
+        """``{stage: {"status", "note"}}`` for provenance.json: no timings, which differ
+        from run to run (the console and ``--log-json`` give them)."""
+        return {k: {"status": v["status"], "note": v["note"]} for k, v in self.stages.items()}
 
     def skip(self, name, note):
         """Record a stage that did not run, with the reason."""

@@ -29,7 +29,11 @@ class JobResult:
     files : dict
         ``{name relative to the folder: Path}`` of every file written.
     stages : dict
-        ``{stage: {"status": "done" | "skipped" | "failed", "seconds": float, "note": str}}``.
+        ``{stage: {"status": "done" | "skipped" | "failed", "seconds": float, "note": str}}``
+        (provenance.json records status and note only: timings differ from run to run and
+        the folder's files do not; they go to the console and ``--log-json``).
+    seconds_total : float
+        Wall time of the run.
     flow : FlowModel
         The model as read back from ``flow/``.
     outlets : pandas.DataFrame or None
@@ -52,6 +56,7 @@ class JobResult:
     folder: Path
     files: dict = field(default_factory=dict)
     stages: dict = field(default_factory=dict)
+    seconds_total: float = 0.0
     flow: object = None
     terrain: object = None
     outlets: object = None
@@ -272,7 +277,7 @@ def _run(job, out, rep, report):
                     else pd.DataFrame(columns=cols))
     res.outlets = _outlet_rows(cres)
     res.warnings = _warnings(job, fm, cres, res.profiles)
-    res.provenance = _provenance(job, fm, inputs, placed, res, t_start)
+    res.provenance = _provenance(job, fm, inputs, placed, res)
     res.provenance["files"] = out.hashes()
     out.json("provenance.json", res.provenance)
     if job["outputs"]["report"] and report is None:
@@ -280,7 +285,8 @@ def _run(job, out, rep, report):
                              "Python pass report=basinkit.write_report)")
     elif job["outputs"]["report"]:
         _report(job, out, res, timer, rep, report)
-    res.provenance["seconds_total"] = round(time.perf_counter() - t_start, 3)
+    res.seconds_total = round(time.perf_counter() - t_start, 3)
+    res.provenance["stages"] = timer.record()
     res.provenance["files"] = {k: v for k, v in out.hashes().items()
                                if k != "provenance.json"}
     out.json("provenance.json", res.provenance)
@@ -289,7 +295,7 @@ def _run(job, out, rep, report):
     if len(res.failures):
         rep.warn(f"{len(res.failures)} outlet failure(s): see outlet_errors.csv and the "
                  "error columns of the tables")
-    rep.info(f"wrote {out.folder} ({res.provenance['seconds_total']:.1f} s)")
+    rep.info(f"wrote {out.folder} ({res.seconds_total:.1f} s)")
     return res
 
 
@@ -376,7 +382,7 @@ def _warnings(job, fm, cres, profiles):
     return w
 
 
-def _provenance(job, fm, inputs, placed, res, t_start):
+def _provenance(job, fm, inputs, placed, res):
     from .. import __version__
     from .cautions import CAUTION_TEXT
     from .steps._common import grid_facts
@@ -396,10 +402,10 @@ def _provenance(job, fm, inputs, placed, res, t_start):
             "given": placed.given, "placed": int(len(placed.table)),
             "failed": int(len(res.failures))},
         "failures": res.failures.astype(str).to_dict(orient="records")[:10000],
-        "stages": res.stages,
+        "stages": {k: {"status": v["status"], "note": v["note"]}
+                   for k, v in res.stages.items()},
         "warnings": res.warnings,
         "cautions": CAUTION_TEXT,
-        "seconds_total": round(time.perf_counter() - t_start, 3),
     }
     return prov
 

@@ -193,8 +193,7 @@ def flow_step(out, settings: FlowSettings, terrain=None, burn=None, reporter=Non
                   for i, p in enumerate(settings.burn_lines)}
     folder = out.folder
     write_flow_folder(fm, folder, overwrite=True, copy_input=settings.copy_input,
-                      extra_provenance={"cautions": CAUTION_TEXT, "burn_line_inputs": inputs,
-                                        "seconds": round(time.perf_counter() - t0, 3)})
+                      extra_provenance={"cautions": CAUTION_TEXT, "burn_line_inputs": inputs})
     for name in FILES.values():
         if (Path(folder) / name).exists():
             out.adopt(name)
