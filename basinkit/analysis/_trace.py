@@ -153,13 +153,76 @@ def trace_range(lab, nr, nc, off, keys, nkeys, lo, hi):
             r, c, s = nr_, nc_, ns
             if r == sr and c == sc and s == ss:
                 break
-        cols[nv] = cols[first]
-        rows[nv] = rows[first]
-        nv += 1
-        a2 = 0
-        for k in range(first, nv - 1):
-            a2 += cols[k] * rows[k + 1] - cols[k + 1] * rows[k]
-        area2[nring] = a2
-        nring += 1
+        nv, nring = _close_ring(cols, rows, first, nv, starts, area2, nring, nc)
     starts[nring] = nv
     return cols[:nv], rows[:nv], starts[:nring + 1], area2[:nring]
+
+
+@njit(cache=True, nogil=True)
+def _emit(cols, rows, nv, sc, sr, k0, k1, starts, area2, nring):
+    """Write corners sc/sr[k0:k1] as a closed ring at nv; returns (nv, nring)."""
+    starts[nring] = nv
+    first = nv
+    for k in range(k0, k1):
+        cols[nv] = sc[k]
+        rows[nv] = sr[k]
+        nv += 1
+    cols[nv] = cols[first]
+    rows[nv] = rows[first]
+    nv += 1
+    a2 = 0
+    for k in range(first, nv - 1):
+        a2 += cols[k] * rows[k + 1] - cols[k + 1] * rows[k]
+    area2[nring] = a2
+    return nv, nring + 1
+
+
+@njit(cache=True, nogil=True)
+def _close_ring(cols, rows, first, nv, starts, area2, nring, nc):
+    """Close the ring of corners ``first..nv-1``. A ring that passes a corner twice (the
+    region's cells meet there diagonally around an outside pocket) is split there into
+    rings that touch at that corner (a shell and a hole), as valid polygons need."""
+    n = nv - first
+    sc = cols[first:nv].copy()
+    sr = rows[first:nv].copy()
+    key = sr * (nc + 1) + sc
+    sk = np.sort(key)
+    ndup = 0
+    for k in range(1, n):
+        if sk[k] == sk[k - 1] and (ndup == 0 or sk[k] != sk[k - 2]):
+            ndup += 1
+    if ndup == 0:
+        return _emit(cols, rows, first, sc, sr, 0, n, starts, area2, nring)
+    dup = np.empty(ndup, dtype=np.int64)
+    j = 0
+    for k in range(1, n):
+        if sk[k] == sk[k - 1] and (j == 0 or dup[j - 1] != sk[k]):
+            dup[j] = sk[k]
+            j += 1
+    last = np.full(ndup, -1, dtype=np.int64)  # stack position of each repeated corner
+    stc = np.empty(n, dtype=np.int64)
+    str_ = np.empty(n, dtype=np.int64)
+    stk = np.empty(n, dtype=np.int64)
+    top = 0
+    nv = first
+    for k in range(n):
+        q = np.searchsorted(dup, key[k])
+        isdup = q < ndup and dup[q] == key[k]
+        if isdup and last[q] >= 0:
+            p = last[q]  # a loop from the corner's first visit back to it
+            nv, nring = _emit(cols, rows, nv, stc, str_, p, top, starts, area2, nring)
+            for t in range(p + 1, top):  # corners of the loop leave the stack
+                qq = np.searchsorted(dup, stk[t])
+                if qq < ndup and dup[qq] == stk[t]:
+                    last[qq] = -1
+            top = p + 1
+            continue
+        stc[top] = sc[k]
+        str_[top] = sr[k]
+        stk[top] = key[k]
+        if isdup:
+            last[q] = top
+        top += 1
+    if top >= 4:
+        nv, nring = _emit(cols, rows, nv, stc, str_, 0, top, starts, area2, nring)
+    return nv, nring
