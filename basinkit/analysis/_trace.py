@@ -83,21 +83,24 @@ def _find(keys, a0, a1, key):
 
 
 @njit(cache=True, nogil=True)
-def trace_range(lab, nr, nc, off, keys, nkeys, lo, hi):
+def trace_range(lab, nr, nc, keys, e0, e1, lo, hi):
     """Rings of the outline of the cells labelled ``lo..hi``.
 
-    Returns ``(cols, rows, starts, area2)``: corner coordinates (grid corners, integer
-    column and row) of every ring one after the other, each ring closed (its first corner
-    repeated); ``starts`` the first corner of each ring (plus the end); ``area2`` twice the
-    shoelace area of each ring in (col, row) coordinates (> 0: shell, < 0: hole).
+    ``keys[e0:e1]`` (sorted edge keys ``cell * 4 + side``) must hold every edge of the
+    outline: the edges of the range's labels, or those of its first label plus the
+    outlines of the ranges nested in it.
+
+    Returns ``(cols, rows, starts, area2, on_outline)``: corner coordinates (grid
+    corners, integer column and row) of every ring one after the other, each ring closed
+    (its first corner repeated); ``starts`` the first corner of each ring (plus the end);
+    ``area2`` twice the shoelace area of each ring in (col, row) coordinates (> 0: shell,
+    < 0: hole); ``on_outline`` which of ``keys[e0:e1]`` lie on the outline.
     """
     dr = np.array([-1, 0, 1, 0])
     dc = np.array([0, 1, 0, -1])
-    nlab = off.size
-    e0 = off[lo]
-    e1 = off[hi + 1] if hi + 1 < nlab else nkeys
     m = e1 - e0
     visited = np.zeros(m, dtype=np.bool_)
+    on_outline = np.zeros(m, dtype=np.bool_)
     cap = m + m // 4 + 8
     cols = np.empty(cap, dtype=np.int64)
     rows = np.empty(cap, dtype=np.int64)
@@ -121,10 +124,11 @@ def trace_range(lab, nr, nc, off, keys, nkeys, lo, hi):
         first = nv
         sr, sc, ss = r, c, s
         while True:
-            a = lab[r * nc + c]
-            j = _find(keys, off[a], off[a + 1] if a + 1 < nlab else nkeys,
-                      (r * nc + c) * 4 + s)
-            visited[j - e0] = True
+            j = _find(keys, e0, e1, (r * nc + c) * 4 + s) - e0
+            if j < 0:
+                raise ValueError("an edge of the outline is missing from the keys")
+            visited[j] = True
+            on_outline[j] = True
             # cells ahead of the edge's end: AR next to this cell, AL across the edge
             d = s  # walking direction
             md = (d + 1) & 3  # the walking direction as a neighbour offset
@@ -155,7 +159,7 @@ def trace_range(lab, nr, nc, off, keys, nkeys, lo, hi):
                 break
         nv, nring = _close_ring(cols, rows, first, nv, starts, area2, nring, nc)
     starts[nring] = nv
-    return cols[:nv], rows[:nv], starts[:nring + 1], area2[:nring]
+    return cols[:nv], rows[:nv], starts[:nring + 1], area2[:nring], on_outline
 
 
 @njit(cache=True, nogil=True)

@@ -47,13 +47,31 @@ def range_polygons(labels, ranges, transform, workers: int = 1) -> list:
         return []
     nlab = int(max(rg[:, 1].max(), 0)) + 1
     off, keys, nkeys = _trace.label_edges(flat, nr, nc, nlab)
+    off = np.append(off, nkeys)
     cols, rows, ring_of, signs, job_of = [], [], [], [], []
     nring = 0
-    for i in range(n):
+    outline = {}  # lo -> (hi, outline edge keys) of the widest range traced from lo
+    # inner ranges first: a range's outline lies among its first label's edges and the
+    # outlines of the traced ranges that tile the rest of it
+    for i in np.lexsort((rg[:, 1], -rg[:, 0])):
         lo, hi = int(rg[i, 0]), int(rg[i, 1])
         if not (0 < lo <= hi < nlab):
             continue
-        c, r, st, a2 = _trace.trace_range(flat, nr, nc, off, keys, nkeys, lo, hi)
+        parts, k, used = [keys[off[lo]:off[lo + 1]]], lo + 1, []
+        while k <= hi and k in outline and outline[k][0] <= hi:
+            parts.append(outline[k][1])
+            used.append(k)
+            k = outline[k][0] + 1
+        if k > hi:
+            for u in used:  # nested ranges are used by the range just around them only
+                del outline[u]
+        else:  # not tiled by traced ranges: every edge of its labels
+            parts = [keys[off[lo]:off[hi + 1]]]
+        cand = np.sort(np.concatenate(parts)) if len(parts) > 1 or hi > lo else parts[0]
+        c, r, st, a2, on = _trace.trace_range(flat, nr, nc, cand, 0, cand.size, lo, hi)
+        edges = cand[on]
+        if lo not in outline or outline[lo][0] < hi:
+            outline[lo] = (hi, edges)
         if a2.size == 0:
             continue
         cols.append(c)
@@ -72,6 +90,8 @@ def range_polygons(labels, ranges, transform, workers: int = 1) -> list:
     rings = shapely.linearrings(xy, indices=np.concatenate(ring_of))
     area2 = np.concatenate(signs)
     job = np.concatenate(job_of)
+    o = np.argsort(job, kind="stable")  # rings by range, in tracing order within each
+    rings, area2, job = rings[o], area2[o], job[o]
     first = np.flatnonzero(np.r_[True, job[1:] != job[:-1]])
     count = np.diff(np.r_[first, job.size])
     simple = first[count == 1]  # one ring: a shell (a region has at least one)
@@ -79,7 +99,9 @@ def range_polygons(labels, ranges, transform, workers: int = 1) -> list:
     geoms[job[simple]] = shapely.polygons(rings[simple])
     for f, k in zip(first[count > 1], count[count > 1]):
         geoms[job[f]] = _assemble(rings[f:f + k], area2[f:f + k])
-    done = job[first]
+    # a single ring along cell edges with no corner twice (traced rings are split at
+    # repeated corners) is simple, so only regions of several rings are checked
+    done = job[first[count > 1]]
     g = geoms[done]
     if workers > 1 and g.size >= 64:
         from concurrent.futures import ThreadPoolExecutor
@@ -91,8 +113,9 @@ def range_polygons(labels, ranges, transform, workers: int = 1) -> list:
         bad = ~shapely.is_valid(g)
     if bad.any():
         g[bad] = shapely.make_valid(g[bad])
-    for i, geom in zip(done, g):
-        out[i] = geom
+    geoms[done] = g
+    for i in job[first]:
+        out[i] = geoms[i]
     return out
 
 
