@@ -6,6 +6,7 @@ Run by hand (not part of the tests):
 
     python bench/bench_batch_scale.py job --size 2048 --outlets 1000 --runs 3
     python bench/bench_batch_scale.py stages --size 4096 --outlets 10000
+    python bench/bench_batch_scale.py stages --size 4096 --outlets 10000 --only delineate
     python bench/bench_batch_scale.py job --size 4096 --outlets 10000 --runs 1 --no-pysheds
 
 ``job`` writes the fractal DEM of ``bench_core.py`` as a GeoTIFF (10 m cells, EPSG:32633,
@@ -163,7 +164,7 @@ def bench_job(size, n, runs, pysheds=True):
         shutil.rmtree(tmp, ignore_errors=True)
 
 
-def bench_stages(size, n, profile=None):
+def bench_stages(size, n, profile=None, only=None):
     from bench_core import dem_path
 
     from basinkit import route, terrain_from_array
@@ -183,6 +184,8 @@ def bench_stages(size, n, profile=None):
     res = {}
 
     def step(name, f, *a, **k):
+        if only and not any(name.startswith(o) for o in only):
+            return None
         if profile == name:
             import cProfile
             import pstats
@@ -198,14 +201,17 @@ def bench_stages(size, n, profile=None):
         print(f"  {name}: {res[name]:.2f} s", flush=True)
         return r
 
-    d0 = step("delineate, no polygons", delineate, fm, pts, snap_radius_m=0, polygons=False)
+    d0 = delineate(fm, pts, snap_radius_m=0, polygons=False)
+    step("delineate, no polygons", delineate, fm, pts, snap_radius_m=0, polygons=False)
     d = step("delineate with polygons", delineate, fm, pts, snap_radius_m=0, polygons=True)
-    res["polygons"] = res["delineate with polygons"] - res["delineate, no polygons"]
-    print(f"  polygons: {res['polygons']:.2f} s ({len(d.table)} outlets, "
-          f"{int((d.table['upstream_outlet_count'] > 0).sum())} with outlets upstream)")
+    if d is not None:
+        res["polygons"] = res["delineate with polygons"] - res["delineate, no polygons"]
+        print(f"  polygons: {res['polygons']:.2f} s ({len(d.table)} outlets, "
+              f"{int((d.table['upstream_outlet_count'] > 0).sum())} with outlets upstream)")
     tab = d0.table
-    net = step("channels (with geometry, split at the outlets)", build_network, fm,
-               CHANNEL_M2, None, tab["cell"].to_numpy(np.int64))
+    net = build_network(fm, CHANNEL_M2, None, tab["cell"].to_numpy(np.int64))
+    step("channels (with geometry, split at the outlets)", build_network, fm,
+         CHANNEL_M2, None, tab["cell"].to_numpy(np.int64))
     nested = bool((tab["upstream_outlet_count"] > 0).any())
     ids = np.arange(1, len(tab) + 1) if nested else tab["label"].to_numpy(np.int64)
     step("morphometry", morphometry_table, fm, d0.labels, tab["cell"].to_numpy(np.int64),
@@ -245,13 +251,15 @@ def main():
     ap.add_argument("--runs", type=int, default=3)
     ap.add_argument("--no-pysheds", action="store_true")
     ap.add_argument("--profile", help="cProfile one stage of `stages` (its name)")
+    ap.add_argument("--only", nargs="+", help="stages to time (name prefixes: delineate "
+                    "channels morphometry profiles)")
     a = ap.parse_args()
     print(f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, load average "
           f"{os.getloadavg()[0]:.2f}, {os.cpu_count()} cores", flush=True)
     if a.what == "job":
         bench_job(a.size, a.outlets, a.runs, not a.no_pysheds)
     else:
-        bench_stages(a.size, a.outlets, a.profile)
+        bench_stages(a.size, a.outlets, a.profile, a.only)
 
 
 if __name__ == "__main__":

@@ -16,7 +16,7 @@ Timed (same DEM, same process, same run):
 - table: ``delineate(..., polygons=False)`` for N outlets (snapping, tree, per-catchment
   table);
 - polygons + table: ``delineate(..., polygons=True)`` for M outlets, with 1 and 2
-  worker processes (forked only for big jobs; see catchments.FORK_MIN_CELLS);
+  threads for the validity check (the tracing is one pass in this process);
 - pysheds 0.5 ``Grid.catchment`` per outlet on a sample, extrapolated to N outlets; its
   masks are checked against ours on the sample.
 """

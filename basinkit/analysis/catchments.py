@@ -4,7 +4,6 @@ per-catchment table and the polygons all follow from that label grid."""
 
 from __future__ import annotations
 
-import warnings as _warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -224,7 +223,8 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     polygons : bool
         Build the cell-boundary polygons and the perimeter (default True).
     workers : int
-        Worker processes for the polygons (forked; 1 = in this process).
+        Threads for the polygons' validity check (the tracing itself is one pass in
+        this process).
     id_column : str, optional
         Unused (give it to :func:`basinkit.read_outlet_file`).
     progress : callable, optional
@@ -254,8 +254,10 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     tree, so a full (nested) catchment is a contiguous label range and its area, relief
     and edge flag are sums/extrema over the sub-catchments of its subtree (no per-outlet
     traversal). Areas are sums of true cell areas (ellipsoidal on geographic grids).
-    Polygons follow cell boundaries; on geographic grids their edges are densified to one
-    cell so that their geodesic area (Karney 2013) matches the cell sum.
+    Polygons follow cell boundaries, traced along the edges between labels (a nested
+    catchment's outline lies among its sub-catchments' edges); on geographic grids their
+    edges are densified to one cell so that their geodesic area (Karney 2013) matches
+    the cell sum.
 
     References
     ----------
@@ -425,119 +427,34 @@ def _contributing(fm, tab, msgs, progress, callback):
     return out
 
 
-# below this many window cells in all, forking workers costs more than it saves
-FORK_MIN_CELLS = 30_000_000
-# state shared with forked polygon workers (inherited copy-on-write, never pickled)
-_SHARED: dict = {}
-
-
-def _window_job(job):
-    """Polygonize one job in a window of the shared label grid; returns WKB.
-
-    ``("range", lo, hi, box)``: one full catchment (labels lo..hi dissolved);
-    ``("labels", lo, hi, box)``: every label lo..hi as its own polygon."""
-    import shapely
-    from affine import Affine
-
-    from .polygons import labels_to_polygons
-
-    kind, lo, hi, box = job
-    labels, transform, seg = _SHARED["labels"], _SHARED["transform"], _SHARED["seg"]
-    r0, r1, c0, c1 = box
-    sub = labels[r0:r1 + 1, c0:c1 + 1]
-    tr = transform @ Affine.translation(c0, r0)
-    with _warnings.catch_warnings():
-        _warnings.simplefilter("ignore")
-        if kind == "range":
-            got = labels_to_polygons(_catchments.range_mask(sub, lo, hi), tr)
-            got = {lo: got.get(1)}
-        else:
-            win = np.where(_catchments.range_mask(sub, lo, hi) > 0, sub, 0)
-            got = labels_to_polygons(win, tr)
-    keys = [k for k, g in got.items() if g is not None]
-    geoms = np.array([got[k] for k in keys], dtype=object)
-    if seg and geoms.size:
-        geoms = shapely.segmentize(geoms, seg)
-    return kind, keys, list(shapely.to_wkb(geoms)) if geoms.size else []
-
-
-def _fork_available():
-    import multiprocessing as mp
-
-    return "fork" in mp.get_all_start_methods()
-
-
-def _run_jobs(jobs, use_fork, workers, progress):
-    """Run polygon jobs in forked processes (GDAL's polygonize holds the GIL, so
-    threads would not use the second core) or in this process."""
-    import shapely
-
-    if use_fork:
-        import multiprocessing as mp
-
-        # compile/load the kernel here so that the forked workers inherit it
-        _catchments.range_mask(np.zeros((1, 1), dtype=np.int32), 1, 1)
-        pool = mp.get_context("fork").Pool(min(workers, len(jobs)))
-        it = pool.imap_unordered(_window_job, jobs, chunksize=1)
-    else:
-        pool = None
-        it = map(_window_job, jobs)
-    if progress is not None:
-        it = progress(it, total=len(jobs), desc="polygons")
-    out = {"range": {}, "labels": {}}
-    try:
-        for kind, keys, wkbs in it:
-            geoms = shapely.from_wkb(np.array(wkbs, dtype=object)) if wkbs else []
-            out[kind].update(zip(keys, geoms))
-    finally:
-        if pool is not None:
-            pool.close()
-            pool.join()
-    return out
-
-
 def _polygons(t, labels, n, L, size, rmin, rmax, cmin, cmax, workers, progress):
     """Sub-catchment polygons and full-catchment polygons from cell boundaries.
 
-    Sub-catchments are polygonized together (in ``workers`` bands of the label range,
-    each over the bounding box of its labels, when forking); a leaf's full catchment is
-    its sub-catchment; any other full catchment is its label range polygonized in the
-    catchment's bounding box. Jobs of at least FORK_MIN_CELLS window cells in all run in
-    forked worker processes, largest windows first; smaller ones in this process."""
+    Every sub-catchment is its label; a leaf's full catchment is its sub-catchment; any
+    other full catchment is its label range (depth-first labels). All are traced along
+    the cell edges between labels in one pass per range
+    (:func:`basinkit.analysis.polygons.range_polygons`), so a nested catchment costs
+    about the edges of its sub-catchments, not its bounding box. ``workers`` threads
+    check validity; on geographic grids the edges are densified to one vertex per cell.
+    """
     import shapely
 
-    from .polygons import ground_area_perimeter
+    from .polygons import ground_area_perimeter, range_polygons
 
-    seg = None
+    labs = np.arange(1, n + 1, dtype=np.int64)
+    nested = labs[size[1:n + 1] > 1]
+    ranges = np.concatenate([np.column_stack([labs, labs]),
+                             np.column_stack([nested, nested + size[nested] - 1])])
+    if progress is not None:  # one step: the tracing is not split into items
+        list(progress(range(1), total=1, desc="polygons"))
+    geoms = np.array(range_polygons(labels, ranges, t.transform, workers=max(1, workers)),
+                     dtype=object)
     if t.crs.is_geographic:
         seg = min(abs(t.transform.a), abs(t.transform.e)) * 1.0000001
-
-    def cells_of(box):
-        return (box[1] - box[0] + 1) * (box[3] - box[2] + 1)
-
-    def band_box(lo, hi):
-        return (int(rmin[lo:hi + 1].min()), int(rmax[lo:hi + 1].max()),
-                int(cmin[lo:hi + 1].min()), int(cmax[lo:hi + 1].max()))
-
-    jobs = [("range", int(lab), int(lab + size[lab] - 1),
-             (int(rmin[lab]), int(rmax[lab]), int(cmin[lab]), int(cmax[lab])))
-            for lab in L if size[lab] > 1]
-    workers = max(1, int(workers))
-    total = sum(cells_of(j[3]) for j in jobs) + workers * cells_of(band_box(1, n))
-    use_fork = workers > 1 and total >= FORK_MIN_CELLS and _fork_available()
-    nb = min(workers, n) if use_fork else 1
-    bounds = np.linspace(1, n + 1, nb + 1).astype(np.int64)
-    for lo, hi in zip(bounds[:-1], bounds[1:] - 1):
-        if hi >= lo:
-            jobs.append(("labels", int(lo), int(hi), band_box(lo, hi)))
-    jobs.sort(key=lambda j: -cells_of(j[3]))
-    _SHARED.update(labels=labels, transform=t.transform, seg=seg)
-    try:
-        res = _run_jobs(jobs, use_fork and len(jobs) > 1, workers, progress)
-    finally:
-        _SHARED.clear()
-    subs = res["labels"]
-    full = res["range"]
+        ok = np.array([g is not None for g in geoms], dtype=bool)
+        geoms[ok] = shapely.segmentize(geoms[ok], seg)
+    subs = dict(zip(labs.tolist(), geoms[:n]))
+    full = dict(zip(nested.tolist(), geoms[n:]))
     polys = [full.get(lab) if size[lab] > 1 else subs.get(lab) for lab in L]
     subpolys = [subs.get(lab) for lab in L]
     if t.crs.is_geographic:

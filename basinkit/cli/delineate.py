@@ -20,7 +20,7 @@ from .options import (finish, load_flow_folder, outlet_options, output_folder,
               help="D-infinity/MFD flow folders: write each outlet's contributing-fraction "
                    "raster (share of each cell's flow reaching the outlet).")
 @click.option("--workers", type=int, default=2, show_default=True,
-              help="Worker processes for the polygons (forked on large jobs only).")
+              help="Threads checking the polygons' validity (tracing is one pass).")
 @overwrite_option
 @click.pass_obj
 def command(console, flowdir, outlets, output, labels_raster, web_geojson,
