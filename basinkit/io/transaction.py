@@ -68,10 +68,7 @@ ACTIVE: list = []
 
 
 def _forget(tx):
-    for i, t in enumerate(ACTIVE):
-        if t is tx:
-            del ACTIVE[i]
-            break
+    ACTIVE[:] = [t for t in ACTIVE if t is not tx]
 
 
 def abort_all():
@@ -324,7 +321,38 @@ def _exchange(a: Path, b: Path) -> bool:
     raise OSError(err, os.strerror(err), str(b))
 
 
-class FolderTransaction:
+class _Staged:
+    """What the folder and file transactions share: begin under the lock, abort."""
+
+    def _begin(self, prepare, doing):
+        """Take the lock and run ``prepare``; on any failure abort (an OSError becomes one
+        line saying what could not be done)."""
+        self.lock.acquire()
+        try:
+            prepare()
+        except OSError as exc:
+            self.abort()
+            if isinstance(exc, OutputError):
+                raise
+            raise OutputError(os_error_message(exc, exc.filename or self.container,
+                                               doing)) from None
+        except BaseException:
+            self.abort()
+            raise
+        self.active = True
+        ACTIVE.append(self)
+        return self
+
+    def abort(self):
+        """Drop the staging folder and release the lock; the target is not touched."""
+        self.active = False
+        _forget(self)
+        with contextlib.suppress(OSError):
+            _drop_staging(self.container)
+        self.lock.release()
+
+
+class FolderTransaction(_Staged):
     """Write a folder beside its target and swap it in when complete.
 
     Parameters
@@ -361,35 +389,16 @@ class FolderTransaction:
         """Take the lock, clean up after killed runs, check the target, create the staging
         folder."""
         _make_parent(self.target)
-        self.lock.acquire()
-        try:
-            self.recovered = recover(self.target)
-            check_folder(self.target, self.overwrite)
-            _drop_staging(self.container)
-            self.container.mkdir()
-            _write_json(self.container / JOURNAL, {"target": str(self.target),
-                                                   "pid": os.getpid(), "state": "writing"})
-            self.staging.mkdir()
-        except OSError as exc:
-            self.abort()
-            if isinstance(exc, OutputError):
-                raise
-            raise OutputError(os_error_message(exc, exc.filename or self.container,
-                                               "create the staging folder")) from None
-        except BaseException:
-            self.abort()
-            raise
-        self.active = True
-        ACTIVE.append(self)
-        return self
+        return self._begin(self._prepare, "create the staging folder")
 
-    def abort(self):
-        """Drop the staging folder and release the lock; the target is not touched."""
-        self.active = False
-        _forget(self)
-        with contextlib.suppress(OSError):
-            _drop_staging(self.container)
-        self.lock.release()
+    def _prepare(self):
+        self.recovered = recover(self.target)
+        check_folder(self.target, self.overwrite)
+        _drop_staging(self.container)
+        self.container.mkdir()
+        _write_json(self.container / JOURNAL, {"target": str(self.target),
+                                               "pid": os.getpid(), "state": "writing"})
+        self.staging.mkdir()
 
     def commit(self, manifest: dict | None = None) -> list:
         """Write the manifest, carry the kept files in, swap, clean the old copy.
@@ -568,7 +577,7 @@ def check_folder(target: Path, overwrite: bool):
         raise OutputError(os_error_message(exc, target, "use the output folder")) from None
 
 
-class FileTransaction:
+class FileTransaction(_Staged):
     """Write one or more output files beside their names and rename them into place.
 
     Parameters
@@ -629,36 +638,20 @@ class FileTransaction:
         return [self.staged(t) for t in self.targets]
 
     def begin(self) -> "FileTransaction":
+        """Check the targets, take the lock, drop killed runs' staging folders, create
+        this run's."""
         self.check()
         _make_parent(self.targets[0])
-        self.lock.acquire()
-        try:
-            for pid, c in _containers(self.targets[0]):
-                _drop_staging(c)
-            self.check(lock=False)
-            self.container.parent.mkdir(parents=True, exist_ok=True)
-            self.container.mkdir()
-            _write_json(self.container / JOURNAL, {"targets": [str(t) for t in self.targets],
-                                                   "pid": os.getpid()})
-        except OSError as exc:
-            self.abort()
-            if isinstance(exc, OutputError):
-                raise
-            raise OutputError(os_error_message(exc, exc.filename or self.container)) \
-                from None
-        except BaseException:
-            self.abort()
-            raise
-        self.active = True
-        ACTIVE.append(self)
-        return self
+        return self._begin(self._prepare, "write")
 
-    def abort(self):
-        self.active = False
-        _forget(self)
-        with contextlib.suppress(OSError):
-            _drop_staging(self.container)
-        self.lock.release()
+    def _prepare(self):
+        for pid, c in _containers(self.targets[0]):
+            _drop_staging(c)
+        self.check(lock=False)
+        self.container.parent.mkdir(parents=True, exist_ok=True)
+        self.container.mkdir()
+        _write_json(self.container / JOURNAL, {"targets": [str(t) for t in self.targets],
+                                               "pid": os.getpid()})
 
     def commit(self, reporter=None) -> list:
         """Rename the staged files onto their names (existing files not recorded by the

@@ -310,10 +310,7 @@ _OPEN: list = []
 
 
 def _forget(folder):
-    for i, f in enumerate(_OPEN):
-        if f is folder:
-            del _OPEN[i]
-            break
+    _OPEN[:] = [f for f in _OPEN if f is not folder]
 
 
 def settle_open_folders(ok: bool, reporter=None):
