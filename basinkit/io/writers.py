@@ -13,8 +13,8 @@ import numpy as np
 
 from ..errors import OutputExistsError
 
-__all__ = ["atomic_path", "write_geotiff", "raster_codec", "codec_available", "write_json", "write_csv", "provenance",
-           "prepare_output_dir", "check_output"]
+__all__ = ["atomic_path", "write_geotiff", "raster_codec", "codec_available", "write_json",
+           "write_csv", "provenance", "prepare_output_dir", "check_output"]
 
 
 def check_output(path, overwrite: bool):
