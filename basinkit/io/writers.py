@@ -13,8 +13,8 @@ import numpy as np
 
 from ..errors import OutputExistsError
 
-__all__ = ["atomic_path", "write_geotiff", "raster_codec", "codec_available", "write_json", "write_csv", "provenance",
-           "prepare_output_dir", "check_output"]
+__all__ = ["atomic_path", "write_geotiff", "raster_codec", "codec_available", "write_json",
+           "write_csv", "provenance", "prepare_output_dir", "check_output"]
 
 
 def check_output(path, overwrite: bool):
@@ -138,7 +138,8 @@ def write_geotiff(path, array, transform, crs, nodata=None, tags=None, *, codec=
         profile.update(tiled=True, blockxsize=256, blockysize=256)
     with atomic_path(path) as tmp:
         with rasterio.open(tmp, "w", **profile) as ds:
-            ds.write(array, 1)
+            # a (1, rows, cols) view: written as it is (a band index would copy the grid)
+            ds.write(np.ascontiguousarray(array)[np.newaxis], [1])
             if tags:
                 ds.update_tags(**{k: (v if isinstance(v, str) else json.dumps(v))
                                   for k, v in tags.items()})
