@@ -279,8 +279,9 @@ def flow_from_conditioned(cond: Terrain, method: str, params: dict) -> FlowModel
     rec, nflat = _d8.d8_receivers(z, valid, seeds, bl, dist)
     del seeds
     if nflat:
-        # the flat mask is not kept: the D8 receivers carry the flat resolution
-        _, unresolved = _d8.resolve_flats(z, valid, rec, dist)
+        # the flat mask is not kept (not even bound to a name, which would hold its
+        # int32 grid through the sweep): the D8 receivers carry the flat resolution
+        unresolved = _d8.resolve_flats(z, valid, rec, dist)[1]
         if unresolved:
             params = {**params, "cells_without_outlet": int(unresolved)}
     # the stack, the cell count and the upstream area come out of one sweep
