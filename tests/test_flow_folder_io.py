@@ -162,3 +162,24 @@ def test_cli_delineate_on_a_folder_whose_dem_changed_exits_2(tmp_path, dem300, c
     code, err = run("delineate", flow, "--outlet", f"{x},{y}", "-o", tmp_path / "out")
     assert code == 2
     assert "changed since" in err and "Traceback" not in err
+
+
+def test_csv_floats_are_the_bytes_pandas_writes(tmp_path):
+    """write_csv formats floats itself (faster) but writes the bytes of pandas'
+    ``to_csv(float_format="%.10g")`` (the reference library): float32 and float64, NaN
+    empty, infinities, huge and tiny values, integers and text untouched."""
+    import pandas as pd
+
+    from basinkit.io.writers import write_csv
+
+    rng = np.random.default_rng(7)
+    n = 500
+    df = pd.DataFrame({"f32": rng.normal(size=n).astype(np.float32),
+                       "f64": rng.normal(size=n) * 10.0 ** rng.integers(-12, 12, n),
+                       "count": np.arange(n), "name": [f"o{i}" for i in range(n)]})
+    df.loc[3, "f32"] = np.nan
+    df.loc[4, "f64"] = -np.inf
+    df.loc[5, "f64"] = 0.1 + 0.2
+    write_csv(tmp_path / "t.csv", df)
+    want = df.to_csv(index=False, float_format="%.10g", lineterminator="\n")
+    assert (tmp_path / "t.csv").read_bytes() == want.encode()

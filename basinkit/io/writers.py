@@ -177,10 +177,31 @@ def write_json(path, obj):
 
 
 def write_csv(path, frame):
-    """Write a pandas DataFrame as CSV atomically (no index, stable float format)."""
+    """Write a pandas DataFrame as CSV atomically (no index, floats as ``%.10g``, missing
+    values empty, ``\n`` line ends)."""
     with atomic_path(path) as tmp:
-        frame.to_csv(tmp, index=False, float_format="%.10g", lineterminator="\n")
+        _floats_as_text(frame).to_csv(tmp, index=False, lineterminator="\n")
     return Path(path)
+
+
+def _floats_as_text(frame):
+    """Float columns formatted ``%.10g`` (NaN empty), the bytes pandas writes with
+    ``float_format="%.10g"``, in half the time: one list comprehension per column instead
+    of pandas' per-value formatter (the tables of a 1 000-outlet job spent most of their
+    writing time there)."""
+    import numpy as np
+
+    cols = [c for c in frame.columns if frame[c].dtype.kind == "f"]
+    if not cols:
+        return frame
+    out = frame.copy(deep=False)
+    fmt = "%.10g".__mod__
+    for c in cols:
+        v = frame[c].to_numpy()
+        text = np.array([fmt(x) for x in v.tolist()], dtype=object)
+        text[np.isnan(v)] = ""
+        out[c] = text
+    return out
 
 
 def provenance(parameters: dict, inputs: dict | None = None, crs=None, shape=None,
