@@ -474,7 +474,8 @@ def _tell(rep, flows, result, shown=20):
                             + (f"{cfs:,.0f}" if cfs >= 100 else f"{cfs:.3g}") + " cfs)"
                             + (" [outside its range]" if bool(r["outside_range"]) else ""))
             else:
-                bits.append(f"{label} not computed")
+                why = str(r["note"]) if isinstance(r["note"], str) else ""
+                bits.append(f"{label} " + (why.split(" (")[0] if why else "not computed"))
         rep.info(f"  {oid}: " + ", ".join(bits))
     if len(ids) > shown:
         rep.info(f"  ... and {len(ids) - shown} more outlets (see design_flows.csv)")
