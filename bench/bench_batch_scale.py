@@ -84,20 +84,13 @@ def build_job(folder, size, n):
 
 
 def pysheds_job(dem, cells_file):
-    """pysheds routing, then catchment + polygonize for every outlet (one process)."""
-    if not hasattr(np, "in1d"):
-        np.in1d = np.isin  # pysheds 0.5 still calls the function NumPy 2.4 removed
-    from pysheds.grid import Grid
+    """pysheds routing (as ``bench_commands.pysheds_route``), then catchment + polygonize
+    for every outlet (one process)."""
+    from bench_commands import pysheds_route
 
     t0 = time.perf_counter()
     cells = np.load(cells_file)
-    grid = Grid.from_raster(str(dem))
-    z = grid.read_raster(str(dem))
-    z = grid.fill_pits(z)
-    z = grid.fill_depressions(z)
-    z = grid.resolve_flats(z)
-    fdir = grid.flowdir(z)
-    grid.accumulation(fdir)
+    grid, z, fdir, _ = pysheds_route(dem)
     t_route = time.perf_counter() - t0
     nc = z.shape[1]
     npoly = 0

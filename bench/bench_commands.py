@@ -6,7 +6,6 @@ Run by hand (not part of the tests):
     python bench/bench_commands.py startup --runs 5        # warm --help and warm demo
     python bench/bench_commands.py cold-demo --runs 3      # demo with an empty kernel cache
     python bench/bench_commands.py inproc --sizes 4096     # route() alone, in process
-    python bench/bench_commands.py batch --sizes 2048 --outlets 1000 --runs 1
 
 ``route`` runs ``basinkit route DEM -o FOLDER`` and a pysheds script doing the same work
 (``fill_pits``, ``fill_depressions``, ``resolve_flats``, ``flowdir``, ``accumulation``, then
@@ -16,9 +15,8 @@ ratio is taken pair by pair (so a drift of the machine's speed moves both). It a
 ``read_dem`` and ``route()`` inside one process (kernels loaded beforehand) so that the
 share of the command spent outside the algorithms (start-up, reading, writing) shows.
 
-``batch`` runs a whole job (``basinkit run``: route, catchments with polygons, channels,
-morphometry, profiles, report) for ``--outlets`` outlets on channel cells, beside pysheds
-routing followed by ``catchment`` and ``polygonize`` for each outlet.
+A whole job beside pysheds routing and a loop of ``catchment`` + ``polygonize`` is
+``bench_batch_scale.py job``.
 
 The DEM is the fractal surface of ``bench_core.py`` (same seed), written once as a tiled
 DEFLATE GeoTIFF (EPSG:32633, 10 m cells) under bench/out/, which git ignores.
@@ -47,8 +45,6 @@ HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 OUT = HERE / "out"
 sys.path.insert(0, str(HERE))
-
-from _stages import stage_seconds  # noqa: E402 - bench/ is on the path now
 
 
 def dem_tif(n) -> Path:
@@ -83,8 +79,6 @@ def env_with_package(root=ROOT, **extra):
 #: CPU seconds (user + system) of every timed child, in order: on a shared machine they
 #: move less than wall times
 CPU_SECONDS: list = []
-#: stderr of the last timed child (its --log-json records, for stage timings)
-LAST_LOG: list = [""]
 
 
 def timed(cmd, env=None):
@@ -99,7 +93,6 @@ def timed(cmd, env=None):
     proc.stderr.close()
     proc.returncode = os.waitstatus_to_exitcode(status)
     CPU_SECONDS.append(ru.ru_utime + ru.ru_stime)
-    LAST_LOG[0] = err
     if proc.returncode not in (0, 1):
         raise SystemExit(f"{' '.join(map(str, cmd))} failed ({proc.returncode}):\n{err}")
     return wall, ru.ru_maxrss / 1024.0, proc.returncode
@@ -110,101 +103,30 @@ def basinkit_cmd(*args):
 
 
 # ---------------------------------------------------------------- the pysheds script
-def pysheds_script(dem, out):
-    """The pysheds equivalent of ``basinkit route``: condition, route, accumulate, write."""
+def pysheds_route(dem):
+    """pysheds reads the DEM, conditions it (``fill_pits``, ``fill_depressions``,
+    ``resolve_flats``), routes it (``flowdir``) and accumulates; returns (grid, dem array,
+    directions, accumulation)."""
     if not hasattr(np, "in1d"):
         np.in1d = np.isin  # pysheds 0.5 still calls the function NumPy 2.4 removed
     from pysheds.grid import Grid
 
-    out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
     grid = Grid.from_raster(str(dem))
     z = grid.read_raster(str(dem))
     z = grid.fill_pits(z)
     z = grid.fill_depressions(z)
     z = grid.resolve_flats(z)
     fdir = grid.flowdir(z)
-    acc = grid.accumulation(fdir)
-    grid.to_raster(fdir, str(out / "fdir.tif"))
-    grid.to_raster(acc, str(out / "acc.tif"))
+    return grid, z, fdir, grid.accumulation(fdir)
 
 
-def pysheds_batch_script(dem, outlets_csv, out):
-    """pysheds routing as in :func:`pysheds_script`, then per outlet ``catchment`` and
-    ``polygonize``; the polygons are written as one GeoJSON file."""
-    if not hasattr(np, "in1d"):
-        np.in1d = np.isin
-    from pysheds.grid import Grid
-
+def pysheds_script(dem, out):
+    """The pysheds equivalent of ``basinkit route``: condition, route, accumulate, write."""
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
-    grid = Grid.from_raster(str(dem))
-    z = grid.read_raster(str(dem))
-    z = grid.resolve_flats(grid.fill_depressions(grid.fill_pits(z)))
-    fdir = grid.flowdir(z)
-    acc = grid.accumulation(fdir)
+    grid, _, fdir, acc = pysheds_route(dem)
     grid.to_raster(fdir, str(out / "fdir.tif"))
     grid.to_raster(acc, str(out / "acc.tif"))
-    features = []
-    for line in Path(outlets_csv).read_text().splitlines()[1:]:
-        oid, x, y = line.split(",")
-        mask = grid.catchment(x=float(x), y=float(y), fdir=fdir, xytype="coordinate")
-        for geom, value in grid.polygonize(mask.astype(np.uint8)):
-            if value:
-                features.append({"type": "Feature", "geometry": geom,
-                                 "properties": {"outlet_id": oid}})
-    (out / "catchments.geojson").write_text(json.dumps(
-        {"type": "FeatureCollection", "features": features}))
-
-
-def batch_inputs(n, outlets, folder):
-    """outlets.csv (``outlets`` distinct cell centres with at least 1 000 upstream cells,
-    fixed seed) and job.toml (everything on, report included) for the n x n DEM."""
-    from basinkit import read_dem, route
-
-    folder.mkdir(parents=True, exist_ok=True)
-    dem = dem_tif(n)
-    fm = route(read_dem(dem))
-    count = np.asarray(fm.accumulation(unit="cells")).ravel()
-    cand = np.flatnonzero(count >= 1000)
-    cells = np.sort(np.random.default_rng(5).choice(cand, size=outlets, replace=False))
-    x, y = fm.terrain.xy_of(cells // fm.ncols, cells % fm.ncols)
-    rows = [f"o{i:05d},{a:.3f},{b:.3f}" for i, (a, b) in enumerate(zip(x, y))]
-    (folder / "outlets.csv").write_text("id,x,y\n" + "\n".join(rows) + "\n")
-    (folder / "job.toml").write_text(
-        f'[job]\nname = "bench: {outlets} outlets on the {n}-cell fractal DEM"\n'
-        f'[inputs]\ndem = "{dem}"\noutlets = "outlets.csv"\n'
-        '[outlets]\nsnap_radius_m = 0\n'
-        '[channels]\nmin_area = "0.1km2"\n'
-        '[outputs]\nfolder = "job_out"\n')
-    return folder / "job.toml", folder / "outlets.csv"
-
-
-def bench_batch(n, outlets, runs):
-    tmp = Path(tempfile.mkdtemp(prefix="bench_commands_"))
-    try:
-        job, csv = batch_inputs(n, outlets, tmp)
-        bk = basinkit_cmd("--log-json", "run", job, "-o", tmp / "job_out", "--overwrite")
-        ps = [sys.executable, str(Path(__file__).resolve()), "_pysheds_batch",
-              str(dem_tif(n)), str(csv), str(tmp / "pysheds")]
-        timed(bk, env_with_package())
-        a, b = [], []
-        for _ in range(runs):
-            a.append(timed(bk, env_with_package())[0])
-            ca, log = CPU_SECONDS[-1], LAST_LOG[0]
-            b.append(timed(ps, env_with_package())[0])
-            print(f"  {n}², {outlets} outlets: basinkit job {a[-1]:.1f} s ({ca:.1f} s "
-                  f"CPU), pysheds {b[-1]:.1f} s ({CPU_SECONDS[-1]:.1f} s CPU), load "
-                  f"{os.getloadavg()[0]:.1f}", flush=True)
-    finally:
-        shutil.rmtree(tmp, ignore_errors=True)
-    ratio = statistics.median(y / x for x, y in zip(a, b))
-    print(f"{n}², {outlets} outlets: basinkit job {statistics.median(a):.1f} s (route, "
-          f"catchments with polygons, channels, morphometry, profiles, report), pysheds "
-          f"routing + catchment and polygonize per outlet {statistics.median(b):.1f} s, "
-          f"ratio {ratio:.2f}×; stages of the last job: "
-          f"{stage_seconds(log)}", flush=True)
-    return {"basinkit_s": a, "pysheds_s": b, "ratio_median": ratio}
 
 
 def inproc(n):
@@ -338,16 +260,13 @@ def bench_cold_demo(runs):
 def main():
     if len(sys.argv) > 1 and sys.argv[1] == "_pysheds":
         return pysheds_script(sys.argv[2], sys.argv[3])
-    if len(sys.argv) > 1 and sys.argv[1] == "_pysheds_batch":
-        return pysheds_batch_script(*sys.argv[2:5])
     if len(sys.argv) > 1 and sys.argv[1] == "_inproc":
         print(json.dumps(inproc(int(sys.argv[2]))))
         return None
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("what", choices=["route", "batch", "startup", "cold-demo", "inproc"])
+    ap.add_argument("what", choices=["route", "startup", "cold-demo", "inproc"])
     ap.add_argument("--sizes", type=int, nargs="+", default=[2048, 4096])
     ap.add_argument("--runs", type=int, default=3)
-    ap.add_argument("--outlets", type=int, default=1000, help="outlets of 'batch'")
     ap.add_argument("--before", type=Path,
                     help="route: also time this other checkout of basinkit (e.g. a "
                          "'git worktree' of an earlier commit) in the same rounds")
@@ -357,8 +276,6 @@ def main():
           f"{os.getloadavg()[0]:.2f}, {os.cpu_count()} cores", flush=True)
     if a.what == "route":
         res = bench_route(a.sizes, a.runs, a.before)
-    elif a.what == "batch":
-        res = {n: bench_batch(n, a.outlets, a.runs) for n in a.sizes}
     elif a.what == "startup":
         res = bench_startup(a.runs)
     elif a.what == "cold-demo":
