@@ -303,10 +303,14 @@ def slope_area_fit(area_m2, slope_m_per_m, confidence=0.95, bins=None) -> SlopeA
                          f"over a range of areas; got {a.size}")
     fit, tc = _loglog_fit(a, s, confidence)
     theta = -fit.slope
+    # a fit over a short range of areas can give an intercept beyond float range (a very
+    # steep concavity): the index and its bounds are then infinite, not a warning per fit
+    with np.errstate(over="ignore"):
+        ks = np.power(10.0, [fit.intercept, fit.intercept - tc * fit.intercept_stderr,
+                             fit.intercept + tc * fit.intercept_stderr])
     return SlopeAreaFit(
-        steepness_index=float(10 ** fit.intercept), concavity=float(theta),
-        steepness_index_ci=(float(10 ** (fit.intercept - tc * fit.intercept_stderr)),
-                            float(10 ** (fit.intercept + tc * fit.intercept_stderr))),
+        steepness_index=float(ks[0]), concavity=float(theta),
+        steepness_index_ci=(float(ks[1]), float(ks[2])),
         concavity_ci=(float(theta - tc * fit.stderr), float(theta + tc * fit.stderr)),
         r2=float(fit.rvalue ** 2), point_count=int(a.size), confidence=float(confidence),
         binned=bins is not None)
