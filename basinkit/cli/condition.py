@@ -47,16 +47,23 @@ def command(console, dem, output, method, epsilon, max_breach_depth, max_breach_
                                   burn=lines if burn else None,
                                   burn_depth=burn_depth if burn else 0.0,
                                   max_breach_depth=max_breach_depth, max_breach_length=mbl)
-    out, js = tx.begin().staged_paths()
-    write_geotiff(out, cond.elevation, cond.transform, cond.crs, nodata=float("nan"),
-                  tags={"cautions": CAUTION_TEXT})
     params = {"method": method, "epsilon": epsilon, "burn": [str(p) for p in burn],
               "burn_depth": burn_depth, "max_breach_depth": max_breach_depth,
-              "max_breach_length_m": mbl, "sea_level": sea_level, "base_level": base_level, **{k: (list(v) if isinstance(v, tuple) else v)
-                                            for k, v in dem_checks.items()}}
-    write_json(js, provenance(params, {"dem": terrain.source}, crs=terrain.crs,
-                              shape=terrain.shape, summary=summary.to_dict(),
-                              cautions=CAUTION_TEXT))
+              "max_breach_length_m": mbl, "sea_level": sea_level, "base_level": base_level,
+              **{k: (list(v) if isinstance(v, tuple) else v) for k, v in dem_checks.items()}}
+    staged = tx.begin().staged_paths()
+    try:
+        write_geotiff(staged[0], cond.elevation, cond.transform, cond.crs,
+                      nodata=float("nan"), tags={"cautions": CAUTION_TEXT})
+        write_json(staged[1], provenance(params, {"dem": terrain.source}, crs=terrain.crs,
+                                         shape=terrain.shape, summary=summary.to_dict(),
+                                         cautions=CAUTION_TEXT))
+    except OSError as exc:  # GDAL's and the OS's errors name the staged file: name ours
+        from ..errors import OutputError, os_error_message
+
+        if isinstance(exc, OutputError):
+            raise
+        raise OutputError(os_error_message(exc, output)) from None
     _tell_screened(console, terrain)
     for line in summary.lines():
         console.info(line)
