@@ -144,7 +144,7 @@ def plot_design_hydrograph(hydrograph, summary=None, ax=None, title=None, xlim_h
     for a in (ax, rain_ax):
         _style(a)
     (ax if layout == "twin" else rain_ax).set_title(title or "design storm and hydrograph",
-                                                    fontsize=10)
+                                                    fontsize=10, y=1.0)
     return fig
 
 
