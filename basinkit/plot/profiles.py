@@ -32,6 +32,24 @@ def _axes(ax, figsize=(7.5, 4.5)):
     return ax.figure, ax
 
 
+_SUPERSCRIPT = str.maketrans("0123456789-.", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻·")
+
+
+def _sup(value, fmt="g"):
+    """``value`` as superscript text, e.g. -0.5 → ⁻⁰·⁵."""
+    return format(value, fmt).translate(_SUPERSCRIPT)
+
+
+def _power_of_ten(value, pos=None):
+    """Tick label of a log axis: 10⁵, 10⁻²; other values as they are."""
+    if not value > 0:
+        return ""
+    e = np.log10(value)
+    if abs(e - round(e)) > 1e-9:
+        return f"{value:g}"
+    return "10" + _sup(int(round(e)), "d")
+
+
 def _style(ax):
     for s in ("top", "right"):
         ax.spines[s].set_visible(False)
@@ -216,12 +234,15 @@ def plot_slope_area(area_m2, slope_m_per_m, fit=None, ax=None, bins=20, title=No
         xa = np.logspace(np.log10(a.min()), np.log10(a.max()), 50)
         lo, hi = fit.concavity_ci
         ax.plot(xa, fit.predict(xa), color=COLOURS["fit"], lw=2,
-                label=(f"fit $S = {fit.steepness_index:.3g}\\,A^{{-{fit.concavity:.3f}}}$, "
+                label=(f"fit S = {fit.steepness_index:.3g} A{_sup(-fit.concavity, '.3f')}, "
                        f"θ {lo:.2f} to {hi:.2f} ({100 * fit.confidence:.0f} %)"))
     ax.set_xscale("log")
     ax.set_yscale("log")
-    from matplotlib.ticker import NullFormatter
+    from matplotlib.ticker import FuncFormatter, NullFormatter
 
+    # powers of ten as plain text with superscripts (no math typesetting per label)
+    ax.xaxis.set_major_formatter(FuncFormatter(_power_of_ten))
+    ax.yaxis.set_major_formatter(FuncFormatter(_power_of_ten))
     ax.xaxis.set_minor_formatter(NullFormatter())
     ax.yaxis.set_minor_formatter(NullFormatter())
     ax.set_xlabel("upstream area (m²)")

@@ -282,11 +282,14 @@ class Figures:
             return None, []
         ncol = 4 if len(panels) > 4 else len(panels)
         nrow = math.ceil(len(panels) / ncol)
-        fig = Figure(figsize=(2.9 * ncol, 2.35 * nrow), dpi=DPI)
+        w, h = 2.9 * ncol, 2.35 * nrow
+        fig = Figure(figsize=(w, h), dpi=DPI)
+        # fixed margins in inches (a layout pass would draw the figure twice)
+        fig.subplots_adjust(left=0.5 / w, right=1 - 0.12 / w, bottom=0.45 / h,
+                            top=1 - 0.28 / h, wspace=0.32, hspace=0.62)
         for k, (vals, label, log) in enumerate(panels):
             ax = fig.add_subplot(nrow, ncol, k + 1)
             plot_histogram(vals, ax=ax, log=log, xlabel=label)
-        fig.tight_layout()
         return png_uri(fig), [p[1] for p in panels]
 
     # ------------------------------------------------------------------ per outlet
