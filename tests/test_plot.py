@@ -124,3 +124,100 @@ def test_terrain_image_is_transparent_outside_the_data():
     inner = img[2:-2, 2:-2, :3]
     assert np.ptp(inner, axis=1).max() < 1e-9
     assert np.ptp(inner[:, 0, 0]) > 0  # the tint changes with elevation
+
+
+def test_figure_png_gives_the_same_palette_png_every_time():
+    """figure_png: two equal figures give equal bytes (no date); the PNG decodes (Pillow,
+    PNG specification ISO/IEC 15948) as a palette image of at most 256 colours, at the
+    chosen size and resolution (4 × 3 inches at 75 dpi = 300 × 225 pixels, closed form);
+    colours=0 keeps full colour."""
+    from PIL import Image
+
+    from basinkit.plot.png import figure_png
+
+    a, b = figure_png(_figure(), dpi=75), figure_png(_figure(), dpi=75)
+    assert a == b and a[:8] == b"\x89PNG\r\n\x1a\n"
+    im = Image.open(io.BytesIO(a))
+    assert im.mode == "P" and im.size == (300, 225)
+    assert len(im.getcolors(256)) <= 256 and len(im.getcolors(256)) > 2
+    assert im.info["dpi"] == pytest.approx((75, 75), abs=0.01)
+    assert Image.open(io.BytesIO(figure_png(_figure(), dpi=75, colours=0))).mode == "RGB"
+    with pytest.raises(ValueError):
+        figure_png(_figure(), colours=300)
+
+
+def _step_figures():
+    """The figures the steps draw, on data with wide tick labels (4-digit elevations, km
+    distances, log axes over six decades, a 24-hour storm)."""
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    from basinkit.plot.hydrograph import plot_design_hydrograph
+    from basinkit.plot.hypsometry import plot_hypsometric_curve
+    from basinkit.plot.profiles import plot_chi, plot_long_profile, plot_slope_area
+
+    d = np.linspace(0, 12_345.0, 400)
+    z = 1234.5 + 0.08 * d
+    prof = SimpleNamespace(kind="longest_flow_path", distance_m=d, elevation_m=z + 2,
+                           elevation_conditioned_m=z, length_m=float(d[-1]),
+                           x=d, y=d * 0)
+    rng = np.random.default_rng(0)
+    nodes = pd.DataFrame({"chi_m": np.r_[d / 7, rng.uniform(0, 1500, 300)],
+                          "elevation_conditioned_m": np.r_[z, rng.uniform(1234, 2300, 300)],
+                          "is_main_stem": np.r_[np.ones(400, bool), np.zeros(300, bool)],
+                          "outlet_id": "a"})
+    nodes.attrs["concavity"] = 0.45
+    area = 10 ** rng.uniform(3, 9, 500)
+    t = np.arange(0, 24, 0.05)
+    rain = np.exp(-((t - 12) / 0.7) ** 2)
+    q = 40 * np.exp(-((t - 12.6) / 0.6) ** 2)
+    h = pd.DataFrame({"time_h": t, "rainfall_in_step_mm": rain,
+                      "excess_in_step_mm": 0.6 * rain, "direct_runoff_m3_per_s": q,
+                      "base_flow_m3_per_s": np.full_like(t, 1.5),
+                      "discharge_m3_per_s": q + 1.5})
+    curve = pd.DataFrame({"relative_height": np.linspace(0, 1, 50),
+                          "relative_area_above": 1 - np.linspace(0, 1, 50) ** 0.5})
+    return [plot_long_profile(prof, title="longest flow path, outlet a long name"),
+            plot_chi(nodes, title="χ–elevation, outlet a"),
+            plot_slope_area(area, 50 * area ** -0.5, title="slope–area, outlet a"),
+            plot_hypsometric_curve(curve, integral=0.42, label="outlet a"),
+            plot_design_hydrograph(h, title="outlet a: design storm and hydrograph")]
+
+
+def test_step_figures_keep_every_label_inside_the_figure():
+    """With fixed margins (no layout pass) every tick label, axis label, title and legend of
+    the step figures still lies inside the figure, so nothing is cut off in the PNG (common
+    practice, no source: a clipped label cannot be read)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    for fig in _step_figures():
+        fig.set_dpi(100)
+        canvas = FigureCanvasAgg(fig)
+        canvas.draw()
+        r = canvas.get_renderer()
+        box = fig.bbox
+        boxes = [ax.get_tightbbox(r) for ax in fig.axes]  # drawn ticks, labels, legend
+        boxes += [t.get_window_extent(r) for t in fig.texts]
+        for e in boxes:
+            assert (e.x0 >= box.x0 - 0.5 and e.x1 <= box.x1 + 0.5 and e.y0 >= box.y0 - 0.5
+                    and e.y1 <= box.y1 + 0.5), (fig.axes[0].get_title(), e)
+
+
+def test_knickpoints_on_a_path_take_the_path_distance():
+    """knickpoints_on keeps the knickpoints on the profile's cells and gives each the
+    distance along that profile (closed form: the path's own distance column)."""
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    from basinkit.plot.profiles import knickpoints_on
+
+    p = SimpleNamespace(x=np.array([100.0, 110, 120, 130]), y=np.array([5.0, 5, 15, 25]),
+                        distance_m=np.array([0.0, 10, 24.1, 38.3]))
+    k = pd.DataFrame({"x": [120.0, 500, 130.0000000001], "y": [15.0, 5, 25],
+                      "elevation_m": [1.0, 2, 3], "distance_from_outlet_m": [9.0, 9, 9]})
+    on = knickpoints_on(p, k)
+    assert on["elevation_m"].tolist() == [1.0, 3.0]
+    assert on["distance_from_outlet_m"].tolist() == [24.1, 38.3]
+    assert knickpoints_on(p, k.iloc[[1]]) is None and knickpoints_on(p, None) is None

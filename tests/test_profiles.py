@@ -453,8 +453,17 @@ def test_profile_command(tmp_path, base_model):
     assert {"profiles", "knickpoints"} <= set(layers)
     prof = gpd.read_file(out / "profiles.gpkg", layer="profiles")
     assert {"ksn_m_per_m", "concavity"} <= set(prof.columns)
-    for f in ("main_long_profile.png", "main_chi_elevation.png", "main_slope_area.png"):
-        assert (out / "figures" / f).stat().st_size > 10_000
+    from PIL import Image
+
+    for f in ("main_long_profile.png", "main_chi_elevation.png", "main_slope_area.png",
+              "main_longest_flow_path.png"):
+        # a real drawing (PNG specification, decoded by Pillow): 7.5 × 4.5 in at 100 dpi,
+        # palette PNGs of some kilobytes, not a blank canvas
+        im = Image.open(out / "figures" / f)
+        im.load()
+        assert im.format == "PNG" and im.size == (750, 450)
+        assert (out / "figures" / f).stat().st_size > 5_000
+        assert np.asarray(im.convert("L")).std() > 5
     meta = json.loads((out / "profiles.json").read_text())
     assert meta["software"] == "basinkit" and meta["cautions"]
     errors = pd.read_csv(out / "flow_paths.csv")

@@ -329,3 +329,31 @@ def test_report_refuses_a_path_that_is_not_a_folder(tmp_path):
 
     with pytest.raises(InputError, match="is not a folder"):
         write_report(tmp_path / "nothing-here")
+
+
+def _section_images(text, fid):
+    section = text.split(f'id="outlet-{fid}"')[1].split("</section>")[0]
+    return Page(section).images
+
+
+def test_report_embeds_the_figures_the_steps_drew(demo, tmp_path):
+    """Each plot is drawn once: the report embeds the very bytes of the step's PNG under
+    figures/ (longest flow path, χ, hypsometric curve, design hydrograph); a folder without
+    figures/ gets the same plots drawn by the report instead, none missing (common practice,
+    no source)."""
+    from basinkit.report import write_report
+
+    folder, text, _ = demo
+    names = ["longest_flow_path", "chi_elevation", "hypsometry", "design_hydrograph"]
+    shown = _section_images(text, "crossing")
+    for name in names:
+        data = (folder / "figures" / f"crossing_{name}.png").read_bytes()
+        assert "data:image/png;base64," + base64.b64encode(data).decode("ascii") in shown
+    bare = tmp_path / "bare"
+    shutil.copytree(folder, bare)
+    shutil.rmtree(bare / "figures")
+    (bare / "report.html").unlink()
+    drawn = _section_images(write_report(bare, report_outlets=["crossing"])
+                            .read_text(encoding="utf-8"), "crossing")
+    assert len(drawn) == len(shown)
+    assert not set(drawn[1:]) & set(shown)  # the map aside, drawn here, not the files

@@ -76,7 +76,7 @@ def plot_histogram(values, ax=None, *, bins=None, log=False, xlabel=None, title=
     left_out = int((~ok).sum())
     if left_out:
         t.append(f"{left_out} without a value")
-    ax.set_title(", ".join(t), fontsize=8.5)
+    ax.set_title(", ".join(t), fontsize=8.5, y=1.0)
     if xlabel:
         ax.set_xlabel(xlabel, fontsize=8)
     ax.set_ylabel("catchments", fontsize=8)

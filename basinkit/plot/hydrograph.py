@@ -86,12 +86,13 @@ def plot_design_hydrograph(hydrograph, summary=None, ax=None, title=None, xlim_h
     excess = hydrograph["excess_in_step_mm"].to_numpy(float)
     step = float(t[1] - t[0]) if t.size > 1 else 1.0
     # ---- hyetograph (depth in each step, drawn over the step)
-    # one filled step outline each (a bar per step would be thousands of patches)
+    # one filled step outline each (a bar per step would be thousands of patches; a
+    # polygon collection, not a step patch, whose limits matplotlib walks segment by segment)
     edges = np.append(t, t[-1] + step) if t.size else np.array([0.0, step])
-    rain_ax.stairs(rain, edges, fill=True, color=COLOURS["rain"], label="rainfall",
-                   linewidth=0)
-    rain_ax.stairs(excess, edges, fill=True, color=COLOURS["excess"],
-                   label="excess (runs off)", linewidth=0)
+    for depth, colour, label in ((rain, COLOURS["rain"], "rainfall"),
+                                 (excess, COLOURS["excess"], "excess (runs off)")):
+        rain_ax.fill_between(edges, np.append(depth, depth[-1:]) if depth.size else [0, 0],
+                             step="post", color=colour, label=label, linewidth=0)
     # hangs from the top (over the upper third of a shared axes)
     rain_ax.set_ylim(max(rain.max(), 1e-9) * (3.0 if layout == "twin" else 1.15), 0)
     rain_ax.set_ylabel(f"rain per {step * 60:.3g} min (mm)")
@@ -144,7 +145,7 @@ def plot_design_hydrograph(hydrograph, summary=None, ax=None, title=None, xlim_h
     for a in (ax, rain_ax):
         _style(a)
     (ax if layout == "twin" else rain_ax).set_title(title or "design storm and hydrograph",
-                                                    fontsize=10)
+                                                    fontsize=10, y=1.0)
     return fig
 
 

@@ -57,7 +57,7 @@ def plot_hypsometric_curve(curve, ax=None, *, integral=None, label=None, title=N
     ax.set_ylim(0, 1)
     ax.set_xlabel("relative area above, a/A (–)")
     ax.set_ylabel("relative height, h/H (–)")
-    ax.set_title(title or "Hypsometric curve")
+    ax.set_title(title or "Hypsometric curve", y=1.0)
     ax.legend(frameon=False, fontsize=8, loc="upper right")
     S.light_frame(ax)
     return fig

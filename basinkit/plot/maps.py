@@ -286,7 +286,7 @@ def plot_map(background=None, ax=None, *, window=None, divides=(), channels=(),
         lab.set_rotation(90)
         lab.set_va("center")
     if title:
-        ax.set_title(title, fontsize=10, color=S.INK)
+        ax.set_title(title, fontsize=10, color=S.INK, y=1.0)
     _scale_bar(ax, window, metres_per_unit)
     _north_arrow(ax)
     if legend:

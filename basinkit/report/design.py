@@ -64,8 +64,11 @@ def collect_design(d):
 
 def _figure(d, oid, rows):
     from ..plot.hydrograph import plot_design_hydrograph
-    from .figures import png_uri
+    from .figures import png_uri, step_figure_uri
 
+    uri = step_figure_uri(d, oid, "design_hydrograph")
+    if uri:  # the one the design-flow step drew
+        return uri
     h = d.design_hydrographs.get(oid)
     uh = next((r for r in rows if r.get("method") == "nrcs_unit_hydrograph"
                and r.get("status") == "ok"), None)

@@ -1,11 +1,16 @@
-"""The report's figures, drawn by basinkit.plot from the products and embedded as PNG data
-URIs: the overview map, the distributions, and per outlet a map, the longest flow path's
-profile, the χ–elevation plot and the hypsometric curve."""
+"""The report's figures, embedded as PNG data URIs: the overview map, the distributions,
+and per outlet a map, the longest flow path's profile, the χ–elevation plot, the
+hypsometric curve and the design hydrograph.
+
+The per-outlet plots are drawn once, by the steps, into ``figures/`` (one style, one
+drawing); the report embeds those files and draws a plot itself (with the same
+:mod:`basinkit.plot` function) only when its file is not in the folder, e.g. for outlets
+without figures or a folder written without them. The maps and the distributions are the
+report's own."""
 
 from __future__ import annotations
 
 import base64
-import io
 import math
 
 import numpy as np
@@ -34,18 +39,41 @@ def png_uri(fig, dpi=DPI, colours=256):
     """A figure as a PNG data URI, reduced to an adaptive palette of ``colours`` colours
     (about a third of the bytes of full colour, no visible loss on these maps and plots).
     The PNG holds no date, so the same figure gives the same bytes."""
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from PIL import Image
+    from ..plot.png import figure_png
 
-    fig.set_dpi(dpi)
-    canvas = FigureCanvasAgg(fig)
-    canvas.draw()
-    im = Image.fromarray(np.asarray(canvas.buffer_rgba())[..., :3].copy())
-    if colours:
-        im = im.quantize(colors=colours, method=Image.Quantize.MEDIANCUT, dither=0)
-    buf = io.BytesIO()
-    im.save(buf, format="PNG", compress_level=6)
-    return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
+    data = figure_png(fig, dpi=dpi, colours=colours, method="mediancut")
+    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+
+
+#: The step figures the report embeds: report figure -> (name after ``figures/<file_id>_``,
+#: products whose data it shows; the figure is used only when they are in the folder too).
+STEP_FIGURES = {
+    "long_profile": ("longest_flow_path", ("profile", "knickpoints")),
+    "chi": ("chi_elevation", ("profile", "steepness", "knickpoints")),
+    "hypsometry": ("hypsometry", ("hypsometry", "morphometry")),
+    "design_hydrograph": ("design_hydrograph", ("design_flows", "hydrographs")),
+}
+_PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+
+
+def step_figure_uri(d, oid, which):
+    """The data URI of the figure a step wrote for outlet ``oid`` (``which`` a key of
+    :data:`STEP_FIGURES`), or None when the file, or a product it was drawn from, is not in
+    the folder."""
+    name, needs = STEP_FIGURES[which]
+    fid = d.file_id.get(oid)
+    if fid is None or not all(d.run.has(k) for k in needs):
+        return None
+    path = d.run.first_existing([f"figures/{fid}_{name}.png"])
+    if path is None:
+        return None
+    try:
+        data = path.read_bytes()
+    except OSError:
+        return None
+    if not data.startswith(_PNG_SIGNATURE):
+        return None
+    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
 
 
 class _PathView:
@@ -254,11 +282,14 @@ class Figures:
             return None, []
         ncol = 4 if len(panels) > 4 else len(panels)
         nrow = math.ceil(len(panels) / ncol)
-        fig = Figure(figsize=(2.9 * ncol, 2.35 * nrow), dpi=DPI)
+        w, h = 2.9 * ncol, 2.35 * nrow
+        fig = Figure(figsize=(w, h), dpi=DPI)
+        # fixed margins in inches (a layout pass would draw the figure twice)
+        fig.subplots_adjust(left=0.5 / w, right=1 - 0.12 / w, bottom=0.45 / h,
+                            top=1 - 0.28 / h, wspace=0.32, hspace=0.62)
         for k, (vals, label, log) in enumerate(panels):
             ax = fig.add_subplot(nrow, ncol, k + 1)
             plot_histogram(vals, ax=ax, log=log, xlabel=label)
-        fig.tight_layout()
         return png_uri(fig), [p[1] for p in panels]
 
     # ------------------------------------------------------------------ per outlet
@@ -284,8 +315,11 @@ class Figures:
         return r if len(r) else None
 
     def long_profile(self, oid):
-        from ..plot.profiles import plot_long_profile
+        from ..plot.profiles import knickpoints_on, plot_long_profile
 
+        uri = step_figure_uri(self.d, oid, "long_profile")
+        if uri:
+            return uri
         rows = self._rows("profile", oid)
         if rows is None or "profile_kind" not in rows.columns:
             return None
@@ -293,24 +327,17 @@ class Figures:
         if len(lfp) < 2:
             return None
         view = _PathView(lfp)
-        knick = self._rows("knickpoints", oid)
-        if knick is not None and view.x is not None and {"x", "y"} <= set(knick.columns):
-            on = set(zip(np.round(view.x, 6), np.round(view.y, 6)))
-            hit = [(round(x, 6), round(y, 6)) in on for x, y in zip(knick["x"], knick["y"])]
-            knick = knick[np.asarray(hit, bool)]
-            if len(knick):
-                knick = knick.copy()
-                pos = {(round(x, 6), round(y, 6)): dd for x, y, dd in
-                       zip(view.x, view.y, view.distance_m)}
-                knick["distance_from_outlet_m"] = [pos[(round(x, 6), round(y, 6))]
-                                                   for x, y in zip(knick["x"], knick["y"])]
-        fig = plot_long_profile(view, ax=_plot_axes(), knickpoints=knick,
-                                title=f"Longest flow path of {oid}")
+        knick = knickpoints_on(view, self._rows("knickpoints", oid))
+        fig = plot_long_profile(view, knickpoints=knick,
+                                title=f"longest flow path, outlet {oid}")
         return png_uri(fig)
 
     def chi_plot(self, oid):
         from ..plot.profiles import plot_chi
 
+        uri = step_figure_uri(self.d, oid, "chi")
+        if uri:
+            return uri
         rows = self._rows("profile", oid)
         if rows is None or "profile_kind" not in rows.columns:
             return None
@@ -324,26 +351,23 @@ class Figures:
         if steep is not None and "concavity" in steep.columns:
             theta = float(np.nanmedian(steep["concavity"].to_numpy(float)))
         nodes.attrs["concavity"] = theta
-        fig = plot_chi(nodes, ax=_plot_axes(), knickpoints=self._rows("knickpoints", oid),
-                       steepness_table=steep, title=f"χ–elevation, channels above {oid}")
+        fig = plot_chi(nodes, knickpoints=self._rows("knickpoints", oid),
+                       steepness_table=steep, title=f"χ–elevation, outlet {oid}")
         return png_uri(fig)
 
     def hypsometry(self, oid):
         from ..plot.hypsometry import plot_hypsometric_curve
 
+        uri = step_figure_uri(self.d, oid, "hypsometry")
+        if uri:
+            return uri
         rows = self._rows("hypsometry", oid)
         if rows is None or not {"relative_height", "relative_area_above"} <= set(rows.columns):
             return None
         hi = _num(self.d.tables["morphometry"].get(oid, {}).get("hypsometric_integral"))
         fig = plot_hypsometric_curve(rows.sort_values("relative_height"), integral=hi,
-                                     label=oid, title=f"Hypsometric curve of {oid}")
+                                     label=f"outlet {oid}")
         return png_uri(fig)
-
-
-def _plot_axes(size=(5.4, 3.5)):
-    from matplotlib.figure import Figure
-
-    return Figure(figsize=size, dpi=DPI).add_subplot(1, 1, 1)
 
 
 def _num(v):

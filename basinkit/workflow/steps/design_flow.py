@@ -380,6 +380,7 @@ def write_design_flows(out, fm, placed, result: DesignFlowResult,
     """Write what :func:`compute_design_flows` computed: design_flows.csv,
     hydrographs.csv, design_flows.gpkg, design_flows.json and the figures."""
     from ...plot.hydrograph import plot_design_hydrograph
+    from ...plot.png import figure_png
 
     rep = as_reporter(reporter)
     flows = result.flows
@@ -404,7 +405,7 @@ def write_design_flows(out, fm, placed, result: DesignFlowResult,
             row = tab.set_index("method").loc["nrcs_unit_hydrograph"]
             fig = plot_design_hydrograph(h, row, title=f"outlet {oid}: design storm and "
                                                        "hydrograph")
-            out.figure(f"figures/{fid}_design_hydrograph.png", fig, dpi=100)
+            out.data(f"figures/{fid}_design_hydrograph.png", figure_png(fig))
             files.append(f"figures/{fid}_design_hydrograph.png")
     t = flows.table
     flagged = t[t["outside_range"].astype(bool)]

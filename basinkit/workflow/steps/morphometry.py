@@ -87,6 +87,7 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
     from ...analysis.catchments import delineate
     from ...analysis.morphometry import morphometry_table
     from ...plot.hypsometry import plot_hypsometric_curve
+    from ...plot.png import figure_png
 
     s = (settings or MorphometrySettings()).check()
     rep = as_reporter(reporter)
@@ -150,7 +151,7 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
             fig = plot_hypsometric_curve(
                 curves[k], label=f"outlet {tab['outlet_id'].iloc[k]}",
                 integral=float(table["hypsometric_integral"].iloc[k]))
-            out.figure(f"figures/{fid}_hypsometry.png", fig, dpi=100)
+            out.data(f"figures/{fid}_hypsometry.png", figure_png(fig))
             files.append(f"figures/{fid}_hypsometry.png")
     bad = table[table["error"] != ""]
     measured = table.iloc[:len(tab)]

@@ -9,7 +9,6 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ...errors import BasinkitError, InputError
-from ..output import png_bytes
 from ..parallel import map_outlets, shared
 from ..progress import as_reporter
 from ._common import layer_metadata, step_record
@@ -18,7 +17,6 @@ __all__ = ["ProfileSettings", "ProfilesResult", "profiles_step", "FIGURES"]
 
 # the profile figures of a figure outlet: figures/<file_id>_<what>.png
 FIGURES = ("long_profile", "longest_flow_path", "chi_elevation", "slope_area")
-FIGURE_DPI = 100
 
 
 @dataclass
@@ -322,6 +320,7 @@ def _figures(oid, nodes, steep, knick, lfp, ms) -> dict:
 
     from ...analysis import profile_fits as F
     from ...plot import profiles as G
+    from ...plot.png import figure_png
 
     ms_k = None
     if len(knick) and nodes["is_main_stem"].astype(bool).any():
@@ -338,14 +337,15 @@ def _figures(oid, nodes, steep, knick, lfp, ms) -> dict:
         figs = {
             "long_profile": G.plot_long_profile(ms, knickpoints=ms_k,
                                                 title=f"main stem, outlet {oid}"),
-            "longest_flow_path": G.plot_long_profile(lfp,
-                                                     title=f"longest flow path, outlet {oid}"),
+            "longest_flow_path": G.plot_long_profile(
+                lfp, knickpoints=G.knickpoints_on(lfp, knick),
+                title=f"longest flow path, outlet {oid}"),
             "chi_elevation": G.plot_chi(nodes, knickpoints=knick, steepness_table=steep,
                                         title=f"χ–elevation, outlet {oid}"),
             "slope_area": G.plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"],
                                             fit=sa, title=f"slope–area, outlet {oid}"),
         }
-    return {what: png_bytes(figs[what], dpi=FIGURE_DPI) for what in FIGURES}
+    return {what: figure_png(figs[what]) for what in FIGURES}
 
 
 def _write_layers(out, fm, net, steep, knick, lines, metadata):
