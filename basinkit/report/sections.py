@@ -261,8 +261,11 @@ def warnings_html(d, oid) -> str:
     flags = d.flags.get(oid, [])
     # a note of the run that opens with the same words as one of the report's own
     # warnings says the same thing (with the run's rounding): shown once
-    heads = {" ".join(t.split()[:8]) for _, t in flags}
-    notes = [n for n in d.notes.get(oid, []) if " ".join(n.split()[:8]) not in heads]
+    def head(text):
+        return " ".join(text.lower().split()[:8])
+
+    heads = {head(t) for _, t in flags}
+    notes = [n for n in d.notes.get(oid, []) if head(n) not in heads]
     if not flags and not notes:
         return '<p class="ok">No warnings for this outlet.</p>'
     parts = ['<div class="warnings"><h3>Warnings</h3>']
