@@ -144,10 +144,14 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
     out.csv("morphometry.csv", table)
     out.csv("hypsometry.csv", hyps)
     if s.figures:
-        jobs = [(f"figures/{tab['file_id'].iloc[k]}_hypsometry.png", plot_hypsometric_curve,
-                 (curves[k],), {"label": f"outlet {tab['outlet_id'].iloc[k]}",
-                                "integral": float(table["hypsometric_integral"].iloc[k])})
-                for k in fig_rows if curves[k] is not None]
+        jobs = []
+        for k in fig_rows:
+            if curves[k] is None:
+                continue
+            oid, fid = tab["outlet_id"].iloc[k], tab["file_id"].iloc[k]
+            jobs.append((f"figures/{fid}_hypsometry.png", plot_hypsometric_curve, (curves[k],),
+                         {"label": f"outlet {oid}", "title": f"hypsometric curve, outlet {oid}",
+                          "integral": float(table["hypsometric_integral"].iloc[k])}))
         for name, png in draw_pngs(jobs):
             out.data(name, png)
             files.append(name)
