@@ -221,3 +221,21 @@ def test_knickpoints_on_a_path_take_the_path_distance():
     assert on["elevation_m"].tolist() == [1.0, 3.0]
     assert on["distance_from_outlet_m"].tolist() == [24.1, 38.3]
     assert knickpoints_on(p, k.iloc[[1]]) is None and knickpoints_on(p, None) is None
+
+
+def test_figures_drawn_in_workers_are_those_drawn_here():
+    """draw_pngs: the same names in the given order and the same bytes in forked workers
+    as in this process (the products do not depend on --workers, DESIGN.md)."""
+    import pandas as pd
+
+    from basinkit.plot.hypsometry import plot_hypsometric_curve
+    from basinkit.workflow.steps._figures import FIGURE_FORK_MIN_ITEMS, draw_pngs
+
+    h = np.linspace(0, 1, 30)
+    jobs = [(f"f{k}.png", plot_hypsometric_curve,
+             (pd.DataFrame({"relative_height": h, "relative_area_above": 1 - h ** (k + 1)}),),
+             {"label": f"c{k}"}) for k in range(FIGURE_FORK_MIN_ITEMS + 2)]
+    here, forked = draw_pngs(jobs, workers=1), draw_pngs(jobs, workers=2)
+    assert [n for n, _ in here] == [j[0] for j in jobs]
+    assert here == forked
+    assert len({png for _, png in here}) == len(jobs)  # each its own curve

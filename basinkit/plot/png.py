@@ -17,7 +17,8 @@ __all__ = ["figure_png", "FIGURE_DPI"]
 FIGURE_DPI = 100
 
 
-def figure_png(fig, dpi: int = FIGURE_DPI, colours: int = 256, method: str = "octree") -> bytes:
+def figure_png(fig, dpi: int = FIGURE_DPI, colours: int = 256,
+               method: str = "octree") -> bytes:
     """PNG bytes of a matplotlib figure, with a palette of ``colours`` colours (0: full
     colour) and ``dpi`` recorded in the file.
 
@@ -29,8 +30,9 @@ def figure_png(fig, dpi: int = FIGURE_DPI, colours: int = 256, method: str = "oc
     colours : int
         Size of the adaptive palette (at most 256); 0 keeps full colour (RGB).
     method : {"octree", "mediancut"}
-        How the palette is chosen: ``octree`` is fast and suits plots (few flat colours);
-        ``mediancut`` keeps smooth shading (hillshaded maps) a little better.
+        How the palette is chosen: ``octree`` (fast; keeps the colours of small markers
+        over a shaded relief) or ``mediancut`` (slower; merges rare colours into common
+        ones).
 
     Returns
     -------

@@ -37,11 +37,12 @@ DPI = 100
 
 def png_uri(fig, dpi=DPI, colours=256):
     """A figure as a PNG data URI, reduced to an adaptive palette of ``colours`` colours
-    (about a third of the bytes of full colour, no visible loss on these maps and plots).
-    The PNG holds no date, so the same figure gives the same bytes."""
+    (about a third of the bytes of full colour, no visible loss on these maps and plots;
+    the octree palette keeps the small markers' colours, which the median cut merged into
+    the relief's). The PNG holds no date, so the same figure gives the same bytes."""
     from ..plot.png import figure_png
 
-    data = figure_png(fig, dpi=dpi, colours=colours, method="mediancut")
+    data = figure_png(fig, dpi=dpi, colours=colours)
     return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
 
 
@@ -366,7 +367,8 @@ class Figures:
             return None
         hi = _num(self.d.tables["morphometry"].get(oid, {}).get("hypsometric_integral"))
         fig = plot_hypsometric_curve(rows.sort_values("relative_height"), integral=hi,
-                                     label=f"outlet {oid}")
+                                     label=f"outlet {oid}",
+                                     title=f"hypsometric curve, outlet {oid}")
         return png_uri(fig)
 
 

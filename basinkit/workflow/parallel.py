@@ -30,7 +30,8 @@ def _fork_available() -> bool:
     return "fork" in mp.get_all_start_methods()
 
 
-def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", total=None):
+def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", total=None,
+                min_items=FORK_MIN_ITEMS):
     """``[func(item) for item in items]``, in forked worker processes when worth it.
 
     Parameters
@@ -46,6 +47,9 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
         Objects the workers read with :func:`shared` (inherited through the fork).
     progress : callable, optional
         ``progress(iterable, total=, desc=)`` (a reporter's progress).
+    min_items : int
+        Fork only for at least this many items (lower it for heavy items, e.g. figures,
+        where a pool pays off with a handful).
 
     Yields
     ------
@@ -57,7 +61,7 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
     _SHARED.clear()
     _SHARED.update(shared or {})
     try:
-        if int(workers) <= 1 or len(items) < FORK_MIN_ITEMS or not _fork_available():
+        if int(workers) <= 1 or len(items) < max(2, int(min_items)) or not _fork_available():
             for item in wrap(items, total=total, desc=desc):
                 yield func(item)
             return

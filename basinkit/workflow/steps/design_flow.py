@@ -380,7 +380,7 @@ def write_design_flows(out, fm, placed, result: DesignFlowResult,
     """Write what :func:`compute_design_flows` computed: design_flows.csv,
     hydrographs.csv, design_flows.gpkg, design_flows.json and the figures."""
     from ...plot.hydrograph import plot_design_hydrograph
-    from ...plot.png import figure_png
+    from ._figures import draw_pngs
 
     rep = as_reporter(reporter)
     flows = result.flows
@@ -396,6 +396,7 @@ def write_design_flows(out, fm, placed, result: DesignFlowResult,
     if settings.figures:
         rows, _ = placed.figure_rows(settings.figure_outlets)
         done = set(flows.table["outlet_id"].astype(str))
+        jobs = []
         for k in rows:
             oid = str(placed.table["outlet_id"].iloc[k])
             if oid not in done:
@@ -403,10 +404,11 @@ def write_design_flows(out, fm, placed, result: DesignFlowResult,
             fid = str(placed.table["file_id"].iloc[k])
             tab, h = flows.outlet(oid)
             row = tab.set_index("method").loc["nrcs_unit_hydrograph"]
-            fig = plot_design_hydrograph(h, row, title=f"outlet {oid}: design storm and "
-                                                       "hydrograph")
-            out.data(f"figures/{fid}_design_hydrograph.png", figure_png(fig))
-            files.append(f"figures/{fid}_design_hydrograph.png")
+            jobs.append((f"figures/{fid}_design_hydrograph.png", plot_design_hydrograph,
+                         (h, row), {"title": f"outlet {oid}: design storm and hydrograph"}))
+        for name, png in draw_pngs(jobs):
+            out.data(name, png)
+            files.append(name)
     t = flows.table
     flagged = t[t["outside_range"].astype(bool)]
     applicability = [{"outlet_id": str(r.outlet_id), "method": str(r.method),

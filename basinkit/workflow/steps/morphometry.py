@@ -87,7 +87,7 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
     from ...analysis.catchments import delineate
     from ...analysis.morphometry import morphometry_table
     from ...plot.hypsometry import plot_hypsometric_curve
-    from ...plot.png import figure_png
+    from ._figures import draw_pngs
 
     s = (settings or MorphometrySettings()).check()
     rep = as_reporter(reporter)
@@ -144,15 +144,17 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
     out.csv("morphometry.csv", table)
     out.csv("hypsometry.csv", hyps)
     if s.figures:
+        jobs = []
         for k in fig_rows:
             if curves[k] is None:
                 continue
-            fid = str(tab["file_id"].iloc[k])
-            fig = plot_hypsometric_curve(
-                curves[k], label=f"outlet {tab['outlet_id'].iloc[k]}",
-                integral=float(table["hypsometric_integral"].iloc[k]))
-            out.data(f"figures/{fid}_hypsometry.png", figure_png(fig))
-            files.append(f"figures/{fid}_hypsometry.png")
+            oid, fid = tab["outlet_id"].iloc[k], tab["file_id"].iloc[k]
+            jobs.append((f"figures/{fid}_hypsometry.png", plot_hypsometric_curve, (curves[k],),
+                         {"label": f"outlet {oid}", "title": f"hypsometric curve, outlet {oid}",
+                          "integral": float(table["hypsometric_integral"].iloc[k])}))
+        for name, png in draw_pngs(jobs):
+            out.data(name, png)
+            files.append(name)
     bad = table[table["error"] != ""]
     measured = table.iloc[:len(tab)]
     for r in measured[measured["error"] != ""].itertuples():  # placing failures: reported

@@ -9,7 +9,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ...errors import BasinkitError, InputError
-from ..parallel import map_outlets, shared
+from ..parallel import FORK_MIN_ITEMS, map_outlets, shared
+from ._figures import FIGURE_FORK_MIN_ITEMS
 from ..progress import as_reporter
 from ._common import layer_metadata, step_record
 
@@ -155,8 +156,10 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
     rows = list(tab[["outlet_id", "file_id", "cell", "source"]].itertuples(index=False))
     items = [(k, str(o), str(f), int(c), k in fig_rows) for k, (o, f, c, _) in
              enumerate(rows)]
+    # outlets with figures are heavy (four figures each): a pool pays off with a few of them
     results = map_outlets(_profile_item, items, workers=s.workers, progress=rep.progress,
                           desc="profiles",
+                          min_items=FIGURE_FORK_MIN_ITEMS if fig_rows else FORK_MIN_ITEMS,
                           shared={"fm": fm, "network": network, "settings": s,
                                   "strahler": np.asarray(network.strahler).ravel()})
     # results first in zip: the progress generator then runs to its end (its last line)
