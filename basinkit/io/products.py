@@ -38,6 +38,9 @@ PRODUCT_FILES = {
     "design_flows_json": ("design_flows.json", "the design-flow step (design-flow)"),
 }
 
+#: The first bytes of every PNG file (PNG specification, section 5.2).
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+
 #: Rasters of the flow folder, in the order they are tried for a map background.
 ELEVATION_RASTERS = ("flow/elevation_input.tif", "flow/elevation_conditioned.tif")
 #: Sub-catchment label rasters (one label per cell, labels in catchments.csv).
@@ -109,6 +112,21 @@ class RunFolder:
                     self._problem(PRODUCT_FILES[key][0], exc)
             self._json[key] = value if isinstance(value, dict) else None
         return self._json[key]
+
+    # ------------------------------------------------------------------ figures
+    def png(self, name):
+        """The bytes of the PNG ``name`` (relative to the folder, e.g. a figure a step
+        wrote under ``figures/``), or None when it is missing or not a PNG (noted in
+        :attr:`problems` when it cannot be read)."""
+        p = self.folder / name
+        if not p.is_file():
+            return None
+        try:
+            data = p.read_bytes()
+        except OSError as exc:
+            self._problem(name, exc)
+            return None
+        return data if data.startswith(PNG_SIGNATURE) else None
 
     # ------------------------------------------------------------------ tables
     def table(self, key, outlet_ids=None, usecols=None):

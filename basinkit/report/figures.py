@@ -42,7 +42,10 @@ def png_uri(fig, dpi=DPI, colours=256):
     the relief's). The PNG holds no date, so the same figure gives the same bytes."""
     from ..plot.png import figure_png
 
-    data = figure_png(fig, dpi=dpi, colours=colours)
+    return _png_uri(figure_png(fig, dpi=dpi, colours=colours))
+
+
+def _png_uri(data: bytes) -> str:
     return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
 
 
@@ -54,7 +57,6 @@ STEP_FIGURES = {
     "hypsometry": ("hypsometry", ("hypsometry", "morphometry")),
     "design_hydrograph": ("design_hydrograph", ("design_flows", "hydrographs")),
 }
-_PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
 
 def step_figure_uri(d, oid, which):
@@ -65,16 +67,8 @@ def step_figure_uri(d, oid, which):
     fid = d.file_id.get(oid)
     if fid is None or not all(d.run.has(k) for k in needs):
         return None
-    path = d.run.first_existing([f"figures/{fid}_{name}.png"])
-    if path is None:
-        return None
-    try:
-        data = path.read_bytes()
-    except OSError:
-        return None
-    if not data.startswith(_PNG_SIGNATURE):
-        return None
-    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+    data = d.run.png(f"figures/{fid}_{name}.png")
+    return None if data is None else _png_uri(data)
 
 
 class _PathView:
