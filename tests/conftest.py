@@ -64,3 +64,18 @@ def pysheds_fdir(grid, direction):
     vf = ViewFinder(affine=grid.viewfinder.affine, shape=d.shape, nodata=np.int64(0),
                     crs=grid.viewfinder.crs)
     return Raster(np.where(d >= 0, d + 1000, 0), viewfinder=vf)
+
+
+def run_cli(argv, capsys=None):
+    """Run the real entry point (its error handling included); returns (code, out, err)."""
+    from basinkit.cli.main import main
+
+    try:
+        main([str(a) for a in argv])
+        code = 0
+    except SystemExit as exc:
+        code = exc.code or 0
+    if capsys is None:
+        return code, "", ""
+    cap = capsys.readouterr()
+    return code, cap.out, cap.err

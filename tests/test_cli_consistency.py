@@ -20,7 +20,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from basinkit.cli.main import SUBCOMMANDS, cli, main
+from basinkit.cli.main import SUBCOMMANDS, cli
+
+from conftest import run_cli
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "demo_rasters"
@@ -33,17 +35,7 @@ MODES = {
 }
 
 
-def run(argv, capsys=None):
-    """Run the real entry point (its error handling included); returns (code, out, err)."""
-    try:
-        main([str(a) for a in argv])
-        code = 0
-    except SystemExit as exc:
-        code = exc.code or 0
-    if capsys is None:
-        return code, "", ""
-    cap = capsys.readouterr()
-    return code, cap.out, cap.err
+run = run_cli  # the real entry point, returning (code, out, err)
 
 
 @pytest.fixture(scope="module")

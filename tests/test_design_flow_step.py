@@ -21,25 +21,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from basinkit.cli.main import main
-
-from conftest import fractal_dem
+from conftest import fractal_dem, run_cli
 
 CELL = 20.0
 X0, Y1 = 500000.0, 4001600.0
 IN = 25.4
 
 
-def run(argv, capsys=None):
-    try:
-        main([str(a) for a in argv])
-        code = 0
-    except SystemExit as exc:
-        code = exc.code or 0
-    if capsys is None:
-        return code, "", ""
-    cap = capsys.readouterr()
-    return code, cap.out, cap.err
+run = run_cli  # the real entry point, returning (code, out, err)
 
 
 @pytest.fixture(scope="module")
