@@ -187,7 +187,8 @@ class OutputFolder:
         return p
 
     def record(self, name) -> Path:
-        """Record ``name`` (relative to this view) as written by this run."""
+        """Record ``name`` (relative to this view) as written by this run (its hash, if
+        taken before, is dropped: the file is new)."""
         self._files[self.name_of(name)] = None
         return self.folder / name
 
@@ -201,7 +202,15 @@ class OutputFolder:
         """``{name: SHA-256}`` of every file written (sorted by name)."""
         from ..io.hashing import file_sha256
 
-        return {k: file_sha256(p) for k, p in sorted(self.files.items()) if p.is_file()}
+        # each file is hashed once: provenance.json and the manifest both ask, and the
+        # runner asks again after the report (only files written since are hashed then)
+        out = {}
+        for k, p in sorted(self.files.items()):
+            if self._files[k] is None and p.is_file():
+                self._files[k] = file_sha256(p)
+            if self._files[k] is not None:
+                out[k] = self._files[k]
+        return out
 
     # ------------------------------------------------------------------ writers
     @contextlib.contextmanager
