@@ -15,7 +15,7 @@ import numpy as np
 from ..errors import OutputExistsError
 
 __all__ = ["atomic_path", "write_geotiff", "raster_codec", "codec_available", "write_json",
-           "write_csv", "provenance", "prepare_output_dir", "check_output"]
+           "write_csv", "csv_rows", "CsvStream", "provenance", "prepare_output_dir", "check_output"]
 
 
 def check_output(path, overwrite: bool):
@@ -227,27 +227,83 @@ def _csv_text(frame):
     """The CSV text of ``frame`` as chunks of lines, formatted column by column (the tables
     of a 1 000-outlet job hold millions of values; pandas' per-value writer took most of
     their writing time), or None when a column's kind is not one this handles."""
-    cols = []
-    for c in frame.columns:
-        if not isinstance(c, str):
-            return None
-        text = _column_text(frame[c].to_numpy())
-        if text is None:
-            return None
-        cols.append(text)
-    header = ",".join(_quote(c) for c in frame.columns) + "\n"
-    if not cols:
+    if not all(isinstance(c, str) for c in frame.columns) or not len(frame.columns):
         return None
+    body = csv_rows(frame, list(frame.columns))
+    if body is None:
+        return None
+    return [csv_header(frame.columns), body]
+
+
+def csv_header(columns) -> str:
+    """The header line of a CSV table with these columns."""
+    return ",".join(_quote(str(c)) for c in columns) + "\n"
+
+
+def csv_rows(frame, columns) -> str | None:
+    """The rows of ``frame`` as CSV text in the order of ``columns`` (a column the frame
+    lacks is written empty), formatted as :func:`write_csv` does; None when a column's
+    kind is not one this handles. Per-outlet work formats its rows with this in the worker
+    processes, and the table is streamed (:class:`CsvStream`)."""
+    n = len(frame)
+    if not n:
+        return ""
+    cols = []
+    for c in columns:
+        if c in frame.columns:
+            text = _column_text(frame[c].to_numpy())
+            if text is None:
+                return None
+        else:
+            text = [""] * n
+        cols.append(text)
     if len(cols) == 1:  # the csv module writes a lone empty field as "", not an empty line
         cols[0] = [x if x else '""' for x in cols[0]]
-    rows = map(",".join, zip(*cols))
-    chunks = [header]
-    while True:
-        block = list(itertools.islice(rows, 65536))
-        if not block:
-            break
-        chunks.append("\n".join(block) + "\n")
-    return chunks
+    return "\n".join(map(",".join, zip(*cols))) + "\n"
+
+
+class CsvStream:
+    """A CSV table written piece by piece to a temporary file beside ``path`` and renamed
+    into place by :meth:`close` (removed by :meth:`discard`): a table of millions of rows
+    never has to be held whole."""
+
+    def __init__(self, path, columns):
+        self.path = Path(path)
+        self.columns = list(columns)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{self.path.name}.",
+                                   suffix=".part" + self.path.suffix, dir=self.path.parent)
+        self._tmp = Path(tmp)
+        self._fh = os.fdopen(fd, "w", encoding="utf-8", newline="")
+        self._fh.write(csv_header(self.columns))
+        self.rows = 0
+
+    def write_text(self, text: str) -> None:
+        """Append rows already formatted by :func:`csv_rows` for these columns."""
+        self._fh.write(text)
+
+    def write_frame(self, frame) -> None:
+        """Append a DataFrame's rows (columns as the stream's)."""
+        text = csv_rows(frame, self.columns)
+        if text is None:
+            import io
+
+            buf = io.StringIO()
+            _floats_as_text(frame.reindex(columns=self.columns)).to_csv(
+                buf, index=False, header=False, lineterminator="\n")
+            text = buf.getvalue()
+        self._fh.write(text)
+
+    def close(self) -> Path:
+        self._fh.close()
+        os.replace(self._tmp, self.path)
+        return self.path
+
+    def discard(self) -> None:
+        with contextlib.suppress(OSError):
+            self._fh.close()
+        with contextlib.suppress(OSError):
+            os.unlink(self._tmp)
 
 
 def _floats_as_text(frame):
