@@ -211,16 +211,35 @@ def _column_text(values):
     if kind == "b":
         return ["True" if x else "False" for x in values.tolist()]
     if kind == "O":
-        out = []
-        for x in values.tolist():
-            if x is None or (isinstance(x, float) and x != x):
-                out.append("")
-            elif isinstance(x, (str, int, bool, np.integer, np.bool_)):
-                out.append(_quote(str(x)))
-            else:
-                return None
-        return out
+        return _object_text(values)
     return None
+
+
+def _object_text(values):
+    """Fields of an object column of text, integers and booleans (missing values empty),
+    or None when it holds anything else (numbers with decimals, dates, ...)."""
+    import numpy as np
+    import pandas as pd
+
+    vals = values.tolist()
+    missing = pd.isna(values)
+    floats = False
+    for tp in set(map(type, vals)):
+        if issubclass(tp, (float, np.floating)):
+            floats = True  # allowed only as missing values (NaN)
+        elif not (issubclass(tp, (str, int, np.integer, np.bool_)) or tp is type(None)
+                  or tp is type(pd.NA)):
+            return None
+    if floats and any(isinstance(x, (float, np.floating)) and not m
+                      for x, m in zip(vals, missing.tolist())):
+        return None
+    text = list(map(str, vals))
+    for i in np.flatnonzero(missing).tolist():
+        text[i] = ""
+    joined = "".join(text)
+    if "," in joined or '"' in joined or "\n" in joined or "\r" in joined:
+        text = [_quote(x) for x in text]
+    return text
 
 
 def _csv_text(frame):
