@@ -15,21 +15,25 @@ reads and writes only through the store):
    one), and the links of each piece to nodes in neighbouring tiles. Layer ``flat_labels``
    (int32, written only for tiles that hold flats) and meta ``flats_TI_TJ``.
 3. :func:`merge_flats` (on the client) -- a union-find over the links joins the pieces of
-   flats that cross tile borders into groups (meta ``flat_groups_TI_TJ``: the group of
-   each piece, 0 for a piece wholly inside its tile; meta ``flat_crossing``: each group's
-   bounding box).
-4. :func:`resolve_crossing_flat` -- one crossing flat resolved in one go on a window that
-   covers its bounding box and a 1-cell ring, read from the store (meta ``flat_fix_G``:
-   the receivers of its cells).
+   flats that cross tile borders into whole flats, and puts those into batches: the flats
+   whose bounding box fits in the 2 × 2 tiles starting at the tile of its first cell are
+   one batch per such tile, a larger flat is a batch of its own (meta ``flat_groups_TI_TJ``:
+   the batch of each piece, 0 for a piece wholly inside its tile; meta ``flat_crossing``:
+   each batch's bounding box).
+4. :func:`resolve_crossing_flats` -- the flats of one batch resolved in one go on a window
+   that covers their bounding box and a 1-cell ring, read from the store (meta
+   ``flat_fix_B``: the receivers of their cells).
 5. :func:`finish_one_tile` -- the flats wholly inside the tile resolved on the tile with
    its ring, the receivers of crossing flats put in; layers ``receivers`` and
    ``directions``.
 
 A flat is resolved from its own cells and their neighbours only (the gradients away from
 higher and toward lower terrain run inside the flat), so resolving each flat on a window
-that holds it and its ring gives the in-memory result cell for cell. Memory bound: a tile
-with its ring, and for each flat that crosses a tile border the window of its bounding box
-(plus one cell around); a single flat's bounding box must fit in memory.
+that holds it and its ring gives the in-memory result cell for cell (distinct flats share
+neither cells nor low edges, so several flats may share a window). Memory bound: a tile
+with its ring, and for the flats that cross tile borders a window of at most 2 × 2 tiles
+plus a ring, or the bounding box (plus a ring) of a larger flat: a single flat's bounding
+box must fit in memory (about 40 bytes per cell of it).
 
 Layers written (the contract with the flow accumulation by tiles):
 
@@ -53,7 +57,7 @@ from .layout import TileLayout
 from .window import read_window, ring_box, ring_window
 
 __all__ = ["directions_by_tiles", "d8_one_tile", "flat_pieces_one_tile", "merge_flats",
-           "resolve_crossing_flat", "finish_one_tile", "receivers_to_azimuth_tile"]
+           "resolve_crossing_flats", "finish_one_tile", "receivers_to_azimuth_tile"]
 
 # azimuth code of a step (dr, dc), indexed by (dr + 1) * 3 + dc + 1
 _AZIMUTH = np.array([315, 0, 45, 270, -1, 90, 225, 180, 135], dtype=np.int16)
@@ -152,26 +156,43 @@ def merge_flats(layout: TileLayout, store) -> int:
              min(g["box"][2], b[2]), max(g["box"][3], b[3])])
         g["has_low"] = g["has_low"] or bool(s["has_low"][p])
         g["tiles"].append(t)
+    # batches resolved in one window each: the flats whose box fits in the 2 × 2 tiles
+    # from the tile of its first cell go together; a larger flat goes alone
+    batch_of_group = {}
+    batches = []
+    for g in groups:
+        b = g["box"]
+        ti, tj = layout.tile_of(b[0], b[2])
+        fits = b[1] < (ti + 2) * layout.tile_rows and b[3] < (tj + 2) * layout.tile_cols
+        key = (ti, tj) if fits else ("alone", g["group"])
+        if key not in batch_of_group:
+            batch_of_group[key] = len(batches) + 1
+            batches.append({"batch": len(batches) + 1, "box": b.copy(), "flats": 0})
+        batch = batches[batch_of_group[key] - 1]
+        batch["box"] = np.array([min(batch["box"][0], b[0]), max(batch["box"][1], b[1]),
+                                 min(batch["box"][2], b[2]), max(batch["box"][3], b[3])])
+        batch["flats"] += 1
+        g["batch"] = batch["batch"]
     for t, s in summaries.items():
         n = s["pieces"]
-        gid = np.zeros(n + 1, dtype=np.int64)
+        bid = np.zeros(n + 1, dtype=np.int64)
         for p in range(1, n + 1):
             x = node_of.get((t, p))
             if x is not None:
-                gid[p] = group_of_root[_find(parent, x)]
-        store.write_meta(f"flat_groups_{t[0]}_{t[1]}", gid)
-    store.write_meta("flat_crossing", groups)
+                bid[p] = groups[group_of_root[_find(parent, x)] - 1]["batch"]
+        store.write_meta(f"flat_groups_{t[0]}_{t[1]}", bid)
+    store.write_meta("flat_crossing", batches)
     return len(groups)
 
 
-def _group_window(layout, store, r0, r1, c0, c1):
-    """The flat group of each cell of a window (0: none or a piece inside its tile)."""
+def _batch_window(layout, store, r0, r1, c0, c1):
+    """The batch of crossing flats of each cell of a window (0: none)."""
     out = np.zeros((r1 - r0, c1 - c0), dtype=np.int64)
     for ti in range(r0 // layout.tile_rows, (r1 - 1) // layout.tile_rows + 1):
         for tj in range(c0 // layout.tile_cols, (c1 - 1) // layout.tile_cols + 1):
-            if not store.read_meta(f"flats_{ti}_{tj}")["pieces"]:
-                continue
             gid = store.read_meta(f"flat_groups_{ti}_{tj}")
+            if gid.size == 1:  # no flats in the tile
+                continue
             tr0, tr1, tc0, tc1 = layout.window(ti, tj)
             rs, re = max(r0, tr0), min(r1, tr1)
             cs, ce = max(c0, tc0), min(c1, tc1)
@@ -192,17 +213,17 @@ def _resolve_marked(z, valid, flat, dist_rows):
     return rec.reshape(z.shape), int(unresolved)
 
 
-def resolve_crossing_flat(layout: TileLayout, store, group: dict, dist: np.ndarray,
-                          surface: str = "filled") -> int:
-    """Step 4 for one flat that crosses tile borders (an entry of meta ``flat_crossing``).
-    Returns the number of its cells left without a way out."""
-    g = group["group"]
-    r0 = max(int(group["box"][0]) - 1, 0)
-    r1 = min(int(group["box"][1]) + 2, layout.nrows)
-    c0 = max(int(group["box"][2]) - 1, 0)
-    c1 = min(int(group["box"][3]) + 2, layout.ncols)
+def resolve_crossing_flats(layout: TileLayout, store, batch: dict, dist: np.ndarray,
+                           surface: str = "filled") -> int:
+    """Step 4 for one batch of flats that cross tile borders (an entry of meta
+    ``flat_crossing``). Returns the number of their cells left without a way out."""
+    g = batch["batch"]
+    r0 = max(int(batch["box"][0]) - 1, 0)
+    r1 = min(int(batch["box"][1]) + 2, layout.nrows)
+    c0 = max(int(batch["box"][2]) - 1, 0)
+    c1 = min(int(batch["box"][3]) + 2, layout.ncols)
     raw = read_window(layout, store, "d8_raw", r0, r1, c0, c1)
-    flat = (raw == NO_FLOW) & (_group_window(layout, store, r0, r1, c0, c1) == g)
+    flat = (raw == NO_FLOW) & (_batch_window(layout, store, r0, r1, c0, c1) == g)
     del raw
     z = read_window(layout, store, surface, r0, r1, c0, c1, np.float32)
     valid = read_window(layout, store, "valid", r0, r1, c0, c1, np.bool_)
@@ -232,7 +253,7 @@ def finish_one_tile(layout: TileLayout, store, ti: int, tj: int, dist: np.ndarra
                     surface: str = "filled") -> int:
     """Step 5 for one tile: layers ``receivers`` and ``directions``. Returns the number of
     cells of flats inside the tile left without a way out (-1), as ``route()`` counts them
-    (those of crossing flats are counted by :func:`resolve_crossing_flat`)."""
+    (those of crossing flats are counted by :func:`resolve_crossing_flats`)."""
     rec = np.array(store.read("d8_raw", ti, tj), dtype=np.int64)
     r0, r1, c0, c1 = layout.window(ti, tj)
     unresolved = 0
@@ -259,7 +280,7 @@ def finish_one_tile(layout: TileLayout, store, ti: int, tj: int, dist: np.ndarra
             here = (r >= r0) & (r < r1) & (c >= c0) & (c < c1)
             rec[r[here] - r0, c[here] - c0] = fix["receivers"][here]
         if (rec == NO_FLOW).any():
-            raise RuntimeError(f"tile ({ti}, {tj}): flat cells left without a group")
+            raise RuntimeError(f"tile ({ti}, {tj}): flat cells left without a receiver")
     store.write("receivers", ti, tj, rec)
     store.write("directions", ti, tj, receivers_to_azimuth_tile(rec, layout, ti, tj))
     return unresolved
@@ -268,8 +289,9 @@ def finish_one_tile(layout: TileLayout, store, ti: int, tj: int, dist: np.ndarra
 def directions_by_tiles(layout: TileLayout, store, dist: np.ndarray,
                         surface: str = "filled") -> dict:
     """D8 receivers and directions of the ``surface`` layer (by default ``filled``; the
-    ``elevation`` layer routes the surface as it is), tile by tile (steps 1-5 in a loop). Returns a summary: tiles, flat cells, flats crossing tile borders, and the cells
-    left without an outlet (as ``route()``'s ``cells_without_outlet``)."""
+    ``elevation`` layer routes the surface as it is), tile by tile (steps 1-5 in a loop).
+    Returns a summary: tiles, flat cells, flats crossing tile borders, and the cells left
+    without an outlet (as ``route()``'s ``cells_without_outlet``)."""
     dist = np.asarray(dist, dtype=np.float64)
     if dist.shape != (layout.nrows, 8):
         raise ValueError(f"dist must be the ({layout.nrows}, 8) table of neighbour distances, "
@@ -280,8 +302,8 @@ def directions_by_tiles(layout: TileLayout, store, dist: np.ndarray,
         flat_pieces_one_tile(layout, store, ti, tj, surface)
     ncross = merge_flats(layout, store)
     unresolved = 0
-    for group in store.read_meta("flat_crossing"):
-        unresolved += resolve_crossing_flat(layout, store, group, dist, surface)
+    for batch in store.read_meta("flat_crossing"):
+        unresolved += resolve_crossing_flats(layout, store, batch, dist, surface)
     unresolved += sum(finish_one_tile(layout, store, ti, tj, dist, surface)
                       for ti, tj in tiles)
     return {"tiles": len(tiles), "flat_cells": nflat, "crossing_flats": ncross,

@@ -33,7 +33,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..conditioning._fill import seed_mask
-from ..conditioning._tiled_fill import FIRST_EDGE_TABLE, _OUTSIDE, flood_graph, flood_tile, raise_tile
+from ..conditioning._tiled_fill import (FIRST_EDGE_TABLE, _OUTSIDE, flood_graph, flood_tile,
+                                        raise_tile)
 from ._kernels import border_links
 from .layout import TileLayout
 from .window import has_layer, ring_box, ring_window

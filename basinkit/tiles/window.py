@@ -8,6 +8,7 @@ rows and columns, not whole neighbour tiles.
 
 from __future__ import annotations
 
+import functools
 import inspect
 
 import numpy as np
@@ -17,12 +18,16 @@ from .layout import TileLayout
 __all__ = ["read_window", "ring_window", "has_layer"]
 
 
-def _reader(store):
+@functools.lru_cache(maxsize=None)
+def _takes_mmap(kind) -> bool:
     try:
-        takes_mmap = "mmap" in inspect.signature(store.read).parameters
-    except (TypeError, ValueError):
-        takes_mmap = False
-    if takes_mmap:
+        return "mmap" in inspect.signature(kind.read).parameters
+    except (TypeError, ValueError, AttributeError):
+        return False
+
+
+def _reader(store):
+    if _takes_mmap(type(store)):
         return lambda layer, ti, tj: store.read(layer, ti, tj, mmap=True)
     return store.read
 
