@@ -70,8 +70,9 @@ def flat_components(z, valid, flat, a0, a1, b0, b1):
     tw = b1 - b0
     lab = np.zeros((th, tw), dtype=np.int32)
     queue = np.empty(th * tw, dtype=np.int64)
-    has_low = np.zeros(th * tw + 1, dtype=np.bool_)
-    box = np.empty((th * tw + 1, 4), dtype=np.int64)
+    pcap = 64  # pieces' tables, grown as needed
+    has_low = np.zeros(pcap, dtype=np.bool_)
+    box = np.empty((pcap, 4), dtype=np.int64)
     lcap = 16
     links = np.empty((lcap, 5), dtype=np.int64)
     nlink = 0
@@ -93,6 +94,14 @@ def flat_components(z, valid, flat, a0, a1, b0, b1):
                 if not low:
                     continue
             npiece += 1
+            if npiece == pcap:
+                grown_low = np.zeros(2 * pcap, dtype=np.bool_)
+                grown_low[:pcap] = has_low
+                has_low = grown_low
+                grown_box = np.empty((2 * pcap, 4), dtype=np.int64)
+                grown_box[:pcap] = box
+                box = grown_box
+                pcap *= 2
             lab[sr - a0, sc - b0] = npiece
             box[npiece, 0] = sr
             box[npiece, 1] = sr
