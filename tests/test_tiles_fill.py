@@ -303,3 +303,17 @@ def test_grid_above_one_threaded_fill_tile():
     z[rng.random(z.shape) < 0.001] = np.nan
     summary = assert_same_as_route(terrain_from_array(z, cellsize=10.0), 128, 200)
     assert summary["directions"]["crossing_flats"] > 100
+
+
+def test_tile_folder_reused_without_sea_level_ignores_old_base_level(tmp_path):
+    """A working folder read again without ``sea_level`` keeps the old ``base_level`` tiles
+    on disk, but they are no longer used (meta ``base_level`` says so)."""
+    z = _dem(12, 10)
+    _write_tif(tmp_path / "dem.tif", z, Affine(5.0, 0, 0.0, 0, -5.0, 100.0))
+    dem_into_tiles(tmp_path / "dem.tif", tile=4, folder=tmp_path / "w", sea_level=45.0)
+    store = dem_into_tiles(tmp_path / "dem.tif", tile=4, folder=tmp_path / "w")
+    route_by_tiles(store.layout, store)
+    fm = route(read_dem(tmp_path / "dem.tif"))
+    assert np.array_equal(joined(store, "directions"), fm.direction_d8())
+    with pytest.raises(InputError, match="another layout"):
+        dem_into_tiles(tmp_path / "dem.tif", tile=5, folder=tmp_path / "w")

@@ -6,7 +6,8 @@ overlap, the later file in name order wins where it has data, and cells no file 
 nodata). Each tile of the layout is read as one window and written as the layers
 ``elevation`` (float32, NaN on nodata), ``valid`` (bool) and, with ``sea_level``,
 ``base_level`` (bool); the georeferencing goes to the store's metadata (``transform``: the six
-numbers of the north-up affine transform; ``crs``: WKT; ``source``: what was read). The
+numbers of the north-up affine transform; ``crs``: WKT; ``source``: what was read;
+``base_level``: whether that layer is to be used). The
 cells are those :func:`basinkit.io.dem.read_dem` would give: nodata from the file's mask and
 NaN, rows flipped to run north to south, the same elevation screening (applied window by
 window, so a refusal counts the cells of the window where it stopped).
@@ -191,7 +192,14 @@ def dem_into_tiles(path, tile: int = 1024, folder=None, band: int | None = None,
         if int(tile) < 1:
             raise InputError(f"the tile side must be at least 1 cell, got {tile}")
         layout = TileLayout.square(shape[0], shape[1], int(tile))
-        store = TileFolder(folder, layout) if folder is not None else MemoryTiles(layout)
+        if folder is None:
+            store = MemoryTiles(layout)
+        else:
+            try:
+                store = TileFolder(folder, layout)
+            except ValueError as exc:  # a folder holding tiles of another layout
+                raise InputError(str(exc)) from None
+        store.write_meta("base_level", sea_level is not None)
         any_valid = False
         n_bad = 0
         for ti, tj in layout.tiles():

@@ -19,7 +19,8 @@ The result equals :func:`basinkit.conditioning.fill_depressions` (``epsilon=0``,
 ``route(conditioning="fill")`` uses) cell for cell.
 
 Layers read: ``elevation`` (float32, NaN on nodata), ``valid`` (bool), and ``base_level``
-(bool, optional: cells that are exits besides the grid edge and nodata).
+(bool, optional: cells that are exits besides the grid edge and nodata; used when the meta
+``base_level`` is True, or, without that meta, when the layer is there).
 Layers written: ``fill_local`` (float32) and ``fill_labels`` (uint16), working layers, and
 ``filled`` (float32, NaN on nodata).
 
@@ -59,7 +60,8 @@ def exit_window(layout: TileLayout, store, ti: int, tj: int, layer: str = "eleva
     wbox, tbox = ring_box(layout, ti, tj)
     z = np.ascontiguousarray(ring_window(layout, store, layer, ti, tj, np.float32))
     valid = np.ascontiguousarray(ring_window(layout, store, "valid", ti, tj, np.bool_))
-    if has_layer(store, "base_level"):
+    if (store.read_meta("base_level") if store.has_meta("base_level")
+            else has_layer(store, "base_level")):
         bl = np.ascontiguousarray(ring_window(layout, store, "base_level", ti, tj, np.bool_))
         bl &= valid
     else:

@@ -33,6 +33,7 @@ def write_terrain(layout: TileLayout, store, terrain: Terrain) -> None:
         r0, r1, c0, c1 = layout.window(ti, tj)
         for name, grid in layers:
             store.write(name, ti, tj, np.ascontiguousarray(grid[r0:r1, c0:c1]))
+    store.write_meta("base_level", terrain.base_level is not None)
     store.write_meta("transform", tuple(float(v) for v in tuple(terrain.transform)[:6]))
     store.write_meta("crs", terrain.crs.to_wkt())
 
