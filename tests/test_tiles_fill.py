@@ -317,3 +317,30 @@ def test_tile_folder_reused_without_sea_level_ignores_old_base_level(tmp_path):
     assert np.array_equal(joined(store, "directions"), fm.direction_d8())
     with pytest.raises(InputError, match="another layout"):
         dem_into_tiles(tmp_path / "dem.tif", tile=5, folder=tmp_path / "w")
+
+
+def test_resume_goes_on_from_a_killed_run(tmp_path, monkeypatch):
+    """A run killed after the fill and half of the D8 tiles: resuming does not flood any
+    tile again and gives route()'s directions."""
+    from basinkit.tiles import directions as dirs
+    from basinkit.tiles import fill as tfill
+
+    z, base = crafted_grid()
+    terrain = terrain_from_array(z, cellsize=10.0, base_level=base)
+    lay = TileLayout(23, 19, 5, 4)
+    store = TileFolder(tmp_path / "w", lay)
+    write_terrain(lay, store, terrain)
+    tfill.fill_by_tiles(lay, store)
+    dist = terrain.geometry.neighbour_distances()
+    for ti, tj in lay.tiles()[:7]:
+        dirs.d8_one_tile(lay, store, ti, tj, dist)
+
+    def must_not_run(*args):
+        raise AssertionError("a finished tile was flooded again")
+
+    monkeypatch.setattr(tfill, "flood_one_tile", must_not_run)
+    summary = route_by_tiles(lay, TileFolder.open(tmp_path / "w"), resume=True)
+    fm = route(terrain)
+    assert np.array_equal(joined(store, "directions"), fm.direction_d8())
+    assert summary["directions"]["flat_cells"] == np.count_nonzero(
+        joined(store, "d8_raw") == -3)

@@ -287,24 +287,45 @@ def finish_one_tile(layout: TileLayout, store, ti: int, tj: int, dist: np.ndarra
 
 
 def directions_by_tiles(layout: TileLayout, store, dist: np.ndarray,
-                        surface: str = "filled") -> dict:
+                        surface: str = "filled", resume: bool = False) -> dict:
     """D8 receivers and directions of the ``surface`` layer (by default ``filled``; the
     ``elevation`` layer routes the surface as it is), tile by tile (steps 1-5 in a loop).
     Returns a summary: tiles, flat cells, flats crossing tile borders, and the cells left
-    without an outlet (as ``route()``'s ``cells_without_outlet``)."""
+    without an outlet (as ``route()``'s ``cells_without_outlet``).
+
+    With ``resume=True`` the per-tile and per-batch steps already done in the store (layer
+    ``d8_raw``, meta ``flats_TI_TJ``, ``flat_fix_B``, ``directions_done_TI_TJ``) are not
+    done again; the inputs must be those of the first run. The flats are always merged
+    again (on the client)."""
     dist = np.asarray(dist, dtype=np.float64)
     if dist.shape != (layout.nrows, 8):
         raise ValueError(f"dist must be the ({layout.nrows}, 8) table of neighbour distances, "
                          f"got shape {dist.shape}")
     tiles = layout.tiles()
-    nflat = sum(d8_one_tile(layout, store, ti, tj, dist, surface) for ti, tj in tiles)
+    nflat = 0
     for ti, tj in tiles:
-        flat_pieces_one_tile(layout, store, ti, tj, surface)
+        if resume and store.has("d8_raw", ti, tj):
+            nflat += int(np.count_nonzero(store.read("d8_raw", ti, tj) == NO_FLOW))
+        else:
+            nflat += d8_one_tile(layout, store, ti, tj, dist, surface)
+    for ti, tj in tiles:
+        if not (resume and store.has_meta(f"flats_{ti}_{tj}")):
+            flat_pieces_one_tile(layout, store, ti, tj, surface)
     ncross = merge_flats(layout, store)
     unresolved = 0
     for batch in store.read_meta("flat_crossing"):
-        unresolved += resolve_crossing_flats(layout, store, batch, dist, surface)
-    unresolved += sum(finish_one_tile(layout, store, ti, tj, dist, surface)
-                      for ti, tj in tiles)
+        name = f"flat_fix_{batch['batch']}"
+        if resume and store.has_meta(name):
+            unresolved += store.read_meta(name)["unresolved"]
+        else:
+            unresolved += resolve_crossing_flats(layout, store, batch, dist, surface)
+    for ti, tj in tiles:
+        name = f"directions_done_{ti}_{tj}"
+        if resume and store.has_meta(name):
+            unresolved += store.read_meta(name)
+        else:
+            n = finish_one_tile(layout, store, ti, tj, dist, surface)
+            store.write_meta(name, n)
+            unresolved += n
     return {"tiles": len(tiles), "flat_cells": nflat, "crossing_flats": ncross,
             "cells_without_outlet": unresolved}

@@ -146,16 +146,25 @@ def raise_one_tile(layout: TileLayout, store, ti: int, tj: int) -> None:
     store.write("filled", ti, tj, z)
 
 
-def fill_by_tiles(layout: TileLayout, store) -> dict:
+def fill_by_tiles(layout: TileLayout, store, resume: bool = False) -> dict:
     """Fill every depression of the ``elevation`` layer exactly, tile by tile; writes the
-    ``filled`` layer. Returns a summary (tiles, graph nodes)."""
+    ``filled`` layer. Returns a summary (tiles, graph nodes).
+
+    With ``resume=True`` a tile whose step is already done in the store (its output written
+    last: meta ``fill_edges_TI_TJ``, ``fill_links_TI_TJ``, layer ``filled``) is not done
+    again, so a killed run on a :class:`~basinkit.io.tile_folder.TileFolder` goes on where
+    it stopped; the inputs must be those of the first run. The label graph is always
+    solved again (on the client, from the tiles' small outputs)."""
     check_layout(layout)
     tiles = layout.tiles()
     for ti, tj in tiles:
-        flood_one_tile(layout, store, ti, tj)
+        if not (resume and store.has_meta(f"fill_edges_{ti}_{tj}")):
+            flood_one_tile(layout, store, ti, tj)
     for ti, tj in tiles:
-        link_one_tile(layout, store, ti, tj)
+        if not (resume and store.has_meta(f"fill_links_{ti}_{tj}")):
+            link_one_tile(layout, store, ti, tj)
     nodes = solve_fill_levels(layout, store)
     for ti, tj in tiles:
-        raise_one_tile(layout, store, ti, tj)
+        if not (resume and store.has("filled", ti, tj)):
+            raise_one_tile(layout, store, ti, tj)
     return {"tiles": len(tiles), "graph_nodes": nodes}

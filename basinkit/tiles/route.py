@@ -49,13 +49,15 @@ def grid_distances(layout: TileLayout, store) -> np.ndarray:
     return cell_geometry(t, layout.shape, crs).neighbour_distances()
 
 
-def route_by_tiles(layout: TileLayout, store, dist: np.ndarray | None = None) -> dict:
+def route_by_tiles(layout: TileLayout, store, dist: np.ndarray | None = None,
+                   resume: bool = False) -> dict:
     """Fill every depression and compute D8 directions, tile by tile: layers ``filled``,
     ``receivers`` and ``directions`` (see :mod:`basinkit.tiles.directions`), equal cell for
     cell to ``route(terrain, conditioning="fill")``. ``dist`` defaults to
-    :func:`grid_distances`. Returns a summary of both steps."""
+    :func:`grid_distances`. ``resume``: go on from the steps a killed run finished (see
+    :func:`fill_by_tiles`). Returns a summary of both steps."""
     if dist is None:
         dist = grid_distances(layout, store)
-    fill = fill_by_tiles(layout, store)
-    d8 = directions_by_tiles(layout, store, dist)
+    fill = fill_by_tiles(layout, store, resume)
+    d8 = directions_by_tiles(layout, store, dist, resume=resume)
     return {"fill": fill, "directions": d8}
