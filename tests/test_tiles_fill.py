@@ -344,3 +344,32 @@ def test_resume_goes_on_from_a_killed_run(tmp_path, monkeypatch):
     assert np.array_equal(joined(store, "directions"), fm.direction_d8())
     assert summary["directions"]["flat_cells"] == np.count_nonzero(
         joined(store, "d8_raw") == -3)
+
+
+def test_base_level_polygons_and_mask_raster_by_windows(tmp_path):
+    """Base level from a polygon layer (rasterized window by window) and from a mask raster
+    on the DEM's grid give read_dem's mask; the directions then equal route()'s."""
+    import geopandas as gpd
+    import rasterio
+    from shapely.geometry import box
+
+    z = _dem()
+    t = Affine(5.0, 0, 1000.0, 0, -5.0, 2000.0)
+    _write_tif(tmp_path / "dem.tif", z, t)
+    lake = gpd.GeoDataFrame(geometry=[box(1012.0, 1930.0, 1061.0, 1968.0)], crs="EPSG:32633")
+    lake.to_file(tmp_path / "lake.gpkg")
+    whole = read_dem(tmp_path / "dem.tif", base_level=tmp_path / "lake.gpkg")
+    assert whole.base_level.sum() > 20
+    store = dem_into_tiles(tmp_path / "dem.tif", tile=4, base_level=tmp_path / "lake.gpkg")
+    assert np.array_equal(joined(store, "base_level"), whole.base_level)
+    route_by_tiles(store.layout, store)
+    assert np.array_equal(joined(store, "directions"), route(whole).direction_d8())
+    with rasterio.open(tmp_path / "mask.tif", "w", driver="GTiff", height=z.shape[0],
+                       width=z.shape[1], count=1, dtype="uint8", crs="EPSG:32633",
+                       transform=t) as ds:
+        ds.write(whole.base_level.astype(np.uint8), 1)
+    store = dem_into_tiles(tmp_path / "dem.tif", tile=5, base_level=tmp_path / "mask.tif")
+    assert np.array_equal(joined(store, "base_level"), whole.base_level)
+    assert len(store.read_meta("source")["sha256"][0]) == 64
+    with pytest.raises(InputError, match="does not exist"):
+        dem_into_tiles(tmp_path / "dem.tif", base_level=tmp_path / "nowhere.gpkg")

@@ -4,8 +4,8 @@ The source is a raster file rasterio opens (a GeoTIFF, a VRT mosaic, ...) or a f
 GeoTIFF tiles on one grid (same CRS and cell size, aligned to whole cells; where files
 overlap, the later file in name order wins where it has data, and cells no file covers are
 nodata). Each tile of the layout is read as one window and written as the layers
-``elevation`` (float32, NaN on nodata), ``valid`` (bool) and, with ``sea_level``,
-``base_level`` (bool); the georeferencing goes to the store's metadata (``transform``: the six
+``elevation`` (float32, NaN on nodata), ``valid`` (bool) and, with ``sea_level`` or
+``base_level``, ``base_level`` (bool); the georeferencing goes to the store's metadata (``transform``: the six
 numbers of the north-up affine transform; ``crs``: WKT; ``source``: what was read;
 ``base_level``: whether that layer is to be used). The
 cells are those :func:`basinkit.io.dem.read_dem` would give: nodata from the file's mask and
@@ -26,6 +26,7 @@ from ..terrain.checks import (PLAUSIBLE_ELEVATION_M, check_elevation_range,
                               check_geographic_extent, screen_elevations)
 from ..tiles.layout import MemoryTiles, TileLayout
 from .dem import _choose_crs
+from .hashing import file_sha256
 from .tile_folder import TileFolder
 
 __all__ = ["dem_into_tiles"]
@@ -161,8 +162,61 @@ def _read_window(parts, band, r0, r1, c0, c1):
     return z, valid
 
 
+_POLYGON_SUFFIXES = (".gpkg", ".geojson", ".json", ".shp", ".fgb")
+
+
+class _BaseLevel:
+    """Base-level cells from a polygon layer or a mask raster on the DEM's grid, by window."""
+
+    def __init__(self, spec, shape, transform, crs):
+        self.shape = shape
+        self.transform = transform
+        self.ds = None
+        self.geoms = None
+        p = Path(spec)
+        if not p.exists():
+            raise InputError(f"the base-level file {str(p)!r} does not exist")
+        if p.suffix.lower() in _POLYGON_SUFFIXES:
+            import geopandas as gpd
+
+            try:
+                gdf = gpd.read_file(p)
+            except Exception as exc:  # noqa: BLE001 - any reader failure is a user input problem
+                raise InputError(f"cannot read the polygon layer {str(p)!r}: {exc}") from None
+            if gdf.crs is not None:
+                gdf = gdf.to_crs(crs.to_wkt())
+            self.geoms = [g for g in gdf.geometry if g is not None and not g.is_empty]
+            if not self.geoms:
+                raise InputError(f"the polygon layer {str(p)!r} holds no geometries")
+            return
+        ds = _open(p)
+        if (ds.height, ds.width) != tuple(shape) or ds.transform != transform:
+            ds.close()
+            raise InputError(f"the base-level raster {str(p)!r} is not on the DEM's grid "
+                             f"({ds.height}x{ds.width} vs {shape[0]}x{shape[1]}); resample it")
+        self.ds = ds
+
+    def window(self, r0, r1, c0, c1) -> np.ndarray:
+        from affine import Affine
+
+        if self.geoms is not None:
+            from rasterio.features import rasterize
+
+            return rasterize(((g, 1) for g in self.geoms), out_shape=(r1 - r0, c1 - c0),
+                             transform=self.transform @ Affine.translation(c0, r0),
+                             fill=0, dtype="uint8").astype(bool)
+        from rasterio.windows import Window
+
+        m = self.ds.read(1, window=Window(c0, r0, c1 - c0, r1 - r0), masked=True)
+        return np.asarray(m.filled(0)) != 0
+
+    def close(self):
+        if self.ds is not None:
+            self.ds.close()
+
+
 def dem_into_tiles(path, tile: int = 1024, folder=None, band: int | None = None, crs=None,
-                   sea_level: float | None = None, *, replace_crs=None,
+                   sea_level: float | None = None, base_level=None, *, replace_crs=None,
                    elevation_range=PLAUSIBLE_ELEVATION_M,
                    implausible_elevations: str = "refuse"):
     """Read a DEM (a raster file, a VRT, or a folder of GeoTIFF tiles) window by window
@@ -178,12 +232,17 @@ def dem_into_tiles(path, tile: int = 1024, folder=None, band: int | None = None,
         tiles are kept in memory (:class:`~basinkit.tiles.MemoryTiles`).
     band, crs, replace_crs, sea_level, elevation_range, implausible_elevations
         As for :func:`basinkit.io.dem.read_dem`.
+    base_level : str or Path, optional
+        Extra exits, as for ``read_dem``: a polygon layer (cells whose centre lies inside;
+        rasterized window by window) or a mask raster on the DEM's grid (non-zero = exit;
+        read window by window; a raster must be on the mosaic's north-up grid).
 
     Returns
     -------
     The tile store (its ``layout`` attribute is the :class:`TileLayout`).
     """
     parts, transform, shape, band, files = _sources(path, band)
+    extra = None
     try:
         file_crs = parts[0].ds.crs
         pcrs, crs_record = _choose_crs(files[0], file_crs, crs, replace_crs)
@@ -199,7 +258,9 @@ def dem_into_tiles(path, tile: int = 1024, folder=None, band: int | None = None,
                 store = TileFolder(folder, layout)
             except ValueError as exc:  # a folder holding tiles of another layout
                 raise InputError(str(exc)) from None
-        store.write_meta("base_level", sea_level is not None)
+        store.write_meta("base_level", sea_level is not None or base_level is not None)
+        extra = _BaseLevel(base_level, shape, transform, pcrs) if base_level is not None \
+            else None
         any_valid = False
         n_bad = 0
         for ti, tj in layout.tiles():
@@ -212,16 +273,24 @@ def dem_into_tiles(path, tile: int = 1024, folder=None, band: int | None = None,
             any_valid = any_valid or bool(valid.any())
             store.write("elevation", ti, tj, z)
             store.write("valid", ti, tj, valid)
-            if sea_level is not None:
-                store.write("base_level", ti, tj, valid & (z <= sea_level))
+            if sea_level is not None or extra is not None:
+                bl = valid & (z <= sea_level) if sea_level is not None \
+                    else np.zeros(valid.shape, dtype=bool)
+                if extra is not None:
+                    bl |= valid & extra.window(r0, r1, c0, c1)
+                store.write("base_level", ti, tj, bl)
     finally:
         for q in parts:
             q.ds.close()
+        if extra is not None:
+            extra.close()
     if not any_valid:
         raise InputError("the DEM holds no valid cells (every cell is nodata)")
     store.write_meta("transform", tuple(float(v) for v in tuple(transform)[:6]))
     store.write_meta("crs", pcrs.to_wkt())
-    store.write_meta("source", {"path": str(Path(path).resolve()), "files": [f.name for f in files],
+    store.write_meta("source", {"path": str(Path(path).resolve()),
+                                "files": [f.name for f in files],
+                                "sha256": [file_sha256(f) for f in files],
                                 "band": band, **crs_record, "elevation_range_m": [lo, hi],
                                 "implausible_elevations": implausible_elevations,
                                 "implausible_elevation_cells": n_bad})
