@@ -33,7 +33,7 @@ that holds it and its ring gives the in-memory result cell for cell (distinct fl
 neither cells nor low edges, so several flats may share a window). Memory bound: a tile
 with its ring, and for the flats that cross tile borders a window of at most 2 × 2 tiles
 plus a ring, or the bounding box (plus a ring) of a larger flat: a single flat's bounding
-box must fit in memory (about 40 bytes per cell of it).
+box must fit in memory (about 25 bytes per cell of it, and up to 60 more per flat cell).
 
 Layers written (the contract with the flow accumulation by tiles):
 
@@ -54,7 +54,7 @@ from ..routing._d8 import NO_FLOW, d8_receivers, resolve_flats
 from ._kernels import flat_components
 from .fill import exit_window
 from .layout import TileLayout
-from .window import read_window, ring_box, ring_window
+from .window import read_window, reader, ring_box, ring_window
 
 __all__ = ["directions_by_tiles", "d8_one_tile", "flat_pieces_one_tile", "merge_flats",
            "resolve_crossing_flats", "finish_one_tile", "receivers_to_azimuth_tile"]
@@ -185,19 +185,23 @@ def merge_flats(layout: TileLayout, store) -> int:
     return len(groups)
 
 
-def _batch_window(layout, store, r0, r1, c0, c1):
-    """The batch of crossing flats of each cell of a window (0: none)."""
-    out = np.zeros((r1 - r0, c1 - c0), dtype=np.int64)
+def _batch_flats(layout, store, r0, r1, c0, c1, batch):
+    """Which cells of a window are flat cells of the crossing flats of ``batch`` (bool),
+    built tile part by tile part."""
+    read = reader(store)
+    out = np.zeros((r1 - r0, c1 - c0), dtype=np.bool_)
     for ti in range(r0 // layout.tile_rows, (r1 - 1) // layout.tile_rows + 1):
         for tj in range(c0 // layout.tile_cols, (c1 - 1) // layout.tile_cols + 1):
-            gid = store.read_meta(f"flat_groups_{ti}_{tj}")
-            if gid.size == 1:  # no flats in the tile
+            bid = store.read_meta(f"flat_groups_{ti}_{tj}")
+            if not (bid == batch).any():
                 continue
             tr0, tr1, tc0, tc1 = layout.window(ti, tj)
             rs, re = max(r0, tr0), min(r1, tr1)
             cs, ce = max(c0, tc0), min(c1, tc1)
-            lab = store.read("flat_labels", ti, tj)[rs - tr0:re - tr0, cs - tc0:ce - tc0]
-            out[rs - r0:re - r0, cs - c0:ce - c0] = gid[lab]
+            part = (slice(rs - tr0, re - tr0), slice(cs - tc0, ce - tc0))
+            lab = read("flat_labels", ti, tj)[part]
+            raw = read("d8_raw", ti, tj)[part]
+            out[rs - r0:re - r0, cs - c0:ce - c0] = (bid[lab] == batch) & (raw == NO_FLOW)
     return out
 
 
@@ -205,7 +209,7 @@ def _resolve_marked(z, valid, flat, dist_rows):
     """Receivers (window-local, int32) of the ``flat`` cells of a window, every other
     cell counted as draining: :func:`resolve_flats` on the window. Returns them and the
     number of flat cells left without a way out."""
-    rec = np.where(valid, np.int32(-1), np.int32(-2)).astype(np.int32).ravel()
+    rec = np.where(valid, np.int32(-1), np.int32(-2)).astype(np.int32, copy=False).ravel()
     rec[flat.ravel()] = NO_FLOW
     unresolved = resolve_flats(np.ascontiguousarray(z, dtype=np.float32),
                                np.ascontiguousarray(valid), rec,
@@ -222,9 +226,7 @@ def resolve_crossing_flats(layout: TileLayout, store, batch: dict, dist: np.ndar
     r1 = min(int(batch["box"][1]) + 2, layout.nrows)
     c0 = max(int(batch["box"][2]) - 1, 0)
     c1 = min(int(batch["box"][3]) + 2, layout.ncols)
-    raw = read_window(layout, store, "d8_raw", r0, r1, c0, c1)
-    flat = (raw == NO_FLOW) & (_batch_window(layout, store, r0, r1, c0, c1) == g)
-    del raw
+    flat = _batch_flats(layout, store, r0, r1, c0, c1, g)
     z = read_window(layout, store, surface, r0, r1, c0, c1, np.float32)
     valid = read_window(layout, store, "valid", r0, r1, c0, c1, np.bool_)
     rec, unresolved = _resolve_marked(z, valid, flat, dist[r0:r1])

@@ -15,7 +15,7 @@ import numpy as np
 
 from .layout import TileLayout
 
-__all__ = ["read_window", "ring_window", "has_layer"]
+__all__ = ["read_window", "ring_box", "ring_window", "has_layer", "reader"]
 
 
 @functools.lru_cache(maxsize=None)
@@ -26,7 +26,8 @@ def _takes_mmap(kind) -> bool:
         return False
 
 
-def _reader(store):
+def reader(store):
+    """``read(layer, ti, tj)`` of the store, through a memory map where it offers one."""
     if _takes_mmap(type(store)):
         return lambda layer, ti, tj: store.read(layer, ti, tj, mmap=True)
     return store.read
@@ -35,7 +36,7 @@ def _reader(store):
 def read_window(layout: TileLayout, store, layer: str, r0: int, r1: int, c0: int, c1: int,
                 dtype=None) -> np.ndarray:
     """Rows ``r0:r1`` and columns ``c0:c1`` of ``layer`` as one new array."""
-    read = _reader(store)
+    read = reader(store)
     out = None
     for ti in range(r0 // layout.tile_rows, (r1 - 1) // layout.tile_rows + 1):
         for tj in range(c0 // layout.tile_cols, (c1 - 1) // layout.tile_cols + 1):
