@@ -275,6 +275,54 @@ def test_resume_after_a_killed_run(basin, tmp_path):
     assert flow_accumulation(layout, again, fm.terrain.geometry.area)["computed"] == 0
 
 
+@pytest.mark.parametrize("step", ["labels", "orders"])
+def test_labels_and_orders_resume(basin, tmp_path, step):
+    """Labels and orders stopped half-way resume as well (pass-1 links kept in the store's
+    metadata, finished tiles skipped); the oracle is the in-memory path."""
+    fm = basin
+    layout = TileLayout.square(*fm.shape, 8)
+    n = len(layout.tiles())
+    store = _store(fm, layout, _CrashingFolder(tmp_path / "tiles", layout))
+    flow_accumulation(layout, store, fm.terrain.geometry.area)
+    outlets = _nested_outlets(fm, 6, 5, seed=4)
+
+    def run(s):
+        if step == "labels":
+            return catchment_labels(layout, s, outlets, scheduler="synchronous").computed
+        return channel_orders(layout, s, 600.0, scheduler="synchronous")["computed"]
+
+    _CrashingFolder.budget = 9 if step == "labels" else 2 * 9
+    try:
+        with pytest.raises(_Crash):
+            run(store)
+    finally:
+        _CrashingFolder.budget = None
+    again = TileFolder.open(tmp_path / "tiles")
+    assert run(again) == n - 9
+    if step == "labels":
+        want = _delineate(fm, outlets).labels
+        np.testing.assert_array_equal(_grid(layout, again, "catchment_labels"), want)
+    else:
+        want = extract_channels(fm, 600.0, geometry=False).strahler
+        np.testing.assert_array_equal(_grid(layout, again, "strahler_order"), want)
+
+
+def test_second_network_in_other_layers(basin):
+    """Another threshold goes to other layers of the same store; the same layers refuse
+    it. Oracle: extract_channels."""
+    fm = basin
+    layout = TileLayout.square(*fm.shape, 11)
+    store = _store(fm, layout)
+    flow_accumulation(layout, store, fm.terrain.geometry.area)
+    channel_orders(layout, store, 600.0)
+    with pytest.raises(InputError, match="other settings"):
+        channel_orders(layout, store, 5000.0)
+    channel_orders(layout, store, 5000.0, layers=("order_5000", "magnitude_5000"))
+    net = extract_channels(fm, 5000.0, geometry=False)
+    np.testing.assert_array_equal(_grid(layout, store, "order_5000"), net.strahler)
+    np.testing.assert_array_equal(_grid(layout, store, "magnitude_5000"), net.shreve)
+
+
 def test_refuses_other_settings_and_bad_input(basin):
     fm = basin
     layout = TileLayout.square(*fm.shape, 10)

@@ -27,11 +27,11 @@ def _mask(store, area_layer, ti, tj, min_area):
         return a >= min_area
 
 
-def _graph_task(spec, ti, tj, directions, area_layer, min_area):
+def _graph_task(spec, ti, tj, directions, area_layer, min_area, layers):
     """Pass 1 of a tile: its channel graph reduced to the cells other tiles can change
     (see :func:`basinkit.tiles._flow_kernels.order_graph`)."""
     store = open_store(spec)
-    name = f"channel_graph_{ti}_{tj}"
+    name = f"{layers[0]}.graph_{ti}_{tj}"
     if store.has_meta(name):
         return store.read_meta(name)
     f = TileFlow(store, directions, ti, tj)
@@ -46,17 +46,17 @@ def _graph_task(spec, ti, tj, directions, area_layer, min_area):
 
 
 def _orders_task(spec, ti, tj, node_cells, node_order, node_shreve, directions, area_layer,
-                 min_area):
+                 min_area, layers):
     """Pass 2 of a tile: orders and magnitudes, those of its graph's nodes given."""
     store = open_store(spec)
-    if all(store.has(layer, ti, tj) for layer in CHANNEL_LAYERS):
+    if all(store.has(layer, ti, tj) for layer in layers):
         return False
     f = TileFlow(store, directions, ti, tj)
     mask = _mask(store, area_layer, ti, tj, min_area)
     order, shreve = K.orders_tile(f.rl, f.stack, mask, f.to_local(node_cells),
                                   node_order, node_shreve)
-    store.write("strahler_order", ti, tj, order.reshape(f.h, f.w))
-    store.write("shreve_magnitude", ti, tj, shreve.reshape(f.h, f.w))
+    store.write(layers[0], ti, tj, order.reshape(f.h, f.w))
+    store.write(layers[1], ti, tj, shreve.reshape(f.h, f.w))
     return True
 
 
@@ -80,8 +80,8 @@ def join_graphs(graphs):
 
 
 def channel_orders(layout, store, min_area_m2, *, directions: str = "directions",
-                   area: str = "upstream_area_m2", scheduler=None,
-                   workers: int | None = None) -> dict:
+                   area: str = "upstream_area_m2", layers=CHANNEL_LAYERS,
+                   scheduler=None, workers: int | None = None) -> dict:
     """Channel cells, Strahler order and Shreve magnitude of a grid held as tiles.
 
     Parameters
@@ -94,6 +94,9 @@ def channel_orders(layout, store, min_area_m2, *, directions: str = "directions"
         A cell is a channel cell when its upstream area is at least this (m²).
     directions, area : str
         Layer names.
+    layers : (str, str)
+        Names of the layers written: Strahler order, Shreve magnitude (another pair keeps
+        a network of another threshold in the same store).
     scheduler, workers
         See :func:`basinkit.tiles.flow_accumulation`.
 
@@ -132,13 +135,17 @@ def channel_orders(layout, store, min_area_m2, *, directions: str = "directions"
                          f"{min_area_m2!r}") from None
     if not thr > 0:
         raise InputError(f"the channel threshold must be a positive area, got {min_area_m2!r}")
-    check_settings(store, "channel_orders.settings",
-                   {"directions": directions, "area": area, "min_area_m2": thr})
+    layers = tuple(str(x) for x in layers)
+    if len(layers) != 2 or layers[0] == layers[1]:
+        raise InputError(f"give two different layer names for the orders, got {layers!r}")
+    check_settings(store, f"{layers[0]}.settings",
+                   {"directions": directions, "area": area, "min_area_m2": thr,
+                    "layers": layers})
     tiles = layout.tiles()
     with Engine(scheduler, workers) as eng:
         spec = eng.spec(store)
         graphs = eng.map(_graph_task, spec, [(ti, tj, ()) for ti, tj in tiles],
-                         shared=(directions, area, thr))
+                         shared=(directions, area, thr, layers))
         if any(g["too_high"] for g in graphs):
             raise InputError("Strahler orders above 60 met: the directions are damaged")
         cells, order, shreve = join_graphs(graphs)
@@ -146,6 +153,6 @@ def channel_orders(layout, store, min_area_m2, *, directions: str = "directions"
         empty = (np.zeros(0, np.int64), np.zeros(0, np.int16), np.zeros(0, np.int64))
         done = eng.map(_orders_task, spec,
                        [(ti, tj, per_tile.get((ti, tj), empty)) for ti, tj in tiles],
-                       shared=(directions, area, thr))
+                       shared=(directions, area, thr, layers))
     return {"tiles": len(tiles), "computed": int(sum(bool(x) for x in done)),
             "nodes": int(cells.size)}
