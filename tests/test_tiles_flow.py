@@ -206,9 +206,14 @@ def test_geographic_areas_within_summation_rounding():
     a = np.sort(np.unique(fm.accumulation(unit="m2")[fm.terrain.valid]))
     k = int(np.searchsorted(a, 40 * a[0]))
     threshold = 0.5 * (a[k] + a[k + 1])
-    for tile in (3, 8):
-        _check_all(fm, TileLayout.square(*fm.shape, tile), threshold=threshold,
-                   outlets=_nested_outlets(fm, 6, 5, seed=2), exact_area=False)
+    areas = []
+    for tile, scheduler in ((3, "synchronous"), (8, None), (3, None)):
+        layout = TileLayout.square(*fm.shape, tile)
+        store = _check_all(fm, layout, threshold=threshold, scheduler=scheduler,
+                           outlets=_nested_outlets(fm, 6, 5, seed=2), exact_area=False)
+        areas.append(_grid(layout, store, "upstream_area_m2"))
+    # deterministic: the same tiles give the same bytes whatever the scheduler
+    assert areas[0].tobytes() == areas[2].tobytes()
 
 
 @settings(max_examples=40, deadline=None,
@@ -347,11 +352,27 @@ def test_refuses_other_settings_and_bad_input(basin):
         store_spec(store, distributed=True)
     with pytest.raises(InputError, match="positive area"):
         channel_orders(layout, store, 0)
+    with pytest.raises(InputError, match="no tile .* 'directions'"):
+        flow_accumulation(layout, MemoryTiles(layout), fm.terrain.geometry.area)
+    with pytest.raises(InputError, match="run flow_accumulation first"):
+        channel_orders(layout, _store(fm, layout), 600.0)
+    with pytest.raises(InputError, match="unknown scheduler"):
+        flow_accumulation(layout, store, fm.terrain.geometry.area, scheduler=3)
     bad = MemoryTiles(layout)
     for t, a in layout.split(np.full(fm.shape, 7, dtype=np.int16)).items():
         bad.write("directions", *t, a)
     with pytest.raises(InputError, match="not D8 azimuths"):
         flow_accumulation(layout, bad, fm.terrain.geometry.area)
+
+
+def test_unreachable_scheduler_is_one_line():
+    """A scheduler address where none listens: a clear error, not a traceback."""
+    dask = pytest.importorskip("dask")
+    from basinkit.tiles.engine import Engine
+
+    with dask.config.set({"distributed.comm.timeouts.connect": "1s"}):
+        with pytest.raises(InputError, match="cannot reach a dask scheduler"):
+            Engine("tcp://127.0.0.1:9")
 
 
 def test_distributed_local_cluster(basin, tmp_path):

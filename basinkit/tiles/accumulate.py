@@ -28,6 +28,9 @@ class TileFlow:
     def __init__(self, store, layer, ti, tj):
         lay = store.layout
         r0, r1, c0, c1 = lay.window(ti, tj)
+        if not store.has(layer, ti, tj):
+            raise InputError(f"the tile store has no tile ({ti}, {tj}) of the {layer!r} layer; "
+                             "compute the directions of every tile first")
         d = np.asarray(store.read(layer, ti, tj))
         if d.shape != (r1 - r0, c1 - c0):
             raise InputError(f"tile ({ti}, {tj}) of {layer!r} has shape {d.shape}, expected "

@@ -22,6 +22,9 @@ CHANNEL_LAYERS = ("strahler_order", "shreve_magnitude")
 
 
 def _mask(store, area_layer, ti, tj, min_area):
+    if not store.has(area_layer, ti, tj):
+        raise InputError(f"the tile store has no tile ({ti}, {tj}) of the {area_layer!r} "
+                         "layer; run flow_accumulation first")
     a = np.asarray(store.read(area_layer, ti, tj), dtype=np.float64).ravel()
     with np.errstate(invalid="ignore"):
         return a >= min_area
