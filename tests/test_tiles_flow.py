@@ -239,6 +239,63 @@ def test_hypothesis_random_grids(nrows, ncols, seed, tile_rows, tile_cols, level
                outlets=outlets, scheduler="synchronous")
 
 
+TABLE_COLUMNS = ["label", "area_m2", "area_km2", "area_ha", "area_acres", "area_mi2",
+                 "cell_count", "subcatchment_area_m2", "subcatchment_cell_count",
+                 "upstream_outlet_count", "upstream_outlet_ids", "downstream_outlet_id",
+                 "elevation_min_m", "elevation_max_m", "elevation_mean_m", "relief_m",
+                 "touches_edge"]
+
+
+@pytest.mark.parametrize("tile_rows,tile_cols", [(2, 3), (5, 5), (9, 16)])
+def test_catchment_table_equals_delineate(tile_rows, tile_cols):
+    """Oracle: delineate()'s table for the same outlets. Integer elevations and 100 m²
+    cells make every sum exact, so the values are equal whatever the order of the sums;
+    nodata holes inside tiles and across tile edges mark catchments touching nodata."""
+    from basinkit.tiles.tables import catchment_table
+
+    z = fractal_dem(38, 45, seed=11, holes=5, integer=True)
+    fm = route(terrain_from_array(z, cellsize=10))
+    layout = TileLayout(*fm.shape, tile_rows, tile_cols)
+    store = _store(fm, layout)
+    raw = np.where(fm.terrain.valid, fm.input_elevation, np.nan)
+    for t, a in layout.split(raw).items():
+        store.write("elevation", *t, a)
+    outlets = _nested_outlets(fm, 14, 4, seed=6)
+    res = catchment_labels(layout, store, outlets)
+    d = _delineate(fm, outlets)
+    tab = catchment_table(layout, store, res, fm.terrain.geometry.area,
+                          outlet_ids=d.table["outlet_id"], outlet_cells=outlets,
+                          elevation="elevation")
+    assert tab["touches_edge"].any() and not tab["touches_edge"].all()
+    assert (tab["upstream_outlet_count"] > 0).any()
+    np.testing.assert_array_equal(tab["cell"], d.table["cell"])
+    for col in TABLE_COLUMNS:
+        assert tab[col].tolist() == d.table[col].tolist(), col
+
+
+@pytest.mark.parametrize("tile_rows", [2, 9])
+def test_table_nodata_across_a_tile_edge(tile_rows):
+    """A catchment whose only nodata neighbour lies in the next tile touches nodata (its
+    area may be truncated): a cone draining outwards, the outlet beside a nodata cell across
+    the edge between tile columns 0 and 1. Oracle: delineate()'s table."""
+    from basinkit.tiles.tables import catchment_table
+
+    r, c = np.mgrid[0:9, 0:9]
+    z = 100.0 - np.hypot(r - 4, c - 4.2) * 10
+    z[4, 7] = np.nan
+    fm = route(terrain_from_array(z, cellsize=10))
+    outlets = np.array([4 * 9 + 6])
+    d = _delineate(fm, outlets)
+    assert bool(d.table["touches_edge"].iloc[0])
+    assert (d.labels[:, 7:] == 0).all() and (d.labels[[0, -1], :] == 0).all()
+    layout = TileLayout(9, 9, tile_rows, 7)
+    store = _store(fm, layout)
+    res = catchment_labels(layout, store, outlets)
+    tab = catchment_table(layout, store, res, fm.terrain.geometry.area)
+    assert tab["touches_edge"].tolist() == [True]
+    assert tab["cell_count"].tolist() == d.table["cell_count"].tolist()
+
+
 class _Crash(RuntimeError):
     pass
 

@@ -15,6 +15,7 @@ _LAZY = {
     "catchment_labels": ".labels",
     "TiledCatchments": ".labels",
     "channel_orders": ".channels",
+    "catchment_table": ".tables",
     "Engine": ".engine",
 }
 
