@@ -214,6 +214,22 @@ def test_geographic_areas_within_summation_rounding():
         areas.append(_grid(layout, store, "upstream_area_m2"))
     # deterministic: the same tiles give the same bytes whatever the scheduler
     assert areas[0].tobytes() == areas[2].tobytes()
+    # polygons densified to one vertex per cell as in memory: the same regions
+    import shapely
+
+    from basinkit.tiles.polygons import catchment_polygons
+
+    outlets = _nested_outlets(fm, 6, 5, seed=2)
+    res = catchment_labels(layout, store, outlets, layer="labels_again")
+    full, _ = catchment_polygons(layout, store, res, fm.terrain.transform,
+                                 crs=fm.terrain.crs)
+    r, c = np.divmod(outlets, fm.ncols)
+    xs, ys = fm.terrain.transform @ (c + 0.5, r + 0.5)
+    ref = delineate(fm, [(f"o{i}", x, y) for i, (x, y) in enumerate(zip(xs, ys))],
+                    snap_radius_m=0).polygons
+    assert all(shapely.equals(a, b) for a, b in zip(full, ref))
+    step = d * 1.0000001
+    assert all(shapely.length(g) / step <= shapely.get_num_coordinates(g) for g in full)
 
 
 @settings(max_examples=40, deadline=None,
@@ -294,6 +310,35 @@ def test_table_nodata_across_a_tile_edge(tile_rows):
     tab = catchment_table(layout, store, res, fm.terrain.geometry.area)
     assert tab["touches_edge"].tolist() == [True]
     assert tab["cell_count"].tolist() == d.table["cell_count"].tolist()
+
+
+@pytest.mark.parametrize("tile_rows,tile_cols", [(2, 2), (3, 7), (6, 5)])
+def test_catchment_polygons_equal_delineate(basin, tile_rows, tile_cols):
+    """Oracle: delineate()'s polygons (full and sub-catchments, nested, some in pieces)
+    for the same outlets: the same regions (shapely.equals) and the same areas."""
+    import shapely
+
+    from basinkit.tiles.polygons import catchment_polygons
+
+    fm = basin
+    layout = TileLayout(*fm.shape, tile_rows, tile_cols)
+    store = _store(fm, layout)
+    outlets = _nested_outlets(fm, 10, 4, seed=7)
+    res = catchment_labels(layout, store, outlets)
+    r, c = np.divmod(outlets, fm.ncols)
+    xs, ys = fm.terrain.transform @ (c + 0.5, r + 0.5)
+    d = delineate(fm, [(f"o{i}", x, y) for i, (x, y) in enumerate(zip(xs, ys))],
+                  snap_radius_m=0)
+    full, sub = catchment_polygons(layout, store, res, fm.terrain.transform,
+                                   crs=fm.terrain.crs)
+    assert len(full) == len(d.polygons) == outlets.size
+    # regions in pieces (4-connected components) are among them
+    assert any(g.geom_type == "MultiPolygon" for g in d.polygons + d.subcatchment_polygons)
+    for mine, ref in zip(full + sub, list(d.polygons) + list(d.subcatchment_polygons)):
+        assert (mine is None) == (ref is None)
+        if ref is not None:
+            assert shapely.equals(mine, ref)
+            assert shapely.area(mine) == pytest.approx(shapely.area(ref), rel=1e-12)
 
 
 class _Crash(RuntimeError):

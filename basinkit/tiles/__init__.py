@@ -16,6 +16,7 @@ _LAZY = {
     "TiledCatchments": ".labels",
     "channel_orders": ".channels",
     "catchment_table": ".tables",
+    "catchment_polygons": ".polygons",
     "Engine": ".engine",
 }
 
