@@ -9,8 +9,9 @@ D8 directions as tiles into a tile folder under bench/out/, and times the in-mem
 equivalents: the stack/count/area sweep, the labels of the outlets (one pass over the
 stack) and extract_channels without geometry. A child process then runs the tiled passes
 on the folder alone (flow_accumulation, catchment_labels, channel_orders), so that its
-peak memory (VmHWM) is that of the tiled path; ``--scheduler`` gives a dask scheduler
-(default: threads here; ``synchronous``; or an address). The parent checks the tiled
+peak memory (VmHWM) is that of the tiled path (of the client only, with a cluster);
+``--scheduler`` gives a dask scheduler (default: threads here; ``synchronous``; or an
+address), ``--local-cluster N`` starts a dask.distributed cluster of N worker processes. The parent checks the tiled
 layers against the in-memory arrays. Figures go to stdout; copy them to bench/RESULTS.md
 with the date and the machine's load.
 """
@@ -78,10 +79,21 @@ def main():
     ap.add_argument("--threshold-cells", type=int, default=1000)
     ap.add_argument("--scheduler", default=None)
     ap.add_argument("--workers", type=int, default=None)
+    ap.add_argument("--local-cluster", type=int, default=0, metavar="N",
+                    help="run the tiled passes on a dask.distributed LocalCluster of N "
+                         "worker processes (one thread each) started by the child")
     ap.add_argument("--child", nargs=3, metavar=("FOLDER", "CELLS", "THRESHOLD"))
     a = ap.parse_args()
     if a.child:
-        child(a.child[0], a.child[1], float(a.child[2]), a.scheduler, a.workers)
+        if a.local_cluster:
+            from distributed import LocalCluster
+
+            with LocalCluster(n_workers=a.local_cluster, processes=True,
+                              threads_per_worker=1, dashboard_address=None) as cluster:
+                child(a.child[0], a.child[1], float(a.child[2]), cluster.scheduler_address,
+                      None)
+        else:
+            child(a.child[0], a.child[1], float(a.child[2]), a.scheduler, a.workers)
         return
 
     from basinkit import route, terrain_from_array
@@ -124,6 +136,8 @@ def main():
         cmd += ["--scheduler", a.scheduler]
     if a.workers:
         cmd += ["--workers", str(a.workers)]
+    if a.local_cluster:
+        cmd += ["--local-cluster", str(a.local_cluster)]
     res = json.loads(subprocess.run(cmd, check=True, capture_output=True,
                                     text=True).stdout.strip().splitlines()[-1])
 
@@ -141,7 +155,7 @@ def main():
     }
     print(f"grid {a.size}² ({a.size * a.size / 1e6:.1f} M cells), tiles {a.tile}², "
           f"{a.outlets} outlets, channels from {a.threshold_cells} cells; "
-          f"scheduler {a.scheduler or 'threads'}")
+          f"scheduler {f'LocalCluster of {a.local_cluster} processes' if a.local_cluster else a.scheduler or 'threads'}")
     print(f"in memory: route {t_route:.2f} s (fill, D8, sweep); sweep alone "
           f"{t_sweep:.2f} s; labels {t_labels:.2f} s; channels {t_channels:.2f} s")
     print(f"tiled (child process): accumulation {res['accumulation_s']:.2f} s, labels "
