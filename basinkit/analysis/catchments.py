@@ -170,10 +170,23 @@ class Delineation:
 def _outlet_tree(fm, cells):
     """Labels 1..n in the given order, next-outlet-downstream of each, the depth-first
     preorder relabelling and subtree sizes."""
-    n = cells.size
     lab0 = fm.label_outlets(cells).ravel()
     rec = fm.receiver[cells]
     down0 = np.where(rec >= 0, lab0[np.maximum(rec, 0)], 0).astype(np.int64)
+    lut, new_size, new_down = outlet_tree(down0)
+    labels = _catchments.remap(lab0, lut).reshape(fm.shape)
+    return labels, lut, new_size, new_down
+
+
+def outlet_tree(down0):
+    """The depth-first renumbering of an outlet tree (also used by the tiled path).
+
+    ``down0[i]`` is the label (1..n, in the outlets' order) of the next outlet downstream
+    of outlet ``i + 1``, 0 at a root. Returns ``lut`` (old label -> new label, ``lut[0]``
+    is 0), the subtree size and the next outlet downstream of every new label (both
+    indexed by new label)."""
+    down0 = np.asarray(down0, dtype=np.int64)
+    n = down0.size
     children = [[] for _ in range(n + 1)]
     for i in range(n):  # input order: deterministic
         children[down0[i]].append(i + 1)
@@ -195,8 +208,7 @@ def _outlet_tree(fm, cells):
     new_size[lut[1:]] = size[1:]
     new_down = np.zeros(n + 1, dtype=np.int64)
     new_down[lut[1:]] = lut[down0]
-    labels = _catchments.remap(lab0, lut).reshape(fm.shape)
-    return labels, lut, new_size, new_down
+    return lut, new_size, new_down
 
 
 def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None,

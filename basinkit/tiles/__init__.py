@@ -9,4 +9,23 @@ open files themselves. The store on disk, written atomically and resumable, is
 
 from .layout import MemoryTiles, TileLayout
 
-__all__ = ["MemoryTiles", "TileLayout"]
+# the flow passes load numba kernels: imported on first use
+_LAZY = {
+    "flow_accumulation": ".accumulate",
+    "catchment_labels": ".labels",
+    "TiledCatchments": ".labels",
+    "channel_orders": ".channels",
+    "catchment_table": ".tables",
+    "catchment_polygons": ".polygons",
+    "Engine": ".engine",
+}
+
+__all__ = ["MemoryTiles", "TileLayout", *_LAZY]
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        import importlib
+
+        return getattr(importlib.import_module(_LAZY[name], __name__), name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
