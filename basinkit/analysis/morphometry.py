@@ -335,7 +335,8 @@ def _describe(ctx, cells, zm, sm, aspm, outlet, member, want_curve, poly):
     import shapely
 
     tol = max(ctx.cell_w, ctx.cell_h)
-    outline = shapely.normalize(shapely.set_precision(poly, tol * 1e-6).simplify(0))
+    outline = shapely.normalize(shapely.set_precision(poly, tol * 1e-6, mode="pointwise")
+                                .simplify(0))
     smooth = outline.simplify(tol, preserve_topology=True)
     _, perim = ground_area_perimeter(smooth, t.crs)
     out["perimeter_m"] = perim
