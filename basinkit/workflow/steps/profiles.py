@@ -163,34 +163,37 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
                           shared={"fm": fm, "network": network, "settings": s,
                                   "strahler": np.asarray(network.strahler).ravel()})
     # results first in zip: the progress generator then runs to its end (its last line)
-    for r, (k, oid, fid, cell, _) in zip(results, items):
-        src = str(rows[k].source)
-        if "error" in r:
-            fails.append({"outlet_id": oid, "source": src, "reason": r["error"]})
-            rep.outlet_failed(oid, r["error"], "profiles", source=src)
-            for kind in ("longest_flow_path", "main_stem"):
-                path_rows.append({"outlet_id": oid, "file_id": fid, "kind": kind,
-                                  "error": r["error"]})
-            continue
-        summary, lfp, ms = r["summary"], r["lfp"], r["ms"]
-        summary.update(outlet_row=cell // nc, outlet_col=cell % nc, source=src)
-        for w in summary.get("warnings", []):
-            rep.warn(f"outlet {oid!r}: {w}")
-        nodes_l.extend(r["frames"])
-        steep_l.append(r["steepness"])
-        knick_l.append(r["knickpoints"])
-        warning = "; ".join(summary.get("warnings", []))
-        for prof in (lfp, ms):
-            path_rows.append({"outlet_id": oid, "file_id": fid, **prof.summary(),
-                              "warning": warning, "error": ""})
-            lines.append((oid, prof))
-        summaries.append(summary)
-        paths[oid] = {"longest_flow_path": lfp, "main_stem": ms,
-                      "channel_nodes": r["frames"][0], "steepness": r["steepness"],
-                      "knickpoints": r["knickpoints"],
-                      "warnings": summary.get("warnings", [])}
-        for what, png in r.get("figures", {}).items():
-            out.data(f"figures/{fid}_{what}.png", png)
+    try:  # an error or an interrupt here ends the workers now (not at exit)
+        for r, (k, oid, fid, cell, _) in zip(results, items):
+            src = str(rows[k].source)
+            if "error" in r:
+                fails.append({"outlet_id": oid, "source": src, "reason": r["error"]})
+                rep.outlet_failed(oid, r["error"], "profiles", source=src)
+                for kind in ("longest_flow_path", "main_stem"):
+                    path_rows.append({"outlet_id": oid, "file_id": fid, "kind": kind,
+                                      "error": r["error"]})
+                continue
+            summary, lfp, ms = r["summary"], r["lfp"], r["ms"]
+            summary.update(outlet_row=cell // nc, outlet_col=cell % nc, source=src)
+            for w in summary.get("warnings", []):
+                rep.warn(f"outlet {oid!r}: {w}")
+            nodes_l.extend(r["frames"])
+            steep_l.append(r["steepness"])
+            knick_l.append(r["knickpoints"])
+            warning = "; ".join(summary.get("warnings", []))
+            for prof in (lfp, ms):
+                path_rows.append({"outlet_id": oid, "file_id": fid, **prof.summary(),
+                                  "warning": warning, "error": ""})
+                lines.append((oid, prof))
+            summaries.append(summary)
+            paths[oid] = {"longest_flow_path": lfp, "main_stem": ms,
+                          "channel_nodes": r["frames"][0], "steepness": r["steepness"],
+                          "knickpoints": r["knickpoints"],
+                          "warnings": summary.get("warnings", [])}
+            for what, png in r.get("figures", {}).items():
+                out.data(f"figures/{fid}_{what}.png", png)
+    finally:
+        results.close()
     nodes = _concat(nodes_l, _NODE_FIRST)
     steep = _concat(steep_l, ["outlet_id", "segment_id"])
     knick = _concat(knick_l, ["outlet_id"])
