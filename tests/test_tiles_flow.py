@@ -341,6 +341,79 @@ def test_catchment_polygons_equal_delineate(basin, tile_rows, tile_cols):
             assert shapely.area(mine) == pytest.approx(shapely.area(ref), rel=1e-12)
 
 
+SEGMENT_EXACT = ["strahler_order", "shreve_magnitude", "cell_count", "top_row", "top_col",
+                 "upstream_area_top_m2", "upstream_area_bottom_m2", "straight_length_m",
+                 "drop_m", "top_elevation_m", "bottom_elevation_m"]
+
+
+def _check_segments(fm, layout, store, threshold, outlets=None, geographic=False):
+    """Oracle: extract_channels' segments, matched by bottom cell (the tiled ids follow
+    another order): the same cells per segment, values equal, lengths within the rounding
+    of sums of positive terms in another grouping (Higham 2002, section 4.2)."""
+    from basinkit.tiles.segments import channel_segments
+
+    for t, a in layout.split(fm.terrain.elevation).items():
+        if not store.has("routed_elevation", *t):
+            store.write("routed_elevation", *t, a)
+    tab = channel_segments(layout, store, threshold, fm.terrain.geometry,
+                           outlet_cells=outlets, crs=fm.terrain.crs,
+                           transform=fm.terrain.transform, elevation="routed_elevation")
+    net = extract_channels(fm, threshold, outlet_cells=outlets, geometry=False)
+    ref = net.segments
+    assert len(tab) == len(ref) > 0
+    key = ["bottom_row", "bottom_col"]
+    m = ref.merge(tab, on=key, suffixes=("_ref", ""), validate="one_to_one")
+    assert len(m) == len(ref)
+    for col in SEGMENT_EXACT:
+        if geographic and col.startswith("upstream_area"):
+            # sums of per-row areas in another order: within rounding, count <= the cells
+            rtol = 2 * fm.terrain.size * EPS
+            np.testing.assert_allclose(m[col], m[col + "_ref"], rtol=rtol, atol=0)
+        else:
+            np.testing.assert_array_equal(m[col], m[col + "_ref"], err_msg=col)
+    bound = 2 * m["cell_count"] * EPS * m["length_m_ref"]
+    assert (np.abs(m["length_m"] - m["length_m_ref"]) <= bound).all()
+    # downstream segments and Strahler streams: the same, through the matching
+    ours_of_ref = dict(zip(m["segment_id_ref"], m["segment_id"]))
+    ours_of_ref[0] = 0
+    assert [ours_of_ref[k] for k in m["downstream_id_ref"]] == m["downstream_id"].tolist()
+    assert (m["downstream_id"] < m["segment_id"]).all()
+    pairs = set(zip(m["stream_id_ref"], m["stream_id"]))
+    assert len(pairs) == m["stream_id"].nunique() == m["stream_id_ref"].nunique()
+    # the segment of every cell
+    grid = _grid(layout, store, "segment_id")
+    lut = np.zeros(int(ref["segment_id"].max()) + 1, dtype=np.int64)
+    lut[m["segment_id_ref"].to_numpy()] = m["segment_id"].to_numpy()
+    np.testing.assert_array_equal(grid, lut[net.segment_id])
+
+
+@pytest.mark.parametrize("tile_rows,tile_cols", [(2, 2), (3, 5), (8, 8), (47, 61)])
+def test_channel_segments_equal_extract_channels(basin, tile_rows, tile_cols):
+    fm = basin
+    layout = TileLayout(*fm.shape, tile_rows, tile_cols)
+    store = _store(fm, layout)
+    flow_accumulation(layout, store, fm.terrain.geometry.area)
+    channel_orders(layout, store, 600.0)
+    outlets = _nested_outlets(fm, 5, 6, seed=9)
+    _check_segments(fm, layout, store, 600.0, outlets=outlets)
+
+
+def test_channel_segments_geographic():
+    """Geographic grid: straight lengths geodesic as in memory (pyproj.Geod, Karney 2013)."""
+    z = fractal_dem(40, 36, seed=8, holes=2)
+    d = 1.0 / 1200
+    fm = route(terrain_from_array(z, transform=Affine(d, 0, 10.0, 0, -d, 47.0),
+                                  crs="EPSG:4326"))
+    a = np.sort(np.unique(fm.accumulation(unit="m2")[fm.terrain.valid]))
+    k = int(np.searchsorted(a, 20 * a[0]))
+    threshold = 0.5 * (a[k] + a[k + 1])
+    layout = TileLayout.square(*fm.shape, 4)
+    store = _store(fm, layout)
+    flow_accumulation(layout, store, fm.terrain.geometry.area)
+    channel_orders(layout, store, threshold)
+    _check_segments(fm, layout, store, threshold, geographic=True)
+
+
 class _Crash(RuntimeError):
     pass
 
