@@ -67,21 +67,22 @@ def child(folder, cells_file, threshold, scheduler, workers):
     t = time.perf_counter()
     channel_orders(lay, store, threshold, scheduler=scheduler, workers=workers)
     out["orders_s"] = time.perf_counter() - t
+    from affine import Affine
+
     from basinkit.terrain.geometry import CellGeometry
     from basinkit.tiles import catchment_polygons, catchment_table, channel_segments
 
     g = np.load(Path(folder) / "geometry.npz")
     geometry = CellGeometry(g["dx"], g["dy_down"], g["diag_down"], g["area"], False)
     t = time.perf_counter()
-    segs = channel_segments(lay, store, threshold, geometry, outlet_cells=cells,
-                            scheduler=scheduler, workers=workers)
+    segs, _ = channel_segments(lay, store, threshold, geometry, outlet_cells=cells,
+                               transform=Affine(10, 0, 0, 0, -10, lay.nrows * 10),
+                               lines=True, scheduler=scheduler, workers=workers)
     out["segments_s"] = time.perf_counter() - t
     out["segments"] = len(segs)
     t = time.perf_counter()
     catchment_table(lay, store, res, row_area, scheduler=scheduler, workers=workers)
     out["table_s"] = time.perf_counter() - t
-    from affine import Affine
-
     t = time.perf_counter()
     catchment_polygons(lay, store, res, Affine(10, 0, 0, 0, -10, lay.nrows * 10),
                        scheduler=scheduler, workers=workers)
@@ -195,7 +196,7 @@ def main():
           f"the outlets {t_segments:.2f} s ({len(net_split.segments)} segments)")
     print(f"tiled (child process): accumulation {res['accumulation_s']:.2f} s, labels "
           f"{res['labels_s']:.2f} s, orders {res['orders_s']:.2f} s, segments "
-          f"{res['segments_s']:.2f} s ({res['segments']}), catchment table "
+          f"{res['segments_s']:.2f} s ({res['segments']}, with lines and junctions), catchment table "
           f"{res['table_s']:.2f} s, polygons {res['polygons_s']:.2f} s; peak RSS "
           f"{res['rss_peak_mb']:.0f} MB (start {res['rss_start_mb']:.0f} MB)")
     print("equal to the in-memory path:", same)

@@ -254,7 +254,7 @@ def test_hypothesis_random_grids(nrows, ncols, seed, tile_rows, tile_cols, level
     threshold = float(rng.choice([25.0, 50.0, 75.0]))
     store = _check_all(fm, layout, threshold=threshold, outlets=outlets,
                        scheduler="synchronous")
-    _check_segments(fm, layout, store, threshold, outlets=outlets)
+    _check_segments(fm, layout, store, threshold, outlets=outlets, lines=False)
     # the per-catchment table (integer elevations, 25 m² cells: every sum exact)
     from basinkit.tiles.tables import catchment_table
 
@@ -359,7 +359,8 @@ SEGMENT_EXACT = ["strahler_order", "shreve_magnitude", "cell_count", "top_row", 
                  "drop_m", "top_elevation_m", "bottom_elevation_m"]
 
 
-def _check_segments(fm, layout, store, threshold, outlets=None, geographic=False):
+def _check_segments(fm, layout, store, threshold, outlets=None, geographic=False,
+                    lines=True):
     """Oracle: extract_channels' segments, matched by bottom cell (the tiled ids follow
     another order): the same cells per segment, values equal, lengths within the rounding
     of sums of positive terms in another grouping (Higham 2002, section 4.2)."""
@@ -368,13 +369,15 @@ def _check_segments(fm, layout, store, threshold, outlets=None, geographic=False
     for t, a in layout.split(fm.terrain.elevation).items():
         if not store.has("routed_elevation", *t):
             store.write("routed_elevation", *t, a)
-    tab = channel_segments(layout, store, threshold, fm.terrain.geometry,
-                           outlet_cells=outlets, crs=fm.terrain.crs,
-                           transform=fm.terrain.transform, elevation="routed_elevation")
-    net = extract_channels(fm, threshold, outlet_cells=outlets, geometry=False)
+    tab, junctions = channel_segments(layout, store, threshold, fm.terrain.geometry,
+                                      outlet_cells=outlets, crs=fm.terrain.crs,
+                                      transform=fm.terrain.transform,
+                                      elevation="routed_elevation", lines=lines)
+    net = extract_channels(fm, threshold, outlet_cells=outlets, geometry=lines)
     ref = net.segments
     assert len(tab) == len(ref)
     if len(ref) == 0:
+        assert len(junctions) == 0
         assert (_grid(layout, store, "segment_id") == 0).all()
         return
     key = ["bottom_row", "bottom_col"]
@@ -396,6 +399,23 @@ def _check_segments(fm, layout, store, threshold, outlets=None, geographic=False
     assert (m["downstream_id"] < m["segment_id"]).all()
     pairs = set(zip(m["stream_id_ref"], m["stream_id"]))
     assert len(pairs) == m["stream_id"].nunique() == m["stream_id_ref"].nunique()
+    # lines through the cell centres: the same vertices
+    if lines:
+        import shapely
+
+        mine = tab.set_index("segment_id").geometry
+        theirs = ref.set_index("segment_id").geometry
+        for a, b in zip(m["segment_id"], m["segment_id_ref"]):
+            assert shapely.equals_exact(mine[a], theirs[b], tolerance=0.0)
+    # junctions, matched by cell
+    jm = net.junctions.merge(junctions, on=["row", "col"], suffixes=("_ref", ""),
+                             validate="one_to_one")
+    assert len(jm) == len(net.junctions) == len(junctions)
+    for col in ["strahler_order", "shreve_magnitude", "tributary_count", "elevation_m"]:
+        np.testing.assert_array_equal(jm[col], jm[col + "_ref"], err_msg=col)
+    np.testing.assert_allclose(jm["upstream_area_m2"], jm["upstream_area_m2_ref"],
+                               rtol=2 * fm.terrain.size * EPS if geographic else 0, atol=0)
+    assert [ours_of_ref[k] for k in jm["segment_id_ref"]] == jm["segment_id"].tolist()
     # the segment of every cell
     grid = _grid(layout, store, "segment_id")
     lut = np.zeros(int(ref["segment_id"].max()) + 1, dtype=np.int64)
@@ -471,7 +491,7 @@ def test_resume_after_a_killed_run(basin, tmp_path):
     assert flow_accumulation(layout, again, fm.terrain.geometry.area)["computed"] == 0
 
 
-@pytest.mark.parametrize("step", ["labels", "orders"])
+@pytest.mark.parametrize("step", ["labels", "orders", "segments"])
 def test_labels_and_orders_resume(basin, tmp_path, step):
     """Labels and orders stopped half-way resume as well (pass-1 links kept in the store's
     metadata, finished tiles skipped); the oracle is the in-memory path."""
@@ -482,18 +502,38 @@ def test_labels_and_orders_resume(basin, tmp_path, step):
     flow_accumulation(layout, store, fm.terrain.geometry.area)
     outlets = _nested_outlets(fm, 6, 5, seed=4)
 
+    if step == "segments":
+        channel_orders(layout, store, 600.0)
+    written = []
+
     def run(s):
         if step == "labels":
             return catchment_labels(layout, s, outlets, scheduler="synchronous").computed
-        return channel_orders(layout, s, 600.0, scheduler="synchronous")["computed"]
+        if step == "orders":
+            return channel_orders(layout, s, 600.0, scheduler="synchronous")["computed"]
+        from basinkit.tiles.segments import channel_segments
 
-    _CrashingFolder.budget = 9 if step == "labels" else 2 * 9
+        written.append(channel_segments(layout, s, 600.0, fm.terrain.geometry,
+                                        transform=fm.terrain.transform, lines=True,
+                                        scheduler="synchronous"))
+        return sum(not s.has("segment_id", *t) for t in layout.tiles())
+
+    _CrashingFolder.budget = 2 * 9 if step == "orders" else 9
     try:
         with pytest.raises(_Crash):
             run(store)
     finally:
         _CrashingFolder.budget = None
     again = TileFolder.open(tmp_path / "tiles")
+    if step == "segments":
+        assert sum(again.has("segment_id", *t) for t in layout.tiles()) == 9
+        assert run(again) == 0
+        tab, junctions = written[-1]
+        net = extract_channels(fm, 600.0, geometry=True)
+        assert len(tab) == len(net.segments) and len(junctions) == len(net.junctions)
+        assert sorted(tab.geometry.length) == pytest.approx(sorted(net.segments.length),
+                                                            rel=1e-12)
+        return
     assert run(again) == n - 9
     if step == "labels":
         want = _delineate(fm, outlets).labels

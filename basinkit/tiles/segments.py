@@ -68,6 +68,30 @@ def _pieces(d, rl, stack, mask, split, dist, h, w):
             length[:npc].copy(), ndon)
 
 
+@njit(cache=True, nogil=True)
+def _paths(rl, top, bottom):
+    """Cells of every piece from its top down to its bottom (local), and offsets."""
+    m = top.shape[0]
+    offsets = np.zeros(m + 1, dtype=np.int64)
+    for p in range(m):
+        i = top[p]
+        k = 1
+        while i != bottom[p]:
+            i = rl[i]
+            k += 1
+        offsets[p + 1] = offsets[p] + k
+    cells = np.empty(offsets[m], dtype=np.int64)
+    for p in range(m):
+        i = top[p]
+        q = offsets[p]
+        cells[q] = i
+        while i != bottom[p]:
+            i = rl[i]
+            q += 1
+            cells[q] = i
+    return cells, offsets
+
+
 class _Tile:
     """A tile's flow, network and pieces (pass A and pass B compute the same)."""
 
@@ -119,16 +143,33 @@ def _pieces_task(spec, ti, tj, split_cells, dist, directions, area, orders, elev
     return out
 
 
-def _segments_task(spec, ti, tj, split_cells, seg_of_piece, dist, directions, area, orders,
-                   elevation, min_area, layer):
+def _segments_task(spec, ti, tj, split_cells, seg_of_piece, dist, edge_cells, edge_ndon,
+                   directions, area, orders, elevation, min_area, layer):
+    """Pass 2 of a tile: the segment of every cell, and (kept in the store's metadata, so
+    that a resumed run finds them) the tile's junctions and the cell paths of its pieces."""
     store = open_store(spec)
-    if store.has(layer, ti, tj):
-        return False
+    name = f"{layer}.cells_{ti}_{tj}"
+    if store.has(layer, ti, tj) and store.has_meta(name):
+        return store.read_meta(name)
     t = _Tile(store, ti, tj, directions, area, orders, min_area, split_cells, dist)
+    f = t.f
     lut = np.concatenate([np.asarray(seg_of_piece, dtype=np.int32), [0]])
     out = lut[t.piece]  # piece -1 -> the 0 appended
-    store.write(layer, ti, tj, out.reshape(t.f.h, t.f.w))
-    return True
+    ndon = t.ndon.copy()  # channel donors, those in other tiles added on the edge
+    ndon[f.to_local(edge_cells)] = edge_ndon
+    junction = np.flatnonzero(t.mask & (ndon >= 2))
+    order = np.asarray(store.read(orders[0], ti, tj)).ravel()
+    shreve = np.asarray(store.read(orders[1], ti, tj)).ravel()
+    z = (np.asarray(store.read(elevation, ti, tj), dtype=np.float64).ravel() if elevation
+         else np.zeros(f.rl.shape[0]))
+    cells, offsets = _paths(f.rl, t.top, t.bottom)
+    res = {"junction": f.to_global(junction), "junction_segment": out[junction],
+           "junction_order": order[junction], "junction_shreve": shreve[junction],
+           "junction_ndon": ndon[junction], "junction_area": t.area[junction],
+           "junction_z": z[junction], "path": f.to_global(cells), "path_offsets": offsets}
+    store.write_meta(name, res)
+    store.write(layer, ti, tj, out.reshape(f.h, f.w))
+    return res
 
 
 def _join(parts):
@@ -195,7 +236,19 @@ def _join(parts):
         "z_top": cat["z_top"][top_piece], "z_end": z_end,
     }
     seg = {k: v[rank] for k, v in seg.items()}
-    return seg, new_id[seg_of_piece]
+    # every segment's pieces from the top down (for its line)
+    pieces_down = [None] * ns
+    for s in range(ns):
+        q, chain = top_piece[s], []
+        while True:
+            chain.append(q)
+            if not cont[q]:
+                break
+            q = below[q]
+        pieces_down[s] = chain
+    pieces_down = [pieces_down[k] for k in rank]
+    edges = (cat["border"][bsort], ndon)
+    return seg, new_id[seg_of_piece], pieces_down, edges
 
 
 def _straight(top, end, ncols, geometry, crs, transform):
@@ -219,7 +272,7 @@ def channel_segments(layout, store, min_area_m2, geometry, *, outlet_cells=None,
                      crs=None, transform=None, directions: str = "directions",
                      area: str = "upstream_area_m2", orders=CHANNEL_LAYERS,
                      elevation: str | None = None, layer: str = "segment_id",
-                     scheduler=None, workers: int | None = None) -> pd.DataFrame:
+                     lines: bool = False, scheduler=None, workers: int | None = None):
     """The channel segments of a grid held as tiles, and the segment of every cell.
 
     Parameters
@@ -240,16 +293,24 @@ def channel_segments(layout, store, min_area_m2, geometry, *, outlet_cells=None,
         grids, as :func:`basinkit.analysis.channels.ground_distance`); without a CRS the
         grid is taken as projected.
 
+    lines : bool
+        Also build the segment lines through the cell centres (a GeoDataFrame, in
+        ``crs``, as :func:`extract_channels` with ``geometry=True``).
+
     Returns
     -------
-    pandas.DataFrame
-        One row per segment, ``segment_id`` 1, 2, ... with every segment's downstream
+    (segments, junctions) : (pandas.DataFrame, pandas.DataFrame)
+        ``segments``: one row per segment, ``segment_id`` 1, 2, ... with every segment's downstream
         one first, and the columns of :func:`extract_channels`' table: ``downstream_id``,
         ``stream_id``, ``strahler_order``, ``shreve_magnitude``, ``length_m``,
         ``straight_length_m``, ``sinuosity``, ``upstream_area_top_m2``,
         ``upstream_area_bottom_m2``, ``cell_count``, ``top_row``, ``top_col``,
         ``bottom_row``, ``bottom_col`` and, with an elevation layer, ``drop_m``,
         ``mean_slope_m_per_m``, ``top_elevation_m``, ``bottom_elevation_m``.
+        ``junctions``: one row per channel cell with two or more channel donors, by cell:
+        ``junction_id``, ``segment_id``, ``strahler_order``, ``shreve_magnitude``,
+        ``tributary_count``, ``upstream_area_m2``, ``elevation_m`` (with an elevation
+        layer), ``row``, ``col``.
 
     Notes
     -----
@@ -292,15 +353,76 @@ def channel_segments(layout, store, min_area_m2, geometry, *, outlet_cells=None,
         spec = eng.spec(store)
         parts = eng.map(_pieces_task, spec, [(ti, tj, extra(ti, tj)) for ti, tj in tiles],
                         shared=shared)
-        seg, seg_of_piece = _join(parts)
+        seg, seg_of_piece, pieces_down, (edge_cells, edge_ndon) = _join(parts)
+        edges = by_tile(layout, edge_cells, edge_ndon)
+        no_edges = (np.zeros(0, np.int64), np.zeros(0, np.int64))
         items, start = [], 0
         for (ti, tj), p in zip(tiles, parts):
             k = p["top"].size
             sp, dist = extra(ti, tj)
-            items.append((ti, tj, (sp, seg_of_piece[start:start + k], dist)))
+            items.append((ti, tj, (sp, seg_of_piece[start:start + k], dist,
+                                   *edges.get((ti, tj), no_edges))))
             start += k
-        eng.map(_segments_task, spec, items, shared=shared)
-    nc = layout.ncols
+        cells = eng.map(_segments_task, spec, items, shared=shared)
+    junctions = _junctions(cells, layout.ncols, elevation)
+    tab = _table(seg, layout.ncols, geometry, crs, transform, elevation)
+    if lines:
+        tab = _with_lines(tab, seg, pieces_down, cells, layout.ncols, crs, transform)
+    return tab, junctions
+
+
+def _junctions(cells, nc, elevation):
+    """The junction table: channel cells with two or more channel donors, by cell."""
+    cat = {k: np.concatenate([c[k] for c in cells]) for k in cells[0]
+           if k.startswith("junction")}
+    o = np.argsort(cat["junction"], kind="stable")
+    j = cat["junction"][o]
+    jt = pd.DataFrame({
+        "junction_id": np.arange(1, j.size + 1, dtype=np.int32),
+        "segment_id": cat["junction_segment"][o].astype(np.int32),
+        "strahler_order": cat["junction_order"][o].astype(np.int16),
+        "shreve_magnitude": cat["junction_shreve"][o].astype(np.int64),
+        "tributary_count": cat["junction_ndon"][o].astype(np.int16),
+        "upstream_area_m2": cat["junction_area"][o],
+    })
+    if elevation:
+        jt["elevation_m"] = cat["junction_z"][o]
+    jt["row"] = (j // nc).astype(np.int32)
+    jt["col"] = (j % nc).astype(np.int32)
+    return jt
+
+
+def _with_lines(tab, seg, pieces_down, cells, nc, crs, transform):
+    """Segment lines through cell centres, from the top cell down to the bottom and on to
+    the receiver of the bottom cell (where consecutive segments meet), as in memory."""
+    import geopandas as gpd
+    import shapely
+
+    if transform is None:
+        raise InputError("segment lines need the grid's transform")
+    paths, offs = [], []
+    for c in cells:
+        paths.append(c["path"])
+        offs.append(c["path_offsets"])
+    piece_path = []
+    for path, off in zip(paths, offs):
+        piece_path.extend(path[off[k]:off[k + 1]] for k in range(off.size - 1))
+    lines = []
+    t = transform
+    for s, chain in enumerate(pieces_down):
+        pts = np.concatenate([piece_path[q] for q in chain])
+        if seg["end"][s] != seg["bottom"][s]:  # on to the receiver of the bottom cell
+            pts = np.append(pts, seg["end"][s])
+        if pts.size == 1:  # a single cell leaving the grid: a zero-length line
+            pts = np.repeat(pts, 2)
+        r, c = np.divmod(pts, nc)
+        # cell centres as Terrain.xy_of places them
+        lines.append(shapely.linestrings(t.c + (c + 0.5) * t.a, t.f + (r + 0.5) * t.e))
+    wkt = crs.to_wkt() if crs is not None and hasattr(crs, "to_wkt") else crs
+    return gpd.GeoDataFrame(tab, geometry=lines, crs=wkt)
+
+
+def _table(seg, nc, geometry, crs, transform, elevation):
     ns = seg["segment_id"].size
     stream = strahler_streams(seg["order"].astype(np.int16),
                               seg["downstream_id"].astype(np.int32)) if ns else np.zeros(0)
