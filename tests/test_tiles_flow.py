@@ -74,6 +74,13 @@ def _delineate(fm, cells):
                      snap_radius_m=0, polygons=False)
 
 
+def _delineate_polygons(fm, cells):
+    r, c = np.divmod(np.asarray(cells), fm.ncols)
+    xs, ys = fm.terrain.transform @ (c + 0.5, r + 0.5)
+    return delineate(fm, [(f"o{i}", x, y) for i, (x, y) in enumerate(zip(xs, ys))],
+                     snap_radius_m=0).polygons
+
+
 def _check_all(fm, layout, store=None, threshold=None, outlets=None, scheduler=None,
                exact_area=True):
     store = _store(fm, layout, store)
@@ -613,8 +620,30 @@ def test_distributed_local_cluster(basin, tmp_path):
     fm = basin
     layout = TileLayout(*fm.shape, 13, 17)
     store = _store(fm, layout, TileFolder(tmp_path / "tiles", layout))
+    outlets = _nested_outlets(fm, 8, 6, seed=3)
     with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1,
                                   dashboard_address=None) as cluster:
-        _check_all(fm, layout, store, threshold=600.0,
-                   outlets=_nested_outlets(fm, 8, 6, seed=3),
-                   scheduler=cluster.scheduler_address)
+        address = cluster.scheduler_address
+        _check_all(fm, layout, store, threshold=600.0, outlets=outlets, scheduler=address)
+        # the table, polygons and segments on the workers too
+        import shapely
+
+        from basinkit.tiles.polygons import catchment_polygons
+        from basinkit.tiles.segments import channel_segments
+        from basinkit.tiles.tables import catchment_table
+
+        res = catchment_labels(layout, store, outlets, scheduler=address)
+        d = _delineate(fm, outlets)
+        tab = catchment_table(layout, store, res, fm.terrain.geometry.area,
+                              outlet_ids=d.table["outlet_id"], scheduler=address)
+        assert tab["area_m2"].tolist() == d.table["area_m2"].tolist()
+        full, _ = catchment_polygons(layout, store, res, fm.terrain.transform,
+                                     scheduler=address)
+        ref = _delineate_polygons(fm, outlets)
+        assert all(shapely.equals(a, b) for a, b in zip(full, ref))
+        segs, junctions = channel_segments(layout, store, 600.0, fm.terrain.geometry,
+                                           transform=fm.terrain.transform, lines=True,
+                                           scheduler=address)
+        net = extract_channels(fm, 600.0, geometry=True)
+        assert len(segs) == len(net.segments) and len(junctions) == len(net.junctions)
+        assert sorted(segs["cell_count"]) == sorted(net.segments["cell_count"])

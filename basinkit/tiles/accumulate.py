@@ -23,7 +23,7 @@ ACCUMULATION_LAYERS = ("cell_count", "upstream_area_m2")
 class TileFlow:
     """A tile's local receivers, its targets in other tiles and its stack."""
 
-    __slots__ = ("h", "w", "r0", "c0", "ncols", "rl", "tgt", "stack", "bad")
+    __slots__ = ("h", "w", "r0", "c0", "ncols", "d", "rl", "tgt", "stack", "bad")
 
     def __init__(self, store, layer, ti, tj):
         lay = store.layout
@@ -41,6 +41,7 @@ class TileFlow:
                                  f"({ti}, {tj}) holds {d.dtype}")
             d = d.astype(np.int16)
         self.h, self.w, self.r0, self.c0, self.ncols = r1 - r0, c1 - c0, r0, c0, lay.ncols
+        self.d = d
         self.rl, self.tgt, self.bad = K.local_receivers(d, r0, c0, lay.nrows, lay.ncols)
         self.stack = K.tile_stack(self.rl)
 

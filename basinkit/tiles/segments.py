@@ -98,7 +98,7 @@ class _Tile:
     def __init__(self, store, ti, tj, directions, area, orders, min_area, split_cells,
                  dist):
         self.f = f = TileFlow(store, directions, ti, tj)
-        self.d = np.asarray(store.read(directions, ti, tj)).astype(np.int16)
+        self.d = f.d
         a = np.asarray(store.read(area, ti, tj), dtype=np.float64).ravel()
         with np.errstate(invalid="ignore"):
             self.mask = a >= min_area
@@ -407,17 +407,22 @@ def _with_lines(tab, seg, pieces_down, cells, nc, crs, transform):
     piece_path = []
     for path, off in zip(paths, offs):
         piece_path.extend(path[off[k]:off[k + 1]] for k in range(off.size - 1))
-    lines = []
-    t = transform
+    seq = []
     for s, chain in enumerate(pieces_down):
-        pts = np.concatenate([piece_path[q] for q in chain])
+        pts = [piece_path[q] for q in chain]
         if seg["end"][s] != seg["bottom"][s]:  # on to the receiver of the bottom cell
-            pts = np.append(pts, seg["end"][s])
-        if pts.size == 1:  # a single cell leaving the grid: a zero-length line
-            pts = np.repeat(pts, 2)
-        r, c = np.divmod(pts, nc)
+            pts.append(seg["end"][s:s + 1])
+        pts = np.concatenate(pts)
+        seq.append(np.repeat(pts, 2) if pts.size == 1 else pts)  # one cell: zero length
+    counts = np.array([p.size for p in seq], dtype=np.int64)
+    lines = np.empty(0, dtype=object)
+    if counts.size:
+        cells = np.concatenate(seq)
+        r, c = np.divmod(cells, nc)
+        t = transform
         # cell centres as Terrain.xy_of places them
-        lines.append(shapely.linestrings(t.c + (c + 0.5) * t.a, t.f + (r + 0.5) * t.e))
+        xy = np.column_stack([t.c + (c + 0.5) * t.a, t.f + (r + 0.5) * t.e])
+        lines = shapely.linestrings(xy, indices=np.repeat(np.arange(counts.size), counts))
     wkt = crs.to_wkt() if crs is not None and hasattr(crs, "to_wkt") else crs
     return gpd.GeoDataFrame(tab, geometry=lines, crs=wkt)
 
