@@ -206,9 +206,11 @@ def _join(parts):
             length[s] += cat["length"][q]
             top_piece[s] = q
             q = up[q]
-    has_down = nxt[bottoms] >= 0
     down_piece = below[bottoms]
-    down = np.where(has_down & (down_piece >= 0), seg_of_piece[np.maximum(down_piece, 0)], -1)
+    # the water goes on into a channel cell (the top of a piece; a direction into nodata,
+    # which routed directions never hold, counts as leaving the grid)
+    has_down = (nxt[bottoms] >= 0) & (down_piece >= 0)
+    down = np.where(has_down, seg_of_piece[np.maximum(down_piece, 0)], -1)
     # ids downstream first: by depth in the segment tree, then by bottom cell
     depth = np.full(ns, -1, dtype=np.int64)
     for s in range(ns):
@@ -225,7 +227,7 @@ def _join(parts):
     rank = np.lexsort((bottom_cell, depth))
     new_id = np.empty(ns, dtype=np.int64)
     new_id[rank] = np.arange(1, ns + 1)
-    z_end = np.where(has_down & (down_piece >= 0), cat["z_top"][np.maximum(down_piece, 0)],
+    z_end = np.where(has_down, cat["z_top"][np.maximum(down_piece, 0)],
                      cat["z_bottom"][bottoms])
     seg = {
         "segment_id": new_id, "downstream_id": np.where(down >= 0, new_id[np.maximum(down, 0)], 0),
