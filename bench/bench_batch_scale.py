@@ -208,6 +208,7 @@ def bench_stages(size, n, profile=None, only=None):
     nested = bool((tab["upstream_outlet_count"] > 0).any())
     ids = np.arange(1, len(tab) + 1) if nested else tab["label"].to_numpy(np.int64)
     step("morphometry", morphometry_table, fm, d0.labels, tab["cell"].to_numpy(np.int64),
+         polygons=d.polygons if (nested and d is not None) else None,
          ids=ids, network=net, return_curves=True,
          label_ranges=d0.label_ranges() if nested else None)
     step("profiles (step, files written, 2 workers)", _profiles_step, fm, d0, net, pts)

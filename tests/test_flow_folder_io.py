@@ -180,6 +180,14 @@ def test_csv_floats_are_the_bytes_pandas_writes(tmp_path):
     df.loc[3, "f32"] = np.nan
     df.loc[4, "f64"] = -np.inf
     df.loc[5, "f64"] = 0.1 + 0.2
+    df["flag"] = np.arange(n) % 3 == 0
+    df["note"] = [None if i % 7 == 0 else ("a, \"b\"" if i % 5 == 0 else "") for i in range(n)]
+    df["mixed"] = [np.nan if i % 4 == 0 else f"w{i}" for i in range(n)]
+    df["i32"] = np.arange(n, dtype=np.int32) - 250
     write_csv(tmp_path / "t.csv", df)
     want = df.to_csv(index=False, float_format="%.10g", lineterminator="\n")
     assert (tmp_path / "t.csv").read_bytes() == want.encode()
+    for one in (df[["note"]], df[["f64"]], df.iloc[:0], df[["mixed"]].assign(x=df["f32"])):
+        write_csv(tmp_path / "u.csv", one)
+        want = one.to_csv(index=False, float_format="%.10g", lineterminator="\n")
+        assert (tmp_path / "u.csv").read_bytes() == want.encode()

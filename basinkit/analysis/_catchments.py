@@ -74,3 +74,26 @@ def range_mask(lab, lo, hi):
             if v >= lo and v <= hi:
                 out[r, c] = 1
     return out
+
+
+@njit(cache=True, nogil=True)
+def cells_by_label(lab, valid, nlab):
+    """The cells with a label in 1..nlab-1 (and valid), grouped by label in row-major order
+    within each (a counting sort), and ``starts`` (nlab + 1): label l's cells are
+    ``order[starts[l]:starts[l + 1]]``, so a range of labels is one contiguous slice."""
+    n = lab.shape[0]
+    counts = np.zeros(nlab + 1, dtype=np.int64)
+    for i in range(n):
+        v = lab[i]
+        if v > 0 and v < nlab and valid[i]:
+            counts[v + 1] += 1
+    for l in range(1, nlab + 1):
+        counts[l] += counts[l - 1]
+    starts = counts.copy()
+    order = np.empty(counts[nlab], dtype=np.int64)
+    for i in range(n):
+        v = lab[i]
+        if v > 0 and v < nlab and valid[i]:
+            order[counts[v]] = i
+            counts[v] += 1
+    return order, starts

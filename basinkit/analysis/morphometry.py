@@ -47,6 +47,10 @@ class _Context:
         self._dl = None
         if network is not None and network.mask.shape != t.shape:
             raise InputError("the channel network is not on the flow model's grid")
+        if network is not None:
+            self.channel_flat = np.asarray(network.mask).ravel()
+            self.stream_flat = np.asarray(network.stream_id).ravel()
+            self.strahler_flat = np.asarray(network.strahler).ravel()
 
     slope = aspect = None
 
@@ -61,11 +65,8 @@ class _Context:
         """Compute slope and aspect once for the whole grid when the catchments' padded
         windows cover more cells in all than the grid (nested catchments)."""
         which = np.asarray(which)
-        if which.ndim == 2:  # label ranges: the boxes are per catchment
-            r0, r1, c0, c1 = rmin, rmax, cmin, cmax
-        else:
-            k = which[(which > 0) & (which < rmin.size)]
-            r0, r1, c0, c1 = rmin[k], rmax[k], cmin[k], cmax[k]
+        k = which[(which > 0) & (which < rmin.size)]
+        r0, r1, c0, c1 = rmin[k], rmax[k], cmin[k], cmax[k]
         ok = r1 >= r0
         cells = float(np.sum((r1[ok] - r0[ok] + 3.0) * (c1[ok] - c0[ok] + 3.0)))
         nr, nc = self.valid.shape
@@ -177,13 +178,12 @@ def _regress_ratio(orders, values, sign):
     return float(10.0 ** (sign * b))
 
 
-def _network_stats(ctx, win, rows, cols, mwin, area_m2, out):
+def _network_stats(ctx, cells, member, area_m2, out):
+    """Network keys of the catchment of ``cells`` (flat); ``member(flat cells)`` tells
+    which cells belong to it (a stream leaving it is cut at its edge)."""
     net = ctx.network
     fm = ctx.fm
-    nc = ctx.nc
-    chw = net.mask[win] & mwin
-    r_i, c_i = np.nonzero(chw)
-    cells = (rows[r_i] * nc + cols[c_i]).astype(np.int64)
+    cells = cells[ctx.channel_flat[cells]]
     out["channel_cells"] = int(cells.size)
     if cells.size == 0:
         for k in ("stream_count", "total_stream_length_m", "max_strahler_order",
@@ -196,12 +196,11 @@ def _network_stats(ctx, win, rows, cols, mwin, area_m2, out):
         out["stream_frequency_per_km2"] = 0.0
         return
     rec = fm.receiver[cells]
-    rr, rc = np.divmod(np.where(rec >= 0, rec, 0), nc)
-    inside = (rec >= 0) & (rr >= rows[0]) & (rr <= rows[-1]) & (rc >= cols[0]) & (rc <= cols[-1])
-    inside[inside] = mwin[rr[inside] - rows[0], rc[inside] - cols[0]]
+    inside = rec >= 0
+    inside[inside] = member(rec[inside])
     step = np.where(inside, fm.receiver_distance()[cells], 0.0)
-    stream = net.stream_id[win][chw]
-    order = net.strahler[win][chw].astype(np.int64)
+    stream = ctx.stream_flat[cells]
+    order = ctx.strahler_flat[cells].astype(np.int64)
     area = fm.d8_upstream_area_flat()[cells]
     u, inv = np.unique(stream, return_inverse=True)
     s_len = np.bincount(inv, weights=step, minlength=u.size)
@@ -267,39 +266,81 @@ def _percentiles(v, qs):
 
 
 def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve, poly=None):
+    """Descriptors of the catchment ``mwin`` (bool) in the window rows r0..r1, cols c0..c1
+    (inclusive)."""
     from affine import Affine
 
-    from .polygons import ground_area_perimeter, mask_to_polygon
+    from .polygons import mask_to_polygon
 
-    fm = ctx.fm
-    t = fm.terrain
+    t = ctx.fm.terrain
     nc = ctx.nc
     win = (slice(r0, r1 + 1), slice(c0, c1 + 1))
     rows = np.arange(r0, r1 + 1)
     cols = np.arange(c0, c1 + 1)
     mwin = mwin & ctx.valid[win]  # nodata cells are never part of a catchment
-    outlet = int(outlet)
-    orow, ocol = divmod(outlet, nc)
+    orow, ocol = divmod(int(outlet), nc)
     if not (r0 <= orow <= r1 and c0 <= ocol <= c1 and mwin[orow - r0, ocol - c0]):
-        raise OutletError(f"the outlet cell (row {orow}, col {ocol}) is not inside its "
-                          "catchment; give the outlet the catchment was delineated from")
-    cell_area = np.broadcast_to(ctx.row_area[rows][:, None], mwin.shape)
-    am = cell_area[mwin]
+        _outlet_outside(orow, ocol)
+    ri, ci = np.nonzero(mwin)
+    cells = (rows[ri] * nc + cols[ci]).astype(np.int64)
+    if poly is None:
+        poly = mask_to_polygon(mwin, t.transform @ Affine.translation(c0, r0))
+    # slope and aspect (Horn 1981) on the window padded by one cell (or read from the
+    # whole grid's, computed once: the same values, as every cell of the catchment sees
+    # its true neighbours either way)
+    if ctx.slope is not None:
+        sm, aspm = ctx.slope[win][mwin], ctx.aspect[win][mwin]
+    else:
+        pr0, pr1 = max(r0 - 1, 0), min(r1 + 1, t.shape[0] - 1)
+        pc0, pc1 = max(c0 - 1, 0), min(c1 + 1, t.shape[1] - 1)
+        s, asp = ctx.horn(pr0, pr1, pc0, pc1)
+        inner = (slice(r0 - pr0, r0 - pr0 + mwin.shape[0]),
+                 slice(c0 - pc0, c0 - pc0 + mwin.shape[1]))
+        sm, aspm = s[inner][mwin], asp[inner][mwin]
+
+    def member(flat):
+        rr, cc = np.divmod(flat, nc)
+        ok = (rr >= r0) & (rr <= r1) & (cc >= c0) & (cc <= c1)
+        ok[ok] = mwin[rr[ok] - r0, cc[ok] - c0]
+        return ok
+
+    return _describe(ctx, cells, ctx.z[win][mwin], sm, aspm, int(outlet), member,
+                     want_curve, poly)
+
+
+def _outlet_outside(orow, ocol):
+    raise OutletError(f"the outlet cell (row {orow}, col {ocol}) is not inside its "
+                      "catchment; give the outlet the catchment was delineated from")
+
+
+def _describe(ctx, cells, zm, sm, aspm, outlet, member, want_curve, poly):
+    """Descriptors of the catchment of ``cells`` (flat) from its cells' elevations, slopes
+    and aspects, its polygon and ``member`` (see :func:`_network_stats`)."""
+    fm = ctx.fm
+    t = fm.terrain
+    orow, ocol = divmod(outlet, ctx.nc)
+    am = ctx.row_area[cells // ctx.nc]
     area = float(am.sum())
     ox, oy = t.xy_of(orow, ocol)
     out = {"outlet_x": float(ox), "outlet_y": float(oy), "outlet_row": orow,
-           "outlet_col": ocol, "cell_count": int(mwin.sum()), "area_m2": area,
+           "outlet_col": ocol, "cell_count": int(cells.size), "area_m2": area,
            "area_km2": area / 1e6}
     # ---- shape
-    if poly is None:
-        poly = mask_to_polygon(mwin, t.transform @ Affine.translation(c0, r0))
+    from .polygons import ground_area_perimeter
+
     _, p_edges = ground_area_perimeter(poly, t.crs)
-    smooth = poly.simplify(max(ctx.cell_w, ctx.cell_h), preserve_topology=True)
+    # corners snapped to a millionth of a cell, no collinear vertices, rings in normal form
+    # (start vertex, orientation): the simplified outline, and so the perimeter, then
+    # depend on the polygon only, not on how its tracer walked it or rounded its corners
+    import shapely
+
+    tol = max(ctx.cell_w, ctx.cell_h)
+    outline = shapely.normalize(shapely.set_precision(poly, tol * 1e-6, mode="pointwise")
+                                .simplify(0))
+    smooth = outline.simplify(tol, preserve_topology=True)
     _, perim = ground_area_perimeter(smooth, t.crs)
     out["perimeter_m"] = perim
     out["perimeter_cell_edges_m"] = p_edges
-    ri, ci = np.nonzero(mwin)
-    cells = (rows[ri] * nc + cols[ci]).astype(np.int64)
     dl = ctx.downstream_length
     out["longest_flow_path_m"] = float(dl[cells].max() - dl[outlet])
     lstraight = _farthest_vertex(fm, poly, ox, oy)
@@ -312,8 +353,6 @@ def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve, poly=None):
         out["compactness_coefficient"] = (perim / (2.0 * math.sqrt(math.pi * area))
                                           if area > 0 else np.nan)
     # ---- relief
-    zw = ctx.z[win]
-    zm = zw[mwin]
     ok = np.isfinite(zm)
     zmin = float(zm[ok].min())
     zmax = float(zm[ok].max())
@@ -329,19 +368,7 @@ def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve, poly=None):
     curve = _curve_frame(h, a_above, elev) if want_curve else None
     out["hypsometric_integral"] = hi if relief > 0 else np.nan
     out["elevation_relief_ratio"] = (zmean - zmin) / relief if relief > 0 else np.nan
-    # ---- slope and aspect (Horn 1981) on the window padded by one cell (or read from the
-    # whole grid's, computed once: the same values, as every cell of the catchment sees
-    # its true neighbours either way)
-    if ctx.slope is not None:
-        s, asp = ctx.slope[win], ctx.aspect[win]
-        inner = (slice(None), slice(None))
-    else:
-        pr0, pr1 = max(r0 - 1, 0), min(r1 + 1, t.shape[0] - 1)
-        pc0, pc1 = max(c0 - 1, 0), min(c1 + 1, t.shape[1] - 1)
-        s, asp = ctx.horn(pr0, pr1, pc0, pc1)
-        inner = (slice(r0 - pr0, r0 - pr0 + mwin.shape[0]),
-                 slice(c0 - pc0, c0 - pc0 + mwin.shape[1]))
-    sm = s[inner][mwin]
+    # ---- slope and aspect
     good = np.isfinite(sm)
     sw, aw = sm[good], am[good]
     if sw.size:
@@ -353,7 +380,7 @@ def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve, poly=None):
         out["slope_p10_m_per_m"] = float(p10)
         out["slope_p90_m_per_m"] = float(p90)
         out["max_slope_m_per_m"] = float(sw.max())
-    am_asp = asp[inner][mwin][good]
+    am_asp = aspm[good]
     flat = ~np.isfinite(am_asp)
     sector = np.floor(((np.where(flat, 0.0, am_asp) + 22.5) % 360.0) / 45.0).astype(np.int64)
     tot = aw.sum()
@@ -364,7 +391,7 @@ def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve, poly=None):
     # ---- network
     if ctx.network is not None:
         out["channel_min_area_m2"] = float(ctx.network.min_area_m2)
-        _network_stats(ctx, win, rows, cols, mwin, area, out)
+        _network_stats(ctx, cells, member, area, out)
     return out, curve
 
 
@@ -465,7 +492,7 @@ def basin_morphometry(fm, mask, outlet_cell, network=None, return_curve=False):
 
 
 def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
-                      return_curves=False, progress=None, label_ranges=None):
+                      return_curves=False, progress=None, label_ranges=None, polygons=None):
     """Morphometry of many catchments, one row each (see :func:`basin_morphometry`).
 
     Parameters
@@ -489,7 +516,11 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
         With a label grid: catchment ``i`` is the cells labelled ``label_ranges[i, 0]`` to
         ``label_ranges[i, 1]`` (the depth-first labels of
         :class:`~basinkit.analysis.catchments.Delineation`, where a nested catchment is a
-        contiguous label range), measured in its bounding box without full-grid masks.
+        contiguous label range), measured on its cells, listed once for all catchments by
+        label (a range is one slice of that list), without masks or windows.
+    polygons : sequence of shapely geometries, optional
+        With ``label_ranges``: each catchment's polygon, as the delineation traced it
+        (default: traced here from its cells).
 
     Returns
     -------
@@ -510,8 +541,6 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
     >>> tab["area_m2"].tolist(), tab["error"].tolist()
     ([2000.0, 2000.0], ['', ''])
     """
-    import pandas as pd
-
     outlets = np.asarray(outlet_cells, dtype=np.int64).ravel()
     n = outlets.size
     ids = np.arange(1, n + 1) if ids is None else np.asarray(ids).ravel()
@@ -549,9 +578,12 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
                  and hasattr(masks_or_labels, "__len__") else list(masks_or_labels))
         if len(masks) != n:
             raise InputError(f"{len(masks)} catchment masks for {n} outlets")
+    if labels is not None and label_ranges is not None:
+        rows, curves = _range_rows(ctx, labels, ranges, nlab, outlets, ids, return_curves,
+                                   progress, polygons, (rmin, rmax, cmin, cmax))
+        return _finish_table(rows, curves, return_curves)
     if labels is not None:
-        ctx.use_full_grid_slope(rmin, rmax, cmin, cmax, ranges if label_ranges is not None
-                                else ids)
+        ctx.use_full_grid_slope(rmin, rmax, cmin, cmax, ids)
     import rasterio
 
     with rasterio.Env():  # one GDAL environment for every polygon of the batch
@@ -562,13 +594,7 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
             cid = ids[i]
             rec = {"catchment_id": cid.item() if hasattr(cid, "item") else cid}
             try:
-                if labels is not None and label_ranges is not None:
-                    if rmin[i] > rmax[i]:
-                        raise InputError(f"catchment {cid} has no cells in the label grid")
-                    r0, r1, c0, c1 = rmin[i], rmax[i], cmin[i], cmax[i]
-                    mwin = _catchments.range_mask(labels[r0:r1 + 1, c0:c1 + 1],
-                                                  ranges[i, 0], ranges[i, 1]).view(bool)
-                elif labels is not None:
+                if labels is not None:
                     if cid <= 0 or rmin[cid] > rmax[cid]:
                         raise InputError(f"catchment {cid} has no cells in the label grid")
                     r0, r1, c0, c1 = rmin[cid], rmax[cid], cmin[cid], cmax[cid]
@@ -584,8 +610,7 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
                     r0, r1, c0, c1 = rr[0], rr[-1], cc[0], cc[-1]
                     mwin = m[r0:r1 + 1, c0:c1 + 1]
                 out, curve = _measure(ctx, r0, r1, c0, c1, mwin, outlets[i], return_curves,
-                                      polys.get(int(cid)) if labels is not None
-                                      and label_ranges is None else None)
+                                      polys.get(int(cid)) if labels is not None else None)
                 rec.update(out)
                 rec["error"] = ""
                 if return_curves:
@@ -593,6 +618,63 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
             except (InputError, OutletError) as exc:
                 rec["error"] = str(exc)
             rows.append(rec)
+    return _finish_table(rows, curves, return_curves)
+
+
+def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, polygons,
+                boxes):
+    """Rows (and curves) of the catchments given as depth-first label ranges."""
+    from affine import Affine
+
+    from .polygons import mask_to_polygon
+
+    lab = labels.ravel()
+    order, starts = _catchments.cells_by_label(lab, ctx.valid.ravel(), nlab)
+    if ctx.slope is None:  # nested catchments cover the grid many times over: once here
+        nr, nc = ctx.valid.shape
+        ctx.slope, ctx.aspect = ctx.horn(0, nr - 1, 0, nc - 1)
+    z, slope, aspect = ctx.z.ravel(), ctx.slope.ravel(), ctx.aspect.ravel()
+    rows, curves = [], {}
+    todo = range(outlets.size)
+    if progress is not None:
+        todo = progress(todo, total=outlets.size, desc="morphometry")
+    for i in todo:
+        cid = ids[i]
+        rec = {"catchment_id": cid.item() if hasattr(cid, "item") else cid}
+        lo, hi = int(ranges[i, 0]), int(ranges[i, 1])
+        try:
+            if not 0 < lo <= hi < nlab or starts[lo] == starts[hi + 1]:
+                raise InputError(f"catchment {cid} has no cells in the label grid")
+            cells = order[starts[lo]:starts[hi + 1]]
+            o = int(outlets[i])
+            if not lo <= lab[o] <= hi:
+                _outlet_outside(*divmod(o, ctx.nc))
+            poly = polygons[i] if polygons is not None else None
+            if poly is None:
+                r0, r1, c0, c1 = (int(b[i]) for b in boxes)
+                poly = mask_to_polygon(
+                    _catchments.range_mask(labels[r0:r1 + 1, c0:c1 + 1], lo, hi),
+                    ctx.fm.terrain.transform @ Affine.translation(c0, r0))
+
+            def member(flat, lo=lo, hi=hi):
+                v = lab[flat]
+                return (v >= lo) & (v <= hi)
+
+            out, curve = _describe(ctx, cells, z[cells], slope[cells], aspect[cells], o,
+                                   member, want_curves, poly)
+            rec.update(out)
+            rec["error"] = ""
+            if want_curves:
+                curves[rec["catchment_id"]] = curve
+        except (InputError, OutletError) as exc:
+            rec["error"] = str(exc)
+        rows.append(rec)
+    return rows, curves
+
+
+def _finish_table(rows, curves, return_curves):
+    import pandas as pd
+
     table = pd.DataFrame(rows)
     # per-order columns last, in order
     order_cols = sorted([c for c in table.columns if "_order_" in c],

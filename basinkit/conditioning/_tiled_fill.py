@@ -244,28 +244,29 @@ def solve_levels(z, valid, labels, tile, ntc, base, nnodes, ga, gb, gw):
                 xb[nx] = _gid(labels, base, r, cc, tile, ntc)
                 xw[nx] = max(z[r - 1, c], z[r, cc])
                 nx += 1
+    return flood_graph(nnodes, np.concatenate((ga, xa[:nx])), np.concatenate((gb, xb[:nx])),
+                       np.concatenate((gw, xw[:nx])))
+
+
+@njit(cache=True, nogil=True)
+def flood_graph(nnodes, ga, gb, gw):
+    """Priority-Flood on the graph of labels: node 0 is the outside, edge e joins ``ga[e]``
+    and ``gb[e]`` at level ``gw[e]``. Returns the level of every node (float32; -inf for the
+    outside): the lowest level at which water from it can reach the outside (minimax path)."""
     # adjacency lists (both directions)
     deg = np.zeros(nnodes + 1, dtype=np.int64)
     for e in range(ga.shape[0]):
         deg[ga[e] + 1] += 1
         deg[gb[e] + 1] += 1
-    for e in range(nx):
-        deg[xa[e] + 1] += 1
-        deg[xb[e] + 1] += 1
     for v in range(nnodes):
         deg[v + 1] += deg[v]
     fill = deg[:-1].copy()
     nbr = np.empty(deg[nnodes], dtype=np.int64)
     wt = np.empty(deg[nnodes], dtype=np.float32)
-    for e in range(ga.shape[0] + nx):
-        if e < ga.shape[0]:
-            a = ga[e]
-            b = gb[e]
-            w = gw[e]
-        else:
-            a = xa[e - ga.shape[0]]
-            b = xb[e - ga.shape[0]]
-            w = xw[e - ga.shape[0]]
+    for e in range(ga.shape[0]):
+        a = ga[e]
+        b = gb[e]
+        w = gw[e]
         nbr[fill[a]] = b
         wt[fill[a]] = w
         fill[a] += 1

@@ -237,6 +237,22 @@ class OutputFolder:
             write_csv(p, frame)
         return p
 
+    @contextlib.contextmanager
+    def csv_stream(self, name, columns):
+        """A CSV table written piece by piece (:class:`basinkit.io.writers.CsvStream`):
+        ``with out.csv_stream("profile.csv", COLUMNS) as table: table.write_text(...)``.
+        The file appears, complete, when the block ends without an error."""
+        from ..io.writers import CsvStream
+
+        with self._writing(name) as p:
+            table = CsvStream(p, columns)
+            try:
+                yield table
+            except BaseException:
+                table.discard()
+                raise
+            table.close()
+
     def json(self, name, obj) -> Path:
         """Write JSON (sorted keys, UTF-8)."""
         from ..io.writers import write_json

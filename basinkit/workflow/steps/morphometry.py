@@ -113,7 +113,8 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
         ids = tab["label"].to_numpy(np.int64)
     table, curves = morphometry_table(fm, d.labels, cells, ids=ids, network=network,
                                       return_curves=True, progress=rep.progress,
-                                      label_ranges=ranges)
+                                      label_ranges=ranges,
+                                      polygons=d.polygons if nested else None)
     curves = [curves.get(i.item() if hasattr(i, "item") else i) for i in table["catchment_id"]]
     table = table.drop(columns="catchment_id")
     table.insert(0, "outlet_id", tab["outlet_id"].astype(str).to_numpy())

@@ -97,15 +97,15 @@ class ProfilesResult:
 
     Attributes
     ----------
-    nodes, steepness, knickpoints, flow_paths : pandas.DataFrame
-        profile.csv, steepness.csv, knickpoints.csv, flow_paths.csv.
+    steepness, knickpoints, flow_paths : pandas.DataFrame
+        steepness.csv, knickpoints.csv, flow_paths.csv (profile.csv, the nodes, is written
+        as the outlets come and not kept: read it back with pandas).
     paths : dict
         ``{outlet_id: {"longest_flow_path": Profile, "main_stem": Profile}}``.
     failures : pandas.DataFrame
         ``outlet_id, source, reason`` of outlets whose profiles failed.
     """
 
-    nodes: object
     steepness: object
     knickpoints: object
     flow_paths: object
@@ -150,8 +150,6 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
         rep.warn(f"no figures for {', '.join(map(repr, missing[:10]))}: not among the "
                  "outlets placed")
     fig_rows = set(fig_rows) if s.figures else set()
-    nodes_l, steep_l, knick_l, path_rows, lines, summaries, fails = [], [], [], [], [], [], []
-    paths = {}
     nc = fm.ncols
     rows = list(tab[["outlet_id", "file_id", "cell", "source"]].itertuples(index=False))
     items = [(k, str(o), str(f), int(c), k in fig_rows) for k, (o, f, c, _) in
@@ -162,6 +160,63 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
                           min_items=FIGURE_FORK_MIN_ITEMS if fig_rows else FORK_MIN_ITEMS,
                           shared={"fm": fm, "network": network, "settings": s,
                                   "strahler": np.asarray(network.strahler).ravel()})
+    with out.csv_stream("profile.csv", NODE_COLUMNS) as node_table:
+        c = _collect(out, results, items, rows, nc, rep, node_table)
+    summaries, fails, paths = c.summaries, c.fails, c.paths
+    steep = _concat(c.steep, ["outlet_id", "segment_id"])
+    knick = _concat(c.knick, ["outlet_id"])
+    flow_paths = _concat([pd.DataFrame(c.path_rows)], _PATH_FIRST)
+    failures = pd.DataFrame(fails, columns=["outlet_id", "source", "reason"])
+    files = ["profile.csv", "steepness.csv", "knickpoints.csv", "flow_paths.csv",
+             "profiles.gpkg", "profiles.json"]
+    params = {**s.parameters(), **(parameters or {}),
+              "channel_min_area_m2": float(network.min_area_m2),
+              "snapping": placed.snapping}
+    meta = step_record(fm, params, inputs, files=files, snapping=placed.snapping,
+                       outlets=summaries, failures=fails,
+                       outlets_profiled=len(summaries), outlets_failed=len(fails))
+    out.csv("steepness.csv", steep)
+    out.csv("knickpoints.csv", knick)
+    out.csv("flow_paths.csv", flow_paths)
+    _write_layers(out, fm, network, steep, knick, c.lines, layer_metadata())
+    out.json("profiles.json", meta)
+    rep.info(f"profiles of {len(summaries)} outlet(s)"
+             + (f", {len(fails)} failed" if fails else ""))
+    return ProfilesResult(steep, knick, flow_paths, paths, failures)
+
+
+# profile.csv: channel nodes (``profile_id`` .. ``ksn_local_m_per_m``) and flow-path nodes
+# (``node``), one fixed header whatever the outlets; a column a row's kind lacks is empty
+NODE_COLUMNS = ["outlet_id", "profile_kind", "profile_id", "is_main_stem", "segment_id",
+                "strahler_order", "cell", "row", "col", "x", "y", "downstream_cell",
+                "distance_from_outlet_m", "elevation_m", "elevation_conditioned_m",
+                "upstream_area_m2", "slope_m_per_m", "chi_m", "ksn_local_m_per_m", "node"]
+_PATH_FIRST = ["outlet_id", "file_id", "kind", "length_m", "slope_10_85_m_per_m",
+               "average_slope_m_per_m", "outlet_elevation_m", "head_elevation_m",
+               "outlet_elevation_conditioned_m", "head_elevation_conditioned_m",
+               "upstream_area_m2", "concavity", "reference_area_m2", "chi_head_m",
+               "node_count", "outlet_x", "outlet_y", "head_x", "head_y", "warning", "error"]
+
+
+@dataclass
+class _Collected:
+    """What the parent keeps of the outlets' results (the node rows are streamed)."""
+
+    steep: list = field(default_factory=list)
+    knick: list = field(default_factory=list)
+    path_rows: list = field(default_factory=list)
+    lines: list = field(default_factory=list)
+    summaries: list = field(default_factory=list)
+    fails: list = field(default_factory=list)
+    paths: dict = field(default_factory=dict)
+
+
+def _collect(out, results, items, rows, nc, rep, node_table) -> _Collected:
+    """Take the outlets' results in order: node rows to profile.csv as they come, the rest
+    kept."""
+    c = _Collected()
+    steep_l, knick_l, path_rows, lines = c.steep, c.knick, c.path_rows, c.lines
+    summaries, fails, paths = c.summaries, c.fails, c.paths
     # results first in zip: the progress generator then runs to its end (its last line)
     for r, (k, oid, fid, cell, _) in zip(results, items):
         src = str(rows[k].source)
@@ -176,7 +231,7 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
         summary.update(outlet_row=cell // nc, outlet_col=cell % nc, source=src)
         for w in summary.get("warnings", []):
             rep.warn(f"outlet {oid!r}: {w}")
-        nodes_l.extend(r["frames"])
+        node_table.write_text(r["node_rows"])
         steep_l.append(r["steepness"])
         knick_l.append(r["knickpoints"])
         warning = "; ".join(summary.get("warnings", []))
@@ -186,41 +241,12 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
             lines.append((oid, prof))
         summaries.append(summary)
         paths[oid] = {"longest_flow_path": lfp, "main_stem": ms,
-                      "channel_nodes": r["frames"][0], "steepness": r["steepness"],
+                      "steepness": r["steepness"],
                       "knickpoints": r["knickpoints"],
                       "warnings": summary.get("warnings", [])}
         for what, png in r.get("figures", {}).items():
             out.data(f"figures/{fid}_{what}.png", png)
-    nodes = _concat(nodes_l, _NODE_FIRST)
-    steep = _concat(steep_l, ["outlet_id", "segment_id"])
-    knick = _concat(knick_l, ["outlet_id"])
-    flow_paths = _concat([pd.DataFrame(path_rows)], _PATH_FIRST)
-    failures = pd.DataFrame(fails, columns=["outlet_id", "source", "reason"])
-    files = ["profile.csv", "steepness.csv", "knickpoints.csv", "flow_paths.csv",
-             "profiles.gpkg", "profiles.json"]
-    params = {**s.parameters(), **(parameters or {}),
-              "channel_min_area_m2": float(network.min_area_m2),
-              "snapping": placed.snapping}
-    meta = step_record(fm, params, inputs, files=files, snapping=placed.snapping,
-                       outlets=summaries, failures=fails,
-                       outlets_profiled=len(summaries), outlets_failed=len(fails))
-    out.csv("profile.csv", nodes)
-    out.csv("steepness.csv", steep)
-    out.csv("knickpoints.csv", knick)
-    out.csv("flow_paths.csv", flow_paths)
-    _write_layers(out, fm, network, steep, knick, lines, layer_metadata())
-    out.json("profiles.json", meta)
-    rep.info(f"profiles of {len(summaries)} outlet(s)"
-             + (f", {len(fails)} failed" if fails else ""))
-    return ProfilesResult(nodes, steep, knick, flow_paths, paths, failures)
-
-
-_NODE_FIRST = ["outlet_id", "profile_kind"]
-_PATH_FIRST = ["outlet_id", "file_id", "kind", "length_m", "slope_10_85_m_per_m",
-               "average_slope_m_per_m", "outlet_elevation_m", "head_elevation_m",
-               "outlet_elevation_conditioned_m", "head_elevation_conditioned_m",
-               "upstream_area_m2", "concavity", "reference_area_m2", "chi_head_m",
-               "node_count", "outlet_x", "outlet_y", "head_x", "head_y", "warning", "error"]
+    return c
 
 
 def _concat(frames, first):
@@ -247,13 +273,17 @@ def _profile_item(item):
             fm, net, shared("strahler"), oid, fid, cell, s)
     except BasinkitError as exc:
         return {"error": str(exc)}
-    frames = [channel]
+    from ...io.writers import csv_rows
+
+    # the rows of profile.csv, formatted here (in the worker) and streamed by the parent:
+    # the nodes of a batch are millions of rows, never held whole
+    text = [csv_rows(channel, NODE_COLUMNS)]
     for prof in (ms, lfp):
         f = prof.to_frame()
         f.insert(0, "outlet_id", oid)
-        frames.append(f)
-    r = {"frames": frames, "steepness": steep, "knickpoints": knick, "lfp": lfp, "ms": ms,
-         "summary": summary}
+        text.append(csv_rows(f, NODE_COLUMNS))
+    r = {"node_rows": "".join(text), "steepness": steep, "knickpoints": knick, "lfp": lfp,
+         "ms": ms, "summary": summary}
     if figures:
         r["figures"] = _figures(oid, channel, steep, knick, lfp, ms)
     return r
