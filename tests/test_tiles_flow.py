@@ -29,6 +29,7 @@ from basinkit.tiles import MemoryTiles, TileLayout
 from basinkit.tiles.accumulate import flow_accumulation
 from basinkit.tiles.channels import channel_orders
 from basinkit.tiles.labels import catchment_labels
+from basinkit.tiles.segments import channel_segments
 
 from conftest import PYSHEDS_DIRMAP, fractal_dem, pysheds_fdir, pysheds_grid
 
@@ -455,6 +456,77 @@ def test_channel_segments_geographic():
     flow_accumulation(layout, store, fm.terrain.geometry.area)
     channel_orders(layout, store, threshold)
     _check_segments(fm, layout, store, threshold, geographic=True)
+
+
+@pytest.mark.parametrize("geographic", [False, True])
+def test_from_elevation_tiles_to_segments(geographic):
+    """The whole tiled path from elevation tiles: fill and directions by tiles
+    (tiles/route.py), then accumulation, labels, orders, segments, table and polygons,
+    georeferenced from the store's metadata. Oracle: route() and the in-memory analyses
+    on the same DEM."""
+    import shapely
+
+    from basinkit.tiles.polygons import catchment_polygons
+    from basinkit.tiles.route import route_by_tiles, write_terrain
+    from basinkit.tiles.tables import catchment_table
+
+    z = fractal_dem(36, 41, seed=21, holes=3)
+    if geographic:
+        d = 1.0 / 1200
+        t = terrain_from_array(z, transform=Affine(d, 0, 10.0, 0, -d, 47.0),
+                               crs="EPSG:4326")
+    else:
+        t = terrain_from_array(z, cellsize=10, sea_level=60.0)
+    fm = route(t)
+    layout = TileLayout(*fm.shape, 7, 9)
+    store = MemoryTiles(layout)
+    write_terrain(layout, store, t)
+    route_by_tiles(layout, store)
+    np.testing.assert_array_equal(_grid(layout, store, "directions"), _directions(fm))
+    flow_accumulation(layout, store)
+    np.testing.assert_array_equal(_grid(layout, store, "cell_count"), fm.accumulation())
+    area = fm.accumulation(unit="m2")
+    if not geographic:
+        np.testing.assert_array_equal(_grid(layout, store, "upstream_area_m2"), area)
+    a = np.sort(np.unique(area[t.valid]))
+    k = int(np.searchsorted(a, 15 * a[0]))
+    threshold = 0.5 * (a[k] + a[k + 1])
+    channel_orders(layout, store, threshold)
+    net = extract_channels(fm, threshold, geometry=True)
+    np.testing.assert_array_equal(_grid(layout, store, "strahler_order"), net.strahler)
+    segs, junctions = channel_segments(layout, store, threshold, elevation="filled",
+                                       lines=True)
+    m = net.segments.merge(segs, on=["bottom_row", "bottom_col"], suffixes=("_ref", ""))
+    assert len(m) == len(net.segments) == len(segs)
+    for col in ["cell_count", "top_row", "top_col", "straight_length_m", "drop_m",
+                "strahler_order"]:
+        np.testing.assert_array_equal(m[col], m[col + "_ref"], err_msg=col)
+    assert all(shapely.equals_exact(g, h, tolerance=0.0)
+               for g, h in zip(m["geometry"], m["geometry_ref"]))
+    assert len(junctions) == len(net.junctions)
+    outlets = _nested_outlets(fm, 6, 5, seed=22)
+    res = catchment_labels(layout, store, outlets)
+    d = _delineate(fm, outlets)
+    np.testing.assert_array_equal(_grid(layout, store, "catchment_labels"), d.labels)
+    tab = catchment_table(layout, store, res, outlet_ids=d.table["outlet_id"])
+    assert tab["cell_count"].tolist() == d.table["cell_count"].tolist()
+    assert tab["touches_edge"].tolist() == d.table["touches_edge"].tolist()
+    full, _ = catchment_polygons(layout, store, res)
+    assert all(shapely.equals(g, h) for g, h in zip(full, _delineate_polygons(fm, outlets)))
+
+
+@pytest.mark.parametrize("tile", [3, 8, 20])
+def test_nodata_frame_around_the_grid(tile):
+    """A DEM inside a frame of nodata (tile edges without a valid cell, or a single tile
+    whose edge is all nodata). Oracle: the in-memory path."""
+    z = fractal_dem(16, 14, seed=30)
+    z[[0, -1], :] = np.nan
+    z[:, [0, -1]] = np.nan
+    fm = route(terrain_from_array(z, cellsize=10))
+    valid = np.flatnonzero(fm.terrain.valid.ravel())
+    store = _check_all(fm, TileLayout.square(16, 14, tile), threshold=300.0,
+                       outlets=valid[::17])
+    _check_segments(fm, TileLayout.square(16, 14, tile), store, 300.0, lines=False)
 
 
 class _Crash(RuntimeError):

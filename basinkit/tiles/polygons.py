@@ -51,7 +51,7 @@ def _to_map(geoms, transform):
     return [None if g is None else shapely.transform(g, place) for g in geoms]
 
 
-def catchment_polygons(layout, store, catchments, transform, *, crs=None,
+def catchment_polygons(layout, store, catchments, transform=None, *, crs=None,
                        scheduler=None, workers: int | None = None):
     """Full-catchment and sub-catchment polygons of outlets labelled by tiles.
 
@@ -62,8 +62,8 @@ def catchment_polygons(layout, store, catchments, transform, *, crs=None,
         Holding the labels (``catchments.layer``).
     catchments : TiledCatchments
         From :func:`basinkit.tiles.catchment_labels`.
-    transform : affine.Affine
-        The grid's transform.
+    transform : affine.Affine, optional
+        The grid's transform (default, with ``crs``: from the store's metadata).
     crs : optional
         The grid's CRS; on a geographic grid the edges are densified to one vertex per
         cell, as :func:`delineate` does, so that geodesic areas match the cell sums.
@@ -89,6 +89,10 @@ def catchment_polygons(layout, store, catchments, transform, *, crs=None,
     import shapely
 
     _check_layout(layout, store)
+    if transform is None:
+        from .accumulate import store_georeference
+
+        _, transform, crs = store_georeference(layout, store)
     n = catchments.subtree_size.size - 1
     with Engine(scheduler, workers) as eng:
         spec = eng.spec(store)

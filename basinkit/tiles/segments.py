@@ -15,7 +15,7 @@ from numba import njit
 from ..analysis._channels import strahler_streams
 from ..errors import InputError
 from . import _flow_kernels as K
-from .accumulate import TileFlow, _check_layout, by_tile
+from .accumulate import TileFlow, _check_layout, by_tile, take
 from .channels import CHANNEL_LAYERS
 from .engine import Engine, check_settings, open_store
 
@@ -189,7 +189,7 @@ def _join(parts):
     npos = K.lookup(tkeys, nxt)
     below = np.where(npos >= 0, tsort[np.maximum(npos, 0)], -1)  # piece whose top is next
     cont = (nxt >= 0) & ~cat["split"] & (bpos >= 0) & (below >= 0)
-    cont &= np.where(bpos >= 0, ndon[np.maximum(bpos, 0)], 2) < 2
+    cont &= take(ndon, bpos, 2) < 2
     up = np.full(npc, -1, dtype=np.int64)
     up[below[cont]] = np.flatnonzero(cont)
     bottoms = np.flatnonzero(~cont)  # pieces that end a segment
@@ -270,7 +270,7 @@ def _straight(top, end, ncols, geometry, crs, transform):
     return np.hypot((cb - ca) * geometry.dx[0], (rb - ra) * geometry.dy_down[0])
 
 
-def channel_segments(layout, store, min_area_m2, geometry, *, outlet_cells=None,
+def channel_segments(layout, store, min_area_m2, geometry=None, *, outlet_cells=None,
                      crs=None, transform=None, directions: str = "directions",
                      area: str = "upstream_area_m2", orders=CHANNEL_LAYERS,
                      elevation: str | None = None, layer: str = "segment_id",
@@ -286,8 +286,9 @@ def channel_segments(layout, store, min_area_m2, geometry, *, outlet_cells=None,
         given, ``elevation`` (the routed surface); receives ``layer``.
     min_area_m2 : float
         The channel threshold the orders were computed with.
-    geometry : CellGeometry
-        The grid's cell geometry (lengths along the flow, m).
+    geometry : CellGeometry, optional
+        The grid's cell geometry (lengths along the flow, m). Without it, the geometry,
+        ``crs`` and ``transform`` come from the store's metadata.
     outlet_cells : array of int, optional
         Flat cells where segments are also split (catchment outlets).
     crs, transform : optional
@@ -327,6 +328,10 @@ def channel_segments(layout, store, min_area_m2, geometry, *, outlet_cells=None,
     grouping: equal within rounding (see :func:`flow_accumulation`).
     """
     _check_layout(layout, store)
+    if geometry is None:
+        from .accumulate import store_georeference
+
+        geometry, transform, crs = store_georeference(layout, store)
     try:
         thr = float(min_area_m2)
     except (TypeError, ValueError):

@@ -119,7 +119,7 @@ def _touches_across(layout, parts):
     return np.unique(L[hit])
 
 
-def catchment_table(layout, store, catchments, row_area, *, outlet_ids=None,
+def catchment_table(layout, store, catchments, row_area=None, *, outlet_ids=None,
                     outlet_cells=None, directions: str = "directions",
                     elevation: str | None = None, scheduler=None,
                     workers: int | None = None) -> pd.DataFrame:
@@ -133,8 +133,8 @@ def catchment_table(layout, store, catchments, row_area, *, outlet_ids=None,
         ``elevation`` (the DEM as read, NaN or nodata where missing).
     catchments : TiledCatchments
         From :func:`basinkit.tiles.catchment_labels`.
-    row_area : array of float (nrows,)
-        Cell area of each row, m².
+    row_area : array of float (nrows,), optional
+        Cell area of each row, m² (default: from the store's metadata).
     outlet_ids : sequence of str, optional
         Ids of the outlets, in the order given to :func:`catchment_labels` (default
         ``"1"``, ``"2"``, ...).
@@ -162,6 +162,10 @@ def catchment_table(layout, store, catchments, row_area, *, outlet_ids=None,
     :func:`flow_accumulation`).
     """
     _check_layout(layout, store)
+    if row_area is None:
+        from .accumulate import store_georeference
+
+        row_area = store_georeference(layout, store)[0].area
     row_area = np.ascontiguousarray(row_area, dtype=np.float64)
     if row_area.shape != (layout.nrows,):
         raise InputError(f"row_area needs one cell area per row ({layout.nrows}), got shape "
