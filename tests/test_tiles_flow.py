@@ -570,6 +570,60 @@ def test_resume_after_a_killed_run(basin, tmp_path):
     assert flow_accumulation(layout, again, fm.terrain.geometry.area)["computed"] == 0
 
 
+_KILLED_CHILD = """
+import sys, time
+import numpy as np
+from basinkit.io.tile_folder import TileFolder
+from basinkit.tiles.accumulate import flow_accumulation
+
+class Slow(TileFolder):
+    def write(self, layer, ti, tj, array):
+        if layer == "cell_count":
+            time.sleep(0.2)
+        super().write(layer, ti, tj, array)
+
+folder = sys.argv[1]
+store = Slow.open(folder)
+flow_accumulation(store.layout, store, np.load(folder + "/row_area.npy"),
+                  scheduler="synchronous")
+"""
+
+
+def test_resume_after_sigkill(basin, tmp_path):
+    """A process killed (SIGKILL) in the middle of the second pass: the tiles it finished
+    stay, no tile is half-written, and a new run finishes the rest. Oracle: route()."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    fm = basin
+    layout = TileLayout.square(*fm.shape, 12)
+    folder = tmp_path / "tiles"
+    _store(fm, layout, TileFolder(folder, layout))
+    np.save(folder / "row_area.npy", fm.terrain.geometry.area)
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
+    proc = subprocess.Popen([sys.executable, "-c", _KILLED_CHILD, str(folder)], env=env)
+    try:
+        deadline = time.monotonic() + 60
+        while len(list((folder / "cell_count").glob("*.npy"))) < 3:
+            assert proc.poll() is None, "the run ended before it could be killed"
+            assert time.monotonic() < deadline
+            time.sleep(0.02)
+    finally:
+        proc.send_signal(signal.SIGKILL)
+        proc.wait()
+    done = {p.name for p in (folder / "upstream_area_m2").glob("*.npy")}
+    assert 0 < len(done) < len(layout.tiles())
+    store = TileFolder.open(folder)
+    s = flow_accumulation(layout, store, fm.terrain.geometry.area)
+    assert s["computed"] <= len(layout.tiles()) - len(done)
+    np.testing.assert_array_equal(_grid(layout, store, "cell_count"), fm.accumulation())
+    np.testing.assert_array_equal(_grid(layout, store, "upstream_area_m2"),
+                                  fm.accumulation(unit="m2"))
+
+
 @pytest.mark.parametrize("step", ["labels", "orders", "segments"])
 def test_labels_and_orders_resume(basin, tmp_path, step):
     """Labels and orders stopped half-way resume as well (pass-1 links kept in the store's
