@@ -144,7 +144,7 @@ def test_pysheds_accumulation_on_tiles(basin):
     fm = basin
     layout = TileLayout.square(*fm.shape, 6)
     store = _store(fm, layout)
-    flow_accumulation(layout, store, fm.terrain.geometry.area)
+    flow_accumulation(layout, store, fm.terrain.geometry.area, workers=2)
     ours = _grid(layout, store, "cell_count").astype(np.float64)
     d = _directions(fm)
     grid, _ = pysheds_grid(np.where(fm.terrain.valid, fm.terrain.elevation, np.nan))
@@ -236,6 +236,12 @@ def test_geographic_areas_within_summation_rounding():
     ref = delineate(fm, [(f"o{i}", x, y) for i, (x, y) in enumerate(zip(xs, ys))],
                     snap_radius_m=0).polygons
     assert all(shapely.equals(a, b) for a, b in zip(full, ref))
+    from basinkit.tiles.polygons import perimeters_m
+
+    ref_perimeter = delineate(fm, [(f"o{i}", x, y) for i, (x, y) in enumerate(zip(xs, ys))],
+                              snap_radius_m=0).table["perimeter_m"]
+    np.testing.assert_allclose(perimeters_m(full, fm.terrain.crs), ref_perimeter,
+                               rtol=1e-12)
     step = d * 1.0000001
     assert all(shapely.length(g) / step <= shapely.get_num_coordinates(g) for g in full)
 
@@ -355,6 +361,10 @@ def test_catchment_polygons_equal_delineate(basin, tile_rows, tile_cols):
     assert len(full) == len(d.polygons) == outlets.size
     # regions in pieces (4-connected components) are among them
     assert any(g.geom_type == "MultiPolygon" for g in d.polygons + d.subcatchment_polygons)
+    from basinkit.tiles.polygons import perimeters_m
+
+    np.testing.assert_allclose(perimeters_m(full, fm.terrain.crs), d.table["perimeter_m"],
+                               rtol=1e-12)
     for mine, ref in zip(full + sub, list(d.polygons) + list(d.subcatchment_polygons)):
         assert (mine is None) == (ref is None)
         if ref is not None:

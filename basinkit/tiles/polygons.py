@@ -15,7 +15,7 @@ from ..errors import InputError
 from .accumulate import _check_layout
 from .engine import Engine, open_store
 
-__all__ = ["catchment_polygons"]
+__all__ = ["catchment_polygons", "perimeters_m"]
 
 
 def _pieces_task(spec, ti, tj, layer):
@@ -133,3 +133,23 @@ def catchment_polygons(layout, store, catchments, transform=None, *, crs=None,
         sub_map = [None if g is None else shapely.segmentize(g, seg) for g in sub_map]
     labels = np.asarray(catchments.label, dtype=np.int64)
     return [full_map[k] for k in labels], [sub_map[k] for k in labels]
+
+
+def perimeters_m(polygons, crs) -> np.ndarray:
+    """Perimeter (m, on the ground) of every polygon, as :func:`delineate` measures it:
+    geodesic on a geographic CRS (Karney 2013), else the planar length in the CRS's linear
+    unit converted to metres; NaN for None."""
+    import shapely
+
+    from pyproj import CRS
+
+    crs = CRS.from_user_input(crs)
+    if crs.is_geographic:
+        from ..analysis.polygons import ground_area_perimeter
+
+        return np.array([ground_area_perimeter(g, crs)[1] if g is not None else np.nan
+                         for g in polygons], dtype=float)
+    from ..terrain.geometry import _linear_unit_to_metres
+
+    return np.asarray(shapely.length(np.array(polygons, dtype=object)),
+                      dtype=float) * _linear_unit_to_metres(crs)
