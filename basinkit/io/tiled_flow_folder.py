@@ -181,10 +181,94 @@ class TiledFlowFolder:
             out = vals[inv].reshape(cells.shape)
         return out
 
+    def elevation_source(self):
+        """``(path, band)`` of the DEM as read, when it can be read by windows on this grid
+        (a copy in the folder, or the referenced file, unchanged and north-up on the same
+        grid); None otherwise."""
+        import rasterio
+
+        from .flow_folder import FILES
+        from .hashing import file_sha256
+
+        rec = self.meta.get("input_elevation") or {}
+        if rec.get("stored") == "copy" and (self.folder / FILES["input"]).exists():
+            return str(self.folder / FILES["input"]), 1
+        if rec.get("stored") != "reference" or not Path(rec.get("path", "")).is_file():
+            return None
+        try:
+            with rasterio.open(rec["path"]) as ds:
+                same = (ds.transform.almost_equals(self.transform)
+                        and (ds.height, ds.width) == self.layout.shape)
+        except Exception:  # noqa: BLE001 - an unreadable DEM: no elevation columns
+            return None
+        if not same or file_sha256(rec["path"]) != rec.get("sha256"):
+            return None
+        return str(rec["path"]), int(rec.get("band") or 1)
+
+    def windowed_model(self):
+        """A stand-in for a FlowModel that places outlets (:func:`place_outlets`) and
+        writes step records without holding the grid: its terrain's ``valid`` and its D8
+        upstream area are read cell by cell from the rasters, on demand."""
+        from ..terrain.model import Terrain
+
+        shape = self.layout.shape
+        valid = _Cells(self, "d8", shape, lambda a: a != -32768)
+        area = _Cells(self, "area", shape, lambda a: a.astype(np.float64))
+        src = (self.meta.get("inputs") or {}).get("dem") or {}
+        terrain = Terrain(_Shape(shape), valid, self.transform, self.crs, self.geometry(),
+                          None, src)
+        return _WindowedFlow(terrain, area, self)
+
     def store(self, work) -> "FlowRasterTiles":
         """A tile store on this folder, writing its own layers into the working folder
         ``work``."""
         return FlowRasterTiles.create(work, self)
+
+
+class _Shape:
+    """Stands for a grid of which only the shape is known."""
+
+    def __init__(self, shape):
+        self.shape = tuple(shape)
+        self.size = int(np.prod(self.shape))
+
+
+class _Cells:
+    """A grid read cell by cell from a raster of the folder: ``g.ravel()[cells]``."""
+
+    def __init__(self, flow, key, shape, convert):
+        self.flow, self.key, self.shape, self.convert = flow, key, tuple(shape), convert
+
+    def ravel(self):
+        return self
+
+    def __getitem__(self, cells):
+        cells = np.asarray(cells, dtype=np.int64)
+        if cells.size == 0:
+            return self.convert(np.zeros(cells.shape, dtype=np.int16))
+        return self.convert(self.flow.read_cells(self.key, cells))
+
+
+class _WindowedFlow:
+    """See :meth:`TiledFlowFolder.windowed_model`."""
+
+    method = "d8"
+    input_elevation = None
+
+    def __init__(self, terrain, area, flow):
+        self.terrain = terrain
+        self._area = area
+        self.flow = flow
+        self.meta = flow.meta
+        self.parameters = {**(flow.meta.get("parameters") or {}),
+                           "flow_folder": str(flow.folder.resolve())}
+
+    @property
+    def shape(self):
+        return self.terrain.shape
+
+    def d8_upstream_area_flat(self):
+        return self._area
 
 
 class FlowRasterTiles(TileFolder):
@@ -199,8 +283,11 @@ class FlowRasterTiles(TileFolder):
     def create(cls, work, flow: TiledFlowFolder) -> "FlowRasterTiles":
         work = Path(work)
         store = cls(work, flow.layout)
-        rec = {layer: str(flow.path(key).resolve())
+        rec = {layer: [str(flow.path(key).resolve()), 1]
                for layer, (key, *_rest) in TILED_PRODUCTS.items()}
+        elev = flow.elevation_source()
+        if elev is not None:
+            rec["elevation"] = [str(Path(elev[0]).resolve()), elev[1]]
         tmp = work / f".{cls.RECORD}.{os.getpid()}.tmp"
         tmp.write_text(json.dumps(rec))
         os.replace(tmp, work / cls.RECORD)
@@ -229,8 +316,8 @@ class FlowRasterTiles(TileFolder):
         from rasterio.windows import Window
 
         r0, r1, c0, c1 = self.layout.window(ti, tj)
-        with rasterio.open(src) as ds:  # one handle per read: safe in threads
-            a = ds.read(1, window=Window(c0, r0, c1 - c0, r1 - r0))
+        with rasterio.open(src[0]) as ds:  # one handle per read: safe in threads
+            a = ds.read(src[1], window=Window(c0, r0, c1 - c0, r1 - r0))
         if layer == "cell_count":
             a = a.astype(np.int64)
         return a
