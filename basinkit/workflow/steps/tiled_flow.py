@@ -355,6 +355,11 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
     plan = plan_route(nrows, ncols, budget, tile_size=tile_size, workers=nw)
     if plan.tiled:
         check_tiled_settings(settings)
+        if scheduler is not None:  # an unreachable cluster is told before any work
+            from ...tiles.engine import Engine
+
+            with Engine(scheduler):
+                pass
     elif scheduler is not None:
         rep.warn("--scheduler applies to the route by tiles; this grid is routed in memory")
     out = OutputFolder(output, overwrite).check()
