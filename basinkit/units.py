@@ -7,7 +7,8 @@ from __future__ import annotations
 
 from .errors import InputError
 
-__all__ = ["parse_area", "parse_length", "parse_depth", "parse_duration", "parse_intensity"]
+__all__ = ["parse_area", "parse_length", "parse_depth", "parse_duration", "parse_intensity",
+           "parse_memory"]
 
 _AREA = {"m2": 1.0, "ha": 1e4, "km2": 1e6}
 _LENGTH = {"m": 1.0, "km": 1e3}
@@ -85,3 +86,37 @@ def parse_duration(text, what="the duration"):
 def parse_intensity(text, what="the rainfall intensity"):
     """'45mm/h', '1.8in/h' → millimetres per hour. A bare number is refused."""
     return _parse_required_unit(text, _INTENSITY, what, "45mm/h")
+
+
+# ------------------------------------------------------------------ memory sizes
+# decimal prefixes as written on a machine's spec sheet, binary ones with an "i"
+_MEMORY = {"b": 1, "kb": 10**3, "mb": 10**6, "gb": 10**9, "tb": 10**12,
+           "kib": 2**10, "mib": 2**20, "gib": 2**30, "tib": 2**40,
+           "k": 10**3, "m": 10**6, "g": 10**9, "t": 10**12}
+
+
+def parse_memory(text, what="the memory size") -> int:
+    """'2GB', '256MB', '1.5GiB' → bytes (GB = 10⁹ bytes, GiB = 2³⁰ bytes). The unit is
+    required (a bare number is refused).
+
+    Examples
+    --------
+    >>> parse_memory("2GB"), parse_memory("256 MiB")
+    (2000000000, 268435456)
+    """
+    s = str(text).strip().lower().replace(" ", "")
+    for u in sorted(_MEMORY, key=len, reverse=True):
+        if s.endswith(u) and s[: -len(u)]:
+            num = s[: -len(u)]
+            break
+    else:
+        raise InputError(f"cannot read {what} {text!r}; write a number with a unit, one of "
+                         "MB, GB, TB (10^6, 10^9, 10^12 bytes) or MiB, GiB, TiB, e.g. 2GB")
+    try:
+        v = float(num)
+    except ValueError:
+        raise InputError(f"cannot read {what} {text!r}; write a number with a unit, one of "
+                         "MB, GB, TB or MiB, GiB, TiB, e.g. 2GB") from None
+    if not v > 0 or v == float("inf"):
+        raise InputError(f"{what} must be a positive size, got {text!r}")
+    return int(v * _MEMORY[u])

@@ -53,10 +53,14 @@ def slope_area_option(exponent, constant):
 @click.option("--critical-t", type=float, default=2.0, show_default=True,
               help="Largest |t| of the constant-drop test that passes.")
 @outlet_options(purpose="An outlet at which to split segments")
+@click.option("--scheduler", default=None, metavar="ADDRESS",
+              help="Tiled flow folders: run the tile tasks on a running dask.distributed "
+                   "cluster, e.g. tcp://host:8786 [default: threads here].")
 @overwrite_option
 @click.pass_obj
 def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
-            slope_area_constant, choose, threshold_steps, critical_t, outlets, overwrite):
+            slope_area_constant, choose, threshold_steps, critical_t, outlets, scheduler,
+            overwrite):
     """Extract the channel network: segments with Strahler order, Shreve magnitude,
     length, drop, slope, upstream areas and sinuosity; junctions; a Strahler order raster.
 
@@ -67,7 +71,12 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
     \b
     Example: basinkit channels flow/ --min-area 2ha --outlets demo_rasters/outlets.csv \\
         --snap-radius 30m --snap-to-channel 1ha -o channels/
+
+    On a flow folder routed by tiles (route --max-memory) the network is ordered by tiles
+    and only the Strahler order raster and channels.json are written (not yet the
+    segments, lines and junctions); --min-area is then required.
     """
+    from ..io.tiled_flow_folder import is_tiled_folder
     from ..workflow.steps import ChannelSettings, channels_step
 
     settings = ChannelSettings(
@@ -77,6 +86,8 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
         threshold_steps=threshold_steps, critical_t=critical_t,
         min_order=min_order).check()
     out = output_folder(output, overwrite)
+    if is_tiled_folder(flowdir):
+        return _tiled(console, flowdir, out, settings, outlets, scheduler)
     with console.stage("read"):
         fm = load_flow_folder(console, flowdir)
     placed = place(console, fm, outlets) if outlets else None
@@ -89,3 +100,25 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
                       inputs=outlets.inputs() if outlets else None)
     console.info(f"wrote {out.folder}")
     return finish(console, 0 if placed is None else len(placed.errors))
+
+
+def _tiled(console, flowdir, out, settings, outlets, scheduler):
+    from ..errors import InputError
+    from ..io.tiled_flow_folder import TiledFlowFolder
+    from ..tiles.plan import peak_memory_bytes
+    from ..terrain.memory import format_bytes
+    from ..workflow.steps.tiled_steps import tiled_channels_step
+
+    if outlets:
+        raise InputError("on a flow folder routed by tiles, channels does not yet split "
+                         "segments at outlets; leave out --outlet/--outlets")
+    flow = TiledFlowFolder(flowdir)
+    lay = flow.layout
+    console.info(f"read flow folder {flowdir} (routed by tiles): {lay.nrows} x {lay.ncols} "
+                 f"cells in tiles of {lay.tile_rows} x {lay.tile_cols}; channels by tiles")
+    with out.open(console), console.stage("channels by tiles"):
+        tiled_channels_step(out, flow.windowed_model(), settings, reporter=console,
+                            parameters={"flowdir": str(flowdir)}, scheduler=scheduler)
+    console.info(f"wrote {out.folder}")
+    console.info(f"peak resident memory: {format_bytes(peak_memory_bytes())}")
+    return finish(console)

@@ -21,10 +21,13 @@ from .options import (finish, load_flow_folder, outlet_options, output_folder,
                    "raster (share of each cell's flow reaching the outlet).")
 @click.option("--workers", type=int, default=2, show_default=True,
               help="Threads checking the polygons' validity (tracing is one pass).")
+@click.option("--scheduler", default=None, metavar="ADDRESS",
+              help="Tiled flow folders: run the tile tasks on a running dask.distributed "
+                   "cluster, e.g. tcp://host:8786 [default: threads here].")
 @overwrite_option
 @click.pass_obj
 def command(console, flowdir, outlets, output, labels_raster, web_geojson,
-            fraction_rasters, workers, overwrite):
+            fraction_rasters, workers, scheduler, overwrite):
     """Delineate the catchments of outlets on a flow folder written by 'basinkit route'.
 
     Writes catchments.gpkg (layers outlets, catchments, subcatchments, errors),
@@ -40,11 +43,20 @@ def command(console, flowdir, outlets, output, labels_raster, web_geojson,
     \b
     Example: basinkit delineate flow/ --outlets demo_rasters/outlets.csv \\
         --snap-radius 30m --snap-to-channel 1ha -o basin/
+
+    On a flow folder routed by tiles (route --max-memory) the catchments are labelled,
+    measured and outlined by tiles, reading the folder's rasters by windows; the columns
+    filled_depth_max_m, filled_volume_m3 and filled_cell_fraction are then left empty.
     """
+    from ..io.tiled_flow_folder import is_tiled_folder
     from ..workflow.steps import CatchmentSettings, catchments_step
 
     outlets.require()
     out = output_folder(output, overwrite)
+    if is_tiled_folder(flowdir):
+        return _tiled(console, flowdir, outlets, out, CatchmentSettings(
+            labels_raster=labels_raster, web_geojson=web_geojson,
+            fraction_rasters=fraction_rasters, workers=workers), scheduler)
     with console.stage("read"):
         fm = load_flow_folder(console, flowdir)
     placed = place(console, fm, outlets)
@@ -58,4 +70,27 @@ def command(console, flowdir, outlets, output, labels_raster, web_geojson,
                               parameters={"flowdir": str(flowdir), **outlets.parameters()},
                               inputs=outlets.inputs())
     console.info(f"wrote {out.folder}")
+    return finish(console, res.failed)
+
+
+def _tiled(console, flowdir, outlets, out, settings, scheduler):
+    from ..io.tiled_flow_folder import TiledFlowFolder
+    from ..tiles.plan import peak_memory_bytes
+    from ..terrain.memory import format_bytes
+    from ..workflow.steps.tiled_steps import tiled_catchments_step
+
+    with console.stage("read"):
+        flow = TiledFlowFolder(flowdir)
+        fm = flow.windowed_model()
+    lay = flow.layout
+    console.info(f"read flow folder {flowdir} (routed by tiles): {lay.nrows} x {lay.ncols} "
+                 f"cells in tiles of {lay.tile_rows} x {lay.tile_cols}; delineating by tiles")
+    placed = place(console, fm, outlets)
+    with out.open(console), console.stage("catchments by tiles"):
+        res = tiled_catchments_step(out, fm, placed, settings, reporter=console,
+                                    parameters={"flowdir": str(flowdir),
+                                                **outlets.parameters()},
+                                    inputs=outlets.inputs(), scheduler=scheduler)
+    console.info(f"wrote {out.folder}")
+    console.info(f"peak resident memory: {format_bytes(peak_memory_bytes())}")
     return finish(console, res.failed)

@@ -21,21 +21,40 @@ from .options import (conditioning_options, dem_options, finish, output_folder,
               help="Keep a copy of the DEM as read in the flow folder "
                    "(elevation_input.tif); by default flow.json names the DEM file and its "
                    "SHA-256, and later commands read it from there.")
+@click.option("--max-memory", default=None, metavar="SIZE",
+              help="Peak memory allowed, e.g. 2GB, 256MB (GB = 10^9 bytes, GiB = 2^30): "
+                   "when routing in memory would need more, the DEM is routed by tiles, "
+                   "out of core [default: no limit, in memory].")
+@click.option("--tile-size", type=int, default=None, metavar="CELLS",
+              help="Route by tiles of this many cells a side, whatever the memory "
+                   "[default: chosen from --max-memory].")
+@click.option("--scheduler", default=None, metavar="ADDRESS",
+              help="Run the tile tasks on a running dask.distributed cluster, e.g. "
+                   "tcp://host:8786 (the output's folder must be on a file system every "
+                   "worker reaches) [default: threads here].")
 @conditioning_options
 @dem_options
 @overwrite_option
 @click.pass_obj
-def command(console, dem, output, method, mfd_exponent, copy_input, conditioning, epsilon,
-            max_breach_depth, max_breach_length, burn, burn_depth, band, crs, sea_level,
-            base_level, overwrite, dem_checks):
+def command(console, dem, output, method, mfd_exponent, copy_input, max_memory, tile_size,
+            scheduler, conditioning, epsilon, max_breach_depth, max_breach_length, burn,
+            burn_depth, band, crs, sea_level, base_level, overwrite, dem_checks):
     """Route flow over a DEM and write the flow folder later commands read.
 
     \b
     Example: basinkit route demo_rasters/upland_valley.tif \\
         --burn demo_rasters/culverts.geojson --burn-depth 1m -o flow/
+
+    With --max-memory, a DEM whose in-memory route would not fit is read by windows and
+    routed by tiles (D8 over the filled surface, equal to the in-memory result); the flow
+    folder is then written window by window, and a stopped run goes on from the tiles
+    already finished when the same command is run again.
     """
-    from ..workflow.steps import FlowSettings, flow_step
-    from ..workflow.steps.flow import read_burn_lines, read_terrain
+    from ..tiles.plan import peak_memory_bytes
+    from ..terrain.memory import format_bytes
+    from ..units import parse_memory
+    from ..workflow.steps import FlowSettings
+    from ..workflow.steps.tiled_flow import route_dem
 
     settings = FlowSettings(
         dem=dem, band=band, crs=crs, sea_level_m=sea_level, base_level=base_level,
@@ -45,10 +64,9 @@ def command(console, dem, output, method, mfd_exponent, copy_input, conditioning
         burn_lines=list(burn), burn_depth_m=burn_depth, method=method,
         mfd_exponent=mfd_exponent, copy_input=copy_input,
         **FlowSettings.dem_check_fields(dem_checks))
-    out = output_folder(output, overwrite)
-    with console.stage("read"):
-        terrain = read_terrain(settings)
-        lines = read_burn_lines(settings, terrain.crs)
-    with out.open(console), console.stage("flow"):
-        flow_step(out, settings, terrain=terrain, burn=lines, reporter=console)
+    budget = parse_memory(max_memory, "--max-memory") if max_memory is not None else None
+    output_folder(output, overwrite)
+    route_dem(dem, output, max_memory=budget, tile_size=tile_size, scheduler=scheduler,
+              overwrite=overwrite, reporter=console, settings=settings)
+    console.info(f"peak resident memory: {format_bytes(peak_memory_bytes())}")
     return finish(console)

@@ -205,6 +205,14 @@ def _filled_depressions(fm, d):
     ncells = np.bincount(lab, weights=valid.astype(np.float64), minlength=nl)
     deep = np.zeros(nl)
     np.maximum.at(deep, lab, raised)
+    filled_columns(d, vol, nraised, ncells, deep)
+
+
+def filled_columns(d, vol, nraised, ncells, deep):
+    """The filled-depression columns and warnings of a delineation's table from per-label
+    sums (by sub-catchment label): filled volume (m³), raised cells (by more than 5 cm),
+    valid cells and the deepest fill (m)."""
+    tab = d.table
     size = d._subtree_size
     # a full catchment is the label range L .. L + size - 1 (depth-first labels)
     cvol, craised, ccells = (np.concatenate([[0.0], np.cumsum(a[1:])])

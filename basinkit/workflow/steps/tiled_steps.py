@@ -1,0 +1,248 @@
+"""The catchments and channels steps on a tiled flow folder (one made by
+``basinkit route --max-memory``): the same files as :func:`catchments_step` and
+:func:`channels_step`, computed by tiles (:mod:`basinkit.tiles`) from the folder's GeoTIFFs
+read window by window, so the grid is never held whole.
+
+What the tiled path does not produce yet:
+
+- catchments: every file and column of the in-memory step; the elevation and
+  filled-depression columns need the DEM as read, by windows: a copy in the flow folder
+  (``route --copy-input``) or the DEM file itself, unchanged; a DEM given as a folder of
+  tiles leaves them empty;
+- channels: only the Strahler order raster (``strahler_order.tif``) and the network's
+  record; the segment table, the channel lines and the junctions are not written, nor
+  ``--choose-threshold``, the slope–area criterion and splitting at outlets.
+"""
+
+from __future__ import annotations
+
+import shutil
+from dataclasses import replace
+
+import numpy as np
+
+from ...errors import InputError
+from ..progress import as_reporter
+from ._common import CAUTION_TEXT, step_record
+
+__all__ = ["tiled_catchments_step", "tiled_channels_step", "NOT_YET_CATCHMENTS",
+           "NOT_YET_CHANNELS"]
+
+NOT_YET_CATCHMENTS = ("the DEM this tiled flow folder was routed from cannot be read by "
+                      "windows (moved, changed, or a folder of tiles): the columns "
+                      "elevation_*, relief_m and filled_* are left empty; route with "
+                      "--copy-input to keep a copy in the flow folder")
+NOT_YET_CHANNELS = ("on a tiled flow folder channels writes the Strahler order raster and "
+                    "channels.json only: the segment table, lines and junctions are not yet "
+                    "computed by tiles")
+
+
+def _work(out, what):
+    """A fresh working tile folder beside the output (``.NAME.tiles``)."""
+    import json
+
+    from .tiled_flow import work_folder_for
+
+    work = work_folder_for(out.root)
+    mark = work / "run.json"
+    if work.exists():
+        try:
+            ok = json.loads(mark.read_text()).get("software") == "basinkit"
+        except (OSError, ValueError, AttributeError):
+            ok = False
+        if not ok:
+            raise InputError(f"{str(work)!r} is in the way of the working tiles of this "
+                             "output and was not made by basinkit; move it away")
+        shutil.rmtree(work)
+    work.mkdir(parents=True)
+    mark.write_text(json.dumps({"software": "basinkit", "step": what}))
+    return work
+
+
+def tiled_catchments_step(out, fm, placed, settings=None, reporter=None,
+                          parameters: dict | None = None, inputs: dict | None = None, *,
+                          scheduler=None, workers: int | None = None):
+    """The catchments step by tiles.
+
+    Parameters
+    ----------
+    out : OutputFolder
+    fm : the windowed model of the folder
+        :meth:`basinkit.io.tiled_flow_folder.TiledFlowFolder.windowed_model` (the outlets
+        placed on it with :func:`place_outlets`, as on an in-memory flow folder).
+    placed : PlacedOutlets
+    settings : CatchmentSettings, optional
+    reporter, parameters, inputs
+        As for :func:`catchments_step`.
+    scheduler, workers
+        The Dask engine of the tile tasks (see :class:`basinkit.tiles.Engine`).
+
+    Returns
+    -------
+    CatchmentsResult
+        Its delineation has no ``labels`` grid (the labels stay in tiles; written with
+        ``labels_raster``).
+    """
+    from pyproj import CRS, Transformer
+
+    from ...analysis.catchments import CAUTIONS, Delineation
+    from ...analysis.outlets import ERROR_COLUMNS
+    from ...analysis.polygons import ground_area_perimeter
+    from ...io.tiled_flow_folder import write_tiled_geotiff
+    from ...tiles.labels import catchment_labels
+    from ...tiles.polygons import catchment_polygons
+    from ...tiles.tables import catchment_table
+    from ...tiles.filled import filled_by_label
+    from .catchments import (CatchmentSettings, CatchmentsResult, _csv_table, _tell, _write,
+                             filled_columns)
+
+    s = settings or CatchmentSettings()
+    rep = as_reporter(reporter)
+    flow = fm.flow
+    layout = flow.layout
+    if s.fraction_rasters:
+        rep.warn("--fraction-rasters applies to D-infinity and MFD flow folders; this one "
+                 "is D8 (the catchment polygons are the exact contributing areas)")
+    work = _work(out, "delineate")
+    store = flow.store(work)
+    cells = placed.cells
+    cats = catchment_labels(layout, store, cells, scheduler=scheduler, workers=workers)
+    geom = flow.geometry()
+    has_z = store.has("elevation", 0, 0)
+    tt = catchment_table(layout, store, cats, geom.area,
+                         outlet_ids=placed.table["outlet_id"].astype(str).tolist(),
+                         elevation="elevation" if has_z else None, scheduler=scheduler,
+                         workers=workers)
+    full, sub = catchment_polygons(layout, store, cats, flow.transform, crs=flow.crs,
+                                   scheduler=scheduler, workers=workers)
+    tab = placed.table.copy()
+    tab.insert(2, "label", tt["label"].to_numpy(np.int32))
+    for c in tt.columns:
+        if c not in ("outlet_id", "label", "cell"):
+            tab[c] = tt[c].to_numpy()
+    for c in ("elevation_min_m", "elevation_max_m", "elevation_mean_m", "relief_m"):
+        if c not in tab:
+            tab[c] = np.nan
+    if len(tab):
+        tr = Transformer.from_crs(flow.crs, CRS.from_epsg(4326), always_xy=True)
+        tab["lon_snapped"], tab["lat_snapped"] = tr.transform(
+            tab["x_snapped"].to_numpy(), tab["y_snapped"].to_numpy())
+    msgs, warn_col = [], []
+    for oid, sw, te in zip(tab["outlet_id"], tab["snap_warning"], tab["touches_edge"]):
+        w = [sw] if sw else []
+        if te:
+            w.append("catchment reaches the grid edge or nodata: its area may be truncated")
+        msgs.extend(f"outlet {oid!r}: {m}" for m in w)
+        warn_col.append("; ".join(w))
+    tab["warning"] = warn_col
+    tab["perimeter_m"] = [ground_area_perimeter(g, flow.crs)[1] if g is not None else np.nan
+                          for g in full]
+    params = {"snap_radius_m": float(tab["snap_radius_m"].iloc[0]) if len(tab) else None,
+              "snap_to_channel_m2": placed.snapping.get("snap_to_channel_m2"),
+              "outlet_crs": placed.snapping.get("outlet_crs"), "routing_method": "d8"}
+    d = Delineation(tab, placed.errors[ERROR_COLUMNS], None, full, sub, flow.transform,
+                    flow.crs, msgs, CAUTIONS, params, cats.subtree_size, None)
+    if has_z:
+        filled_columns(d, *filled_by_label(layout, store, cats, geom.area,
+                                           scheduler=scheduler, workers=workers))
+    else:
+        for c in ("filled_volume_m3", "filled_cell_fraction", "filled_depth_max_m"):
+            tab[c] = np.nan
+        rep.warn(NOT_YET_CATCHMENTS)
+    errors = placed.errors[ERROR_COLUMNS].reset_index(drop=True)
+    d.errors = errors
+    table = _csv_table(d, errors)
+    files = ["catchments.csv", "catchments.gpkg", "catchments.json"]
+    if len(errors):
+        files.append("outlet_errors.csv")
+    if s.labels_raster:
+        files.append("subcatchment_labels.tif")
+    if s.web_geojson:
+        files.append("catchments_wgs84.geojson")
+    allp = {**(parameters or {}), **params, "snapping": placed.snapping,
+            "labels_raster": s.labels_raster, "web_geojson": s.web_geojson,
+            "fraction_rasters": s.fraction_rasters, "by_tiles": True}
+    meta = step_record(fm, allp, inputs, files=files, snapping=placed.snapping,
+                       outlets_given=placed.given, outlets_delineated=int(len(tab)),
+                       outlets_failed=int(len(errors)),
+                       catchments_touching_edge=int(tab["touches_edge"].sum()),
+                       warnings=msgs[:1000], contributing_fraction_rasters=None,
+                       by_tiles={"tile_rows": layout.tile_rows,
+                                 "tile_cols": layout.tile_cols,
+                                 "not_computed": None if has_z else NOT_YET_CATCHMENTS})
+    _write(out, fm, d, table, errors, replace(s, labels_raster=False), meta)
+    if s.labels_raster:
+        import json
+
+        by_label = {}
+        for lab, oid in zip(tab["label"].astype(int), tab["outlet_id"].astype(str)):
+            by_label[str(lab)] = f"{by_label[str(lab)]};{oid}" if str(lab) in by_label else oid
+        write_tiled_geotiff(out.path("subcatchment_labels.tif"), layout,
+                            lambda ti, tj: store.read(cats.layer, ti, tj, mmap=True),
+                            "int32", 0, flow.transform, flow.crs, tags={
+                                "cautions": CAUTION_TEXT,
+                                "content": "sub-catchment label of every cell (0: drains to "
+                                           "no outlet); labels in catchments.csv",
+                                "label_to_outlet_id": json.dumps(by_label, sort_keys=True)})
+        out.adopt("subcatchment_labels.tif")
+    _tell(rep, d, errors, placed.given)
+    shutil.rmtree(work, ignore_errors=True)
+    return CatchmentsResult(d, table, errors)
+
+
+def tiled_channels_step(out, fm, settings, reporter=None, parameters: dict | None = None,
+                        inputs: dict | None = None, *, scheduler=None,
+                        workers: int | None = None) -> dict:
+    """The channels step by tiles: the Strahler order raster (``strahler_order.tif``,
+    int16, 0 off the network and below ``min_order``) and ``channels.json``.
+
+    Returns the summary of :func:`basinkit.tiles.channel_orders` with the cells of each
+    order.
+    """
+    from ...io.tiled_flow_folder import write_tiled_geotiff
+    from ...tiles.channels import channel_orders
+
+    rep = as_reporter(reporter)
+    if settings.min_area_m2 is None or settings.choose_threshold is not None \
+            or settings.slope_area is not None:
+        raise InputError("on a tiled flow folder channels takes --min-area only (not yet "
+                         "--choose-threshold or the slope-area criterion)")
+    flow = fm.flow
+    layout = flow.layout
+    work = _work(out, "channels")
+    store = flow.store(work)
+    summ = channel_orders(layout, store, settings.min_area_m2, scheduler=scheduler,
+                          workers=workers)
+    counts = {}
+    min_order = int(settings.min_order)
+
+    def tile(ti, tj):
+        a = np.array(store.read("strahler_order", ti, tj), dtype=np.int16)
+        a[a < min_order] = 0
+        for k, v in zip(*np.unique(a[a > 0], return_counts=True)):
+            counts[int(k)] = counts.get(int(k), 0) + int(v)
+        a[store.read("directions", ti, tj) == -32768] = -1  # as in memory: -1 on nodata
+        return a
+
+    write_tiled_geotiff(out.path("strahler_order.tif"), layout, tile, "int16", -1,
+                        flow.transform, flow.crs,
+                        tags={"cautions": CAUTION_TEXT,
+                              "content": f"Strahler order of channel cells of order >= "
+                                         f"{min_order} (0: not a channel)",
+                              "min_area_m2": f"{float(settings.min_area_m2):.10g}"})
+    out.adopt("strahler_order.tif")
+    cells_by_order = {str(k): counts[k] for k in sorted(counts)}
+    params = {**(parameters or {}), "min_area_m2": settings.min_area_m2,
+              "min_order": min_order, "by_tiles": True}
+    meta = step_record(fm, params, inputs, files=["strahler_order.tif", "channels.json"],
+                       channel_cells_by_order=cells_by_order,
+                       max_order=max(counts) if counts else 0,
+                       by_tiles={"tile_rows": layout.tile_rows,
+                                 "tile_cols": layout.tile_cols,
+                                 "not_computed": NOT_YET_CHANNELS})
+    out.json("channels.json", meta)
+    rep.info(f"channel cells by Strahler order: "
+             + (", ".join(f"{k}: {v:,}" for k, v in cells_by_order.items()) or "none"))
+    rep.warn(NOT_YET_CHANNELS)
+    shutil.rmtree(work, ignore_errors=True)
+    return {**summ, "cells_by_order": cells_by_order}
