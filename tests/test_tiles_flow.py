@@ -1,14 +1,16 @@
-"""The tiled flow passes (accumulation, catchment labels, channel orders) against the
-in-memory path.
+"""The tiled flow passes (accumulation, catchment labels, table and polygons, channel
+orders, segments and junctions) against the in-memory path.
 
 Oracle: the in-memory path (shared/CHECKS.md, "Tiled and distributed paths"): the tiled
-path equals route()'s cell counts and areas, delineate()'s labels and extract_channels()'
-Strahler orders and Shreve magnitudes cell for cell, for any tile size and any number of
-workers. Areas are compared bit for bit where every sum is exact (100 m² cells); on a
-geographic grid, where per-row areas make the sums depend on their order, within the
-rounding bound of a sum of positive terms, 2·(count − 1)·2⁻⁵³ relative (Higham 2002,
-Accuracy and Stability of Numerical Algorithms, section 4.2). Also pysheds 0.5
-``Grid.accumulation`` on the same directions (reference library), as in test_routing.py.
+path equals route()'s cell counts and areas, delineate()'s labels, table and polygons and
+extract_channels()' Strahler orders, Shreve magnitudes, segments, lines and junctions, for
+any tile size, scheduler and number of workers. Areas are compared bit for bit where every
+sum is exact (25 or 100 m² cells, integer elevations); on geographic grids, where per-row
+areas make the sums depend on their order, within the rounding bound of a sum of positive
+terms, 2·(count − 1)·2⁻⁵³ relative (Higham 2002, Accuracy and Stability of Numerical
+Algorithms, section 4.2); segment lengths likewise. Also pysheds 0.5 ``Grid.accumulation``
+on the same directions (reference library), as in test_routing.py, and a closed form (the
+count along a single spiral path is its position on it).
 """
 
 import numpy as np
