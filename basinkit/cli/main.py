@@ -212,8 +212,9 @@ def main(argv=None):
             code = 3
     finally:
         _settle_outputs(False)  # after an error: drop the staging folders, release locks
-        if previous is not None:
+        if previous is not None:  # main() called again in one process (the tests)
             signal.signal(signal.SIGTERM, previous)
+            _HANDLER_PID.pop()
     sys.exit(code)
 
 
