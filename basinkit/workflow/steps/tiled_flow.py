@@ -239,7 +239,7 @@ def _write(out, settings, layout, store, geom, summary, acc, rep) -> dict:
     area = np.asarray(geom.area, dtype=np.float64)
     cond = {"method": "fill", "cells_raised": 0, "cells_lowered": 0,
             "max_fill_depth_m": 0.0, "max_cut_depth_m": 0.0, "filled_volume_m3": 0.0,
-            "cut_volume_m3": 0.0, "depressions": None, "burned_cells": 0}
+            "cut_volume_m3": 0.0, "burned_cells": 0}  # no count of depressions by tiles
 
     def on_filled(ti, tj, filled):
         r0, r1, _, _ = layout.window(ti, tj)
