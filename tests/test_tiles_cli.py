@@ -233,7 +233,7 @@ def test_plan_and_sizes():
     """The plan's arithmetic (closed form from the constants of basinkit.tiles.plan) and
     the size parser (SI and IEC prefixes)."""
     from basinkit.terrain.memory import ROUTE_BYTES_PER_CELL
-    from basinkit.tiles.plan import TILE_BYTES_PER_CELL, plan_route
+    from basinkit.tiles.plan import GDAL_CACHE_MB, TILE_BYTES_PER_CELL, plan_route
     from basinkit.units import parse_memory
 
     assert parse_memory("2GB") == 2 * 10**9 and parse_memory("256MiB") == 256 * 2**20
@@ -241,7 +241,7 @@ def test_plan_and_sizes():
     base = 100 * 2**20
     p = plan_route(10_000, 10_000, 10**9, workers=2, baseline=base)
     assert p.in_memory_bytes == base + 10**8 * ROUTE_BYTES_PER_CELL and p.tiled
-    side = int(np.sqrt((10**9 - base) / (2 * TILE_BYTES_PER_CELL)))
+    side = int(np.sqrt((10**9 - base - GDAL_CACHE_MB * 2**20) / (2 * TILE_BYTES_PER_CELL)))
     assert p.tile == side - side % 256 and p.tiled_bytes <= 10**9
     assert not plan_route(100, 100, 10**9, baseline=base).tiled
     assert plan_route(100, 100, None, tile_size=7).tile == 7

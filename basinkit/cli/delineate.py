@@ -74,7 +74,7 @@ def command(console, flowdir, outlets, output, labels_raster, web_geojson,
 
 
 def _tiled(console, flowdir, outlets, out, settings, scheduler):
-    from ..io.tiled_flow_folder import TiledFlowFolder
+    from ..io.tiled_flow_folder import TiledFlowFolder, gdal_cache_env
     from ..tiles.plan import peak_memory_bytes
     from ..terrain.memory import format_bytes
     from ..workflow.steps.tiled_steps import tiled_catchments_step
@@ -86,7 +86,7 @@ def _tiled(console, flowdir, outlets, out, settings, scheduler):
     console.info(f"read flow folder {flowdir} (routed by tiles): {lay.nrows} x {lay.ncols} "
                  f"cells in tiles of {lay.tile_rows} x {lay.tile_cols}; delineating by tiles")
     placed = place(console, fm, outlets)
-    with out.open(console), console.stage("catchments by tiles"):
+    with out.open(console), console.stage("catchments by tiles"), gdal_cache_env():
         res = tiled_catchments_step(out, fm, placed, settings, reporter=console,
                                     parameters={"flowdir": str(flowdir),
                                                 **outlets.parameters()},

@@ -37,13 +37,8 @@ def tiled_plan(job, flow_settings):
 
 def run_tiled(job, out, rep, plan, res, timer, st, inputs):
     """The stages of a job routed by tiles, written into ``out`` (checked, not open)."""
-    import pandas as pd
-
-    from ..io.tiled_flow_folder import TiledFlowFolder
-    from .outlets import place_outlets
-    from .runner import _outlet_rows, _provenance, _warnings
-    from .steps.tiled_flow import tiled_flow_step, work_folder_for
-    from .steps.tiled_steps import tiled_catchments_step, tiled_channels_step
+    from ..io.tiled_flow_folder import gdal_cache_env
+    from .steps.tiled_flow import work_folder_for
 
     t_start = time.perf_counter()
     scheduler = job["routing"].get("scheduler")
@@ -58,6 +53,21 @@ def run_tiled(job, out, rep, plan, res, timer, st, inputs):
     rep.info(plan.reason[0].upper() + plan.reason[1:])
     work = work_folder_for(out.root)  # beside the output, never inside it
     out.open()
+    with gdal_cache_env():
+        return _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec,
+                       raw, read_errors, t_start)
+
+
+def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, raw,
+            read_errors, t_start):
+    import pandas as pd
+
+    from ..io.tiled_flow_folder import TiledFlowFolder
+    from .outlets import place_outlets
+    from .runner import _outlet_rows, _provenance, _warnings
+    from .steps.tiled_flow import tiled_flow_step
+    from .steps.tiled_steps import tiled_catchments_step, tiled_channels_step
+
     with timer("flow"):
         tiled_flow_step(out.sub("flow"), st["flow"], plan.tile, scheduler=scheduler,
                         work=work, reporter=rep)

@@ -372,7 +372,9 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
                  if plan.tiled else f"routing in memory: {plan.reason}")
     if plan.tiled:
         work = work_folder_for(output)
-        with out.open(rep), rep.stage("flow by tiles"):
+        from ...io.tiled_flow_folder import gdal_cache_env
+
+        with out.open(rep), rep.stage("flow by tiles"), gdal_cache_env():
             result["record"] = tiled_flow_step(out, settings, plan.tile, scheduler=scheduler,
                                                workers=workers, work=work, reporter=rep)
         shutil.rmtree(work, ignore_errors=True)
