@@ -245,3 +245,39 @@ def test_plan_and_sizes():
     assert p.tile == side - side % 256 and p.tiled_bytes <= 10**9
     assert not plan_route(100, 100, 10**9, baseline=base).tiled
     assert plan_route(100, 100, None, tile_size=7).tile == 7
+
+
+def test_job_routed_by_tiles(case, capsys, tmp_path):
+    """A job with [routing] tile_size: the flow folder by tiles, catchments equal to the
+    same job in memory, the stages that need the grid in memory skipped and recorded."""
+    d, dem = case
+    a, _, _, _ = read(d / "flow_mem" / "upstream_area_m2.tif")
+    r, c = np.unravel_index(int(np.nanargmax(a)), a.shape)
+    x, y = TR @ (c + 0.5, r + 0.5)
+    (tmp_path / "outlets.csv").write_text(f"id,x,y\nlow,{x},{y}\n")
+    body = (f'[inputs]\ndem = "{dem}"\noutlets = "outlets.csv"\n'
+            '[outlets]\nsnap_radius_m = 0\n[channels]\nmin_area = "0.5ha"\n'
+            '[outputs]\nreport = false\nfigures = false\n')
+    (tmp_path / "mem.toml").write_text(body)
+    (tmp_path / "tiles.toml").write_text(
+        body + '[routing]\nmax_memory = "1MB"\ntile_size = 16\n')
+    code, _, err = run(["run", tmp_path / "mem.toml", "-o", tmp_path / "job_mem"], capsys)
+    assert code == 0, err
+    code, stdout, err = run(["run", tmp_path / "tiles.toml", "-o", tmp_path / "job_tiles"],
+                            capsys)
+    assert code == 0, err
+    assert "needs the grid in memory" in stdout + err
+    assert_same_rasters(tmp_path / "job_mem" / "flow", tmp_path / "job_tiles" / "flow")
+    m = pd.read_csv(tmp_path / "job_mem" / "catchments.csv")
+    t = pd.read_csv(tmp_path / "job_tiles" / "catchments.csv")
+    assert m["area_m2"].tolist() == t["area_m2"].tolist()
+    prov = json.loads((tmp_path / "job_tiles" / "provenance.json").read_text())
+    assert prov["stages"]["profiles"]["status"] == "skipped"
+    assert not (tmp_path / ".job_tiles.tiles").exists()
+    a, _, _, _ = read(tmp_path / "job_mem" / "strahler_order.tif")
+    b, _, _, _ = read(tmp_path / "job_tiles" / "strahler_order.tif")
+    assert np.array_equal(a, b)
+    (tmp_path / "bad.toml").write_text(body + '[routing]\nmax_memory = "3XB"\n')
+    code, _, err = run(["run", tmp_path / "bad.toml", "-o", tmp_path / "job_bad"], capsys)
+    assert_clean_failure(code, err, "[routing] max_memory")
+    assert code == 2 and not (tmp_path / "job_bad").exists()
