@@ -68,13 +68,13 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
     basinkit command (see --snap-radius and --snap-to-channel); exits with status 1 when
     one of them could not be placed.
 
-    \b
-    Example: basinkit channels flow/ --min-area 2ha --outlets demo_rasters/outlets.csv \\
-        --snap-radius 30m --snap-to-channel 1ha -o channels/
-
     On a flow folder routed by tiles (route --max-memory) the network is ordered by tiles
     and only the Strahler order raster and channels.json are written (not yet the
     segments, lines and junctions); --min-area is then required.
+
+    \b
+    Example: basinkit channels flow/ --min-area 2ha --outlets demo_rasters/outlets.csv \\
+        --snap-radius 30m --snap-to-channel 1ha -o channels/
     """
     from ..io.tiled_flow_folder import is_tiled_folder
     from ..workflow.steps import ChannelSettings, channels_step
