@@ -281,3 +281,30 @@ def test_job_routed_by_tiles(case, capsys, tmp_path):
     code, _, err = run(["run", tmp_path / "bad.toml", "-o", tmp_path / "job_bad"], capsys)
     assert_clean_failure(code, err, "[routing] max_memory")
     assert code == 2 and not (tmp_path / "job_bad").exists()
+
+
+def test_scheduler_on_a_local_cluster(case, capsys):
+    """--scheduler: the tile tasks of route and delineate on a dask.distributed
+    LocalCluster of two worker processes give the in-memory results."""
+    distributed = pytest.importorskip("distributed")
+    d, dem = case
+    out = d / "flow_cluster"
+    outs = outlet_args(d / "flow_mem", k=3, seed=1) + ["--snap-radius", "0"]
+    with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1,
+                                  dashboard_address=None) as cluster:
+        addr = cluster.scheduler_address
+        code, _, err = run(["route", dem, "-o", out, "--tile-size", "32", "--scheduler",
+                            addr], capsys)
+        assert code == 0, err
+        code, _, err = run(["delineate", out, "-o", d / "del_cluster", "--scheduler", addr,
+                            *outs], capsys)
+        assert code == 0, err
+        ran = set(cluster.scheduler.task_prefixes)  # the tasks did run on the cluster
+        assert {"accumulate_task", "labels_task", "pieces_task", "filled_task"} <= ran, ran
+    assert_same_rasters(d / "flow_mem", out)
+    code, _, err = run(["delineate", d / "flow_mem", "-o", d / "del_cluster_mem", *outs],
+                       capsys)
+    assert code == 0, err
+    a = pd.read_csv(d / "del_cluster_mem" / "catchments.csv")
+    b = pd.read_csv(d / "del_cluster" / "catchments.csv")
+    assert a["area_m2"].tolist() == b["area_m2"].tolist()
