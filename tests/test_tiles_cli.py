@@ -233,7 +233,7 @@ def test_plan_and_sizes():
     """The plan's arithmetic (closed form from the constants of basinkit.tiles.plan) and
     the size parser (SI and IEC prefixes)."""
     from basinkit.terrain.memory import ROUTE_BYTES_PER_CELL
-    from basinkit.tiles.plan import TILE_BYTES_PER_CELL, plan_route
+    from basinkit.tiles.plan import GDAL_CACHE_MB, TILE_BYTES_PER_CELL, plan_route
     from basinkit.units import parse_memory
 
     assert parse_memory("2GB") == 2 * 10**9 and parse_memory("256MiB") == 256 * 2**20
@@ -241,7 +241,70 @@ def test_plan_and_sizes():
     base = 100 * 2**20
     p = plan_route(10_000, 10_000, 10**9, workers=2, baseline=base)
     assert p.in_memory_bytes == base + 10**8 * ROUTE_BYTES_PER_CELL and p.tiled
-    side = int(np.sqrt((10**9 - base) / (2 * TILE_BYTES_PER_CELL)))
+    side = int(np.sqrt((10**9 - base - GDAL_CACHE_MB * 2**20) / (2 * TILE_BYTES_PER_CELL)))
     assert p.tile == side - side % 256 and p.tiled_bytes <= 10**9
     assert not plan_route(100, 100, 10**9, baseline=base).tiled
     assert plan_route(100, 100, None, tile_size=7).tile == 7
+
+
+def test_job_routed_by_tiles(case, capsys, tmp_path):
+    """A job with [routing] tile_size: the flow folder by tiles, catchments equal to the
+    same job in memory, the stages that need the grid in memory skipped and recorded."""
+    d, dem = case
+    a, _, _, _ = read(d / "flow_mem" / "upstream_area_m2.tif")
+    r, c = np.unravel_index(int(np.nanargmax(a)), a.shape)
+    x, y = TR @ (c + 0.5, r + 0.5)
+    (tmp_path / "outlets.csv").write_text(f"id,x,y\nlow,{x},{y}\n")
+    body = (f'[inputs]\ndem = "{dem}"\noutlets = "outlets.csv"\n'
+            '[outlets]\nsnap_radius_m = 0\n[channels]\nmin_area = "0.5ha"\n'
+            '[outputs]\nreport = false\nfigures = false\n')
+    (tmp_path / "mem.toml").write_text(body)
+    (tmp_path / "tiles.toml").write_text(
+        body + '[routing]\nmax_memory = "1MB"\ntile_size = 16\n')
+    code, _, err = run(["run", tmp_path / "mem.toml", "-o", tmp_path / "job_mem"], capsys)
+    assert code == 0, err
+    code, stdout, err = run(["run", tmp_path / "tiles.toml", "-o", tmp_path / "job_tiles"],
+                            capsys)
+    assert code == 0, err
+    assert "needs the grid in memory" in stdout + err
+    assert_same_rasters(tmp_path / "job_mem" / "flow", tmp_path / "job_tiles" / "flow")
+    m = pd.read_csv(tmp_path / "job_mem" / "catchments.csv")
+    t = pd.read_csv(tmp_path / "job_tiles" / "catchments.csv")
+    assert m["area_m2"].tolist() == t["area_m2"].tolist()
+    prov = json.loads((tmp_path / "job_tiles" / "provenance.json").read_text())
+    assert prov["stages"]["profiles"]["status"] == "skipped"
+    assert not (tmp_path / ".job_tiles.tiles").exists()
+    a, _, _, _ = read(tmp_path / "job_mem" / "strahler_order.tif")
+    b, _, _, _ = read(tmp_path / "job_tiles" / "strahler_order.tif")
+    assert np.array_equal(a, b)
+    (tmp_path / "bad.toml").write_text(body + '[routing]\nmax_memory = "3XB"\n')
+    code, _, err = run(["run", tmp_path / "bad.toml", "-o", tmp_path / "job_bad"], capsys)
+    assert_clean_failure(code, err, "[routing] max_memory")
+    assert code == 2 and not (tmp_path / "job_bad").exists()
+
+
+def test_scheduler_on_a_local_cluster(case, capsys):
+    """--scheduler: the tile tasks of route and delineate on a dask.distributed
+    LocalCluster of two worker processes give the in-memory results."""
+    distributed = pytest.importorskip("distributed")
+    d, dem = case
+    out = d / "flow_cluster"
+    outs = outlet_args(d / "flow_mem", k=3, seed=1) + ["--snap-radius", "0"]
+    with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1,
+                                  dashboard_address=None) as cluster:
+        addr = cluster.scheduler_address
+        code, _, err = run(["route", dem, "-o", out, "--tile-size", "32", "--scheduler",
+                            addr], capsys)
+        assert code == 0, err
+        code, _, err = run(["delineate", out, "-o", d / "del_cluster", "--scheduler", addr,
+                            *outs], capsys)
+        assert code == 0, err
+        ran = set(cluster.scheduler.task_prefixes)  # the tasks did run on the cluster
+        assert {"accumulate_task", "labels_task", "pieces_task", "filled_task"} <= ran, ran
+    assert_same_rasters(d / "flow_mem", out)
+    code, _, err = run(["delineate", d / "flow_mem", "-o", d / "del_cluster_mem", *outs],
+                       capsys)
+    assert code == 0, err
+    a = pd.read_csv(d / "del_cluster_mem" / "catchments.csv")
+    b = pd.read_csv(d / "del_cluster" / "catchments.csv")
+    assert a["area_m2"].tolist() == b["area_m2"].tolist()

@@ -68,13 +68,13 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
     basinkit command (see --snap-radius and --snap-to-channel); exits with status 1 when
     one of them could not be placed.
 
-    \b
-    Example: basinkit channels flow/ --min-area 2ha --outlets demo_rasters/outlets.csv \\
-        --snap-radius 30m --snap-to-channel 1ha -o channels/
-
     On a flow folder routed by tiles (route --max-memory) the network is ordered by tiles
     and only the Strahler order raster and channels.json are written (not yet the
     segments, lines and junctions); --min-area is then required.
+
+    \b
+    Example: basinkit channels flow/ --min-area 2ha --outlets demo_rasters/outlets.csv \\
+        --snap-radius 30m --snap-to-channel 1ha -o channels/
     """
     from ..io.tiled_flow_folder import is_tiled_folder
     from ..workflow.steps import ChannelSettings, channels_step
@@ -104,7 +104,7 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
 
 def _tiled(console, flowdir, out, settings, outlets, scheduler):
     from ..errors import InputError
-    from ..io.tiled_flow_folder import TiledFlowFolder
+    from ..io.tiled_flow_folder import TiledFlowFolder, gdal_cache_env
     from ..tiles.plan import peak_memory_bytes
     from ..terrain.memory import format_bytes
     from ..workflow.steps.tiled_steps import tiled_channels_step
@@ -116,7 +116,7 @@ def _tiled(console, flowdir, out, settings, outlets, scheduler):
     lay = flow.layout
     console.info(f"read flow folder {flowdir} (routed by tiles): {lay.nrows} x {lay.ncols} "
                  f"cells in tiles of {lay.tile_rows} x {lay.tile_cols}; channels by tiles")
-    with out.open(console), console.stage("channels by tiles"):
+    with out.open(console), console.stage("channels by tiles"), gdal_cache_env():
         tiled_channels_step(out, flow.windowed_model(), settings, reporter=console,
                             parameters={"flowdir": str(flowdir)}, scheduler=scheduler)
     console.info(f"wrote {out.folder}")

@@ -40,13 +40,14 @@ def command(console, flowdir, outlets, output, labels_raster, web_geojson,
     --snap-to-channel), so the same options put an outlet on the same cell in delineate,
     channels, profile and morphometry.
 
+    On a flow folder routed by tiles (route --max-memory) the catchments are labelled,
+    measured and outlined by tiles, reading the folder's rasters by windows (the same
+    files and columns; the elevation and filled-depression columns need the DEM as read:
+    the file route read, unchanged, or route --copy-input).
+
     \b
     Example: basinkit delineate flow/ --outlets demo_rasters/outlets.csv \\
         --snap-radius 30m --snap-to-channel 1ha -o basin/
-
-    On a flow folder routed by tiles (route --max-memory) the catchments are labelled,
-    measured and outlined by tiles, reading the folder's rasters by windows; the columns
-    filled_depth_max_m, filled_volume_m3 and filled_cell_fraction are then left empty.
     """
     from ..io.tiled_flow_folder import is_tiled_folder
     from ..workflow.steps import CatchmentSettings, catchments_step
@@ -74,7 +75,7 @@ def command(console, flowdir, outlets, output, labels_raster, web_geojson,
 
 
 def _tiled(console, flowdir, outlets, out, settings, scheduler):
-    from ..io.tiled_flow_folder import TiledFlowFolder
+    from ..io.tiled_flow_folder import TiledFlowFolder, gdal_cache_env
     from ..tiles.plan import peak_memory_bytes
     from ..terrain.memory import format_bytes
     from ..workflow.steps.tiled_steps import tiled_catchments_step
@@ -86,7 +87,7 @@ def _tiled(console, flowdir, outlets, out, settings, scheduler):
     console.info(f"read flow folder {flowdir} (routed by tiles): {lay.nrows} x {lay.ncols} "
                  f"cells in tiles of {lay.tile_rows} x {lay.tile_cols}; delineating by tiles")
     placed = place(console, fm, outlets)
-    with out.open(console), console.stage("catchments by tiles"):
+    with out.open(console), console.stage("catchments by tiles"), gdal_cache_env():
         res = tiled_catchments_step(out, fm, placed, settings, reporter=console,
                                     parameters={"flowdir": str(flowdir),
                                                 **outlets.parameters()},

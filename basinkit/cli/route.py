@@ -41,14 +41,14 @@ def command(console, dem, output, method, mfd_exponent, copy_input, max_memory, 
             burn_depth, band, crs, sea_level, base_level, overwrite, dem_checks):
     """Route flow over a DEM and write the flow folder later commands read.
 
-    \b
-    Example: basinkit route demo_rasters/upland_valley.tif \\
-        --burn demo_rasters/culverts.geojson --burn-depth 1m -o flow/
-
     With --max-memory, a DEM whose in-memory route would not fit is read by windows and
     routed by tiles (D8 over the filled surface, equal to the in-memory result); the flow
     folder is then written window by window, and a stopped run goes on from the tiles
     already finished when the same command is run again.
+
+    \b
+    Example: basinkit route demo_rasters/upland_valley.tif \\
+        --burn demo_rasters/culverts.geojson --burn-depth 1m -o flow/
     """
     from ..tiles.plan import peak_memory_bytes
     from ..terrain.memory import format_bytes

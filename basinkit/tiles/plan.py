@@ -20,7 +20,8 @@ from dataclasses import dataclass
 
 from ..terrain.memory import ROUTE_BYTES_PER_CELL, format_bytes
 
-__all__ = ["TILE_BYTES_PER_CELL", "MIN_TILE", "DEFAULT_TILE", "RoutePlan", "plan_route",
+__all__ = ["TILE_BYTES_PER_CELL", "MIN_TILE", "DEFAULT_TILE", "GDAL_CACHE_MB", "PROGRAM_BYTES",
+           "RoutePlan", "plan_route",
            "process_memory_bytes", "peak_memory_bytes"]
 
 #: working bytes per cell of a tile in one worker (bench/RESULTS.md: about 110-150 bytes per
@@ -31,6 +32,12 @@ MIN_TILE = 256
 #: tile side when no budget forces a smaller one; a multiple of the GeoTIFF block (256)
 DEFAULT_TILE = 2048
 _BLOCK = 256
+#: GDAL's block cache while reading and writing by windows (MB; GDAL's default, 5 % of the
+#: machine's memory, would otherwise fill with the blocks of every raster read or written)
+GDAL_CACHE_MB = 64
+#: what the process holds once the tiled path's libraries and compiled kernels are loaded
+#: (bench/RESULTS.md: about 215 MB before any grid is read); the plan counts at least this
+PROGRAM_BYTES = 220 * 2**20
 
 
 def process_memory_bytes() -> int:
@@ -113,13 +120,13 @@ def plan_route(nrows: int, ncols: int, budget: int | None = None, *,
     >>> plan_route(1000, 1000, 2 * 10**9, baseline=200 * 2**20).tiled
     False
     """
-    base = process_memory_bytes() if baseline is None else int(baseline)
+    base = max(process_memory_bytes(), PROGRAM_BYTES) if baseline is None else int(baseline)
     cells = int(nrows) * int(ncols)
     in_mem = base + cells * ROUTE_BYTES_PER_CELL
     workers = max(1, int(workers))
 
     def tiled_need(t):
-        return base + workers * t * t * TILE_BYTES_PER_CELL
+        return base + GDAL_CACHE_MB * 2**20 + workers * t * t * TILE_BYTES_PER_CELL
 
     if tile_size is not None:
         t = int(tile_size)
@@ -130,7 +137,7 @@ def plan_route(nrows: int, ncols: int, budget: int | None = None, *,
                f"the in-memory route needs about {format_bytes(in_mem)}, within "
                f"--max-memory {format_bytes(budget)}")
         return RoutePlan(False, 0, in_mem, 0, budget, why)
-    room = budget - base
+    room = budget - base - GDAL_CACHE_MB * 2**20
     side = int(math.isqrt(max(room, 0) // (workers * TILE_BYTES_PER_CELL))) if room > 0 else 0
     side = min(side, DEFAULT_TILE, max(nrows, ncols))
     if side >= _BLOCK:

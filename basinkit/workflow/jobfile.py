@@ -52,7 +52,8 @@ __all__ = ["JobSpec", "read_job", "job_from_dict", "demo_job_path", "JOB_SCHEMA"
 
 # ----------------------------------------------------------------------------- schema
 # kind: "str", "path", "paths", "float", "int", "bool", "area", "length", "choice:<a|b>",
-#       "strs", "pair" (two numbers); default None means optional with no value.
+#       "strs", "pair" (two numbers), "memory" (a size: "2GB"); default None means optional
+#       with no value.
 _S = dict
 JOB_SCHEMA = {
     "job": {
@@ -106,6 +107,18 @@ JOB_SCHEMA = {
         "method": _S(kind="choice:d8|dinf|mfd", default="d8",
                      help="Routing used for accumulation rasters."),
         "mfd_exponent": _S(kind="float", default=1.1, help="MFD partition exponent."),
+        "max_memory": _S(kind="memory", default=None,
+                         help="Peak memory allowed, e.g. '2GB' (basinkit route "
+                              "--max-memory): a DEM whose in-memory route would need more "
+                              "is routed by tiles (then catchments and the Strahler order "
+                              "raster are computed by tiles; profiles, morphometry, design "
+                              "flows and the report are skipped)."),
+        "tile_size": _S(kind="int", default=None,
+                        help="Route by tiles of this many cells a side (basinkit route "
+                             "--tile-size)."),
+        "scheduler": _S(kind="str", default=None,
+                        help="Address of a running dask.distributed scheduler for the tile "
+                             "tasks, e.g. 'tcp://host:8786' (basinkit route --scheduler)."),
     },
     "outlets": {
         "snap_radius_m": _S(kind="float", default=None,
@@ -246,6 +259,15 @@ def _check_value(section, key, value, spec, base: Path):
             return parse_length(value, where)
         except InputError as exc:
             raise JobFileError(f"{exc} (in the job file)") from None
+    if kind == "memory":
+        from ..units import parse_memory
+
+        if isinstance(value, bool) or not isinstance(value, (str, int)):
+            raise bad("a size such as '2GB'")
+        try:
+            return parse_memory(value, where) if isinstance(value, str) else int(value)
+        except InputError as exc:
+            raise JobFileError(f"{exc} in the job file") from None
     if kind.startswith("choice:"):
         options = kind.split(":", 1)[1].split("|")
         if not isinstance(value, str) or value not in options:

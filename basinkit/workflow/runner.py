@@ -211,6 +211,13 @@ def _run(job, out, rep, report):
     st = settings_of(job)
     spec = st["outlets"]
     # everything a user can get wrong is read before anything is written
+    from .tiled_job import run_tiled, tiled_plan
+
+    plan = tiled_plan(job, st["flow"])
+    if plan is not None and plan.tiled:
+        return run_tiled(job, out, rep, plan, res, timer, st, _hashes(job))
+    if plan is not None:
+        rep.info(f"routing in memory: {plan.reason}")
     with timer("read"):
         inputs = _hashes(job)
         terrain = read_terrain(st["flow"])

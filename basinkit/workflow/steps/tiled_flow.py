@@ -239,7 +239,7 @@ def _write(out, settings, layout, store, geom, summary, acc, rep) -> dict:
     area = np.asarray(geom.area, dtype=np.float64)
     cond = {"method": "fill", "cells_raised": 0, "cells_lowered": 0,
             "max_fill_depth_m": 0.0, "max_cut_depth_m": 0.0, "filled_volume_m3": 0.0,
-            "cut_volume_m3": 0.0, "depressions": None, "burned_cells": 0}
+            "cut_volume_m3": 0.0, "burned_cells": 0}  # no count of depressions by tiles
 
     def on_filled(ti, tj, filled):
         r0, r1, _, _ = layout.window(ti, tj)
@@ -372,7 +372,9 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
                  if plan.tiled else f"routing in memory: {plan.reason}")
     if plan.tiled:
         work = work_folder_for(output)
-        with out.open(rep), rep.stage("flow by tiles"):
+        from ...io.tiled_flow_folder import gdal_cache_env
+
+        with out.open(rep), rep.stage("flow by tiles"), gdal_cache_env():
             result["record"] = tiled_flow_step(out, settings, plan.tile, scheduler=scheduler,
                                                workers=workers, work=work, reporter=rep)
         shutil.rmtree(work, ignore_errors=True)
