@@ -101,7 +101,10 @@ class ProfilesResult:
         steepness.csv, knickpoints.csv, flow_paths.csv (profile.csv, the nodes, is written
         as the outlets come and not kept: read it back with pandas).
     paths : dict
-        ``{outlet_id: {"longest_flow_path": Profile, "main_stem": Profile}}``.
+        ``{outlet_id: {"warnings": [...]}}`` for every outlet profiled; for the figure
+        outlets also ``"longest_flow_path"`` and ``"main_stem"`` (Profile), ``"steepness"``
+        and ``"knickpoints"`` (the other outlets' paths are in the files only, so that a
+        batch of thousands holds no per-outlet arrays).
     failures : pandas.DataFrame
         ``outlet_id, source, reason`` of outlets whose profiles failed.
     """
@@ -228,7 +231,7 @@ def _collect(out, results, items, rows, nc, rep, node_table) -> _Collected:
                     path_rows.append({"outlet_id": oid, "file_id": fid, "kind": kind,
                                       "error": r["error"]})
                 continue
-            summary, lfp, ms = r["summary"], r["lfp"], r["ms"]
+            summary = r["summary"]
             summary.update(outlet_row=cell // nc, outlet_col=cell % nc, source=src)
             for w in summary.get("warnings", []):
                 rep.warn(f"outlet {oid!r}: {w}")
@@ -236,15 +239,15 @@ def _collect(out, results, items, rows, nc, rep, node_table) -> _Collected:
             steep_l.append(r["steepness"])
             knick_l.append(r["knickpoints"])
             warning = "; ".join(summary.get("warnings", []))
-            for prof in (lfp, ms):
-                path_rows.append({"outlet_id": oid, "file_id": fid, **prof.summary(),
+            for ps, wkb in zip(r["path_summaries"], r["path_lines"]):
+                path_rows.append({"outlet_id": oid, "file_id": fid, **ps,
                                   "warning": warning, "error": ""})
-                lines.append((oid, prof))
+                lines.append((oid, ps, wkb))
             summaries.append(summary)
-            paths[oid] = {"longest_flow_path": lfp, "main_stem": ms,
-                          "steepness": r["steepness"],
-                          "knickpoints": r["knickpoints"],
-                          "warnings": summary.get("warnings", [])}
+            paths[oid] = {"warnings": summary.get("warnings", [])}
+            if "lfp" in r:
+                paths[oid].update(longest_flow_path=r["lfp"], main_stem=r["ms"],
+                                  steepness=r["steepness"], knickpoints=r["knickpoints"])
             for what, png in r.get("figures", {}).items():
                 out.data(f"figures/{fid}_{what}.png", png)
     finally:
@@ -285,11 +288,23 @@ def _profile_item(item):
         f = prof.to_frame()
         f.insert(0, "outlet_id", oid)
         text.append(csv_rows(f, NODE_COLUMNS))
-    r = {"node_rows": "".join(text), "steepness": steep, "knickpoints": knick, "lfp": lfp,
-         "ms": ms, "summary": summary}
-    if figures:
+    r = {"node_rows": "".join(text), "steepness": steep, "knickpoints": knick,
+         "summary": summary, "path_summaries": [lfp.summary(), ms.summary()],
+         "path_lines": [_line_wkb(lfp), _line_wkb(ms)]}
+    if figures:  # the flow paths themselves travel back only for the figure outlets
         r["figures"] = _figures(oid, channel, steep, knick, lfp, ms)
+        r["lfp"], r["ms"] = lfp, ms
     return r
+
+
+def _line_wkb(prof) -> bytes:
+    """A flow path as a WKB line string (a one-node path as a line of two equal nodes)."""
+    import shapely
+
+    xy = np.column_stack([prof.x, prof.y])
+    if len(xy) == 1:
+        xy = np.vstack([xy, xy])
+    return shapely.to_wkb(shapely.linestrings(xy))
 
 
 def _one_outlet(fm, net, strahler, oid, fid, cell, s):
@@ -398,16 +413,13 @@ def _write_layers(out, fm, net, steep, knick, lines, metadata):
     s.insert(0, "kind", "channel_segment")
     geoms = list(geom.reindex(s["segment_id"]).to_numpy()) if len(s) else []
     extra = []
-    for oid, prof in lines:
-        xy = np.column_stack([prof.x, prof.y])
-        if len(xy) == 1:
-            xy = np.vstack([xy, xy])
-        extra.append({"kind": prof.kind, "outlet_id": oid, "length_m": prof.length_m,
-                      "concavity": prof.concavity,
-                      "reference_area_m2": prof.reference_area_m2,
-                      "ksn_m_per_m": np.nan, "slope_10_85_m_per_m": prof.slope_10_85(),
-                      "average_slope_m_per_m": prof.average_slope()})
-        geoms.append(shapely.linestrings(xy))
+    for oid, ps, wkb in lines:
+        extra.append({"kind": ps["kind"], "outlet_id": oid, "length_m": ps["length_m"],
+                      "concavity": ps["concavity"],
+                      "reference_area_m2": ps["reference_area_m2"],
+                      "ksn_m_per_m": np.nan, "slope_10_85_m_per_m": ps["slope_10_85_m_per_m"],
+                      "average_slope_m_per_m": ps["average_slope_m_per_m"]})
+        geoms.append(shapely.from_wkb(wkb))
     table = pd.concat([f for f in (s, pd.DataFrame(extra)) if len(f)] or [s],
                       ignore_index=True)
     first = ["outlet_id", "kind", "segment_id"]
