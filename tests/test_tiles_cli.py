@@ -308,3 +308,18 @@ def test_scheduler_on_a_local_cluster(case, capsys):
     a = pd.read_csv(d / "del_cluster_mem" / "catchments.csv")
     b = pd.read_csv(d / "del_cluster" / "catchments.csv")
     assert a["area_m2"].tolist() == b["area_m2"].tolist()
+
+
+def test_in_memory_commands_refuse_a_tiled_folder_too_big(case, capsys, monkeypatch):
+    """profile/morphometry load a tiled flow folder whole: refused in one line when the
+    machine has not the memory (here made to report 1000 bytes available)."""
+    import basinkit.terrain.memory as M
+
+    d, dem = case
+    tiled = d / "flow_tiled_m"
+    assert run(["route", dem, "-o", tiled, "--tile-size", "32"], capsys)[0] == 0
+    monkeypatch.setattr(M, "available_memory_bytes", lambda: 1000)
+    code, _, err = run(["morphometry", tiled, "-o", d / "morph", "--min-area", "1ha",
+                        *outlet_args(d / "flow_mem", k=1)], capsys)
+    assert code == 2
+    assert_clean_failure(code, err, "only delineate and channels work by tiles")
