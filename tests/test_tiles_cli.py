@@ -323,3 +323,15 @@ def test_in_memory_commands_refuse_a_tiled_folder_too_big(case, capsys, monkeypa
                         *outlet_args(d / "flow_mem", k=1)], capsys)
     assert code == 2
     assert_clean_failure(code, err, "only delineate and channels work by tiles")
+
+
+def test_same_bytes_whatever_the_tile_size(case, capsys):
+    """The rasters are written block by block in row order, so the tiling does not show in
+    the files (DESIGN.md: the same input gives byte-identical rasters)."""
+    d, dem = case
+    for t in ("16", "40"):
+        assert run(["route", dem, "-o", d / f"flow_bytes_{t}", "--tile-size", t],
+                   capsys)[0] == 0
+    for name in RASTERS:
+        assert (d / "flow_bytes_16" / name).read_bytes() == \
+            (d / "flow_bytes_40" / name).read_bytes(), name

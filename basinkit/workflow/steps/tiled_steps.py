@@ -88,7 +88,7 @@ def tiled_catchments_step(out, fm, placed, settings=None, reporter=None,
     from ...analysis.catchments import CAUTIONS, Delineation
     from ...analysis.outlets import ERROR_COLUMNS
     from ...analysis.polygons import ground_area_perimeter
-    from ...io.tiled_flow_folder import write_tiled_geotiff
+    from ...io.tiled_flow_folder import layer_reader, write_tiled_geotiff
     from ...tiles.labels import catchment_labels
     from ...tiles.polygons import catchment_polygons
     from ...tiles.tables import catchment_table
@@ -177,13 +177,13 @@ def tiled_catchments_step(out, fm, placed, settings=None, reporter=None,
         by_label = {}
         for lab, oid in zip(tab["label"].astype(int), tab["outlet_id"].astype(str)):
             by_label[str(lab)] = f"{by_label[str(lab)]};{oid}" if str(lab) in by_label else oid
-        write_tiled_geotiff(out.path("subcatchment_labels.tif"), layout,
-                            lambda ti, tj: store.read(cats.layer, ti, tj, mmap=True),
-                            "int32", 0, flow.transform, flow.crs, tags={
-                                "cautions": CAUTION_TEXT,
-                                "content": "sub-catchment label of every cell (0: drains to "
-                                           "no outlet); labels in catchments.csv",
-                                "label_to_outlet_id": json.dumps(by_label, sort_keys=True)})
+        tags = {"cautions": CAUTION_TEXT,
+                "content": "sub-catchment label of every cell (0: drains to no outlet); "
+                           "labels in catchments.csv",
+                "label_to_outlet_id": json.dumps(by_label, sort_keys=True)}
+        write_tiled_geotiff(out.path("subcatchment_labels.tif"), layout.shape,
+                            layer_reader(layout, store, cats.layer), "int32", 0,
+                            flow.transform, flow.crs, tags=tags)
         out.adopt("subcatchment_labels.tif")
     _tell(rep, d, errors, placed.given)
     shutil.rmtree(work, ignore_errors=True)
@@ -199,7 +199,7 @@ def tiled_channels_step(out, fm, settings, reporter=None, parameters: dict | Non
     Returns the summary of :func:`basinkit.tiles.channel_orders` with the cells of each
     order.
     """
-    from ...io.tiled_flow_folder import write_tiled_geotiff
+    from ...io.tiled_flow_folder import layer_reader, write_tiled_geotiff
     from ...tiles.channels import channel_orders
 
     rep = as_reporter(reporter)
@@ -216,15 +216,18 @@ def tiled_channels_step(out, fm, settings, reporter=None, parameters: dict | Non
     counts = {}
     min_order = int(settings.min_order)
 
-    def tile(ti, tj):
-        a = np.array(store.read("strahler_order", ti, tj), dtype=np.int16)
+    orders = layer_reader(layout, store, "strahler_order")
+    directions = layer_reader(layout, store, "directions")
+
+    def window(r0, r1, c0, c1):
+        a = np.array(orders(r0, r1, c0, c1), dtype=np.int16)
         a[a < min_order] = 0
         for k, v in zip(*np.unique(a[a > 0], return_counts=True)):
             counts[int(k)] = counts.get(int(k), 0) + int(v)
-        a[store.read("directions", ti, tj) == -32768] = -1  # as in memory: -1 on nodata
+        a[directions(r0, r1, c0, c1) == -32768] = -1  # as in memory: -1 on nodata
         return a
 
-    write_tiled_geotiff(out.path("strahler_order.tif"), layout, tile, "int16", -1,
+    write_tiled_geotiff(out.path("strahler_order.tif"), layout.shape, window, "int16", -1,
                         flow.transform, flow.crs,
                         tags={"cautions": CAUTION_TEXT,
                               "content": f"Strahler order of channel cells of order >= "
