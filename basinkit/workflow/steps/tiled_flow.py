@@ -347,6 +347,8 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
     if max_memory is not None:
         budget = parse_memory(max_memory, "--max-memory") if isinstance(max_memory, str) \
             else int(max_memory)
+        if budget <= 0:
+            raise InputError(f"--max-memory must be a positive size, got {max_memory!r}")
     if tile_size is not None and not 1 <= int(tile_size) <= 16000:
         raise InputError(f"--tile-size must be between 1 and 16000 cells, got {tile_size}")
     nw = int(workers) if workers else (os.cpu_count() or 1)
