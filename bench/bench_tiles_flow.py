@@ -67,6 +67,26 @@ def child(folder, cells_file, threshold, scheduler, workers):
     t = time.perf_counter()
     channel_orders(lay, store, threshold, scheduler=scheduler, workers=workers)
     out["orders_s"] = time.perf_counter() - t
+    from affine import Affine
+
+    from basinkit.terrain.geometry import CellGeometry
+    from basinkit.tiles import catchment_polygons, catchment_table, channel_segments
+
+    g = np.load(Path(folder) / "geometry.npz")
+    geometry = CellGeometry(g["dx"], g["dy_down"], g["diag_down"], g["area"], False)
+    t = time.perf_counter()
+    segs, _ = channel_segments(lay, store, threshold, geometry, outlet_cells=cells,
+                               transform=Affine(10, 0, 0, 0, -10, lay.nrows * 10),
+                               lines=True, scheduler=scheduler, workers=workers)
+    out["segments_s"] = time.perf_counter() - t
+    out["segments"] = len(segs)
+    t = time.perf_counter()
+    catchment_table(lay, store, res, row_area, scheduler=scheduler, workers=workers)
+    out["table_s"] = time.perf_counter() - t
+    t = time.perf_counter()
+    catchment_polygons(lay, store, res, Affine(10, 0, 0, 0, -10, lay.nrows * 10),
+                       scheduler=scheduler, workers=workers)
+    out["polygons_s"] = time.perf_counter() - t
     out["rss_peak_mb"] = rss_mb()
     print(json.dumps(out))
 
@@ -120,6 +140,17 @@ def main():
     t = time.perf_counter()
     net = extract_channels(fm, threshold, geometry=False)
     t_channels = time.perf_counter() - t
+    from basinkit.analysis.catchments import delineate
+
+    r, c = np.divmod(cells, fm.ncols)
+    x, y = terrain.xy_of(r, c)
+    t = time.perf_counter()
+    delineate(fm, [(f"o{i}", a_, b_) for i, (a_, b_) in enumerate(zip(x, y))],
+              snap_radius_m=0)
+    t_delineate = time.perf_counter() - t
+    t = time.perf_counter()
+    net_split = extract_channels(fm, threshold, outlet_cells=cells, geometry=False)
+    t_segments = time.perf_counter() - t
 
     folder = HERE / "out" / f"tiles_{a.size}_{a.tile}"
     shutil.rmtree(folder, ignore_errors=True)
@@ -129,6 +160,9 @@ def main():
     for (ti, tj), part in lay.split(d).items():
         store.write("directions", ti, tj, part)
     np.save(folder / "row_area.npy", area_row)
+    g = terrain.geometry
+    np.savez(folder / "geometry.npz", dx=g.dx, dy_down=g.dy_down, diag_down=g.diag_down,
+             area=g.area)
     cells_file = folder / "outlets.npy"
     np.save(cells_file, cells)
     cmd = [sys.executable, __file__, "--child", str(folder), str(cells_file), str(threshold)]
@@ -157,9 +191,13 @@ def main():
           f"{a.outlets} outlets, channels from {a.threshold_cells} cells; "
           f"scheduler {f'LocalCluster of {a.local_cluster} processes' if a.local_cluster else a.scheduler or 'threads'}")
     print(f"in memory: route {t_route:.2f} s (fill, D8, sweep); sweep alone "
-          f"{t_sweep:.2f} s; labels {t_labels:.2f} s; channels {t_channels:.2f} s")
+          f"{t_sweep:.2f} s; labels {t_labels:.2f} s; channels {t_channels:.2f} s; "
+          f"delineate with table and polygons {t_delineate:.2f} s; channels split at "
+          f"the outlets {t_segments:.2f} s ({len(net_split.segments)} segments)")
     print(f"tiled (child process): accumulation {res['accumulation_s']:.2f} s, labels "
-          f"{res['labels_s']:.2f} s, orders {res['orders_s']:.2f} s; peak RSS "
+          f"{res['labels_s']:.2f} s, orders {res['orders_s']:.2f} s, segments "
+          f"{res['segments_s']:.2f} s ({res['segments']}, with lines and junctions), catchment table "
+          f"{res['table_s']:.2f} s, polygons {res['polygons_s']:.2f} s; peak RSS "
           f"{res['rss_peak_mb']:.0f} MB (start {res['rss_start_mb']:.0f} MB)")
     print("equal to the in-memory path:", same)
     shutil.rmtree(folder, ignore_errors=True)

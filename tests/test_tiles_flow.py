@@ -1,14 +1,16 @@
-"""The tiled flow passes (accumulation, catchment labels, channel orders) against the
-in-memory path.
+"""The tiled flow passes (accumulation, catchment labels, table and polygons, channel
+orders, segments and junctions) against the in-memory path.
 
 Oracle: the in-memory path (shared/CHECKS.md, "Tiled and distributed paths"): the tiled
-path equals route()'s cell counts and areas, delineate()'s labels and extract_channels()'
-Strahler orders and Shreve magnitudes cell for cell, for any tile size and any number of
-workers. Areas are compared bit for bit where every sum is exact (100 m² cells); on a
-geographic grid, where per-row areas make the sums depend on their order, within the
-rounding bound of a sum of positive terms, 2·(count − 1)·2⁻⁵³ relative (Higham 2002,
-Accuracy and Stability of Numerical Algorithms, section 4.2). Also pysheds 0.5
-``Grid.accumulation`` on the same directions (reference library), as in test_routing.py.
+path equals route()'s cell counts and areas, delineate()'s labels, table and polygons and
+extract_channels()' Strahler orders, Shreve magnitudes, segments, lines and junctions, for
+any tile size, scheduler and number of workers. Areas are compared bit for bit where every
+sum is exact (25 or 100 m² cells, integer elevations); on geographic grids, where per-row
+areas make the sums depend on their order, within the rounding bound of a sum of positive
+terms, 2·(count − 1)·2⁻⁵³ relative (Higham 2002, Accuracy and Stability of Numerical
+Algorithms, section 4.2); segment lengths likewise. Also pysheds 0.5 ``Grid.accumulation``
+on the same directions (reference library), as in test_routing.py, and a closed form (the
+count along a single spiral path is its position on it).
 """
 
 import numpy as np
@@ -29,6 +31,7 @@ from basinkit.tiles import MemoryTiles, TileLayout
 from basinkit.tiles.accumulate import flow_accumulation
 from basinkit.tiles.channels import channel_orders
 from basinkit.tiles.labels import catchment_labels
+from basinkit.tiles.segments import channel_segments
 
 from conftest import PYSHEDS_DIRMAP, fractal_dem, pysheds_fdir, pysheds_grid
 
@@ -72,6 +75,13 @@ def _delineate(fm, cells):
     xs, ys = fm.terrain.transform @ (c + 0.5, r + 0.5)
     return delineate(fm, [(f"o{i}", x, y) for i, (x, y) in enumerate(zip(xs, ys))],
                      snap_radius_m=0, polygons=False)
+
+
+def _delineate_polygons(fm, cells):
+    r, c = np.divmod(np.asarray(cells), fm.ncols)
+    xs, ys = fm.terrain.transform @ (c + 0.5, r + 0.5)
+    return delineate(fm, [(f"o{i}", x, y) for i, (x, y) in enumerate(zip(xs, ys))],
+                     snap_radius_m=0).polygons
 
 
 def _check_all(fm, layout, store=None, threshold=None, outlets=None, scheduler=None,
@@ -136,7 +146,7 @@ def test_pysheds_accumulation_on_tiles(basin):
     fm = basin
     layout = TileLayout.square(*fm.shape, 6)
     store = _store(fm, layout)
-    flow_accumulation(layout, store, fm.terrain.geometry.area)
+    flow_accumulation(layout, store, fm.terrain.geometry.area, workers=2)
     ours = _grid(layout, store, "cell_count").astype(np.float64)
     d = _directions(fm)
     grid, _ = pysheds_grid(np.where(fm.terrain.valid, fm.terrain.elevation, np.nan))
@@ -228,6 +238,12 @@ def test_geographic_areas_within_summation_rounding():
     ref = delineate(fm, [(f"o{i}", x, y) for i, (x, y) in enumerate(zip(xs, ys))],
                     snap_radius_m=0).polygons
     assert all(shapely.equals(a, b) for a, b in zip(full, ref))
+    from basinkit.tiles.polygons import perimeters_m
+
+    ref_perimeter = delineate(fm, [(f"o{i}", x, y) for i, (x, y) in enumerate(zip(xs, ys))],
+                              snap_radius_m=0).table["perimeter_m"]
+    np.testing.assert_allclose(perimeters_m(full, fm.terrain.crs), ref_perimeter,
+                               rtol=1e-12)
     step = d * 1.0000001
     assert all(shapely.length(g) / step <= shapely.get_num_coordinates(g) for g in full)
 
@@ -251,8 +267,21 @@ def test_hypothesis_random_grids(nrows, ncols, seed, tile_rows, tile_cols, level
     layout = TileLayout(nrows, ncols, tile_rows, tile_cols)
     valid = np.flatnonzero(fm.terrain.valid.ravel())
     outlets = rng.choice(valid, min(valid.size, int(rng.integers(1, 6))), replace=False)
-    _check_all(fm, layout, threshold=float(rng.choice([25.0, 50.0, 75.0])),
-               outlets=outlets, scheduler="synchronous")
+    threshold = float(rng.choice([25.0, 50.0, 75.0]))
+    store = _check_all(fm, layout, threshold=threshold, outlets=outlets,
+                       scheduler="synchronous")
+    _check_segments(fm, layout, store, threshold, outlets=outlets, lines=False)
+    # the per-catchment table (integer elevations, 25 m² cells: every sum exact)
+    from basinkit.tiles.tables import catchment_table
+
+    for t, a in layout.split(np.where(fm.terrain.valid, fm.input_elevation, np.nan)).items():
+        store.write("elevation", *t, a)
+    res = catchment_labels(layout, store, outlets, layer="labels_for_table")
+    d = _delineate(fm, outlets)
+    tab = catchment_table(layout, store, res, fm.terrain.geometry.area,
+                          outlet_ids=d.table["outlet_id"], elevation="elevation")
+    for col in TABLE_COLUMNS:
+        assert tab[col].fillna(-1).tolist() == d.table[col].fillna(-1).tolist(), col
 
 
 TABLE_COLUMNS = ["label", "area_m2", "area_km2", "area_ha", "area_acres", "area_mi2",
@@ -334,11 +363,182 @@ def test_catchment_polygons_equal_delineate(basin, tile_rows, tile_cols):
     assert len(full) == len(d.polygons) == outlets.size
     # regions in pieces (4-connected components) are among them
     assert any(g.geom_type == "MultiPolygon" for g in d.polygons + d.subcatchment_polygons)
+    from basinkit.tiles.polygons import perimeters_m
+
+    np.testing.assert_allclose(perimeters_m(full, fm.terrain.crs), d.table["perimeter_m"],
+                               rtol=1e-12)
     for mine, ref in zip(full + sub, list(d.polygons) + list(d.subcatchment_polygons)):
         assert (mine is None) == (ref is None)
         if ref is not None:
             assert shapely.equals(mine, ref)
             assert shapely.area(mine) == pytest.approx(shapely.area(ref), rel=1e-12)
+
+
+SEGMENT_EXACT = ["strahler_order", "shreve_magnitude", "cell_count", "top_row", "top_col",
+                 "upstream_area_top_m2", "upstream_area_bottom_m2", "straight_length_m",
+                 "drop_m", "top_elevation_m", "bottom_elevation_m"]
+
+
+def _check_segments(fm, layout, store, threshold, outlets=None, geographic=False,
+                    lines=True):
+    """Oracle: extract_channels' segments, matched by bottom cell (the tiled ids follow
+    another order): the same cells per segment, values equal, lengths within the rounding
+    of sums of positive terms in another grouping (Higham 2002, section 4.2)."""
+    from basinkit.tiles.segments import channel_segments
+
+    for t, a in layout.split(fm.terrain.elevation).items():
+        if not store.has("routed_elevation", *t):
+            store.write("routed_elevation", *t, a)
+    tab, junctions = channel_segments(layout, store, threshold, fm.terrain.geometry,
+                                      outlet_cells=outlets, crs=fm.terrain.crs,
+                                      transform=fm.terrain.transform,
+                                      elevation="routed_elevation", lines=lines)
+    net = extract_channels(fm, threshold, outlet_cells=outlets, geometry=lines)
+    ref = net.segments
+    assert len(tab) == len(ref)
+    if len(ref) == 0:
+        assert len(junctions) == 0
+        assert (_grid(layout, store, "segment_id") == 0).all()
+        return
+    key = ["bottom_row", "bottom_col"]
+    m = ref.merge(tab, on=key, suffixes=("_ref", ""), validate="one_to_one")
+    assert len(m) == len(ref)
+    for col in SEGMENT_EXACT:
+        if geographic and col.startswith("upstream_area"):
+            # sums of per-row areas in another order: within rounding, count <= the cells
+            rtol = 2 * fm.terrain.size * EPS
+            np.testing.assert_allclose(m[col], m[col + "_ref"], rtol=rtol, atol=0)
+        else:
+            np.testing.assert_array_equal(m[col], m[col + "_ref"], err_msg=col)
+    bound = 2 * m["cell_count"] * EPS * m["length_m_ref"]
+    assert (np.abs(m["length_m"] - m["length_m_ref"]) <= bound).all()
+    # downstream segments and Strahler streams: the same, through the matching
+    ours_of_ref = dict(zip(m["segment_id_ref"], m["segment_id"]))
+    ours_of_ref[0] = 0
+    assert [ours_of_ref[k] for k in m["downstream_id_ref"]] == m["downstream_id"].tolist()
+    assert (m["downstream_id"] < m["segment_id"]).all()
+    pairs = set(zip(m["stream_id_ref"], m["stream_id"]))
+    assert len(pairs) == m["stream_id"].nunique() == m["stream_id_ref"].nunique()
+    # lines through the cell centres: the same vertices
+    if lines:
+        import shapely
+
+        mine = tab.set_index("segment_id").geometry
+        theirs = ref.set_index("segment_id").geometry
+        for a, b in zip(m["segment_id"], m["segment_id_ref"]):
+            assert shapely.equals_exact(mine[a], theirs[b], tolerance=0.0)
+    # junctions, matched by cell
+    jm = net.junctions.merge(junctions, on=["row", "col"], suffixes=("_ref", ""),
+                             validate="one_to_one")
+    assert len(jm) == len(net.junctions) == len(junctions)
+    for col in ["strahler_order", "shreve_magnitude", "tributary_count", "elevation_m"]:
+        np.testing.assert_array_equal(jm[col], jm[col + "_ref"], err_msg=col)
+    np.testing.assert_allclose(jm["upstream_area_m2"], jm["upstream_area_m2_ref"],
+                               rtol=2 * fm.terrain.size * EPS if geographic else 0, atol=0)
+    assert [ours_of_ref[k] for k in jm["segment_id_ref"]] == jm["segment_id"].tolist()
+    # the segment of every cell
+    grid = _grid(layout, store, "segment_id")
+    lut = np.zeros(int(ref["segment_id"].max()) + 1, dtype=np.int64)
+    lut[m["segment_id_ref"].to_numpy()] = m["segment_id"].to_numpy()
+    np.testing.assert_array_equal(grid, lut[net.segment_id])
+
+
+@pytest.mark.parametrize("tile_rows,tile_cols", [(2, 2), (3, 5), (8, 8), (47, 61)])
+def test_channel_segments_equal_extract_channels(basin, tile_rows, tile_cols):
+    fm = basin
+    layout = TileLayout(*fm.shape, tile_rows, tile_cols)
+    store = _store(fm, layout)
+    flow_accumulation(layout, store, fm.terrain.geometry.area)
+    channel_orders(layout, store, 600.0)
+    outlets = _nested_outlets(fm, 5, 6, seed=9)
+    _check_segments(fm, layout, store, 600.0, outlets=outlets)
+
+
+def test_channel_segments_geographic():
+    """Geographic grid: straight lengths geodesic as in memory (pyproj.Geod, Karney 2013)."""
+    z = fractal_dem(40, 36, seed=8, holes=2)
+    d = 1.0 / 1200
+    fm = route(terrain_from_array(z, transform=Affine(d, 0, 10.0, 0, -d, 47.0),
+                                  crs="EPSG:4326"))
+    a = np.sort(np.unique(fm.accumulation(unit="m2")[fm.terrain.valid]))
+    k = int(np.searchsorted(a, 20 * a[0]))
+    threshold = 0.5 * (a[k] + a[k + 1])
+    layout = TileLayout.square(*fm.shape, 4)
+    store = _store(fm, layout)
+    flow_accumulation(layout, store, fm.terrain.geometry.area)
+    channel_orders(layout, store, threshold)
+    _check_segments(fm, layout, store, threshold, geographic=True)
+
+
+@pytest.mark.parametrize("geographic", [False, True])
+def test_from_elevation_tiles_to_segments(geographic):
+    """The whole tiled path from elevation tiles: fill and directions by tiles
+    (tiles/route.py), then accumulation, labels, orders, segments, table and polygons,
+    georeferenced from the store's metadata. Oracle: route() and the in-memory analyses
+    on the same DEM."""
+    import shapely
+
+    from basinkit.tiles.polygons import catchment_polygons
+    from basinkit.tiles.route import route_by_tiles, write_terrain
+    from basinkit.tiles.tables import catchment_table
+
+    z = fractal_dem(36, 41, seed=21, holes=3)
+    if geographic:
+        d = 1.0 / 1200
+        t = terrain_from_array(z, transform=Affine(d, 0, 10.0, 0, -d, 47.0),
+                               crs="EPSG:4326")
+    else:
+        t = terrain_from_array(z, cellsize=10, sea_level=60.0)
+    fm = route(t)
+    layout = TileLayout(*fm.shape, 7, 9)
+    store = MemoryTiles(layout)
+    write_terrain(layout, store, t)
+    route_by_tiles(layout, store)
+    np.testing.assert_array_equal(_grid(layout, store, "directions"), _directions(fm))
+    flow_accumulation(layout, store)
+    np.testing.assert_array_equal(_grid(layout, store, "cell_count"), fm.accumulation())
+    area = fm.accumulation(unit="m2")
+    if not geographic:
+        np.testing.assert_array_equal(_grid(layout, store, "upstream_area_m2"), area)
+    a = np.sort(np.unique(area[t.valid]))
+    k = int(np.searchsorted(a, 15 * a[0]))
+    threshold = 0.5 * (a[k] + a[k + 1])
+    channel_orders(layout, store, threshold)
+    net = extract_channels(fm, threshold, geometry=True)
+    np.testing.assert_array_equal(_grid(layout, store, "strahler_order"), net.strahler)
+    segs, junctions = channel_segments(layout, store, threshold, elevation="filled",
+                                       lines=True)
+    m = net.segments.merge(segs, on=["bottom_row", "bottom_col"], suffixes=("_ref", ""))
+    assert len(m) == len(net.segments) == len(segs)
+    for col in ["cell_count", "top_row", "top_col", "straight_length_m", "drop_m",
+                "strahler_order"]:
+        np.testing.assert_array_equal(m[col], m[col + "_ref"], err_msg=col)
+    assert all(shapely.equals_exact(g, h, tolerance=0.0)
+               for g, h in zip(m["geometry"], m["geometry_ref"]))
+    assert len(junctions) == len(net.junctions)
+    outlets = _nested_outlets(fm, 6, 5, seed=22)
+    res = catchment_labels(layout, store, outlets)
+    d = _delineate(fm, outlets)
+    np.testing.assert_array_equal(_grid(layout, store, "catchment_labels"), d.labels)
+    tab = catchment_table(layout, store, res, outlet_ids=d.table["outlet_id"])
+    assert tab["cell_count"].tolist() == d.table["cell_count"].tolist()
+    assert tab["touches_edge"].tolist() == d.table["touches_edge"].tolist()
+    full, _ = catchment_polygons(layout, store, res)
+    assert all(shapely.equals(g, h) for g, h in zip(full, _delineate_polygons(fm, outlets)))
+
+
+@pytest.mark.parametrize("tile", [3, 8, 20])
+def test_nodata_frame_around_the_grid(tile):
+    """A DEM inside a frame of nodata (tile edges without a valid cell, or a single tile
+    whose edge is all nodata). Oracle: the in-memory path."""
+    z = fractal_dem(16, 14, seed=30)
+    z[[0, -1], :] = np.nan
+    z[:, [0, -1]] = np.nan
+    fm = route(terrain_from_array(z, cellsize=10))
+    valid = np.flatnonzero(fm.terrain.valid.ravel())
+    store = _check_all(fm, TileLayout.square(16, 14, tile), threshold=300.0,
+                       outlets=valid[::17])
+    _check_segments(fm, TileLayout.square(16, 14, tile), store, 300.0, lines=False)
 
 
 class _Crash(RuntimeError):
@@ -382,7 +582,61 @@ def test_resume_after_a_killed_run(basin, tmp_path):
     assert flow_accumulation(layout, again, fm.terrain.geometry.area)["computed"] == 0
 
 
-@pytest.mark.parametrize("step", ["labels", "orders"])
+_KILLED_CHILD = """
+import sys, time
+import numpy as np
+from basinkit.io.tile_folder import TileFolder
+from basinkit.tiles.accumulate import flow_accumulation
+
+class Slow(TileFolder):
+    def write(self, layer, ti, tj, array):
+        if layer == "cell_count":
+            time.sleep(0.2)
+        super().write(layer, ti, tj, array)
+
+folder = sys.argv[1]
+store = Slow.open(folder)
+flow_accumulation(store.layout, store, np.load(folder + "/row_area.npy"),
+                  scheduler="synchronous")
+"""
+
+
+def test_resume_after_sigkill(basin, tmp_path):
+    """A process killed (SIGKILL) in the middle of the second pass: the tiles it finished
+    stay, no tile is half-written, and a new run finishes the rest. Oracle: route()."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    fm = basin
+    layout = TileLayout.square(*fm.shape, 12)
+    folder = tmp_path / "tiles"
+    _store(fm, layout, TileFolder(folder, layout))
+    np.save(folder / "row_area.npy", fm.terrain.geometry.area)
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
+    proc = subprocess.Popen([sys.executable, "-c", _KILLED_CHILD, str(folder)], env=env)
+    try:
+        deadline = time.monotonic() + 60
+        while len(list((folder / "cell_count").glob("*.npy"))) < 3:
+            assert proc.poll() is None, "the run ended before it could be killed"
+            assert time.monotonic() < deadline
+            time.sleep(0.02)
+    finally:
+        proc.send_signal(signal.SIGKILL)
+        proc.wait()
+    done = {p.name for p in (folder / "upstream_area_m2").glob("*.npy")}
+    assert 0 < len(done) < len(layout.tiles())
+    store = TileFolder.open(folder)
+    s = flow_accumulation(layout, store, fm.terrain.geometry.area)
+    assert s["computed"] <= len(layout.tiles()) - len(done)
+    np.testing.assert_array_equal(_grid(layout, store, "cell_count"), fm.accumulation())
+    np.testing.assert_array_equal(_grid(layout, store, "upstream_area_m2"),
+                                  fm.accumulation(unit="m2"))
+
+
+@pytest.mark.parametrize("step", ["labels", "orders", "segments"])
 def test_labels_and_orders_resume(basin, tmp_path, step):
     """Labels and orders stopped half-way resume as well (pass-1 links kept in the store's
     metadata, finished tiles skipped); the oracle is the in-memory path."""
@@ -393,18 +647,38 @@ def test_labels_and_orders_resume(basin, tmp_path, step):
     flow_accumulation(layout, store, fm.terrain.geometry.area)
     outlets = _nested_outlets(fm, 6, 5, seed=4)
 
+    if step == "segments":
+        channel_orders(layout, store, 600.0)
+    written = []
+
     def run(s):
         if step == "labels":
             return catchment_labels(layout, s, outlets, scheduler="synchronous").computed
-        return channel_orders(layout, s, 600.0, scheduler="synchronous")["computed"]
+        if step == "orders":
+            return channel_orders(layout, s, 600.0, scheduler="synchronous")["computed"]
+        from basinkit.tiles.segments import channel_segments
 
-    _CrashingFolder.budget = 9 if step == "labels" else 2 * 9
+        written.append(channel_segments(layout, s, 600.0, fm.terrain.geometry,
+                                        transform=fm.terrain.transform, lines=True,
+                                        scheduler="synchronous"))
+        return sum(not s.has("segment_id", *t) for t in layout.tiles())
+
+    _CrashingFolder.budget = 2 * 9 if step == "orders" else 9
     try:
         with pytest.raises(_Crash):
             run(store)
     finally:
         _CrashingFolder.budget = None
     again = TileFolder.open(tmp_path / "tiles")
+    if step == "segments":
+        assert sum(again.has("segment_id", *t) for t in layout.tiles()) == 9
+        assert run(again) == 0
+        tab, junctions = written[-1]
+        net = extract_channels(fm, 600.0, geometry=True)
+        assert len(tab) == len(net.segments) and len(junctions) == len(net.junctions)
+        assert sorted(tab.geometry.length) == pytest.approx(sorted(net.segments.length),
+                                                            rel=1e-12)
+        return
     assert run(again) == n - 9
     if step == "labels":
         want = _delineate(fm, outlets).labels
@@ -484,8 +758,30 @@ def test_distributed_local_cluster(basin, tmp_path):
     fm = basin
     layout = TileLayout(*fm.shape, 13, 17)
     store = _store(fm, layout, TileFolder(tmp_path / "tiles", layout))
+    outlets = _nested_outlets(fm, 8, 6, seed=3)
     with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1,
                                   dashboard_address=None) as cluster:
-        _check_all(fm, layout, store, threshold=600.0,
-                   outlets=_nested_outlets(fm, 8, 6, seed=3),
-                   scheduler=cluster.scheduler_address)
+        address = cluster.scheduler_address
+        _check_all(fm, layout, store, threshold=600.0, outlets=outlets, scheduler=address)
+        # the table, polygons and segments on the workers too
+        import shapely
+
+        from basinkit.tiles.polygons import catchment_polygons
+        from basinkit.tiles.segments import channel_segments
+        from basinkit.tiles.tables import catchment_table
+
+        res = catchment_labels(layout, store, outlets, scheduler=address)
+        d = _delineate(fm, outlets)
+        tab = catchment_table(layout, store, res, fm.terrain.geometry.area,
+                              outlet_ids=d.table["outlet_id"], scheduler=address)
+        assert tab["area_m2"].tolist() == d.table["area_m2"].tolist()
+        full, _ = catchment_polygons(layout, store, res, fm.terrain.transform,
+                                     scheduler=address)
+        ref = _delineate_polygons(fm, outlets)
+        assert all(shapely.equals(a, b) for a, b in zip(full, ref))
+        segs, junctions = channel_segments(layout, store, 600.0, fm.terrain.geometry,
+                                           transform=fm.terrain.transform, lines=True,
+                                           scheduler=address)
+        net = extract_channels(fm, 600.0, geometry=True)
+        assert len(segs) == len(net.segments) and len(junctions) == len(net.junctions)
+        assert sorted(segs["cell_count"]) == sorted(net.segments["cell_count"])

@@ -5,14 +5,20 @@ it is called, so that ``basinkit --help`` starts quickly.
 
 Exit status (DESIGN.md, the output contract), the same for every command and ``run``:
 0 all done; 1 done, but some outlets failed (listed); 2 bad input or usage, nothing
-written; 3 an internal error (a bug: the traceback only with ``--debug``). The global
-options ``--quiet``, ``--debug`` and ``--log-json`` go before or after the subcommand.
+written; 3 an internal error (a bug: the traceback only with ``--debug``). An interrupted
+command, 130 after ``Ctrl-C`` (``SIGINT``) and 143 after ``SIGTERM`` (128 + the signal's
+number, the shells' convention), has stopped its workers and left its outputs as they
+were (the run's staging folder removed). The global options ``--quiet``, ``--debug`` and
+``--log-json`` go before or after the subcommand.
 """
 
 from __future__ import annotations
 
 import importlib
+import os
+import signal
 import sys
+import threading
 import traceback
 
 import click
@@ -91,25 +97,78 @@ def cli(ctx, quiet, log_json, debug):
 
     --quiet, --log-json and --debug may also follow the subcommand. Exit status: 0 all
     done; 1 done, but some outlets failed (listed); 2 bad input or usage, nothing written;
-    3 an internal error (a bug; please report it).
+    3 an internal error (a bug; please report it); 130 interrupted (Ctrl-C), 143 stopped
+    by SIGTERM, the outputs left as they were.
     """
     ctx.obj = Console(quiet=quiet, log_json=log_json, debug=debug)
 
 
+#: Exit statuses of an interrupted command: 128 + the signal's number.
+EXIT_INTERRUPTED = 128 + signal.SIGINT    # 130, Ctrl-C
+EXIT_TERMINATED = 128 + signal.SIGTERM    # 143, SIGTERM (``kill``, a batch system, ...)
+
+
+class Terminated(KeyboardInterrupt):
+    """``SIGTERM`` turned into an interrupt by :func:`main`, so that it takes the way of
+    ``Ctrl-C``: the pools stop their workers, the output transaction aborts."""
+
+
+_HANDLER_PID = []  # the process that installed the handler
+
+
+def _raise_terminated(signum, frame):
+    if _HANDLER_PID and os.getpid() != _HANDLER_PID[-1]:
+        # a process forked from this one that kept the handler: it just ends
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)
+        os.kill(os.getpid(), signal.SIGTERM)
+        return
+    # once: a second SIGTERM while the interrupt unwinds does not break the clean-up
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)
+    raise Terminated()
+
+
+def _catch_sigterm():
+    """Install the ``SIGTERM`` handler (main thread only); returns the one it replaced."""
+    if threading.current_thread() is not threading.main_thread():
+        return None
+    try:
+        _HANDLER_PID.append(os.getpid())
+        return signal.signal(signal.SIGTERM, _raise_terminated)
+    except (ValueError, OSError):  # no signals here (an embedded interpreter)
+        return None
+
+
+def _interrupted(console, exc) -> int:
+    """The line and the exit status of an interrupted command."""
+    term = isinstance(exc, Terminated)
+    msg = (("terminated (SIGTERM)" if term else "interrupted")
+           + "; the outputs were left as they were")
+    if console.log_json:
+        console.error(msg, kind="Terminated" if term else "Interrupted")
+    else:
+        click.echo(msg, err=True)
+    return EXIT_TERMINATED if term else EXIT_INTERRUPTED
+
+
 def main(argv=None):
     """Entry point: runs a command and exits with the status of the output contract; a
-    user error prints one line (no traceback), a bug one line asking for a report."""
+    user error prints one line (no traceback), a bug one line asking for a report;
+    ``SIGTERM`` is handled as ``Ctrl-C`` (exit status 143, 130 for ``Ctrl-C``)."""
     args = hoist_global_options(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in args
     console = Console(quiet="--quiet" in args or "-q" in args, log_json="--log-json" in args,
                       debug=debug)
+    previous = _catch_sigterm()
     try:
         rv = cli.main(args=args, prog_name="basinkit", standalone_mode=False)
         _settle_outputs(True, console)  # an output opened without ``with``: swap it in
         code = rv if isinstance(rv, int) else 0
-    except click.exceptions.Abort:
-        click.echo("aborted", err=True)
-        code = 130
+    except click.exceptions.Abort as exc:  # click's form of KeyboardInterrupt
+        if isinstance(exc.__cause__, KeyboardInterrupt):
+            code = _interrupted(console, exc.__cause__)
+        else:
+            click.echo("aborted", err=True)
+            code = EXIT_INTERRUPTED
     except click.exceptions.Exit as exc:
         code = exc.exit_code
     except click.ClickException as exc:  # usage: unknown option, bad value, ...
@@ -130,9 +189,8 @@ def main(argv=None):
             traceback.print_exc()
         console.error(os_error_message(exc, doing="read or write"), kind="OutputError")
         code = 2
-    except KeyboardInterrupt:
-        click.echo("interrupted", err=True)
-        code = 130
+    except KeyboardInterrupt as exc:
+        code = _interrupted(console, exc)
     except MemoryError:
         if debug:
             traceback.print_exc()
@@ -154,6 +212,9 @@ def main(argv=None):
             code = 3
     finally:
         _settle_outputs(False)  # after an error: drop the staging folders, release locks
+        if previous is not None:  # main() called again in one process (the tests)
+            signal.signal(signal.SIGTERM, previous)
+            _HANDLER_PID.pop()
     sys.exit(code)
 
 

@@ -17,10 +17,11 @@ from .options import finish, overwrite_option, report_writer
 @click.pass_obj
 def command(console, job_file, output, overwrite, check):
     """Run a job file: the flow folder, catchments, channels, profiles, morphometry and the
-    HTML report, with provenance.json (parameters, input hashes, timings, files). The
-    output folder holds the same files the commands write (the flow folder in flow/).
-    Exits with status 1 when some outlets failed (listed in outlet_errors.csv and the
-    tables' error columns).
+    HTML report, with provenance.json (parameters, input hashes, files). The output
+    folder holds the same files the commands write (the flow folder in flow/). Prints the
+    stage times and the peak memory at the end. Exits with status 1 when some outlets
+    failed (listed in outlet_errors.csv and the tables' error columns); 130 (Ctrl-C) or
+    143 (SIGTERM) when stopped, the output folder left as it was.
 
     Example: basinkit run demo_rasters/demo_job.toml -o results/ --overwrite
 

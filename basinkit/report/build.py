@@ -113,12 +113,25 @@ def _sections(d, figs, ids, workers, progress):
             except ValueError:  # no fork on this platform
                 ctx = None
             if ctx is not None:
+                from .._processes import signals_held, stop_executor, worker_init
+
                 try:
-                    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-                        it = pool.map(_section_job, ids)
+                    # the workers end with this process (even when it is killed) and
+                    # leave Ctrl-C to it; an error or an interrupt stops them now
+                    pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx,
+                                               initializer=worker_init,
+                                               initargs=(os.getpid(),))
+                    try:
+                        with signals_held():  # the workers are forked by the first submit
+                            it = pool.map(_section_job, ids)
                         if progress is not None:
                             it = progress(it, total=len(ids), desc="report sections")
-                        return dict(it)
+                        sections = dict(it)
+                    except BaseException:
+                        stop_executor(pool)
+                        raise
+                    pool.shutdown()
+                    return sections
                 except (OSError, BrokenProcessPool):
                     pass  # drawn in this process below
         it = (_section_job(i) for i in ids)

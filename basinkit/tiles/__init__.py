@@ -17,6 +17,7 @@ _LAZY = {
     "channel_orders": ".channels",
     "catchment_table": ".tables",
     "catchment_polygons": ".polygons",
+    "channel_segments": ".segments",
     "Engine": ".engine",
 }
 

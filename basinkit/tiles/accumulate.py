@@ -23,7 +23,7 @@ ACCUMULATION_LAYERS = ("cell_count", "upstream_area_m2")
 class TileFlow:
     """A tile's local receivers, its targets in other tiles and its stack."""
 
-    __slots__ = ("h", "w", "r0", "c0", "ncols", "rl", "tgt", "stack", "bad")
+    __slots__ = ("h", "w", "r0", "c0", "ncols", "d", "rl", "tgt", "stack", "bad")
 
     def __init__(self, store, layer, ti, tj):
         lay = store.layout
@@ -41,6 +41,7 @@ class TileFlow:
                                  f"({ti}, {tj}) holds {d.dtype}")
             d = d.astype(np.int16)
         self.h, self.w, self.r0, self.c0, self.ncols = r1 - r0, c1 - c0, r0, c0, lay.ncols
+        self.d = d
         self.rl, self.tgt, self.bad = K.local_receivers(d, r0, c0, lay.nrows, lay.ncols)
         self.stack = K.tile_stack(self.rl)
 
@@ -91,6 +92,15 @@ def _accumulate_task(spec, ti, tj, in_cells, in_count, in_area, directions, row_
     return True
 
 
+def take(values, pos, default):
+    """``values[pos]`` where ``pos >= 0``, ``default`` elsewhere (``values`` may be empty)."""
+    pos = np.asarray(pos, dtype=np.int64)
+    out = np.full(pos.shape, default, dtype=np.result_type(values, np.asarray(default)))
+    ok = pos >= 0
+    out[ok] = np.asarray(values)[pos[ok]]
+    return out
+
+
 def join_exits(links):
     """The pass on the client: totals through every exit, summed into the cells they
     enter. Returns (target cells, counts, areas), target cells in grid order of the
@@ -103,9 +113,9 @@ def join_exits(links):
     xsort = np.argsort(cat["exit_cell"], kind="stable")
     xkeys = cat["exit_cell"][xsort]
     pos = K.lookup(bkeys, cat["exit_target"])
-    nxt = np.where(pos >= 0, cat["border_exit"][bsort][np.maximum(pos, 0)], -1)
+    nxt = take(cat["border_exit"][bsort], pos, -1)
     xpos = K.lookup(xkeys, nxt)
-    down = np.where((nxt >= 0) & (xpos >= 0), xsort[np.maximum(xpos, 0)], -1)
+    down = take(xsort, np.where(nxt >= 0, xpos, -1), -1)
     tc, ta = K.exit_totals(down, cat["exit_count"].astype(np.int64),
                            cat["exit_area"].astype(np.float64))
     enters = pos >= 0  # a target that is no valid edge cell (nodata): the water leaves
@@ -131,6 +141,23 @@ def by_tile(layout, cells, *arrays):
     return out
 
 
+def store_georeference(layout, store):
+    """(CellGeometry, transform, crs) of the grid from the store's metadata ``transform``
+    (six numbers) and ``crs`` (WKT), as written by :func:`basinkit.tiles.route.write_terrain`
+    and :func:`basinkit.io.tile_source.dem_into_tiles`."""
+    from affine import Affine
+    from pyproj import CRS
+
+    from ..terrain.geometry import cell_geometry
+
+    if not (store.has_meta("transform") and store.has_meta("crs")):
+        raise InputError("the tile store does not record the grid's transform and CRS; give "
+                         "the cell areas (or geometry, transform) yourself")
+    t = Affine(*store.read_meta("transform"))
+    crs = CRS.from_wkt(store.read_meta("crs"))
+    return cell_geometry(t, layout.shape, crs), t, crs
+
+
 def _check_layout(layout, store):
     found = getattr(store, "layout", None)
     if found is not None and found != layout:
@@ -138,7 +165,7 @@ def _check_layout(layout, store):
                          "store's own layout")
 
 
-def flow_accumulation(layout, store, row_area, *, directions: str = "directions",
+def flow_accumulation(layout, store, row_area=None, *, directions: str = "directions",
                       scheduler=None, workers: int | None = None) -> dict:
     """D8 flow accumulation of a grid held as tiles: cell count and upstream area.
 
@@ -149,8 +176,9 @@ def flow_accumulation(layout, store, row_area, *, directions: str = "directions"
     store : tile store
         :class:`MemoryTiles` or a tile folder on disk, holding the ``directions`` layer;
         receives ``cell_count`` and ``upstream_area_m2``.
-    row_area : array of float (nrows,)
-        Ground area of one cell of each row, m² (:attr:`CellGeometry.area`).
+    row_area : array of float (nrows,), optional
+        Ground area of one cell of each row, m² (:attr:`CellGeometry.area`); by default
+        from the store's ``transform`` and ``crs`` metadata.
     directions : str
         Name of the layer of D8 azimuth codes.
     scheduler : str or distributed.Client, optional
@@ -216,6 +244,8 @@ def flow_accumulation(layout, store, row_area, *, directions: str = "directions"
     [1, 2, 3, 4]
     """
     _check_layout(layout, store)
+    if row_area is None:
+        row_area = store_georeference(layout, store)[0].area
     row_area = np.ascontiguousarray(row_area, dtype=np.float64)
     if row_area.shape != (layout.nrows,):
         raise InputError(f"row_area needs one cell area per row ({layout.nrows}), got shape "

@@ -129,6 +129,25 @@ def channel_orders(layout, store, min_area_m2, *, directions: str = "directions"
     Strahler, A. N. (1957). Transactions, American Geophysical Union 38:913-920.
     Shreve, R. L. (1966). Journal of Geology 74:17-37.
     Barnes, R. (2017). Environmental Modelling & Software 92:202-212.
+
+    Examples
+    --------
+    The V valley of :func:`extract_channels`' example, in tiles of 2 × 2 cells: the same
+    orders down its axis (the cells with 500 m² or more upstream).
+
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> from basinkit.tiles import MemoryTiles, TileLayout, flow_accumulation
+    >>> z = np.add.outer(np.arange(6.0, 0, -1), np.abs(np.arange(5.0) - 2))
+    >>> fm = route(terrain_from_array(z, cellsize=10))
+    >>> layout = TileLayout.square(6, 5, 2)
+    >>> store = MemoryTiles(layout)
+    >>> for (ti, tj), part in layout.split(fm.direction_d8()).items():
+    ...     store.write("directions", ti, tj, part)
+    >>> _ = flow_accumulation(layout, store, fm.terrain.geometry.area)
+    >>> _ = channel_orders(layout, store, 500)
+    >>> layout.join({t: store.read("strahler_order", *t) for t in layout.tiles()})[:, 2].tolist()
+    [0, 0, 1, 1, 1, 1]
     """
     _check_layout(layout, store)
     try:

@@ -15,7 +15,7 @@ import numpy as np
 from . import _flow_kernels as K
 from ..analysis.catchments import outlet_tree
 from ..errors import InputError, OutletError
-from .accumulate import TileFlow, _check_layout, by_tile
+from .accumulate import TileFlow, _check_layout, by_tile, take
 from .engine import Engine, check_settings, digest, open_store
 
 __all__ = ["catchment_labels", "TiledCatchments"]
@@ -113,7 +113,7 @@ def _resolve(links):
 
     def beyond(cells):  # the label a water entering these cells meets
         pos = K.lookup(keys, np.asarray(cells, dtype=np.int64))
-        return np.where(pos >= 0, res[np.maximum(pos, 0)], 0)
+        return take(res, pos, 0)
 
     return beyond
 

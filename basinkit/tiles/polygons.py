@@ -15,7 +15,7 @@ from ..errors import InputError
 from .accumulate import _check_layout
 from .engine import Engine, open_store
 
-__all__ = ["catchment_polygons"]
+__all__ = ["catchment_polygons", "perimeters_m"]
 
 
 def _pieces_task(spec, ti, tj, layer):
@@ -51,7 +51,7 @@ def _to_map(geoms, transform):
     return [None if g is None else shapely.transform(g, place) for g in geoms]
 
 
-def catchment_polygons(layout, store, catchments, transform, *, crs=None,
+def catchment_polygons(layout, store, catchments, transform=None, *, crs=None,
                        scheduler=None, workers: int | None = None):
     """Full-catchment and sub-catchment polygons of outlets labelled by tiles.
 
@@ -62,8 +62,8 @@ def catchment_polygons(layout, store, catchments, transform, *, crs=None,
         Holding the labels (``catchments.layer``).
     catchments : TiledCatchments
         From :func:`basinkit.tiles.catchment_labels`.
-    transform : affine.Affine
-        The grid's transform.
+    transform : affine.Affine, optional
+        The grid's transform (default, with ``crs``: from the store's metadata).
     crs : optional
         The grid's CRS; on a geographic grid the edges are densified to one vertex per
         cell, as :func:`delineate` does, so that geodesic areas match the cell sums.
@@ -89,6 +89,10 @@ def catchment_polygons(layout, store, catchments, transform, *, crs=None,
     import shapely
 
     _check_layout(layout, store)
+    if transform is None:
+        from .accumulate import store_georeference
+
+        _, transform, crs = store_georeference(layout, store)
     n = catchments.subtree_size.size - 1
     with Engine(scheduler, workers) as eng:
         spec = eng.spec(store)
@@ -129,3 +133,23 @@ def catchment_polygons(layout, store, catchments, transform, *, crs=None,
         sub_map = [None if g is None else shapely.segmentize(g, seg) for g in sub_map]
     labels = np.asarray(catchments.label, dtype=np.int64)
     return [full_map[k] for k in labels], [sub_map[k] for k in labels]
+
+
+def perimeters_m(polygons, crs) -> np.ndarray:
+    """Perimeter (m, on the ground) of every polygon, as :func:`delineate` measures it:
+    geodesic on a geographic CRS (Karney 2013), else the planar length in the CRS's linear
+    unit converted to metres; NaN for None."""
+    import shapely
+
+    from pyproj import CRS
+
+    crs = CRS.from_user_input(crs)
+    if crs.is_geographic:
+        from ..analysis.polygons import ground_area_perimeter
+
+        return np.array([ground_area_perimeter(g, crs)[1] if g is not None else np.nan
+                         for g in polygons], dtype=float)
+    from ..terrain.geometry import _linear_unit_to_metres
+
+    return np.asarray(shapely.length(np.array(polygons, dtype=object)),
+                      dtype=float) * _linear_unit_to_metres(crs)

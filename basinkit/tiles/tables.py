@@ -65,7 +65,7 @@ def _summary(idx, nlab, valid, z, has_z, row_area, r0, c0, nrows, ncols):
     return count, area, zsum, zcount, zmin, zmax, touches
 
 
-def _table_task(spec, ti, tj, row_area, layer, directions, elevation):
+def _table_task(spec, ti, tj, row_area, layer, directions, elevation, nlab):
     store = open_store(spec)
     lay = store.layout
     r0, r1, c0, c1 = lay.window(ti, tj)
@@ -75,17 +75,19 @@ def _table_task(spec, ti, tj, row_area, layer, directions, elevation):
     lab = np.asarray(store.read(layer, ti, tj)).astype(np.int64)
     valid = np.asarray(store.read(directions, ti, tj)) != -32768
     lab = np.where(valid, lab, 0)
-    labels, inv = np.unique(lab, return_inverse=True)
-    idx = inv.reshape(lab.shape).astype(np.int64)
-    first = 1 if labels.size and labels[0] == 0 else 0
-    idx -= first  # label 0 -> -1 (left out)
-    labels = labels[first:]
+    if lab.size and (lab.min() < 0 or lab.max() > nlab):
+        raise InputError(f"the {layer!r} layer holds labels the outlets do not have; label "
+                         "the catchments again")
+    idx = lab - 1  # label 0 -> -1 (left out)
     if elevation:
         z = np.asarray(store.read(elevation, ti, tj), dtype=np.float64)
     else:
         z = np.zeros((1, 1))
-    stats = _summary(idx, labels.size, valid, z, bool(elevation), row_area, r0, c0,
+    stats = _summary(idx, nlab, valid, z, bool(elevation), row_area, r0, c0,
                      lay.nrows, lay.ncols)
+    seen = np.flatnonzero(stats[0])  # the labels present, compacted
+    labels = seen + 1
+    stats = tuple(a[seen] for a in stats)
     h, w = lab.shape
     edge = np.zeros((h, w), dtype=bool)
     edge[[0, -1], :] = True
@@ -117,7 +119,7 @@ def _touches_across(layout, parts):
     return np.unique(L[hit])
 
 
-def catchment_table(layout, store, catchments, row_area, *, outlet_ids=None,
+def catchment_table(layout, store, catchments, row_area=None, *, outlet_ids=None,
                     outlet_cells=None, directions: str = "directions",
                     elevation: str | None = None, scheduler=None,
                     workers: int | None = None) -> pd.DataFrame:
@@ -131,8 +133,8 @@ def catchment_table(layout, store, catchments, row_area, *, outlet_ids=None,
         ``elevation`` (the DEM as read, NaN or nodata where missing).
     catchments : TiledCatchments
         From :func:`basinkit.tiles.catchment_labels`.
-    row_area : array of float (nrows,)
-        Cell area of each row, m².
+    row_area : array of float (nrows,), optional
+        Cell area of each row, m² (default: from the store's metadata).
     outlet_ids : sequence of str, optional
         Ids of the outlets, in the order given to :func:`catchment_labels` (default
         ``"1"``, ``"2"``, ...).
@@ -160,6 +162,10 @@ def catchment_table(layout, store, catchments, row_area, *, outlet_ids=None,
     :func:`flow_accumulation`).
     """
     _check_layout(layout, store)
+    if row_area is None:
+        from .accumulate import store_georeference
+
+        row_area = store_georeference(layout, store)[0].area
     row_area = np.ascontiguousarray(row_area, dtype=np.float64)
     if row_area.shape != (layout.nrows,):
         raise InputError(f"row_area needs one cell area per row ({layout.nrows}), got shape "
@@ -179,7 +185,7 @@ def catchment_table(layout, store, catchments, row_area, *, outlet_ids=None,
             return row_area[r0:r1]
 
         parts = eng.map(_table_task, spec, [(ti, tj, (rows(ti, tj),)) for ti, tj in tiles],
-                        shared=(catchments.layer, directions, elevation))
+                        shared=(catchments.layer, directions, elevation, n))
     count = np.zeros(n + 1, dtype=np.int64)
     area = np.zeros(n + 1)
     zsum = np.zeros(n + 1)
@@ -189,9 +195,6 @@ def catchment_table(layout, store, catchments, row_area, *, outlet_ids=None,
     touches = np.zeros(n + 1, dtype=bool)
     for p in parts:
         lab = p["labels"]
-        if lab.size and lab.max() > n:
-            raise InputError(f"the {catchments.layer!r} layer holds labels the outlets do not "
-                             "have; label the catchments again")
         c, a, zs, zc, zlo, zhi, t = p["stats"]
         count[lab] += c
         area[lab] += a

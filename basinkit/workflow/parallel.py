@@ -7,6 +7,10 @@ imported libraries are inherited (copy-on-write) instead of sent; only the per-o
 results travel back. The results are those of a loop in this process, in the same order,
 whatever the number of workers (each item is computed independently), so the products do
 not depend on it.
+
+The workers end with this process, even when it is killed, and leave ``Ctrl-C`` to it
+(:func:`basinkit._processes.worker_init`); an error or an interrupt here, or closing the
+generator, terminates the pool.
 """
 
 from __future__ import annotations
@@ -66,11 +70,17 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
                 yield func(item)
             return
         import multiprocessing as mp
+        import os
+
+        from .._processes import signals_held, worker_init
 
         # the first item here: kernels compiled and modules imported before the fork
         first = func(items[0])
         chunk = max(1, min(16, len(items) // (8 * int(workers))))
-        with mp.get_context("fork").Pool(int(workers)) as pool:
+        with signals_held():  # Ctrl-C and SIGTERM wait until the workers are set up
+            pool = mp.get_context("fork").Pool(int(workers), initializer=worker_init,
+                                               initargs=(os.getpid(),))
+        with pool:
             results = pool.imap(func, items[1:], chunksize=chunk)
 
             def all_results():

@@ -34,6 +34,12 @@ class JobResult:
         the folder's files do not; they go to the console and ``--log-json``).
     seconds_total : float
         Wall time of the run.
+    peak_memory_bytes, peak_worker_memory_bytes : int or None
+        Peak resident memory of this process, and the largest peak of its worker processes
+        (0: none were forked), when the run ended (:func:`basinkit._processes.peak_memory`;
+        over the life of the process, so a Python session's earlier work counts). On the
+        console and in ``--log-json``, not in provenance.json: like the timings they differ
+        from run to run, and the folder's files do not.
     flow : FlowModel
         The model as read back from ``flow/``.
     outlets : pandas.DataFrame or None
@@ -57,6 +63,8 @@ class JobResult:
     files: dict = field(default_factory=dict)
     stages: dict = field(default_factory=dict)
     seconds_total: float = 0.0
+    peak_memory_bytes: int | None = None
+    peak_worker_memory_bytes: int | None = None
     flow: object = None
     terrain: object = None
     outlets: object = None
@@ -303,7 +311,27 @@ def _run(job, out, rep, report):
         rep.warn(f"{len(res.failures)} outlet failure(s): see outlet_errors.csv and the "
                  "error columns of the tables")
     rep.info(f"wrote {out.folder} ({res.seconds_total:.1f} s)")
+    _report_peak_memory(res, rep)
     return res
+
+
+def _report_peak_memory(res, rep):
+    """The peak memory of the run into ``res`` and onto the console (not into the files)."""
+    from .._processes import peak_memory
+
+    peak = peak_memory()
+    res.peak_memory_bytes = peak["peak_memory_bytes"]
+    res.peak_worker_memory_bytes = peak["peak_worker_memory_bytes"]
+    if res.peak_memory_bytes is None:
+        return
+    msg = f"peak memory {_gib(res.peak_memory_bytes)}"
+    if res.peak_worker_memory_bytes:
+        msg += f", largest worker {_gib(res.peak_worker_memory_bytes)}"
+    rep.info(msg, event="peak_memory", **peak)
+
+
+def _gib(n):
+    return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.0f} MiB"
 
 
 def _design_flow_inputs(job, st, terrain, inputs):

@@ -1,5 +1,7 @@
 """Figures of many outlets drawn in forked workers (matplotlib draws on one core; each
-figure takes a tenth of a second or more), written in the order given."""
+figure takes a tenth of a second or more), written in the order given. The workers are
+those of :func:`~basinkit.workflow.parallel.map_outlets`: they end with this process, even
+when it is killed (:mod:`basinkit._processes`)."""
 
 from __future__ import annotations
 

@@ -218,34 +218,37 @@ def _collect(out, results, items, rows, nc, rep, node_table) -> _Collected:
     steep_l, knick_l, path_rows, lines = c.steep, c.knick, c.path_rows, c.lines
     summaries, fails, paths = c.summaries, c.fails, c.paths
     # results first in zip: the progress generator then runs to its end (its last line)
-    for r, (k, oid, fid, cell, _) in zip(results, items):
-        src = str(rows[k].source)
-        if "error" in r:
-            fails.append({"outlet_id": oid, "source": src, "reason": r["error"]})
-            rep.outlet_failed(oid, r["error"], "profiles", source=src)
-            for kind in ("longest_flow_path", "main_stem"):
-                path_rows.append({"outlet_id": oid, "file_id": fid, "kind": kind,
-                                  "error": r["error"]})
-            continue
-        summary, lfp, ms = r["summary"], r["lfp"], r["ms"]
-        summary.update(outlet_row=cell // nc, outlet_col=cell % nc, source=src)
-        for w in summary.get("warnings", []):
-            rep.warn(f"outlet {oid!r}: {w}")
-        node_table.write_text(r["node_rows"])
-        steep_l.append(r["steepness"])
-        knick_l.append(r["knickpoints"])
-        warning = "; ".join(summary.get("warnings", []))
-        for prof in (lfp, ms):
-            path_rows.append({"outlet_id": oid, "file_id": fid, **prof.summary(),
-                              "warning": warning, "error": ""})
-            lines.append((oid, prof))
-        summaries.append(summary)
-        paths[oid] = {"longest_flow_path": lfp, "main_stem": ms,
-                      "steepness": r["steepness"],
-                      "knickpoints": r["knickpoints"],
-                      "warnings": summary.get("warnings", [])}
-        for what, png in r.get("figures", {}).items():
-            out.data(f"figures/{fid}_{what}.png", png)
+    try:  # an error or an interrupt here ends the workers now (not at exit)
+        for r, (k, oid, fid, cell, _) in zip(results, items):
+            src = str(rows[k].source)
+            if "error" in r:
+                fails.append({"outlet_id": oid, "source": src, "reason": r["error"]})
+                rep.outlet_failed(oid, r["error"], "profiles", source=src)
+                for kind in ("longest_flow_path", "main_stem"):
+                    path_rows.append({"outlet_id": oid, "file_id": fid, "kind": kind,
+                                      "error": r["error"]})
+                continue
+            summary, lfp, ms = r["summary"], r["lfp"], r["ms"]
+            summary.update(outlet_row=cell // nc, outlet_col=cell % nc, source=src)
+            for w in summary.get("warnings", []):
+                rep.warn(f"outlet {oid!r}: {w}")
+            node_table.write_text(r["node_rows"])
+            steep_l.append(r["steepness"])
+            knick_l.append(r["knickpoints"])
+            warning = "; ".join(summary.get("warnings", []))
+            for prof in (lfp, ms):
+                path_rows.append({"outlet_id": oid, "file_id": fid, **prof.summary(),
+                                  "warning": warning, "error": ""})
+                lines.append((oid, prof))
+            summaries.append(summary)
+            paths[oid] = {"longest_flow_path": lfp, "main_stem": ms,
+                          "steepness": r["steepness"],
+                          "knickpoints": r["knickpoints"],
+                          "warnings": summary.get("warnings", [])}
+            for what, png in r.get("figures", {}).items():
+                out.data(f"figures/{fid}_{what}.png", png)
+    finally:
+        results.close()
     return c
 
 

@@ -60,10 +60,20 @@ def check_tiled_settings(settings) -> None:
                          "memory (a larger --max-memory, no --tile-size)")
 
 
-def grid_shape_of(settings) -> tuple[int, int]:
-    """The DEM's rows and columns from its header (a folder of tiles: their mosaic)."""
+def grid_shape_of(settings) -> tuple[int, int] | None:
+    """The DEM's rows and columns from its header (a folder of tiles: their mosaic); None
+    when a single file's header cannot be read as a georeferenced raster (the in-memory
+    reader then says what is wrong with it: damaged, or georeferencing to give)."""
     from ...io.tile_source import _sources
 
+    if not Path(settings.dem).is_dir():
+        try:
+            import rasterio
+
+            with rasterio.open(settings.dem) as ds:
+                return (ds.height, ds.width)
+        except Exception:  # noqa: BLE001 - read_terrain reports it in the user's terms
+            return None
     parts, _, shape, _, _ = _sources(settings.dem, settings.band)
     for q in parts:
         q.ds.close()
@@ -352,7 +362,10 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
     if tile_size is not None and not 1 <= int(tile_size) <= 16000:
         raise InputError(f"--tile-size must be between 1 and 16000 cells, got {tile_size}")
     nw = int(workers) if workers else (os.cpu_count() or 1)
-    nrows, ncols = grid_shape_of(settings)
+    shape = grid_shape_of(settings)
+    if shape is None:  # not readable as a raster here: the in-memory reader says why
+        shape = read_terrain(settings).shape
+    nrows, ncols = shape
     plan = plan_route(nrows, ncols, budget, tile_size=tile_size, workers=nw)
     if plan.tiled:
         check_tiled_settings(settings)
