@@ -5,7 +5,7 @@ channel threshold by the constant-drop test."""
 import click
 
 from .options import (finish, load_flow_folder, outlet_options, output_folder,
-                      overwrite_option, parse_area, place)
+                      overwrite_option, parse_area, place, tell_peak_memory)
 
 
 def _parse_range(text):
@@ -105,8 +105,6 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
 def _tiled(console, flowdir, out, settings, outlets, scheduler):
     from ..errors import InputError
     from ..io.tiled_flow_folder import TiledFlowFolder, gdal_cache_env
-    from ..tiles.plan import peak_memory_bytes
-    from ..terrain.memory import format_bytes
     from ..workflow.steps.tiled_steps import tiled_channels_step
 
     if outlets:
@@ -120,5 +118,5 @@ def _tiled(console, flowdir, out, settings, outlets, scheduler):
         tiled_channels_step(out, flow.windowed_model(), settings, reporter=console,
                             parameters={"flowdir": str(flowdir)}, scheduler=scheduler)
     console.info(f"wrote {out.folder}")
-    console.info(f"peak resident memory: {format_bytes(peak_memory_bytes())}")
+    tell_peak_memory(console)
     return finish(console)

@@ -260,6 +260,18 @@ def place(console, fm, outlets):
     return placed
 
 
+def tell_peak_memory(console):
+    """The peak resident memory of the command so far, on the console (as ``basinkit run``
+    prints it; ``--log-json``: the record with ``"event": "peak_memory"``)."""
+    from .._processes import peak_memory
+    from ..workflow.runner import _gib
+
+    peak = peak_memory()
+    if peak["peak_memory_bytes"] is not None:
+        console.info(f"peak memory {_gib(peak['peak_memory_bytes'])}", event="peak_memory",
+                     **peak)
+
+
 def finish(console, failed=0):
     """Print the cautions once and return the exit status (1 when outlets failed)."""
     from ..workflow.cautions import CAUTION_TEXT

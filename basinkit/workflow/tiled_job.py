@@ -64,7 +64,7 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
 
     from ..io.tiled_flow_folder import TiledFlowFolder
     from .outlets import place_outlets
-    from .runner import _outlet_rows, _provenance, _warnings
+    from .runner import _outlet_rows, _provenance, _report_peak_memory, _warnings
     from .steps.tiled_flow import tiled_flow_step
     from .steps.tiled_steps import tiled_catchments_step, tiled_channels_step
 
@@ -114,4 +114,5 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
         rep.warn(f"{len(res.failures)} outlet failure(s): see outlet_errors.csv and the "
                  "error columns of the tables")
     rep.info(f"wrote {out.folder} ({res.seconds_total:.1f} s)")
+    _report_peak_memory(res, rep)
     return res

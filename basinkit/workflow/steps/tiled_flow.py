@@ -345,7 +345,8 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
     >>> route_dem("demo_rasters/upland_valley.tif", "flow/", max_memory="256MB")
     ... # doctest: +SKIP
     """
-    from ...tiles.plan import peak_memory_bytes, plan_route
+    from ..._processes import peak_memory
+    from ...tiles.plan import plan_route
     from ...units import parse_memory
     from ..output import OutputFolder
     from .flow import FlowSettings, flow_step, read_burn_lines, read_terrain
@@ -399,5 +400,5 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
             lines = read_burn_lines(settings, terrain.crs)
         with out.open(rep), rep.stage("flow"):
             flow_step(out, settings, terrain=terrain, burn=lines, reporter=rep)
-    result["peak_memory_bytes"] = peak_memory_bytes()
+    result["peak_memory_bytes"] = peak_memory()["peak_memory_bytes"]
     return result
