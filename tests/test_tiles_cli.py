@@ -11,6 +11,7 @@ The GeoTIFF structure (tiling, overviews) is read back with rasterio (GDAL).
 
 import json
 
+import geopandas as gpd
 import numpy as np
 import pandas as pd
 import pytest
@@ -186,17 +187,33 @@ def test_delineate_on_tiled_folder_equals_in_memory(case, capsys):
 
 
 def test_channels_on_tiled_folder(case, capsys):
+    """The channel network by tiles: the order raster equal cell for cell, the segments
+    and junctions equal value for value (segments matched by their end cells: the tiled
+    ids follow another order), split at outlets as in memory."""
     d, dem = case
     tiled = d / "flow_tiled_c"
     assert run(["route", dem, "-o", tiled, "--tile-size", "16"], capsys)[0] == 0
-    opts = ["--min-area", "0.5ha", "--min-order", "2"]
+    opts = ["--min-area", "0.5ha", "--min-order", "2",
+            *outlet_args(d / "flow_mem", k=4, seed=2), "--snap-radius", "0"]
     assert run(["channels", d / "flow_mem", "-o", d / "ch_mem", *opts], capsys)[0] == 0
     code, stdout, err = run(["channels", tiled, "-o", d / "ch_tiles", *opts], capsys)
     assert code == 0, err
-    assert "not yet computed by tiles" in stdout + err
+    assert "channels by tiles" in stdout + err
     a, pa, _, _ = read(d / "ch_mem" / "strahler_order.tif")
     b, pb, _, _ = read(d / "ch_tiles" / "strahler_order.tif")
     assert np.array_equal(a, b) and pa["nodata"] == pb["nodata"] and b.max() >= 2
+    key = ["top_row", "top_col", "bottom_row", "bottom_col"]
+    sa = pd.read_csv(d / "ch_mem" / "channel_segments.csv")
+    sb = pd.read_csv(d / "ch_tiles" / "channel_segments.csv")
+    assert list(sa.columns) == list(sb.columns) and len(sa) == len(sb) > 10
+    sa, sb = (f.sort_values(key).reset_index(drop=True) for f in (sa, sb))
+    ids = ["segment_id", "downstream_id", "stream_id"]
+    pd.testing.assert_frame_equal(sa.drop(columns=ids), sb.drop(columns=ids), rtol=1e-12)
+    ja = gpd.read_file(d / "ch_mem" / "channels.gpkg", layer="junctions")
+    jb = gpd.read_file(d / "ch_tiles" / "channels.gpkg", layer="junctions")
+    cols = ["strahler_order", "shreve_magnitude", "tributary_count", "row", "col"]
+    ja, jb = (f[cols].sort_values(["row", "col"]).reset_index(drop=True) for f in (ja, jb))
+    pd.testing.assert_frame_equal(ja, jb)
     code, _, err = run(["channels", tiled, "-o", d / "ch_bad", "--choose-threshold",
                         "0.1ha:1ha"], capsys)
     assert code == 2

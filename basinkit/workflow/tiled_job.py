@@ -1,5 +1,5 @@
 """A job whose DEM is routed by tiles (``[routing] max_memory`` or ``tile_size``): the flow
-folder by tiles, then the catchments and the Strahler order raster by tiles on it; the
+folder by tiles, then the catchments and the channel network by tiles on it; the
 stages that need the grid in memory (profiles, morphometry, design flows, the report) are
 skipped with a note. Called by :func:`basinkit.workflow.runner.run_job`."""
 
@@ -88,7 +88,9 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
     else:
         timer.skip("catchments", "no outlets file in [inputs]")
     with timer("channels"):
-        tiled_channels_step(out, fm, st["channels"], reporter=rep, scheduler=scheduler)
+        tiled_channels_step(out, fm, st["channels"],
+                            outlet_cells=None if placed is None else placed.cells,
+                            reporter=rep, scheduler=scheduler)
     why = "needs the grid in memory; the DEM was routed by tiles"
     for stage in ("profiles", "morphometry"):
         timer.skip(stage, why)
