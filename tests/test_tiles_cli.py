@@ -379,3 +379,30 @@ def test_base_level_and_geographic_grids(tmp_path, capsys, crs, extra):
     np.testing.assert_allclose(b, a, rtol=1e-12)
     if extra:
         assert json.loads((til / "flow.json").read_text())["base_level"] is True
+
+
+def test_dem_moved_or_copied(case, capsys, tmp_path):
+    """The elevation columns need the DEM as read: from --copy-input's copy, or, when the
+    referenced DEM is gone, left empty with a warning (the other columns as before)."""
+    import shutil
+
+    d, dem = case
+    moved = tmp_path / "moved.tif"
+    shutil.copy(dem, moved)
+    outs = outlet_args(d / "flow_mem", k=2, seed=4) + ["--snap-radius", "0"]
+    assert run(["route", moved, "-o", tmp_path / "ref", "--tile-size", "32"], capsys)[0] == 0
+    assert run(["route", moved, "-o", tmp_path / "cp", "--tile-size", "32",
+                "--copy-input"], capsys)[0] == 0
+    moved.unlink()
+    a, b, _, _ = read(tmp_path / "cp" / "elevation_input.tif")
+    assert np.array_equal(a, read(dem)[0], equal_nan=True) and b["tiled"]
+    code, stdout, err = run(["delineate", tmp_path / "ref", "-o", tmp_path / "d1", *outs],
+                            capsys)
+    assert code == 0, err
+    assert "cannot be read by windows" in stdout + err
+    code, _, err = run(["delineate", tmp_path / "cp", "-o", tmp_path / "d2", *outs], capsys)
+    assert code == 0, err
+    t1 = pd.read_csv(tmp_path / "d1" / "catchments.csv")
+    t2 = pd.read_csv(tmp_path / "d2" / "catchments.csv")
+    assert t1["elevation_mean_m"].isna().all() and t2["elevation_mean_m"].notna().all()
+    assert t1["area_m2"].tolist() == t2["area_m2"].tolist()
