@@ -93,10 +93,10 @@ def tiled_catchments_step(out, fm, placed, settings=None, reporter=None,
     from ...analysis.outlets import ERROR_COLUMNS
     from ...analysis.polygons import ground_area_perimeter
     from ...io.tiled_flow_folder import layer_reader, write_tiled_geotiff
+    from ...tiles.filled import filled_by_label
     from ...tiles.labels import catchment_labels
     from ...tiles.polygons import catchment_polygons
     from ...tiles.tables import catchment_table
-    from ...tiles.filled import filled_by_label
     from .catchments import (CatchmentSettings, CatchmentsResult, _csv_table, _tell, _write,
                              filled_columns)
 
