@@ -483,3 +483,17 @@ def test_profile_command(tmp_path, base_model):
                                   "--concavity", "0.5", "--fit-concavity", "-o",
                                   str(tmp_path / "o3")])
     assert isinstance(r3.exception, InputError) and "not both" in str(r3.exception)
+
+
+def test_released_tables_are_made_again():
+    """FlowModel.release frees the profiles' donor tables between steps; a later path is
+    then the same (closed form: a plane sloping south, the path runs down one column)."""
+    z = np.add.outer(np.arange(30.0, 0, -1), np.zeros(7))
+    fm = route(terrain_from_array(z, cellsize=10))
+    outlet = 29 * 7 + 3
+    first = P.longest_flow_path(fm, outlet)
+    assert fm.release("profiles") > 0
+    assert fm.release("profiles") == 0
+    again = P.longest_flow_path(fm, outlet)
+    assert np.array_equal(first.cells, again.cells)
+    assert again.length_m == pytest.approx(290.0)  # 29 steps of 10 m

@@ -136,6 +136,18 @@ class FlowModel:
             return acc  # weighted: a new array of the caller's
         return self.derived(key, lambda: acc)
 
+    def release(self, group) -> int:
+        """Drop the derived arrays whose key starts with ``group`` (e.g. ``"profiles"``),
+        to free their memory once no later step needs them; they are made again if asked
+        for. Returns the bytes released."""
+        keys = [k for k in self._cache if isinstance(k, tuple) and k and k[0] == group]
+        freed = 0
+        for k in keys:
+            a = self._cache.pop(k)
+            for x in (a if isinstance(a, tuple) else (a,)):
+                freed += int(getattr(x, "nbytes", 0))
+        return freed
+
     def derived(self, key, make):
         """An array derived from this model, computed once by ``make()`` and kept.
 

@@ -263,6 +263,8 @@ def _run(job, out, rep, report):
                                      reporter=rep)
             res.profiles = pres.paths
             failures.append(pres.failures.assign(stage="profiles"))
+            if design is None:  # the design flows' flow paths use the same donor tables
+                fm.release("profiles")
         else:
             timer.skip("profiles", "turned off in the job file ([profiles] enabled = false)")
         if job["morphometry"]["enabled"]:
