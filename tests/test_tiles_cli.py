@@ -11,6 +11,7 @@ The GeoTIFF structure (tiling, overviews) is read back with rasterio (GDAL).
 
 import json
 
+import geopandas as gpd
 import numpy as np
 import pandas as pd
 import pytest
@@ -61,7 +62,7 @@ def test_route_by_tiles_equals_in_memory(case, capsys, extra):
     code, stdout, err = run(["route", dem, "-o", out, "--max-memory", "1MB", *extra], capsys)
     assert code == 0, err
     text = stdout + err
-    assert "by tiles" in text and "peak resident memory" in text
+    assert "by tiles" in text and "peak memory" in text
     assert_same_rasters(d / "flow_mem", out)
     meta = json.loads((out / "flow.json").read_text())
     tile = 16 if extra else 256
@@ -186,17 +187,33 @@ def test_delineate_on_tiled_folder_equals_in_memory(case, capsys):
 
 
 def test_channels_on_tiled_folder(case, capsys):
+    """The channel network by tiles: the order raster equal cell for cell, the segments
+    and junctions equal value for value (segments matched by their end cells: the tiled
+    ids follow another order), split at outlets as in memory."""
     d, dem = case
     tiled = d / "flow_tiled_c"
     assert run(["route", dem, "-o", tiled, "--tile-size", "16"], capsys)[0] == 0
-    opts = ["--min-area", "0.5ha", "--min-order", "2"]
+    opts = ["--min-area", "0.5ha", "--min-order", "2",
+            *outlet_args(d / "flow_mem", k=4, seed=2), "--snap-radius", "0"]
     assert run(["channels", d / "flow_mem", "-o", d / "ch_mem", *opts], capsys)[0] == 0
     code, stdout, err = run(["channels", tiled, "-o", d / "ch_tiles", *opts], capsys)
     assert code == 0, err
-    assert "not yet computed by tiles" in stdout + err
+    assert "channels by tiles" in stdout + err
     a, pa, _, _ = read(d / "ch_mem" / "strahler_order.tif")
     b, pb, _, _ = read(d / "ch_tiles" / "strahler_order.tif")
     assert np.array_equal(a, b) and pa["nodata"] == pb["nodata"] and b.max() >= 2
+    key = ["top_row", "top_col", "bottom_row", "bottom_col"]
+    sa = pd.read_csv(d / "ch_mem" / "channel_segments.csv")
+    sb = pd.read_csv(d / "ch_tiles" / "channel_segments.csv")
+    assert list(sa.columns) == list(sb.columns) and len(sa) == len(sb) > 10
+    sa, sb = (f.sort_values(key).reset_index(drop=True) for f in (sa, sb))
+    ids = ["segment_id", "downstream_id", "stream_id"]
+    pd.testing.assert_frame_equal(sa.drop(columns=ids), sb.drop(columns=ids), rtol=1e-12)
+    ja = gpd.read_file(d / "ch_mem" / "channels.gpkg", layer="junctions")
+    jb = gpd.read_file(d / "ch_tiles" / "channels.gpkg", layer="junctions")
+    cols = ["strahler_order", "shreve_magnitude", "tributary_count", "row", "col"]
+    ja, jb = (f[cols].sort_values(["row", "col"]).reset_index(drop=True) for f in (ja, jb))
+    pd.testing.assert_frame_equal(ja, jb)
     code, _, err = run(["channels", tiled, "-o", d / "ch_bad", "--choose-threshold",
                         "0.1ha:1ha"], capsys)
     assert code == 2
@@ -308,3 +325,84 @@ def test_scheduler_on_a_local_cluster(case, capsys):
     a = pd.read_csv(d / "del_cluster_mem" / "catchments.csv")
     b = pd.read_csv(d / "del_cluster" / "catchments.csv")
     assert a["area_m2"].tolist() == b["area_m2"].tolist()
+
+
+def test_in_memory_commands_refuse_a_tiled_folder_too_big(case, capsys, monkeypatch):
+    """profile/morphometry load a tiled flow folder whole: refused in one line when the
+    machine has not the memory (here made to report 1000 bytes available)."""
+    import basinkit.terrain.memory as M
+
+    d, dem = case
+    tiled = d / "flow_tiled_m"
+    assert run(["route", dem, "-o", tiled, "--tile-size", "32"], capsys)[0] == 0
+    monkeypatch.setattr(M, "available_memory_bytes", lambda: 1000)
+    code, _, err = run(["morphometry", tiled, "-o", d / "morph", "--min-area", "1ha",
+                        *outlet_args(d / "flow_mem", k=1)], capsys)
+    assert code == 2
+    assert_clean_failure(code, err, "only delineate and channels work by tiles")
+
+
+def test_same_bytes_whatever_the_tile_size(case, capsys):
+    """The rasters are written block by block in row order, so the tiling does not show in
+    the files (DESIGN.md: the same input gives byte-identical rasters)."""
+    d, dem = case
+    for t in ("16", "40"):
+        assert run(["route", dem, "-o", d / f"flow_bytes_{t}", "--tile-size", t],
+                   capsys)[0] == 0
+    for name in RASTERS:
+        assert (d / "flow_bytes_16" / name).read_bytes() == \
+            (d / "flow_bytes_40" / name).read_bytes(), name
+
+
+@pytest.mark.parametrize("crs, extra", [
+    ("EPSG:32633", ["--sea-level", "12"]),
+    ("EPSG:4326", []),
+], ids=["sea-level", "geographic"])
+def test_base_level_and_geographic_grids(tmp_path, capsys, crs, extra):
+    """Base level from --sea-level, and a geographic grid (per-row cell sizes and areas):
+    directions, counts and filled elevations equal the in-memory route; on the geographic
+    grid the areas are the same sums in another order (equal within rounding, see
+    flow_accumulation)."""
+    from affine import Affine
+
+    z = fractal_dem(50, 45, seed=11, relief=40, holes=2, integer=True)
+    tr = Affine(0.001, 0, 14.0, 0, -0.001, 47.0) if crs == "EPSG:4326" else TR
+    dem = write_tif(tmp_path / "dem.tif", z, transform=tr, crs=crs, nodata=np.nan)
+    mem, til = tmp_path / "mem", tmp_path / "tiles"
+    assert run(["route", dem, "-o", mem, *extra], capsys)[0] == 0
+    code, _, err = run(["route", dem, "-o", til, "--tile-size", "12", *extra], capsys)
+    assert code == 0, err
+    for name in RASTERS[:3]:
+        assert np.array_equal(read(mem / name)[0], read(til / name)[0],
+                              equal_nan=name.startswith("elevation")), name
+    a, b = read(mem / "upstream_area_m2.tif")[0], read(til / "upstream_area_m2.tif")[0]
+    np.testing.assert_allclose(b, a, rtol=1e-12)
+    if extra:
+        assert json.loads((til / "flow.json").read_text())["base_level"] is True
+
+
+def test_dem_moved_or_copied(case, capsys, tmp_path):
+    """The elevation columns need the DEM as read: from --copy-input's copy, or, when the
+    referenced DEM is gone, left empty with a warning (the other columns as before)."""
+    import shutil
+
+    d, dem = case
+    moved = tmp_path / "moved.tif"
+    shutil.copy(dem, moved)
+    outs = outlet_args(d / "flow_mem", k=2, seed=4) + ["--snap-radius", "0"]
+    assert run(["route", moved, "-o", tmp_path / "ref", "--tile-size", "32"], capsys)[0] == 0
+    assert run(["route", moved, "-o", tmp_path / "cp", "--tile-size", "32",
+                "--copy-input"], capsys)[0] == 0
+    moved.unlink()
+    a, b, _, _ = read(tmp_path / "cp" / "elevation_input.tif")
+    assert np.array_equal(a, read(dem)[0], equal_nan=True) and b["tiled"]
+    code, stdout, err = run(["delineate", tmp_path / "ref", "-o", tmp_path / "d1", *outs],
+                            capsys)
+    assert code == 0, err
+    assert "cannot be read by windows" in stdout + err
+    code, _, err = run(["delineate", tmp_path / "cp", "-o", tmp_path / "d2", *outs], capsys)
+    assert code == 0, err
+    t1 = pd.read_csv(tmp_path / "d1" / "catchments.csv")
+    t2 = pd.read_csv(tmp_path / "d2" / "catchments.csv")
+    assert t1["elevation_mean_m"].isna().all() and t2["elevation_mean_m"].notna().all()
+    assert t1["area_m2"].tolist() == t2["area_m2"].tolist()

@@ -5,7 +5,7 @@ channel threshold by the constant-drop test."""
 import click
 
 from .options import (finish, load_flow_folder, outlet_options, output_folder,
-                      overwrite_option, parse_area, place)
+                      overwrite_option, parse_area, place, tell_peak_memory)
 
 
 def _parse_range(text):
@@ -68,9 +68,10 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
     basinkit command (see --snap-radius and --snap-to-channel); exits with status 1 when
     one of them could not be placed.
 
-    On a flow folder routed by tiles (route --max-memory) the network is ordered by tiles
-    and only the Strahler order raster and channels.json are written (not yet the
-    segments, lines and junctions); --min-area is then required.
+    On a flow folder routed by tiles (route --max-memory) the network is computed by tiles,
+    reading the folder's rasters by windows: the same files, the segments numbered in
+    another order; --min-area is then required (no --choose-threshold or slope-area
+    criterion yet).
 
     \b
     Example: basinkit channels flow/ --min-area 2ha --outlets demo_rasters/outlets.csv \\
@@ -103,22 +104,23 @@ def command(console, flowdir, output, min_area, min_order, slope_area_exponent,
 
 
 def _tiled(console, flowdir, out, settings, outlets, scheduler):
-    from ..errors import InputError
     from ..io.tiled_flow_folder import TiledFlowFolder, gdal_cache_env
-    from ..tiles.plan import peak_memory_bytes
-    from ..terrain.memory import format_bytes
     from ..workflow.steps.tiled_steps import tiled_channels_step
 
-    if outlets:
-        raise InputError("on a flow folder routed by tiles, channels does not yet split "
-                         "segments at outlets; leave out --outlet/--outlets")
     flow = TiledFlowFolder(flowdir)
     lay = flow.layout
     console.info(f"read flow folder {flowdir} (routed by tiles): {lay.nrows} x {lay.ncols} "
                  f"cells in tiles of {lay.tile_rows} x {lay.tile_cols}; channels by tiles")
+    fm = flow.windowed_model()
+    placed = place(console, fm, outlets) if outlets else None
     with out.open(console), console.stage("channels by tiles"), gdal_cache_env():
-        tiled_channels_step(out, flow.windowed_model(), settings, reporter=console,
-                            parameters={"flowdir": str(flowdir)}, scheduler=scheduler)
+        tiled_channels_step(out, fm, settings,
+                            outlet_cells=None if placed is None else placed.cells,
+                            reporter=console,
+                            parameters={"flowdir": str(flowdir),
+                                        **(outlets.parameters() if outlets else {})},
+                            inputs=outlets.inputs() if outlets else None,
+                            scheduler=scheduler)
     console.info(f"wrote {out.folder}")
-    console.info(f"peak resident memory: {format_bytes(peak_memory_bytes())}")
-    return finish(console)
+    tell_peak_memory(console)
+    return finish(console, 0 if placed is None else len(placed.errors))

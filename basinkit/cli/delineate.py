@@ -4,7 +4,7 @@ catchments step of :mod:`basinkit.workflow.steps`)."""
 import click
 
 from .options import (finish, load_flow_folder, outlet_options, output_folder,
-                      overwrite_option, place)
+                      overwrite_option, place, tell_peak_memory)
 
 
 @click.command("delineate")
@@ -76,8 +76,6 @@ def command(console, flowdir, outlets, output, labels_raster, web_geojson,
 
 def _tiled(console, flowdir, outlets, out, settings, scheduler):
     from ..io.tiled_flow_folder import TiledFlowFolder, gdal_cache_env
-    from ..tiles.plan import peak_memory_bytes
-    from ..terrain.memory import format_bytes
     from ..workflow.steps.tiled_steps import tiled_catchments_step
 
     with console.stage("read"):
@@ -93,5 +91,5 @@ def _tiled(console, flowdir, outlets, out, settings, scheduler):
                                                 **outlets.parameters()},
                                     inputs=outlets.inputs(), scheduler=scheduler)
     console.info(f"wrote {out.folder}")
-    console.info(f"peak resident memory: {format_bytes(peak_memory_bytes())}")
+    tell_peak_memory(console)
     return finish(console, res.failed)

@@ -234,7 +234,15 @@ def output_folder(output, overwrite):
 def load_flow_folder(console, flowdir):
     """Read a flow folder written by ``basinkit route``."""
     from ..io.flow_folder import load_flow
+    from ..io.tiled_flow_folder import TiledFlowFolder, is_tiled_folder
 
+    if is_tiled_folder(flowdir):  # routed by tiles: this command needs it in memory
+        from ..terrain.memory import check_memory
+
+        lay = TiledFlowFolder(flowdir).layout
+        check_memory(lay.nrows * lay.ncols,
+                     what="this command reads the whole flow folder (it was routed by "
+                          "tiles; only delineate and channels work by tiles):")
     fm = load_flow(flowdir)
     console.info(f"read flow folder {flowdir}: {fm.shape[0]} x {fm.shape[1]} cells, "
                  f"{fm.method} routing")
@@ -250,6 +258,18 @@ def place(console, fm, outlets):
     console.info(f"{len(placed.table)} of {placed.given} outlet"
                  f"{'s' if placed.given != 1 else ''} placed")
     return placed
+
+
+def tell_peak_memory(console):
+    """The peak resident memory of the command so far, on the console (as ``basinkit run``
+    prints it; ``--log-json``: the record with ``"event": "peak_memory"``)."""
+    from .._processes import peak_memory
+    from ..workflow.runner import _gib
+
+    peak = peak_memory()
+    if peak["peak_memory_bytes"] is not None:
+        console.info(f"peak memory {_gib(peak['peak_memory_bytes'])}", event="peak_memory",
+                     **peak)
 
 
 def finish(console, failed=0):

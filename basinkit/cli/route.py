@@ -4,7 +4,7 @@ step of :mod:`basinkit.workflow.steps`)."""
 import click
 
 from .options import (conditioning_options, dem_options, finish, output_folder,
-                      overwrite_option, parse_length)
+                      overwrite_option, parse_length, tell_peak_memory)
 
 
 @click.command("route")
@@ -50,8 +50,6 @@ def command(console, dem, output, method, mfd_exponent, copy_input, max_memory, 
     Example: basinkit route demo_rasters/upland_valley.tif \\
         --burn demo_rasters/culverts.geojson --burn-depth 1m -o flow/
     """
-    from ..tiles.plan import peak_memory_bytes
-    from ..terrain.memory import format_bytes
     from ..units import parse_memory
     from ..workflow.steps import FlowSettings
     from ..workflow.steps.tiled_flow import route_dem
@@ -68,5 +66,5 @@ def command(console, dem, output, method, mfd_exponent, copy_input, max_memory, 
     output_folder(output, overwrite)
     route_dem(dem, output, max_memory=budget, tile_size=tile_size, scheduler=scheduler,
               overwrite=overwrite, reporter=console, settings=settings)
-    console.info(f"peak resident memory: {format_bytes(peak_memory_bytes())}")
+    tell_peak_memory(console)
     return finish(console)

@@ -30,7 +30,7 @@ from .tile_folder import TileFolder
 from .writers import atomic_path, raster_codec
 
 __all__ = ["TILED_PRODUCTS", "write_tiled_geotiff", "overview_factors", "is_tiled_folder",
-           "TiledFlowFolder", "FlowRasterTiles", "gdal_cache_env"]
+           "TiledFlowFolder", "FlowRasterTiles", "gdal_cache_env", "layer_reader"]
 
 #: tile-store layer -> (flow-folder key of :data:`basinkit.io.flow_folder.FILES`, dtype,
 #: nodata, overview resampling)
@@ -68,24 +68,32 @@ def overview_factors(shape) -> list[int]:
     return out
 
 
-def write_tiled_geotiff(path, layout: TileLayout, read_tile, dtype, nodata, transform, crs,
-                        *, resampling="nearest", tags=None, on_tile=None):
-    """Write a grid held as tiles into one tiled, compressed GeoTIFF, tile window by tile
-    window, then its internal overviews; only one tile is in memory at a time.
+#: columns of a window written at once (a multiple of the block)
+WRITE_COLUMNS = 8 * BLOCK
 
-    ``read_tile(ti, tj)`` gives a tile's array; ``on_tile(ti, tj, array)`` (optional) sees
-    each tile as written (for summaries). The codec and predictor are those of
-    :func:`basinkit.io.writers.write_geotiff`; the file is written beside ``path`` and
-    renamed when complete."""
+
+def write_tiled_geotiff(path, shape, read_window, dtype, nodata, transform, crs, *,
+                        resampling="nearest", tags=None, on_window=None):
+    """Write a grid held as tiles into one tiled, compressed GeoTIFF window by window, then
+    its internal overviews; only one window (a row of blocks, at most
+    :data:`WRITE_COLUMNS` wide) is in memory at a time.
+
+    ``read_window(r0, r1, c0, c1)`` gives rows ``r0:r1`` and columns ``c0:c1`` of the grid;
+    ``on_window(r0, r1, c0, c1, array)`` (optional) sees each window as written (for
+    summaries). Windows are whole blocks of 256 × 256 cells taken row by row, so the file
+    does not depend on how the grid was cut into tiles: the same grid gives the same bytes.
+    The codec and predictor are those of :func:`basinkit.io.writers.write_geotiff`; the
+    file is written beside ``path`` and renamed when complete."""
     import rasterio
     from rasterio.enums import Resampling
     from rasterio.windows import Window
 
     from .writers import CODEC_LEVELS, _rio_crs
 
+    nrows, ncols = (int(v) for v in shape)
     dtype = np.dtype(dtype)
     codec = raster_codec()
-    profile = dict(driver="GTiff", height=layout.nrows, width=layout.ncols, count=1,
+    profile = dict(driver="GTiff", height=nrows, width=ncols, count=1,
                    dtype=dtype.name, transform=transform, crs=_rio_crs(crs), nodata=nodata,
                    compress=codec, num_threads="ALL_CPUS", tiled=True, blockxsize=BLOCK,
                    blockysize=BLOCK, bigtiff="IF_SAFER")
@@ -97,14 +105,16 @@ def write_tiled_geotiff(path, layout: TileLayout, read_tile, dtype, nodata, tran
                        predictor=2 if dtype.kind in "iu" else 3)
     with atomic_path(path) as tmp:
         with rasterio.open(tmp, "w", **profile) as ds:
-            for ti, tj in layout.tiles():
-                r0, r1, c0, c1 = layout.window(ti, tj)
-                a = np.asarray(read_tile(ti, tj))
-                if on_tile is not None:
-                    on_tile(ti, tj, a)
-                ds.write(np.ascontiguousarray(a, dtype=dtype)[np.newaxis], [1],
-                         window=Window(c0, r0, c1 - c0, r1 - r0))
-            factors = overview_factors(layout.shape)
+            for r0 in range(0, nrows, BLOCK):
+                r1 = min(r0 + BLOCK, nrows)
+                for c0 in range(0, ncols, WRITE_COLUMNS):
+                    c1 = min(c0 + WRITE_COLUMNS, ncols)
+                    a = np.asarray(read_window(r0, r1, c0, c1))
+                    if on_window is not None:
+                        on_window(r0, r1, c0, c1, a)
+                    ds.write(np.ascontiguousarray(a, dtype=dtype)[np.newaxis], [1],
+                             window=Window(c0, r0, c1 - c0, r1 - r0))
+            factors = overview_factors((nrows, ncols))
             if factors:
                 ds.build_overviews(factors, getattr(Resampling, resampling))
                 ds.update_tags(ns="rio_overview", resampling=resampling)
@@ -112,6 +122,13 @@ def write_tiled_geotiff(path, layout: TileLayout, read_tile, dtype, nodata, tran
                 ds.update_tags(**{k: (v if isinstance(v, str) else json.dumps(v))
                                   for k, v in tags.items()})
     return Path(path)
+
+
+def layer_reader(layout, store, layer):
+    """``read_window(r0, r1, c0, c1)`` of a store's layer (for :func:`write_tiled_geotiff`)."""
+    from ..tiles.window import read_window
+
+    return lambda r0, r1, c0, c1: read_window(layout, store, layer, r0, r1, c0, c1)
 
 
 def is_tiled_folder(folder) -> bool:

@@ -22,7 +22,7 @@ from ..terrain.memory import ROUTE_BYTES_PER_CELL, format_bytes
 
 __all__ = ["TILE_BYTES_PER_CELL", "MIN_TILE", "DEFAULT_TILE", "GDAL_CACHE_MB", "PROGRAM_BYTES",
            "RoutePlan", "plan_route",
-           "process_memory_bytes", "peak_memory_bytes"]
+           "process_memory_bytes"]
 
 #: working bytes per cell of a tile in one worker (bench/RESULTS.md: about 110-150 bytes per
 #: tile cell above the imports at 512² and 1024² tiles; rounded up)
@@ -50,15 +50,6 @@ def process_memory_bytes() -> int:
     except OSError:
         pass
     return 0
-
-
-def peak_memory_bytes() -> int:
-    """Peak resident memory of this process so far (``ru_maxrss``; VmHWM on Linux)."""
-    import resource
-    import sys
-
-    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    return int(peak if sys.platform == "darwin" else peak * 1024)
 
 
 @dataclass(frozen=True)

@@ -110,8 +110,8 @@ JOB_SCHEMA = {
         "max_memory": _S(kind="memory", default=None,
                          help="Peak memory allowed, e.g. '2GB' (basinkit route "
                               "--max-memory): a DEM whose in-memory route would need more "
-                              "is routed by tiles (then catchments and the Strahler order "
-                              "raster are computed by tiles; profiles, morphometry, design "
+                              "is routed by tiles (then catchments and channels are computed "
+                              "by tiles; profiles, morphometry, design "
                               "flows and the report are skipped)."),
         "tile_size": _S(kind="int", default=None,
                         help="Route by tiles of this many cells a side (basinkit route "

@@ -218,6 +218,9 @@ def _run(job, out, rep, report):
         return run_tiled(job, out, rep, plan, res, timer, st, _hashes(job))
     if plan is not None:
         rep.info(f"routing in memory: {plan.reason}")
+    if job["routing"].get("scheduler"):
+        rep.warn("[routing] scheduler applies to a DEM routed by tiles (max_memory or "
+                 "tile_size); this one is routed in memory")
     with timer("read"):
         inputs = _hashes(job)
         terrain = read_terrain(st["flow"])

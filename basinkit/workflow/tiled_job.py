@@ -1,5 +1,5 @@
 """A job whose DEM is routed by tiles (``[routing] max_memory`` or ``tile_size``): the flow
-folder by tiles, then the catchments and the Strahler order raster by tiles on it; the
+folder by tiles, then the catchments and the channel network by tiles on it; the
 stages that need the grid in memory (profiles, morphometry, design flows, the report) are
 skipped with a note. Called by :func:`basinkit.workflow.runner.run_job`."""
 
@@ -64,7 +64,7 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
 
     from ..io.tiled_flow_folder import TiledFlowFolder
     from .outlets import place_outlets
-    from .runner import _outlet_rows, _provenance, _warnings
+    from .runner import _outlet_rows, _provenance, _report_peak_memory, _warnings
     from .steps.tiled_flow import tiled_flow_step
     from .steps.tiled_steps import tiled_catchments_step, tiled_channels_step
 
@@ -88,7 +88,9 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
     else:
         timer.skip("catchments", "no outlets file in [inputs]")
     with timer("channels"):
-        tiled_channels_step(out, fm, st["channels"], reporter=rep, scheduler=scheduler)
+        tiled_channels_step(out, fm, st["channels"],
+                            outlet_cells=None if placed is None else placed.cells,
+                            reporter=rep, scheduler=scheduler)
     why = "needs the grid in memory; the DEM was routed by tiles"
     for stage in ("profiles", "morphometry"):
         timer.skip(stage, why)
@@ -114,4 +116,5 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
         rep.warn(f"{len(res.failures)} outlet failure(s): see outlet_errors.csv and the "
                  "error columns of the tables")
     rep.info(f"wrote {out.folder} ({res.seconds_total:.1f} s)")
+    _report_peak_memory(res, rep)
     return res

@@ -236,7 +236,7 @@ def _write(out, settings, layout, store, geom, summary, acc, rep) -> dict:
     from pyproj import CRS
 
     from ...io.flow_folder import FILES
-    from ...io.tiled_flow_folder import (TILED_PRODUCTS, overview_factors,
+    from ...io.tiled_flow_folder import (TILED_PRODUCTS, layer_reader, overview_factors,
                                          write_tiled_geotiff)
     from ...io.writers import provenance, raster_codec
 
@@ -251,9 +251,10 @@ def _write(out, settings, layout, store, geom, summary, acc, rep) -> dict:
             "max_fill_depth_m": 0.0, "max_cut_depth_m": 0.0, "filled_volume_m3": 0.0,
             "cut_volume_m3": 0.0, "burned_cells": 0}  # no count of depressions by tiles
 
-    def on_filled(ti, tj, filled):
-        r0, r1, _, _ = layout.window(ti, tj)
-        z = np.asarray(store.read("elevation", ti, tj, mmap=True), dtype=np.float64)
+    elevation = layer_reader(layout, store, "elevation")
+
+    def on_filled(r0, r1, c0, c1, filled):
+        z = np.asarray(elevation(r0, r1, c0, c1), dtype=np.float64)
         with np.errstate(invalid="ignore"):
             up = np.where(np.isfinite(filled), filled.astype(np.float64) - z, 0.0)
         up = np.nan_to_num(np.maximum(up, 0.0))
@@ -267,16 +268,14 @@ def _write(out, settings, layout, store, geom, summary, acc, rep) -> dict:
         if layer == "cell_count" and big:
             dtype = "int64"
         name = FILES[key]
-        write_tiled_geotiff(out.path(name), layout,
-                            lambda ti, tj, lay=layer: store.read(lay, ti, tj, mmap=True),
+        write_tiled_geotiff(out.path(name), layout.shape, layer_reader(layout, store, layer),
                             dtype, nodata, transform, crs, resampling=resampling,
-                            on_tile=on_filled if layer == "filled" else None)
+                            on_window=on_filled if layer == "filled" else None)
         out.adopt(name)
         files[key] = name
     if settings.copy_input:
-        write_tiled_geotiff(out.path(FILES["input"]), layout,
-                            lambda ti, tj: store.read("elevation", ti, tj, mmap=True),
-                            "float32", float("nan"), transform, crs, resampling="average")
+        write_tiled_geotiff(out.path(FILES["input"]), layout.shape, elevation, "float32",
+                            float("nan"), transform, crs, resampling="average")
         out.adopt(FILES["input"])
         files["input"] = FILES["input"]
         input_record = {"stored": "copy", "file": FILES["input"]}
@@ -346,7 +345,8 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
     >>> route_dem("demo_rasters/upland_valley.tif", "flow/", max_memory="256MB")
     ... # doctest: +SKIP
     """
-    from ...tiles.plan import peak_memory_bytes, plan_route
+    from ..._processes import peak_memory
+    from ...tiles.plan import plan_route
     from ...units import parse_memory
     from ..output import OutputFolder
     from .flow import FlowSettings, flow_step, read_burn_lines, read_terrain
@@ -358,6 +358,8 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
     if max_memory is not None:
         budget = parse_memory(max_memory, "--max-memory") if isinstance(max_memory, str) \
             else int(max_memory)
+        if budget <= 0:
+            raise InputError(f"--max-memory must be a positive size, got {max_memory!r}")
     if tile_size is not None and not 1 <= int(tile_size) <= 16000:
         raise InputError(f"--tile-size must be between 1 and 16000 cells, got {tile_size}")
     nw = int(workers) if workers else (os.cpu_count() or 1)
@@ -398,5 +400,5 @@ def route_dem(dem, output, *, max_memory=None, tile_size: int | None = None,
             lines = read_burn_lines(settings, terrain.crs)
         with out.open(rep), rep.stage("flow"):
             flow_step(out, settings, terrain=terrain, burn=lines, reporter=rep)
-    result["peak_memory_bytes"] = peak_memory_bytes()
+    result["peak_memory_bytes"] = peak_memory()["peak_memory_bytes"]
     return result

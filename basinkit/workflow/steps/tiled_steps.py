@@ -9,9 +9,8 @@ What the tiled path does not produce yet:
   filled-depression columns need the DEM as read, by windows: a copy in the flow folder
   (``route --copy-input``) or the DEM file itself, unchanged; a DEM given as a folder of
   tiles leaves them empty;
-- channels: only the Strahler order raster (``strahler_order.tif``) and the network's
-  record; the segment table, the channel lines and the junctions are not written, nor
-  ``--choose-threshold``, the slope–area criterion and splitting at outlets.
+- channels: the files of the in-memory step, with the segments numbered in another order;
+  not ``--choose-threshold`` or the slope–area criterion.
 """
 
 from __future__ import annotations
@@ -26,15 +25,20 @@ from ..progress import as_reporter
 from ._common import CAUTION_TEXT, step_record
 
 __all__ = ["tiled_catchments_step", "tiled_channels_step", "NOT_YET_CATCHMENTS",
-           "NOT_YET_CHANNELS"]
+           "NOTE_SEGMENT_IDS"]
 
 NOT_YET_CATCHMENTS = ("the DEM this tiled flow folder was routed from cannot be read by "
                       "windows (moved, changed, or a folder of tiles): the columns "
                       "elevation_*, relief_m and filled_* are left empty; route with "
                       "--copy-input to keep a copy in the flow folder")
-NOT_YET_CHANNELS = ("on a tiled flow folder channels writes the Strahler order raster and "
-                    "channels.json only: the segment table, lines and junctions are not yet "
-                    "computed by tiles")
+# columns of channel_segments.csv in the in-memory step's order
+SEGMENT_ORDER = ["segment_id", "downstream_id", "stream_id", "strahler_order",
+                 "shreve_magnitude", "length_m", "drop_m", "mean_slope_m_per_m",
+                 "upstream_area_top_m2", "upstream_area_bottom_m2", "straight_length_m",
+                 "sinuosity", "top_elevation_m", "bottom_elevation_m", "cell_count", "top_row",
+                 "top_col", "bottom_row", "bottom_col"]
+NOTE_SEGMENT_IDS = ("segments computed by tiles: the same segments as in memory, numbered "
+                    "in another order (each segment's downstream one first)")
 
 
 def _work(out, what):
@@ -88,11 +92,11 @@ def tiled_catchments_step(out, fm, placed, settings=None, reporter=None,
     from ...analysis.catchments import CAUTIONS, Delineation
     from ...analysis.outlets import ERROR_COLUMNS
     from ...analysis.polygons import ground_area_perimeter
-    from ...io.tiled_flow_folder import write_tiled_geotiff
+    from ...io.tiled_flow_folder import layer_reader, write_tiled_geotiff
+    from ...tiles.filled import filled_by_label
     from ...tiles.labels import catchment_labels
     from ...tiles.polygons import catchment_polygons
     from ...tiles.tables import catchment_table
-    from ...tiles.filled import filled_by_label
     from .catchments import (CatchmentSettings, CatchmentsResult, _csv_table, _tell, _write,
                              filled_columns)
 
@@ -177,30 +181,39 @@ def tiled_catchments_step(out, fm, placed, settings=None, reporter=None,
         by_label = {}
         for lab, oid in zip(tab["label"].astype(int), tab["outlet_id"].astype(str)):
             by_label[str(lab)] = f"{by_label[str(lab)]};{oid}" if str(lab) in by_label else oid
-        write_tiled_geotiff(out.path("subcatchment_labels.tif"), layout,
-                            lambda ti, tj: store.read(cats.layer, ti, tj, mmap=True),
-                            "int32", 0, flow.transform, flow.crs, tags={
-                                "cautions": CAUTION_TEXT,
-                                "content": "sub-catchment label of every cell (0: drains to "
-                                           "no outlet); labels in catchments.csv",
-                                "label_to_outlet_id": json.dumps(by_label, sort_keys=True)})
+        tags = {"cautions": CAUTION_TEXT,
+                "content": "sub-catchment label of every cell (0: drains to no outlet); "
+                           "labels in catchments.csv",
+                "label_to_outlet_id": json.dumps(by_label, sort_keys=True)}
+        write_tiled_geotiff(out.path("subcatchment_labels.tif"), layout.shape,
+                            layer_reader(layout, store, cats.layer), "int32", 0,
+                            flow.transform, flow.crs, tags=tags)
         out.adopt("subcatchment_labels.tif")
     _tell(rep, d, errors, placed.given)
     shutil.rmtree(work, ignore_errors=True)
     return CatchmentsResult(d, table, errors)
 
 
-def tiled_channels_step(out, fm, settings, reporter=None, parameters: dict | None = None,
-                        inputs: dict | None = None, *, scheduler=None,
-                        workers: int | None = None) -> dict:
-    """The channels step by tiles: the Strahler order raster (``strahler_order.tif``,
-    int16, 0 off the network and below ``min_order``) and ``channels.json``.
+def tiled_channels_step(out, fm, settings, outlet_cells=None, reporter=None,
+                        parameters: dict | None = None, inputs: dict | None = None, *,
+                        scheduler=None, workers: int | None = None) -> dict:
+    """The channels step by tiles: channel_segments.csv, channels.gpkg (layers ``channels``
+    and ``junctions``), strahler_order.tif (int16, 0 off the network and below
+    ``min_order``, -1 on nodata) and channels.json, as :func:`channels_step` writes them.
 
-    Returns the summary of :func:`basinkit.tiles.channel_orders` with the cells of each
-    order.
+    The segments are those of the in-memory step (the same cells, ends and values); their
+    ids follow another order (see :func:`basinkit.tiles.segments.channel_segments`).
+    ``outlet_cells``: cells where segments are also split (the placed outlets).
+
+    Returns the network's summary (as :meth:`ChannelNetwork.summary`).
     """
-    from ...io.tiled_flow_folder import write_tiled_geotiff
+    import geopandas as gpd
+    import shapely
+
+    from ...io.tiled_flow_folder import layer_reader, write_tiled_geotiff
     from ...tiles.channels import channel_orders
+    from ...tiles.segments import channel_segments
+    from ._common import layer_metadata
 
     rep = as_reporter(reporter)
     if settings.min_area_m2 is None or settings.choose_threshold is not None \
@@ -209,40 +222,65 @@ def tiled_channels_step(out, fm, settings, reporter=None, parameters: dict | Non
                          "--choose-threshold or the slope-area criterion)")
     flow = fm.flow
     layout = flow.layout
+    thr = float(settings.min_area_m2)
     work = _work(out, "channels")
     store = flow.store(work)
-    summ = channel_orders(layout, store, settings.min_area_m2, scheduler=scheduler,
-                          workers=workers)
+    channel_orders(layout, store, thr, scheduler=scheduler, workers=workers)
+    split = None if outlet_cells is None else np.unique(np.asarray(outlet_cells, np.int64))
+    seg, jun = channel_segments(layout, store, thr, flow.geometry(), outlet_cells=split,
+                                crs=flow.crs, transform=flow.transform, elevation="filled",
+                                lines=True, scheduler=scheduler, workers=workers)
+    t = flow.transform
+    jx = t.c + (jun["col"].to_numpy() + 0.5) * t.a
+    jy = t.f + (jun["row"].to_numpy() + 0.5) * t.e
+    jun = gpd.GeoDataFrame(jun, geometry=shapely.points(jx, jy), crs=flow.crs.to_wkt())
     counts = {}
     min_order = int(settings.min_order)
+    orders = layer_reader(layout, store, "strahler_order")
+    directions = layer_reader(layout, store, "directions")
 
-    def tile(ti, tj):
-        a = np.array(store.read("strahler_order", ti, tj), dtype=np.int16)
+    def window(r0, r1, c0, c1):
+        a = np.array(orders(r0, r1, c0, c1), dtype=np.int16)
+        counts["cells"] = counts.get("cells", 0) + int(np.count_nonzero(a > 0))
         a[a < min_order] = 0
-        for k, v in zip(*np.unique(a[a > 0], return_counts=True)):
-            counts[int(k)] = counts.get(int(k), 0) + int(v)
-        a[store.read("directions", ti, tj) == -32768] = -1  # as in memory: -1 on nodata
+        a[directions(r0, r1, c0, c1) == -32768] = -1  # as in memory: -1 on nodata
         return a
 
-    write_tiled_geotiff(out.path("strahler_order.tif"), layout, tile, "int16", -1,
+    write_tiled_geotiff(out.path("strahler_order.tif"), layout.shape, window, "int16", -1,
                         flow.transform, flow.crs,
                         tags={"cautions": CAUTION_TEXT,
                               "content": f"Strahler order of channel cells of order >= "
                                          f"{min_order} (0: not a channel)",
-                              "min_area_m2": f"{float(settings.min_area_m2):.10g}"})
+                              "min_area_m2": f"{thr:.10g}"})
     out.adopt("strahler_order.tif")
-    cells_by_order = {str(k): counts[k] for k in sorted(counts)}
-    params = {**(parameters or {}), "min_area_m2": settings.min_area_m2,
-              "min_order": min_order, "by_tiles": True}
-    meta = step_record(fm, params, inputs, files=["strahler_order.tif", "channels.json"],
-                       channel_cells_by_order=cells_by_order,
-                       max_order=max(counts) if counts else 0,
+    summ = {"channel_cells": counts.get("cells", 0), "segments": int(len(seg)),
+            "junctions": int(len(jun)),
+            "max_strahler_order": int(seg["strahler_order"].max()) if len(seg) else 0,
+            "total_length_m": float(seg["length_m"].sum()) if len(seg) else 0.0,
+            "min_area_m2": thr}
+    rep.info(f"{summ['segments']:,} segments, {summ['junctions']:,} junctions, highest "
+             f"Strahler order {summ['max_strahler_order']}, "
+             f"{summ['total_length_m'] / 1e3:,.1f} km of channels")
+    segk = seg[seg["strahler_order"] >= min_order]
+    segk = segk[[c for c in SEGMENT_ORDER if c in segk] +
+                [c for c in segk.columns if c not in SEGMENT_ORDER]]
+    # the in-memory magnitudes are int32 (the layers' field types follow)
+    segk = segk.astype({"shreve_magnitude": np.int32})
+    jun = jun.astype({"shreve_magnitude": np.int32})
+    files = ["channel_segments.csv", "channels.gpkg", "channels.json", "strahler_order.tif"]
+    params = {**settings.parameters(), **(parameters or {}),
+              "min_area_given_m2": settings.min_area_m2, "min_area_m2": thr,
+              "outlet_cells_split": 0 if split is None else int(split.size),
+              "by_tiles": True}
+    meta = step_record(fm, params, inputs, network=summ, files=files,
+                       constant_drop_test=None,
                        by_tiles={"tile_rows": layout.tile_rows,
                                  "tile_cols": layout.tile_cols,
-                                 "not_computed": NOT_YET_CHANNELS})
+                                 "segment_ids": NOTE_SEGMENT_IDS})
+    out.gpkg("channels.gpkg", {"channels": segk, "junctions": jun},
+             metadata=layer_metadata(),
+             geometry_types={"channels": "LineString", "junctions": "Point"})
+    out.csv("channel_segments.csv", segk.drop(columns="geometry"))
     out.json("channels.json", meta)
-    rep.info(f"channel cells by Strahler order: "
-             + (", ".join(f"{k}: {v:,}" for k, v in cells_by_order.items()) or "none"))
-    rep.warn(NOT_YET_CHANNELS)
     shutil.rmtree(work, ignore_errors=True)
-    return {**summ, "cells_by_order": cells_by_order}
+    return summ
