@@ -236,8 +236,11 @@ def test_peak_memory_on_the_console_and_not_in_the_files(valley, tmp_path):
                        capture_output=True, text=True, timeout=600)
     assert r.returncode == 0 and "peak memory " in r.stderr, r.stderr
     assert _files(tmp_path / "a").keys() == _files(tmp_path / "b").keys()
+    # the kernel's RSS counters are cached per thread and folded in batches (64 pages at
+    # a time per CPU, mm/memory.c SPLIT_RSS_COUNTING), so the high-water mark read by
+    # getrusage may trail the current RSS read by psutil by up to a few hundred KiB
     now = psutil.Process().memory_info().rss
-    assert peak_memory()["peak_memory_bytes"] >= now
+    assert peak_memory()["peak_memory_bytes"] >= now - 2 * 2**20
 
 
 # A process whose workers are busy for ten minutes (an item that takes long): they print
