@@ -264,11 +264,11 @@ def tell_peak_memory(console):
     """The peak resident memory of the command so far, on the console (as ``basinkit run``
     prints it; ``--log-json``: the record with ``"event": "peak_memory"``)."""
     from .._processes import peak_memory
-    from ..workflow.runner import _gib
+    from ..terrain.memory import format_bytes
 
     peak = peak_memory()
     if peak["peak_memory_bytes"] is not None:
-        console.info(f"peak memory {_gib(peak['peak_memory_bytes'])}", event="peak_memory",
+        console.info(f"peak memory {format_bytes(peak['peak_memory_bytes'])}", event="peak_memory",
                      **peak)
 
 

@@ -64,7 +64,7 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
 
     from ..io.tiled_flow_folder import TiledFlowFolder
     from .outlets import place_outlets
-    from .runner import _outlet_rows, _provenance, _report_peak_memory, _warnings
+    from .job_records import job_provenance, job_warnings, outlet_rows, report_peak_memory
     from .steps.tiled_flow import tiled_flow_step
     from .steps.tiled_steps import tiled_catchments_step, tiled_channels_step
 
@@ -100,9 +100,9 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
     parts = [f[cols] for f in failures if len(f)]
     res.failures = (pd.concat(parts, ignore_index=True) if parts
                     else pd.DataFrame(columns=cols))
-    res.outlets = _outlet_rows(cres)
-    res.warnings = _warnings(job, fm, cres, {})
-    res.provenance = _provenance(job, fm, inputs, placed, res)
+    res.outlets = outlet_rows(cres)
+    res.warnings = job_warnings(job, fm, cres, {})
+    res.provenance = job_provenance(job, fm, inputs, placed, res)
     if job["outputs"]["report"]:
         timer.skip("report", why)
     res.seconds_total = round(time.perf_counter() - t_start, 3)
@@ -116,5 +116,5 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
         rep.warn(f"{len(res.failures)} outlet failure(s): see outlet_errors.csv and the "
                  "error columns of the tables")
     rep.info(f"wrote {out.folder} ({res.seconds_total:.1f} s)")
-    _report_peak_memory(res, rep)
+    report_peak_memory(res, rep)
     return res
