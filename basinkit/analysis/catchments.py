@@ -178,6 +178,24 @@ def _outlet_tree(fm, cells):
     return labels, lut, new_size, new_down
 
 
+def carry_up(down, n, sums=(), lows=(), highs=(), flags=()):
+    """Per-label values made per-catchment in place: each label's value is combined into
+    its downstream label's (``down[k]``, 0 at the top), children first. Sums add, lows
+    take the minimum, highs the maximum, flags OR. Labels 1..n are depth-first, so a child
+    carries a larger label than its parent."""
+    for k in range(n, 0, -1):
+        p = down[k]
+        if p:
+            for a in sums:
+                a[p] += a[k]
+            for a in lows:
+                a[p] = min(a[p], a[k])
+            for a in highs:
+                a[p] = max(a[p], a[k])
+            for a in flags:
+                a[p] |= a[k]
+
+
 def outlet_tree(down0):
     """The depth-first renumbering of an outlet tree (also used by the tiled path).
 
@@ -324,21 +342,8 @@ def delineate(fm, outlets, crs=None, snap_radius_m=None, snap_to_channel_m2=None
     (count, area, zsum, zcount, zmin, zmax, touches, rmin, rmax, cmin,
      cmax) = _catchments.label_summary(labels.ravel(), n, nc, z, t.geometry.area, edge)
     sub_area, sub_count = area.copy(), count.copy()
-    # subtree aggregates: children carry larger labels than their parent (preorder)
-    for k in range(n, 0, -1):
-        p = down[k]
-        if p:
-            area[p] += area[k]
-            count[p] += count[k]
-            zsum[p] += zsum[k]
-            zcount[p] += zcount[k]
-            zmin[p] = min(zmin[p], zmin[k])
-            zmax[p] = max(zmax[p], zmax[k])
-            touches[p] |= touches[k]
-            rmin[p] = min(rmin[p], rmin[k])
-            rmax[p] = max(rmax[p], rmax[k])
-            cmin[p] = min(cmin[p], cmin[k])
-            cmax[p] = max(cmax[p], cmax[k])
+    carry_up(down, n, sums=(area, count, zsum, zcount), lows=(zmin, rmin, cmin),
+             highs=(zmax, rmax, cmax), flags=(touches,))
 
     L = lab_of_prim[prim_rank[primary_of_row]]  # label of every outlet row
     tab = snapped.copy()

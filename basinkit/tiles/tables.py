@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 from numba import njit
 
-from ..analysis.catchments import ACRE_M2, SQUARE_MILE_M2
+from ..analysis.catchments import ACRE_M2, SQUARE_MILE_M2, carry_up
 from ..errors import InputError
 from . import _flow_kernels as K
 from .accumulate import _check_layout
@@ -206,16 +206,8 @@ def catchment_table(layout, store, catchments, row_area=None, *, outlet_ids=None
     touches[_touches_across(layout, parts)] = True
     sub_area, sub_count = area.copy(), count.copy()
     down = np.asarray(catchments.downstream, dtype=np.int64)
-    for k in range(n, 0, -1):  # children carry larger labels than their parent
-        p = down[k]
-        if p:
-            area[p] += area[k]
-            count[p] += count[k]
-            zsum[p] += zsum[k]
-            zcount[p] += zcount[k]
-            zmin[p] = min(zmin[p], zmin[k])
-            zmax[p] = max(zmax[p], zmax[k])
-            touches[p] |= touches[k]
+    carry_up(down, n, sums=(area, count, zsum, zcount), lows=(zmin,), highs=(zmax,),
+             flags=(touches,))
     size = np.asarray(catchments.subtree_size, dtype=np.int64)
     ids_by_lab = np.full(n + 1, "", dtype=object)
     for lab, oid in zip(L, ids):  # outlets sharing a cell: "a;b"
