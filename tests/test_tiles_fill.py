@@ -31,17 +31,17 @@ def joined(store, layer):
     return lay.join({t: np.asarray(store.read(layer, *t)) for t in lay.tiles()})
 
 
-def by_tiles(terrain, tr, tc, store=None):
+def by_tiles(terrain, tr, tc, store=None, engine=None):
     lay = TileLayout(terrain.shape[0], terrain.shape[1], tr, tc)
     store = store if store is not None else MemoryTiles(lay)
     write_terrain(lay, store, terrain)
-    summary = route_by_tiles(lay, store)
+    summary = route_by_tiles(lay, store, engine=engine)
     return store, summary
 
 
-def assert_same_as_route(terrain, tr, tc, store=None):
+def assert_same_as_route(terrain, tr, tc, store=None, engine=None):
     fm = route(terrain, conditioning="fill")
-    store, summary = by_tiles(terrain, tr, tc, store)
+    store, summary = by_tiles(terrain, tr, tc, store, engine)
     filled = joined(store, "filled")
     assert filled.dtype == np.float32
     assert np.array_equal(filled, fm.terrain.elevation, equal_nan=True)
@@ -152,6 +152,21 @@ def test_tile_folder_on_disk_gives_the_same(tmp_path):
     lay = TileLayout(23, 19, 4, 5)
     assert_same_as_route(terrain, 4, 5, TileFolder(tmp_path / "work", lay))
     assert (tmp_path / "work" / "directions" / "0_0.npy").exists()
+
+
+@pytest.mark.parametrize("scheduler", ["threads", "synchronous"])
+def test_tiles_as_dask_tasks_give_the_same(tmp_path, scheduler):
+    """The per-tile steps of the fill and the directions as Dask tasks (two threads, or
+    one after the other) give route()'s result, in memory and in a folder on disk."""
+    from basinkit.tiles.engine import Engine
+
+    z, base = crafted_grid()
+    terrain = terrain_from_array(z, cellsize=10.0, base_level=base)
+    with Engine(scheduler, workers=2) as engine:
+        summary = assert_same_as_route(terrain, 3, 4, engine=engine)
+        assert summary["directions"]["crossing_flats"] >= 2
+        assert_same_as_route(terrain, 4, 5, TileFolder(tmp_path / "w", TileLayout(23, 19, 4, 5)),
+                             engine=engine)
 
 
 @st.composite

@@ -288,31 +288,59 @@ def finish_one_tile(layout: TileLayout, store, ti: int, tj: int, dist: np.ndarra
     return unresolved
 
 
+def _d8_task(spec, ti, tj, dist, surface):
+    from .engine import open_store
+
+    store = open_store(spec)
+    return d8_one_tile(store.layout, store, ti, tj, dist, surface)
+
+
+def _flat_pieces_task(spec, ti, tj, surface):
+    from .engine import open_store
+
+    store = open_store(spec)
+    return flat_pieces_one_tile(store.layout, store, ti, tj, surface)
+
+
+def _finish_task(spec, ti, tj, dist, surface):
+    from .engine import open_store
+
+    store = open_store(spec)
+    n = finish_one_tile(store.layout, store, ti, tj, dist, surface)
+    store.write_meta(f"directions_done_{ti}_{tj}", n)
+    return n
+
+
 def directions_by_tiles(layout: TileLayout, store, dist: np.ndarray,
-                        surface: str = "filled", resume: bool = False) -> dict:
+                        surface: str = "filled", resume: bool = False, engine=None) -> dict:
     """D8 receivers and directions of the ``surface`` layer (by default ``filled``; the
-    ``elevation`` layer routes the surface as it is), tile by tile (steps 1-5 in a loop).
-    Returns a summary: tiles, flat cells, flats crossing tile borders, and the cells left
-    without an outlet (as ``route()``'s ``cells_without_outlet``).
+    ``elevation`` layer routes the surface as it is), tile by tile (steps 1-5). Returns a
+    summary: tiles, flat cells, flats crossing tile borders, and the cells left without an
+    outlet (as ``route()``'s ``cells_without_outlet``).
+
+    The per-tile steps run as tasks on ``engine`` (see
+    :func:`basinkit.tiles.fill.fill_by_tiles`), or one after the other here without one;
+    the flats crossing tile borders are joined and resolved here, on the client.
 
     With ``resume=True`` the per-tile and per-batch steps already done in the store (layer
     ``d8_raw``, meta ``flats_TI_TJ``, ``flat_fix_B``, ``directions_done_TI_TJ``) are not
     done again; the inputs must be those of the first run. The flats are always merged
     again (on the client)."""
+    from .fill import run_tiles
+
     dist = np.asarray(dist, dtype=np.float64)
     if dist.shape != (layout.nrows, 8):
         raise ValueError(f"dist must be the ({layout.nrows}, 8) table of neighbour distances, "
                          f"got shape {dist.shape}")
     tiles = layout.tiles()
-    nflat = 0
-    for ti, tj in tiles:
-        if resume and store.has("d8_raw", ti, tj):
-            nflat += int(np.count_nonzero(store.read("d8_raw", ti, tj) == NO_FLOW))
-        else:
-            nflat += d8_one_tile(layout, store, ti, tj, dist, surface)
-    for ti, tj in tiles:
-        if not (resume and store.has_meta(f"flats_{ti}_{tj}")):
-            flat_pieces_one_tile(layout, store, ti, tj, surface)
+    done = [t for t in tiles if resume and store.has("d8_raw", *t)]
+    nflat = sum(int(np.count_nonzero(store.read("d8_raw", ti, tj) == NO_FLOW))
+                for ti, tj in done)
+    nflat += sum(run_tiles(engine, store, _d8_task, [t for t in tiles if t not in done],
+                           shared=(dist, surface)))
+    run_tiles(engine, store, _flat_pieces_task, [
+        (ti, tj) for ti, tj in tiles if not (resume and store.has_meta(f"flats_{ti}_{tj}"))],
+        shared=(surface,))
     ncross = merge_flats(layout, store)
     unresolved = 0
     for batch in store.read_meta("flat_crossing"):
@@ -321,13 +349,10 @@ def directions_by_tiles(layout: TileLayout, store, dist: np.ndarray,
             unresolved += store.read_meta(name)["unresolved"]
         else:
             unresolved += resolve_crossing_flats(layout, store, batch, dist, surface)
-    for ti, tj in tiles:
-        name = f"directions_done_{ti}_{tj}"
-        if resume and store.has_meta(name):
-            unresolved += store.read_meta(name)
-        else:
-            n = finish_one_tile(layout, store, ti, tj, dist, surface)
-            store.write_meta(name, n)
-            unresolved += n
+    finished = [t for t in tiles if resume and store.has_meta(f"directions_done_{t[0]}_{t[1]}")]
+    unresolved += sum(store.read_meta(f"directions_done_{ti}_{tj}") for ti, tj in finished)
+    unresolved += sum(run_tiles(engine, store, _finish_task,
+                                [t for t in tiles if t not in finished],
+                                shared=(dist, surface)))
     return {"tiles": len(tiles), "flat_cells": nflat, "crossing_flats": ncross,
             "cells_without_outlet": unresolved}

@@ -146,9 +146,44 @@ def raise_one_tile(layout: TileLayout, store, ti: int, tj: int) -> None:
     store.write("filled", ti, tj, z)
 
 
-def fill_by_tiles(layout: TileLayout, store, resume: bool = False) -> dict:
+def _flood_task(spec, ti, tj):
+    from .engine import open_store
+
+    store = open_store(spec)
+    return flood_one_tile(store.layout, store, ti, tj)
+
+
+def _link_task(spec, ti, tj):
+    from .engine import open_store
+
+    store = open_store(spec)
+    return link_one_tile(store.layout, store, ti, tj)
+
+
+def _raise_task(spec, ti, tj):
+    from .engine import open_store
+
+    store = open_store(spec)
+    return raise_one_tile(store.layout, store, ti, tj)
+
+
+def run_tiles(engine, store, task, tiles, shared=()):
+    """``task(store, ti, tj, *shared)`` for each tile: as Dask tasks on ``engine``
+    (:class:`~basinkit.tiles.engine.Engine`), or one after the other here without one."""
+    if engine is None:
+        return [task(store, ti, tj, *shared) for ti, tj in tiles]
+    return engine.map(task, engine.spec(store), [(ti, tj, ()) for ti, tj in tiles],
+                      shared=shared)
+
+
+def fill_by_tiles(layout: TileLayout, store, resume: bool = False, engine=None) -> dict:
     """Fill every depression of the ``elevation`` layer exactly, tile by tile; writes the
     ``filled`` layer. Returns a summary (tiles, graph nodes).
+
+    The per-tile steps run as tasks on ``engine`` (:class:`~basinkit.tiles.engine.Engine`:
+    Dask's threads or a dask.distributed cluster; the store must then carry its
+    ``layout``), or one after the other in this thread without one; the label graph is
+    solved here, on the client.
 
     With ``resume=True`` a tile whose step is already done in the store (its output written
     last: meta ``fill_edges_TI_TJ``, ``fill_links_TI_TJ``, layer ``filled``) is not done
@@ -157,14 +192,13 @@ def fill_by_tiles(layout: TileLayout, store, resume: bool = False) -> dict:
     solved again (on the client, from the tiles' small outputs)."""
     check_layout(layout)
     tiles = layout.tiles()
-    for ti, tj in tiles:
-        if not (resume and store.has_meta(f"fill_edges_{ti}_{tj}")):
-            flood_one_tile(layout, store, ti, tj)
-    for ti, tj in tiles:
-        if not (resume and store.has_meta(f"fill_links_{ti}_{tj}")):
-            link_one_tile(layout, store, ti, tj)
+    run_tiles(engine, store, _flood_task, [
+        (ti, tj) for ti, tj in tiles
+        if not (resume and store.has_meta(f"fill_edges_{ti}_{tj}"))])
+    run_tiles(engine, store, _link_task, [
+        (ti, tj) for ti, tj in tiles
+        if not (resume and store.has_meta(f"fill_links_{ti}_{tj}"))])
     nodes = solve_fill_levels(layout, store)
-    for ti, tj in tiles:
-        if not (resume and store.has("filled", ti, tj)):
-            raise_one_tile(layout, store, ti, tj)
+    run_tiles(engine, store, _raise_task, [
+        (ti, tj) for ti, tj in tiles if not (resume and store.has("filled", ti, tj))])
     return {"tiles": len(tiles), "graph_nodes": nodes}

@@ -50,14 +50,15 @@ def grid_distances(layout: TileLayout, store) -> np.ndarray:
 
 
 def route_by_tiles(layout: TileLayout, store, dist: np.ndarray | None = None,
-                   resume: bool = False) -> dict:
+                   resume: bool = False, engine=None) -> dict:
     """Fill every depression and compute D8 directions, tile by tile: layers ``filled``,
     ``receivers`` and ``directions`` (see :mod:`basinkit.tiles.directions`), equal cell for
     cell to ``route(terrain, conditioning="fill")``. ``dist`` defaults to
     :func:`grid_distances`. ``resume``: go on from the steps a killed run finished (see
-    :func:`fill_by_tiles`). Returns a summary of both steps."""
+    :func:`fill_by_tiles`). ``engine``: run the per-tile steps as Dask tasks on this
+    :class:`~basinkit.tiles.engine.Engine`. Returns a summary of both steps."""
     if dist is None:
         dist = grid_distances(layout, store)
-    fill = fill_by_tiles(layout, store, resume)
-    d8 = directions_by_tiles(layout, store, dist, resume=resume)
+    fill = fill_by_tiles(layout, store, resume, engine=engine)
+    d8 = directions_by_tiles(layout, store, dist, resume=resume, engine=engine)
     return {"fill": fill, "directions": d8}

@@ -203,7 +203,10 @@ def tiled_flow_step(out, settings, tile: int, *, scheduler=None, workers: int | 
                  f"{lo:g} to {hi:g} m were treated as nodata (implausible elevations)")
     t1 = time.perf_counter()
     dist = grid_distances(layout, store)
-    summary = route_by_tiles(layout, store, dist, resume=True)
+    from ...tiles.engine import Engine
+
+    with Engine(scheduler, workers=workers) as engine:  # the tiles as Dask tasks
+        summary = route_by_tiles(layout, store, dist, resume=True, engine=engine)
     t2 = time.perf_counter()
     geom = _geometry(layout, store)
     acc = flow_accumulation(layout, store, geom.area, scheduler=scheduler, workers=workers)
