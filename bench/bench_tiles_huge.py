@@ -262,10 +262,12 @@ def timed(args, folders=(), extra_pids=(), label="") -> dict:
     s.join()
     log = errfile.read_text()
     tv = tfile.read_text() if tfile.exists() else ""
-    maxrss = 0
+    maxrss, cpu = 0, 0.0
     for line in tv.splitlines():
         if "Maximum resident set size" in line:
             maxrss = int(line.split(":")[1]) * 1024
+        elif "User time (seconds)" in line or "System time (seconds)" in line:
+            cpu += float(line.split(":")[1])
     if rc != 0:
         print(out, log[-4000:], tv, sep="\n")
         raise SystemExit(f"{label} failed with status {rc}")
@@ -274,7 +276,8 @@ def timed(args, folders=(), extra_pids=(), label="") -> dict:
         rec = json.loads(x) if x.startswith("{") else {}
         if rec.get("level") in ("info", "warning") and rec.get("event") is None:
             info.append(rec.get("message"))
-    return {"stage": label, "wall_s": round(wall, 1), "max_rss_MB": round(maxrss / 2**20),
+    return {"stage": label, "wall_s": round(wall, 1), "cpu_s": round(cpu, 1),
+            "max_rss_MB": round(maxrss / 2**20),
             "tree_peak_MB": round(s.peak_tree / 2**20), "procs": s.peak_procs,
             "extra_peak_MB": round(s.peak_extra / 2**20),
             "both_peak_MB": round(s.peak_both / 2**20),
