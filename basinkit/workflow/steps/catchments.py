@@ -110,13 +110,7 @@ def catchments_step(out, fm, placed, settings: CatchmentSettings | None = None,
     errors = placed.errors[ERROR_COLUMNS].reset_index(drop=True)
     d.errors = errors
     table = _csv_table(d, errors)
-    files = ["catchments.csv", "catchments.gpkg", "catchments.json"]
-    if len(errors):
-        files.append("outlet_errors.csv")
-    if s.labels_raster:
-        files.append("subcatchment_labels.tif")
-    if s.web_geojson:
-        files.append("catchments_wgs84.geojson")
+    files = _files(s, errors)
     params = {**(parameters or {}), **d.parameters, "snapping": placed.snapping,
               "labels_raster": s.labels_raster, "web_geojson": s.web_geojson,
               "fraction_rasters": s.fraction_rasters}
@@ -129,6 +123,18 @@ def catchments_step(out, fm, placed, settings: CatchmentSettings | None = None,
     _write(out, fm, d, table, errors, s, meta)
     _tell(rep, d, errors, placed.given)
     return CatchmentsResult(d, table, errors)
+
+
+def _files(s, errors) -> list:
+    """The files the catchments step writes with settings ``s`` and these outlet errors."""
+    files = ["catchments.csv", "catchments.gpkg", "catchments.json"]
+    if len(errors):
+        files.append("outlet_errors.csv")
+    if s.labels_raster:
+        files.append("subcatchment_labels.tif")
+    if s.web_geojson:
+        files.append("catchments_wgs84.geojson")
+    return files
 
 
 def _csv_table(d, errors):

@@ -97,8 +97,8 @@ def tiled_catchments_step(out, fm, placed, settings=None, reporter=None,
     from ...tiles.labels import catchment_labels
     from ...tiles.polygons import catchment_polygons
     from ...tiles.tables import catchment_table
-    from .catchments import (CatchmentSettings, CatchmentsResult, _csv_table, _tell, _write,
-                             filled_columns)
+    from .catchments import (CatchmentSettings, CatchmentsResult, _csv_table, _files, _tell,
+                             _write, filled_columns)
 
     s = settings or CatchmentSettings()
     rep = as_reporter(reporter)
@@ -156,13 +156,7 @@ def tiled_catchments_step(out, fm, placed, settings=None, reporter=None,
     errors = placed.errors[ERROR_COLUMNS].reset_index(drop=True)
     d.errors = errors
     table = _csv_table(d, errors)
-    files = ["catchments.csv", "catchments.gpkg", "catchments.json"]
-    if len(errors):
-        files.append("outlet_errors.csv")
-    if s.labels_raster:
-        files.append("subcatchment_labels.tif")
-    if s.web_geojson:
-        files.append("catchments_wgs84.geojson")
+    files = _files(s, errors)
     allp = {**(parameters or {}), **params, "snapping": placed.snapping,
             "labels_raster": s.labels_raster, "web_geojson": s.web_geojson,
             "fraction_rasters": s.fraction_rasters, "by_tiles": True}
