@@ -191,3 +191,27 @@ def test_csv_floats_are_the_bytes_pandas_writes(tmp_path):
         write_csv(tmp_path / "u.csv", one)
         want = one.to_csv(index=False, float_format="%.10g", lineterminator="\n")
         assert (tmp_path / "u.csv").read_bytes() == want.encode()
+
+
+def test_streamed_table_is_written_like_the_others(tmp_path):
+    """A table written piece by piece (CsvStream) has the bytes of write_csv for the same
+    rows, the same file permissions (the user's umask, not a temporary file's 0600), and
+    leaves nothing behind when discarded (common practice, no source)."""
+    import pandas as pd
+
+    from basinkit.io.writers import CsvStream, csv_rows, write_csv
+
+    df = pd.DataFrame({"outlet_id": ["a", "b", "c"], "x": [1.5, np.nan, 3.25],
+                       "n": [1, 2, 3]})
+    cols = list(df.columns)
+    table = CsvStream(tmp_path / "s.csv", cols)
+    table.write_text(csv_rows(df.iloc[:2], cols))
+    table.write_text(csv_rows(df.iloc[2:][["n", "outlet_id"]], cols))  # x left empty
+    table.close()
+    write_csv(tmp_path / "w.csv", df.assign(x=[1.5, np.nan, np.nan]))
+    assert (tmp_path / "s.csv").read_bytes() == (tmp_path / "w.csv").read_bytes()
+    assert (tmp_path / "s.csv").stat().st_mode == (tmp_path / "w.csv").stat().st_mode
+    gone = CsvStream(tmp_path / "g.csv", cols)
+    gone.write_text(csv_rows(df, cols))
+    gone.discard()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["s.csv", "w.csv"]

@@ -290,27 +290,18 @@ class CsvStream:
         self.path = Path(path)
         self.columns = list(columns)
         self.path.parent.mkdir(parents=True, exist_ok=True)
+        # a free name beside the target, then a file made as every other output is (the
+        # user's umask decides its permissions, as for the files of atomic_path)
         fd, tmp = tempfile.mkstemp(prefix=f".{self.path.name}.",
                                    suffix=".part" + self.path.suffix, dir=self.path.parent)
+        os.close(fd)
+        os.unlink(tmp)
         self._tmp = Path(tmp)
-        self._fh = os.fdopen(fd, "w", encoding="utf-8", newline="")
+        self._fh = open(self._tmp, "x", encoding="utf-8", newline="")
         self._fh.write(csv_header(self.columns))
-        self.rows = 0
 
     def write_text(self, text: str) -> None:
         """Append rows already formatted by :func:`csv_rows` for these columns."""
-        self._fh.write(text)
-
-    def write_frame(self, frame) -> None:
-        """Append a DataFrame's rows (columns as the stream's)."""
-        text = csv_rows(frame, self.columns)
-        if text is None:
-            import io
-
-            buf = io.StringIO()
-            _floats_as_text(frame.reindex(columns=self.columns)).to_csv(
-                buf, index=False, header=False, lineterminator="\n")
-            text = buf.getvalue()
         self._fh.write(text)
 
     def close(self) -> Path:
