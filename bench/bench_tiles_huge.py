@@ -293,7 +293,7 @@ def route_and_channels(size, root, max_memory, *, scheduler=None, extra_pids=(),
     flow = root / f"flow_{size}{tag}"
     work = root / f".flow_{size}{tag}.tiles"
     ch = root / f"channels_{size}{tag}"
-    for p in (flow, ch, work):
+    for p in (flow, work) + ((ch,) if channels else ()):
         shutil.rmtree(p, ignore_errors=True)
     args = ["route", str(dem), "-o", str(flow), "--max-memory", max_memory]
     if scheduler:
