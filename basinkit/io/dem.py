@@ -17,6 +17,23 @@ from .hashing import file_sha256
 __all__ = ["read_dem"]
 
 
+def check_band(p, ds, band) -> int:
+    """The elevation band of the open raster ``ds`` (1-based; the only one when ``band`` is
+    None), or InputError: no bands, several and none chosen, out of range, complex."""
+    if ds.count == 0:
+        raise InputError(f"{str(p)!r} has no raster bands")
+    if band is None:
+        if ds.count > 1:
+            raise InputError(f"{str(p)!r} has {ds.count} bands; say which one holds "
+                             "elevation with --band N (1-based)")
+        band = 1
+    if not 1 <= band <= ds.count:
+        raise InputError(f"band {band} does not exist; {str(p)!r} has {ds.count} band(s)")
+    if ds.dtypes[band - 1].startswith("complex"):
+        raise InputError(f"band {band} of {str(p)!r} holds complex numbers, not elevations")
+    return band
+
+
 def read_dem(path, band: int | None = None, crs=None, sea_level: float | None = None,
              base_level=None, check_ram: bool = True, *, replace_crs=None,
              cell_size: float | None = None, origin=None,
@@ -91,22 +108,9 @@ def read_dem(path, band: int | None = None, crs=None, sea_level: float | None = 
         raise InputError(f"{str(p)!r} is not a raster file rasterio can read, or it is "
                          f"damaged or truncated ({exc})") from None
     with ds:
-        if ds.count == 0:
-            raise InputError(f"{str(p)!r} has no raster bands")
-        if band is None:
-            if ds.count > 1:
-                raise InputError(f"{str(p)!r} has {ds.count} bands; say which one holds "
-                                 "elevation with --band N (1-based)")
-            band = 1
-        if not 1 <= band <= ds.count:
-            raise InputError(f"band {band} does not exist; {str(p)!r} has {ds.count} "
-                             "band(s)")
+        band = check_band(p, ds, band)
         if check_ram:
             check_memory(ds.width * ds.height)
-        dtype = ds.dtypes[band - 1]
-        if dtype.startswith("complex"):
-            raise InputError(f"band {band} of {str(p)!r} holds complex numbers, not "
-                             "elevations")
         # read first: a file cut short may have lost its georeferencing tags, and must be
         # called damaged, not told to add --crs
         try:

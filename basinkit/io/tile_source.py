@@ -25,7 +25,7 @@ from ..errors import InputError
 from ..terrain.checks import (PLAUSIBLE_ELEVATION_M, check_elevation_range,
                               check_geographic_extent, screen_elevations)
 from ..tiles.layout import MemoryTiles, TileLayout
-from .dem import _choose_crs
+from .dem import _choose_crs, check_band
 from .hashing import file_sha256
 from .tile_folder import TileFolder
 
@@ -58,17 +58,7 @@ def _open(p):
 
 
 def _check_band(p, ds, band):
-    if ds.count == 0:
-        raise InputError(f"{str(p)!r} has no raster bands")
-    if band is None:
-        if ds.count > 1:
-            raise InputError(f"{str(p)!r} has {ds.count} bands; say which one holds "
-                             "elevation with --band N (1-based)")
-        band = 1
-    if not 1 <= band <= ds.count:
-        raise InputError(f"band {band} does not exist; {str(p)!r} has {ds.count} band(s)")
-    if ds.dtypes[band - 1].startswith("complex"):
-        raise InputError(f"band {band} of {str(p)!r} holds complex numbers, not elevations")
+    band = check_band(p, ds, band)
     t = ds.transform
     if t.is_identity and not ds.gcps[0]:
         raise InputError(f"{str(p)!r} has no georeferencing; a DEM read by tiles must carry "
