@@ -326,7 +326,7 @@ def directions_by_tiles(layout: TileLayout, store, dist: np.ndarray,
     ``d8_raw``, meta ``flats_TI_TJ``, ``flat_fix_B``, ``directions_done_TI_TJ``) are not
     done again; the inputs must be those of the first run. The flats are always merged
     again (on the client)."""
-    from .fill import run_tiles
+    from .engine import run_tiles
 
     dist = np.asarray(dist, dtype=np.float64)
     if dist.shape != (layout.nrows, 8):

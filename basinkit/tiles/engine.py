@@ -21,7 +21,7 @@ import functools
 
 from ..errors import InputError
 
-__all__ = ["Engine", "open_store", "store_spec"]
+__all__ = ["Engine", "open_store", "store_spec", "run_tiles"]
 
 LOCAL_SCHEDULERS = ("threads", "synchronous", "sync")
 
@@ -155,3 +155,12 @@ def digest(*arrays) -> str:
         h.update(f"{a.dtype.str}{a.shape}".encode())
         h.update(a.tobytes())
     return h.hexdigest()
+
+
+def run_tiles(engine, store, task, tiles, shared=()):
+    """``task(store, ti, tj, *shared)`` for each tile: as Dask tasks on ``engine``
+    (:class:`~basinkit.tiles.engine.Engine`), or one after the other here without one."""
+    if engine is None:
+        return [task(store, ti, tj, *shared) for ti, tj in tiles]
+    return engine.map(task, engine.spec(store), [(ti, tj, ()) for ti, tj in tiles],
+                      shared=shared)

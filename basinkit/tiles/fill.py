@@ -167,15 +167,6 @@ def _raise_task(spec, ti, tj):
     return raise_one_tile(store.layout, store, ti, tj)
 
 
-def run_tiles(engine, store, task, tiles, shared=()):
-    """``task(store, ti, tj, *shared)`` for each tile: as Dask tasks on ``engine``
-    (:class:`~basinkit.tiles.engine.Engine`), or one after the other here without one."""
-    if engine is None:
-        return [task(store, ti, tj, *shared) for ti, tj in tiles]
-    return engine.map(task, engine.spec(store), [(ti, tj, ()) for ti, tj in tiles],
-                      shared=shared)
-
-
 def fill_by_tiles(layout: TileLayout, store, resume: bool = False, engine=None) -> dict:
     """Fill every depression of the ``elevation`` layer exactly, tile by tile; writes the
     ``filled`` layer. Returns a summary (tiles, graph nodes).
@@ -190,6 +181,8 @@ def fill_by_tiles(layout: TileLayout, store, resume: bool = False, engine=None) 
     again, so a killed run on a :class:`~basinkit.io.tile_folder.TileFolder` goes on where
     it stopped; the inputs must be those of the first run. The label graph is always
     solved again (on the client, from the tiles' small outputs)."""
+    from .engine import run_tiles
+
     check_layout(layout)
     tiles = layout.tiles()
     run_tiles(engine, store, _flood_task, [
