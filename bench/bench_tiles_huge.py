@@ -351,7 +351,7 @@ def compare(size, root) -> dict:
 
 # --- LocalCluster ----------------------------------------------------------------------------
 
-def cluster(size, root, workers, max_memory):
+def cluster(size, root, workers, max_memory, channels=True):
     from dask.distributed import LocalCluster
 
     with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
@@ -360,7 +360,7 @@ def cluster(size, root, workers, max_memory):
 
         pids = [c.pid for c in psutil.Process().children(recursive=False)]
         res = route_and_channels(size, root, max_memory, scheduler=lc.scheduler_address,
-                                 extra_pids=pids, tag=f"_cluster{workers}", channels=False)
+                                 extra_pids=pids, tag=f"_cluster{workers}", channels=channels)
     return res
 
 
@@ -381,7 +381,7 @@ def main():
     elif a.what == "compare":
         res = [compare(a.size, a.root)]
     else:
-        res = cluster(a.size, a.root, a.workers, a.max_memory)
+        res = cluster(a.size, a.root, a.workers, a.max_memory, channels=not a.no_channels)
     for r in res:
         print(json.dumps(r), flush=True)
 

@@ -428,22 +428,36 @@ def test_long_names_and_damaged_flow_folders_are_one_line(tiny, tmp_path, capsys
 
 
 # ---------------------------------------------------------------------- determinism
+def _job_files(folder):
+    """:func:`_files` of a job's folder, with provenance.json as its JSON less the peak
+    memory (``resources``) and the manifest less that file's hash."""
+    got = _files(folder)
+    prov = json.loads((Path(folder) / "provenance.json").read_text())
+    assert prov.pop("resources")["peak_memory_bytes"] > 0
+    got["provenance.json"] = prov
+    man = json.loads((Path(folder) / MANIFEST).read_text())
+    man["files"].pop("provenance.json")
+    got[MANIFEST] = man
+    return got
+
+
 def test_reruns_are_byte_identical(tiny, tmp_path, capsys):
     """The job (report included) run twice into one folder, then into a second folder,
     and each command run twice over its own output: every file is byte for byte the same
     (GeoPackages included: their timestamp is fixed; no timings in the files, they go to
-    the console)."""
+    the console), but for the job's peak memory in provenance.json's ``resources`` (and so
+    that file's hash in the manifest)."""
     from basinkit.report import write_report
     from basinkit.workflow.runner import run_job
 
     run_job(tiny / "job.toml", output=tmp_path / "a", report=write_report)
-    first = _files(tmp_path / "a")
+    first = _job_files(tmp_path / "a")
     assert len(first) > 25 and "report.html" in first
     assert any(n.endswith(".gpkg") for n in first)
     run_job(tiny / "job.toml", output=tmp_path / "a", overwrite=True, report=write_report)
-    assert _files(tmp_path / "a") == first
+    assert _job_files(tmp_path / "a") == first
     run_job(tiny / "job.toml", output=tmp_path / "b", report=write_report)
-    assert _files(tmp_path / "b") == first
+    assert _job_files(tmp_path / "b") == first
     flow = tmp_path / "a" / "flow"
     o = ["--outlets", tiny / "outlets.csv", "--snap-radius", "20m"]
     commands = {

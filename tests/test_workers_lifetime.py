@@ -210,10 +210,10 @@ def test_ctrl_c_on_the_process_group_stops_the_run(valley, tmp_path):
         _kill_all(p, workers)
 
 
-def test_peak_memory_on_the_console_and_not_in_the_files(valley, tmp_path):
+def test_peak_memory_on_the_console_and_in_provenance(valley, tmp_path):
     """A finished run gives its peak memory and its largest worker's in the ``--log-json``
-    record ``peak_memory`` (bytes) and on the console; provenance.json does not hold it
-    (the files are byte-identical between runs). The peak is at least the memory the
+    record ``peak_memory`` (bytes), on the console and in provenance.json's ``resources``
+    (the other files are byte-identical between runs). The peak is at least the memory the
     process holds at any moment (getrusage(2)), checked in process against psutil."""
     from basinkit._processes import peak_memory
 
@@ -229,8 +229,9 @@ def test_peak_memory_on_the_console_and_not_in_the_files(valley, tmp_path):
     assert peak[0]["peak_memory_bytes"] > 50 * 2**20
     assert peak[0]["peak_worker_memory_bytes"] > 0
     assert "peak memory" in peak[0]["message"]
-    prov = (tmp_path / "a" / "provenance.json").read_text()
-    assert "peak_memory" not in prov and "memory_bytes" not in prov
+    res = json.loads((tmp_path / "a" / "provenance.json").read_text())["resources"]
+    assert res["peak_memory_bytes"] == peak[0]["peak_memory_bytes"]
+    assert res["peak_worker_memory_bytes"] == peak[0]["peak_worker_memory_bytes"]
     r = subprocess.run([sys.executable, "-m", "basinkit.cli", "run",
                         str(valley / "quick.toml"), "-o", str(tmp_path / "b")], env=ENV,
                        capture_output=True, text=True, timeout=600)

@@ -4,7 +4,8 @@ reported at the end."""
 
 from __future__ import annotations
 
-__all__ = ["outlet_rows", "job_warnings", "job_provenance", "report_peak_memory"]
+__all__ = ["outlet_rows", "job_warnings", "job_provenance", "record_peak_memory",
+           "report_peak_memory"]
 
 
 def outlet_rows(cres):
@@ -87,17 +88,30 @@ def job_provenance(job, fm, inputs, placed, res):
     return prov
 
 
-def report_peak_memory(res, rep):
-    """The peak memory of the run into ``res`` and onto the console (not into the files)."""
+def record_peak_memory(res):
+    """The peak memory of the run so far into ``res`` and into ``res.provenance`` (section
+    ``resources``: the one part of provenance.json that differs between reruns; the
+    rasters, tables, figures and report stay byte-identical)."""
     from .._processes import peak_memory
-    from ..terrain.memory import format_bytes
 
     peak = peak_memory()
     res.peak_memory_bytes = peak["peak_memory_bytes"]
     res.peak_worker_memory_bytes = peak["peak_worker_memory_bytes"]
+    res.provenance["resources"] = {
+        **peak, "note": "peak resident memory of the run's process and of its largest "
+                        "worker process (getrusage); it differs from run to run"}
+    return peak
+
+
+def report_peak_memory(res, rep):
+    """The peak memory recorded by :func:`record_peak_memory`, on the console and as the
+    ``--log-json`` record ``peak_memory``."""
+    from ..terrain.memory import format_bytes
+
     if res.peak_memory_bytes is None:
         return
     msg = f"peak memory {format_bytes(res.peak_memory_bytes)}"
     if res.peak_worker_memory_bytes:
         msg += f", largest worker {format_bytes(res.peak_worker_memory_bytes)}"
-    rep.info(msg, event="peak_memory", **peak)
+    rep.info(msg, event="peak_memory", peak_memory_bytes=res.peak_memory_bytes,
+             peak_worker_memory_bytes=res.peak_worker_memory_bytes)

@@ -13,7 +13,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .jobfile import JobSpec, read_job
-from .job_records import job_provenance, job_warnings, outlet_rows, report_peak_memory
+from .job_records import (job_provenance, job_warnings, outlet_rows, record_peak_memory,
+                          report_peak_memory)
 from .progress import StageTimer, as_reporter
 
 __all__ = ["JobResult", "run_job"]
@@ -38,9 +39,10 @@ class JobResult:
     peak_memory_bytes, peak_worker_memory_bytes : int or None
         Peak resident memory of this process, and the largest peak of its worker processes
         (0: none were forked), when the run ended (:func:`basinkit._processes.peak_memory`;
-        over the life of the process, so a Python session's earlier work counts). On the
-        console and in ``--log-json``, not in provenance.json: like the timings they differ
-        from run to run, and the folder's files do not.
+        over the life of the process, so a Python session's earlier work counts), taken
+        just before provenance.json is written. On the console, in ``--log-json`` and in
+        provenance.json's ``resources`` section, the one part of the folder that differs
+        between reruns.
     flow : FlowModel
         The model as read back from ``flow/``.
     outlets : pandas.DataFrame or None
@@ -310,6 +312,7 @@ def _run(job, out, rep, report):
     res.provenance["stages"] = timer.record()
     res.provenance["files"] = {k: v for k, v in out.hashes().items()
                                if k != "provenance.json"}
+    record_peak_memory(res)
     out.json("provenance.json", res.provenance)
     out.commit(rep)  # the earlier run's files go, the user's are kept (and named)
     res.files = out.files

@@ -64,7 +64,8 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
 
     from ..io.tiled_flow_folder import TiledFlowFolder
     from .outlets import place_outlets
-    from .job_records import job_provenance, job_warnings, outlet_rows, report_peak_memory
+    from .job_records import (job_provenance, job_warnings, outlet_rows, record_peak_memory,
+                              report_peak_memory)
     from .steps.tiled_flow import tiled_flow_step
     from .steps.tiled_steps import tiled_catchments_step, tiled_channels_step
 
@@ -108,6 +109,7 @@ def _stages(job, out, rep, plan, res, timer, st, inputs, work, scheduler, spec, 
     res.seconds_total = round(time.perf_counter() - t_start, 3)
     res.provenance["stages"] = timer.record()
     res.provenance["files"] = out.hashes()
+    record_peak_memory(res)
     out.json("provenance.json", res.provenance)
     out.commit(rep)
     shutil.rmtree(work, ignore_errors=True)
