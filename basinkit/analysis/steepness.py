@@ -95,7 +95,7 @@ def steepness(nodes, by="segment_id", elevation="elevation_conditioned_m"):
         sse = np.maximum(syy - slope * sxy, 0.0)
         r2 = np.where(syy > 0, 1.0 - sse / syy, 1.0)
         stderr = np.where(cnt > 2, np.sqrt(sse / np.maximum(cnt - 2, 1) / sxx), np.nan)
-    out = pd.DataFrame({by: gkeys})
+    out = {by: gkeys}
     gok = gi[ok]
     _, first = np.unique(gok, return_index=True)  # first node of each group (table order)
     for col in ("outlet_id", "profile_id", "segment_id"):
@@ -122,6 +122,7 @@ def steepness(nodes, by="segment_id", elevation="elevation_conditioned_m"):
             out[c] = np.zeros(0)
     out["concavity"] = nodes.attrs.get("concavity", np.nan)
     out["reference_area_m2"] = nodes.attrs.get("reference_area_m2", np.nan)
+    out = pd.DataFrame(out)  # one frame at the end: column by column costs per column
     return out
 
 
@@ -251,33 +252,37 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
             out.append((order[node], kb[j], ka[j], kr[j], kd[j], is_step))
     cols_out = ([] if single else [by]) + (["outlet_id"] if "outlet_id" in df.columns
                                            else []) + cols
+    both = {"elevation_m", "elevation_conditioned_m"} <= set(df.columns)
     if not out:
-        res = pd.DataFrame({c: pd.Series(dtype=float) for c in cols_out})
+        res = {c: pd.Series(dtype=float) for c in cols_out}
         for c in ("ksn_below_m_per_m", "ksn_above_m_per_m", "ksn_change_ratio", "step_m",
                   "relief_m"):
             res[c] = pd.Series(dtype=float)
         res["kind"] = pd.Series(dtype=object)
-        if {"elevation_m", "elevation_conditioned_m"} <= set(df.columns):
+        if both:
             res["in_filled_depression"] = pd.Series(dtype=bool)
-        return res.rename(columns={elevation: "elevation_m"})
+        return pd.DataFrame(res).rename(columns={elevation: "elevation_m"})
     idx = np.array([o[0] for o in out])
-    res = df.iloc[idx][cols_out].reset_index(drop=True)
+    # the frame is made once at the end (column by column, pandas costs per column)
+    res = {c: df[c].iloc[idx].reset_index(drop=True) for c in cols_out}
     kb = np.array([o[1] for o in out])
     ka = np.array([o[2] for o in out])
     res["ksn_below_m_per_m"] = kb
     res["ksn_above_m_per_m"] = ka
     with np.errstate(divide="ignore", invalid="ignore"):
         res["ksn_change_ratio"] = ka / kb
-    res["step_m"] = np.array([o[4] for o in out])
+    step = np.array([o[4] for o in out])
+    res["step_m"] = step
     res["relief_m"] = np.array([o[3] for o in out])
     steps = np.array([o[5] for o in out], dtype=bool)
-    res["kind"] = np.where(steps, np.where(res["step_m"] > 0, "vertical step up",
+    res["kind"] = np.where(steps, np.where(step > 0, "vertical step up",
                                            "vertical step down"),
                            np.where(ka > kb, "steeper upstream", "gentler upstream"))
-    if {"elevation_m", "elevation_conditioned_m"} <= set(df.columns):
+    if both:
         raised = (df["elevation_conditioned_m"].to_numpy(float)[idx]
                   - df["elevation_m"].to_numpy(float)[idx])
         res["in_filled_depression"] = raised > prec
+    res = pd.DataFrame(res)
     return res.rename(columns={elevation: "elevation_m"})
 
 

@@ -263,10 +263,50 @@ def csv_rows(frame, columns) -> str | None:
     """The rows of ``frame`` as CSV text in the order of ``columns`` (a column the frame
     lacks is written empty), formatted as :func:`write_csv` does; None when a column's
     kind is not one this handles. Per-outlet work formats its rows with this in the worker
-    processes, and the table is streamed (:class:`CsvStream`)."""
+    processes, and the table is streamed (:class:`CsvStream`).
+
+    Numbers, text and booleans are formatted and joined by compiled kernels
+    (``io/_csv_text.py``), which give the same bytes as the per-value path
+    (:func:`_rows_by_lists`, kept for the rare column they leave to it)."""
+    from . import _csv_text as K
+
     n = len(frame)
     if not n:
         return ""
+    if len(columns) == 1:
+        return _rows_by_lists(frame, columns)
+    if frame.attrs:  # pandas deep-copies them into every column taken
+        frame = frame.copy(deep=False)
+        frame.attrs = {}
+    bufs = []
+    for c in columns:
+        if c not in frame.columns:
+            bufs.append(b"\0" * n)
+            continue
+        values = frame[c].to_numpy()
+        kind = values.dtype.kind
+        if kind == "f":
+            b = K.float_fields(values)
+        elif kind in "iu":
+            b = K.int_fields(values)
+        elif kind == "b":
+            b = K.text_fields(["True" if x else "False" for x in values.tolist()])
+        elif kind == "O":
+            text = _object_text(values)
+            if text is None:
+                return None
+            b = K.text_fields(text)
+        else:
+            return None
+        if b is None:  # a NUL in a text, or integers beyond int64
+            return _rows_by_lists(frame, columns)
+        bufs.append(b)
+    return K.rows_text(bufs, n)
+
+
+def _rows_by_lists(frame, columns) -> str | None:
+    """:func:`csv_rows` value by value in Python."""
+    n = len(frame)
     cols = []
     for c in columns:
         if c in frame.columns:
