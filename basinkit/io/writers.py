@@ -259,6 +259,11 @@ def csv_header(columns) -> str:
     return ",".join(_quote(str(c)) for c in columns) + "\n"
 
 
+# tables of fewer values are formatted in Python (a first run on a new machine compiles the
+# kernels in about two seconds, which a small table does not earn back)
+_KERNEL_MIN_VALUES = 5_000
+
+
 def csv_rows(frame, columns) -> str | None:
     """The rows of ``frame`` as CSV text in the order of ``columns`` (a column the frame
     lacks is written empty), formatted as :func:`write_csv` does; None when a column's
@@ -273,7 +278,7 @@ def csv_rows(frame, columns) -> str | None:
     n = len(frame)
     if not n:
         return ""
-    if len(columns) == 1:
+    if len(columns) == 1 or n * len(columns) < _KERNEL_MIN_VALUES:
         return _rows_by_lists(frame, columns)
     if frame.attrs:  # pandas deep-copies them into every column taken
         frame = frame.copy(deep=False)
