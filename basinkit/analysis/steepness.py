@@ -66,6 +66,8 @@ def steepness(nodes, by="segment_id", elevation="elevation_conditioned_m"):
     if miss:
         raise InputError(f"the node table lacks the columns {sorted(miss)}; make it with "
                          "channel_profiles()")
+    attrs = nodes.attrs
+    nodes = _without_attrs(nodes)
     key = nodes[by].to_numpy()
     ok = key > 0
     x = nodes["chi_m"].to_numpy(dtype=float)
@@ -120,10 +122,19 @@ def steepness(nodes, by="segment_id", elevation="elevation_conditioned_m"):
     else:
         for c in ("chi_min_m", "chi_max_m", "elevation_min_m", "elevation_max_m"):
             out[c] = np.zeros(0)
-    out["concavity"] = nodes.attrs.get("concavity", np.nan)
-    out["reference_area_m2"] = nodes.attrs.get("reference_area_m2", np.nan)
+    out["concavity"] = attrs.get("concavity", np.nan)
+    out["reference_area_m2"] = attrs.get("reference_area_m2", np.nan)
     out = pd.DataFrame(out)  # one frame at the end: column by column costs per column
     return out
+
+
+def _without_attrs(frame):
+    """``frame`` (a shallow copy) without ``attrs``: pandas deep-copies them into every
+    column taken, which costs more than the work on a profile's few hundred nodes."""
+    if frame.attrs:
+        frame = frame.copy(deep=False)
+        frame.attrs = {}
+    return frame
 
 
 def _starts(ai, ng):
@@ -226,6 +237,7 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
     if miss:
         raise InputError(f"the node table lacks the columns {sorted(miss)}")
     out = []
+    df = _without_attrs(df)
     key = df[by].to_numpy()
     order = np.lexsort((df["chi_m"].to_numpy(), key))
     ks = key[order]
@@ -264,7 +276,7 @@ def find_knickpoints(nodes, by="profile_id", elevation="elevation_conditioned_m"
         return pd.DataFrame(res).rename(columns={elevation: "elevation_m"})
     idx = np.array([o[0] for o in out])
     # the frame is made once at the end (column by column, pandas costs per column)
-    res = {c: df[c].iloc[idx].reset_index(drop=True) for c in cols_out}
+    res = {c: df[c].to_numpy()[idx] for c in cols_out}
     kb = np.array([o[1] for o in out])
     ka = np.array([o[2] for o in out])
     res["ksn_below_m_per_m"] = kb

@@ -261,7 +261,7 @@ def csv_header(columns) -> str:
 
 # tables of fewer values are formatted in Python (a first run on a new machine compiles the
 # kernels in about two seconds, which a small table does not earn back)
-_KERNEL_MIN_VALUES = 5_000
+_KERNEL_MIN_VALUES = 1_000
 
 
 def csv_rows(frame, columns) -> str | None:
