@@ -237,6 +237,10 @@ def test_csv_numbers_across_magnitudes_are_the_bytes_pandas_writes(tmp_path):
     f = np.concatenate([rng.normal(size=n) * 10.0 ** rng.uniform(-320, 308, n),
                         np.round(rng.uniform(-1e4, 1e4, n), 3),
                         (np.arange(n) + 0.5) * 10.0 ** rng.integers(-12, 3, n),
+                        # near ten-digit half-way points, where the rounding is decided
+                        (rng.integers(10**9, 10**10, n) + 0.5
+                         + rng.normal(size=n) * 10.0 ** rng.uniform(-9, -3, n))
+                        * 10.0 ** (rng.integers(-40, 40, n) - 9.0),
                         p10, np.nextafter(p10, 0), np.nextafter(p10, np.inf), special])
     df = pd.DataFrame({"f": f, "f32": np.clip(f, -3e38, 3e38).astype(np.float32),
                        "i": rng.integers(-2**62, 2**62, f.size),
