@@ -21,6 +21,8 @@ import time
 
 import click
 
+from .._processes import return_freed_memory
+
 __all__ = ["Console", "PROGRESS_SECONDS", "FAILURES_SHOWN"]
 
 PROGRESS_SECONDS = 10.0  # a progress line about this often in logs
@@ -120,6 +122,7 @@ class Console:
             click.echo(f"{name} ...", err=True)
         yield
         s = time.perf_counter() - t0
+        return_freed_memory()  # the stage's garbage does not stay resident
         if self.log_json:
             self._json("info", f"{name} done ({s:.1f} s)",
                        {"event": "stage_done", "stage": name, "seconds": round(s, 3)})

@@ -28,6 +28,23 @@ def shared(name):
     return _SHARED[name]
 
 
+# a worker hands its freed memory back to the system after this many items
+TRIM_EVERY = 32
+_DONE = [0]
+
+
+def _trimmed(func, item):
+    """``func(item)`` in a worker, returning freed memory every :data:`TRIM_EVERY` items
+    (:func:`basinkit._processes.return_freed_memory`)."""
+    result = func(item)
+    _DONE[0] += 1
+    if _DONE[0] % TRIM_EVERY == 0:
+        from .._processes import return_freed_memory
+
+        return_freed_memory()
+    return result
+
+
 def _fork_available() -> bool:
     import multiprocessing as mp
 
@@ -69,6 +86,7 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
             for item in wrap(items, total=total, desc=desc):
                 yield func(item)
             return
+        import functools
         import multiprocessing as mp
         import os
 
@@ -81,7 +99,8 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
             pool = mp.get_context("fork").Pool(int(workers), initializer=worker_init,
                                                initargs=(os.getpid(),))
         with pool:
-            results = pool.imap(func, items[1:], chunksize=chunk)
+            results = pool.imap(functools.partial(_trimmed, func), items[1:],
+                                chunksize=chunk)
 
             def all_results():
                 yield first

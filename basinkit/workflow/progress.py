@@ -13,6 +13,8 @@ from __future__ import annotations
 import contextlib
 import time
 
+from .._processes import return_freed_memory
+
 __all__ = ["Reporter", "as_reporter", "StageTimer"]
 
 
@@ -101,6 +103,7 @@ class StageTimer:
             raise
         finally:
             rec["seconds"] = round(time.perf_counter() - t0, 3)
+            return_freed_memory()  # the stage's garbage does not stay resident
         if rec["status"] == "running":
             rec["status"] = "done"
 
