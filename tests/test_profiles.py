@@ -474,8 +474,23 @@ def test_profile_command(tmp_path, base_model):
     CliRunner().invoke(cli, ["--quiet", "profile", str(tmp_path / "flow"), "--outlets",
                              str(pts), "--min-area", "0.1km2", "--min-order", "1",
                              "--slope-window", "90m", "-o", str(out_b)], standalone_mode=False)
-    for f in ("profile.csv", "steepness.csv", "knickpoints.csv"):
+    for f in ("profile.csv", "steepness.csv", "knickpoints.csv", "profiles.gpkg"):
         assert (out / f).read_bytes() == (out_b / f).read_bytes()
+    # the tables streamed as the outlets come hold the columns of the analysis functions
+    # (outlet first), and the GeoPackage the same rows: every segment of steepness.csv and
+    # two flow paths per outlet, every knickpoint
+    steep, knick = pd.read_csv(out / "steepness.csv"), pd.read_csv(out / "knickpoints.csv")
+    nodes = P.channel_profiles(base_model, extract_channels(base_model, 1e5,
+                                                            geometry=False), outlet,
+                               min_order=1, slope_window_m=90)
+    nodes["outlet_id"] = "main"
+    want = list(steepness(nodes).columns)
+    assert list(steep.columns) == ["outlet_id"] + [c for c in want if c != "outlet_id"]
+    want = list(find_knickpoints(nodes).columns)
+    assert list(knick.columns) == ["outlet_id"] + [c for c in want if c != "outlet_id"]
+    assert len(steep) > 0
+    assert len(prof) == len(steep) + 2
+    assert len(gpd.read_file(out / "profiles.gpkg", layer="knickpoints")) == len(knick)
     # user errors: no outlet; both a fixed and a fitted concavity
     r2 = CliRunner().invoke(cli, ["profile", str(tmp_path / "flow"), "-o", str(out)])
     assert r2.exit_code != 0 and isinstance(r2.exception, InputError)

@@ -312,6 +312,41 @@ class OutputFolder:
                                             layer_metadata=metadata, **kw)
         return p
 
+    @contextlib.contextmanager
+    def gpkg_stream(self, name, schema: dict, metadata: dict | None = None,
+                    geometry_types: dict | None = None):
+        """A GeoPackage written chunk by chunk: ``schema`` is ``{layer: empty
+        GeoDataFrame}`` giving the layers, in order, with their columns and types; the
+        block gets a ``write(layer, frame)`` that appends rows (cast to the schema's
+        types). The file appears, complete, when the block ends without an error; the
+        same chunks give the same bytes (:func:`fixed_gpkg_timestamp`)."""
+        import pyogrio
+
+        from ..io.writers import atomic_path
+
+        geometry_types = geometry_types or {}
+        with self._writing(name) as p, atomic_path(p) as tmp:
+            for i, (layer, empty) in enumerate(schema.items()):
+                kw = ({"geometry_type": geometry_types[layer]}
+                      if layer in geometry_types else {})
+                with fixed_gpkg_timestamp():
+                    pyogrio.write_dataframe(_plain_strings(empty), tmp, layer=layer,
+                                            driver="GPKG", append=i > 0,
+                                            layer_metadata=metadata, **kw)
+
+            def write(layer, frame):
+                if not len(frame):
+                    return
+                types = schema[layer].dtypes
+                frame = frame[list(schema[layer].columns)]
+                frame = frame.astype({c: t for c, t in types.items()
+                                      if c != schema[layer].geometry.name})
+                with fixed_gpkg_timestamp():
+                    pyogrio.write_dataframe(_plain_strings(frame), tmp, layer=layer,
+                                            driver="GPKG", append=True)
+
+            yield write
+
     def figure(self, name, fig, dpi: int = 100) -> Path:
         """Write a matplotlib figure as PNG (no timestamp in the file), then close it."""
         return self.data(name, png_bytes(fig, dpi))

@@ -97,20 +97,18 @@ class ProfilesResult:
 
     Attributes
     ----------
-    steepness, knickpoints, flow_paths : pandas.DataFrame
-        steepness.csv, knickpoints.csv, flow_paths.csv (profile.csv, the nodes, is written
-        as the outlets come and not kept: read it back with pandas).
+    flow_paths : pandas.DataFrame
+        flow_paths.csv. profile.csv (the nodes), steepness.csv and knickpoints.csv are
+        written as the outlets come and not kept: read them back with pandas.
     paths : dict
         ``{outlet_id: {"warnings": [...]}}`` for every outlet profiled; for the figure
         outlets also ``"longest_flow_path"`` and ``"main_stem"`` (Profile), ``"steepness"``
-        and ``"knickpoints"`` (the other outlets' paths are in the files only, so that a
-        batch of thousands holds no per-outlet arrays).
+        and ``"knickpoints"`` (the other outlets' are in the files only, so that a batch
+        of thousands holds no per-outlet tables).
     failures : pandas.DataFrame
         ``outlet_id, source, reason`` of outlets whose profiles failed.
     """
 
-    steepness: object
-    knickpoints: object
     flow_paths: object
     paths: dict
     failures: object
@@ -163,11 +161,17 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
                           min_items=FIGURE_FORK_MIN_ITEMS if fig_rows else FORK_MIN_ITEMS,
                           shared={"fm": fm, "network": network, "settings": s,
                                   "strahler": np.asarray(network.strahler).ravel()})
-    with out.csv_stream("profile.csv", NODE_COLUMNS) as node_table:
-        c = _collect(out, results, items, rows, nc, rep, node_table)
+    layers = _Layers(fm, network)
+    with out.csv_stream("profile.csv", NODE_COLUMNS) as node_table, \
+            out.csv_stream("steepness.csv", STEEPNESS_COLUMNS) as steep_table, \
+            out.csv_stream("knickpoints.csv", KNICKPOINT_COLUMNS) as knick_table, \
+            out.gpkg_stream("profiles.gpkg", layers.schema, metadata=layer_metadata(),
+                            geometry_types={"profiles": "LineString",
+                                            "knickpoints": "Point"}) as write_layer:
+        layers.write = write_layer
+        c = _collect(out, results, items, rows, nc, rep,
+                     (node_table, steep_table, knick_table), layers)
     summaries, fails, paths = c.summaries, c.fails, c.paths
-    steep = _concat(c.steep, ["outlet_id", "segment_id"])
-    knick = _concat(c.knick, ["outlet_id"])
     flow_paths = _concat([pd.DataFrame(c.path_rows)], _PATH_FIRST)
     failures = pd.DataFrame(fails, columns=["outlet_id", "source", "reason"])
     files = ["profile.csv", "steepness.csv", "knickpoints.csv", "flow_paths.csv",
@@ -178,14 +182,11 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
     meta = step_record(fm, params, inputs, files=files, snapping=placed.snapping,
                        outlets=summaries, failures=fails,
                        outlets_profiled=len(summaries), outlets_failed=len(fails))
-    out.csv("steepness.csv", steep)
-    out.csv("knickpoints.csv", knick)
     out.csv("flow_paths.csv", flow_paths)
-    _write_layers(out, fm, network, steep, knick, c.lines, layer_metadata())
     out.json("profiles.json", meta)
     rep.info(f"profiles of {len(summaries)} outlet(s)"
              + (f", {len(fails)} failed" if fails else ""))
-    return ProfilesResult(steep, knick, flow_paths, paths, failures)
+    return ProfilesResult(flow_paths, paths, failures)
 
 
 # profile.csv: channel nodes (``profile_id`` .. ``ksn_local_m_per_m``) and flow-path nodes
@@ -194,6 +195,15 @@ NODE_COLUMNS = ["outlet_id", "profile_kind", "profile_id", "is_main_stem", "segm
                 "strahler_order", "cell", "row", "col", "x", "y", "downstream_cell",
                 "distance_from_outlet_m", "elevation_m", "elevation_conditioned_m",
                 "upstream_area_m2", "slope_m_per_m", "chi_m", "ksn_local_m_per_m", "node"]
+# steepness.csv and knickpoints.csv (the columns of analysis.steepness's tables, the outlet
+# first), streamed as the outlets come
+STEEPNESS_COLUMNS = ["outlet_id", "segment_id", "profile_id", "strahler_order", "ksn_m_per_m",
+                     "ksn_stderr_m_per_m", "r2", "node_count", "chi_min_m", "chi_max_m",
+                     "elevation_min_m", "elevation_max_m", "concavity", "reference_area_m2"]
+KNICKPOINT_COLUMNS = ["outlet_id", "profile_id", "row", "col", "x", "y",
+                      "distance_from_outlet_m", "elevation_m", "chi_m", "upstream_area_m2",
+                      "ksn_below_m_per_m", "ksn_above_m_per_m", "ksn_change_ratio", "step_m",
+                      "relief_m", "kind", "in_filled_depression"]
 _PATH_FIRST = ["outlet_id", "file_id", "kind", "length_m", "slope_10_85_m_per_m",
                "average_slope_m_per_m", "outlet_elevation_m", "head_elevation_m",
                "outlet_elevation_conditioned_m", "head_elevation_conditioned_m",
@@ -205,21 +215,19 @@ _PATH_FIRST = ["outlet_id", "file_id", "kind", "length_m", "slope_10_85_m_per_m"
 class _Collected:
     """What the parent keeps of the outlets' results (the node rows are streamed)."""
 
-    steep: list = field(default_factory=list)
-    knick: list = field(default_factory=list)
     path_rows: list = field(default_factory=list)
-    lines: list = field(default_factory=list)
     summaries: list = field(default_factory=list)
     fails: list = field(default_factory=list)
     paths: dict = field(default_factory=dict)
 
 
-def _collect(out, results, items, rows, nc, rep, node_table) -> _Collected:
-    """Take the outlets' results in order: node rows to profile.csv as they come, the rest
-    kept."""
+def _collect(out, results, items, rows, nc, rep, tables, layers) -> _Collected:
+    """Take the outlets' results in order: their rows to profile.csv, steepness.csv,
+    knickpoints.csv and profiles.gpkg as they come (the GeoPackage by chunks of
+    outlets); the flow paths' rows and the summaries kept."""
+    node_table, steep_table, knick_table = tables
     c = _Collected()
-    steep_l, knick_l, path_rows, lines = c.steep, c.knick, c.path_rows, c.lines
-    summaries, fails, paths = c.summaries, c.fails, c.paths
+    path_rows, summaries, fails, paths = c.path_rows, c.summaries, c.fails, c.paths
     # results first in zip: the progress generator then runs to its end (its last line)
     try:  # an error or an interrupt here ends the workers now (not at exit)
         for r, (k, oid, fid, cell, _) in zip(results, items):
@@ -236,13 +244,14 @@ def _collect(out, results, items, rows, nc, rep, node_table) -> _Collected:
             for w in summary.get("warnings", []):
                 rep.warn(f"outlet {oid!r}: {w}")
             node_table.write_text(r["node_rows"])
-            steep_l.append(r["steepness"])
-            knick_l.append(r["knickpoints"])
+            steep_table.write_text(r["steepness_rows"])
+            knick_table.write_text(r["knickpoint_rows"])
             warning = "; ".join(summary.get("warnings", []))
-            for ps, wkb in zip(r["path_summaries"], r["path_lines"]):
+            for ps in r["path_summaries"]:
                 path_rows.append({"outlet_id": oid, "file_id": fid, **ps,
                                   "warning": warning, "error": ""})
-                lines.append((oid, ps, wkb))
+            layers.add(oid, r["steepness"], r["knickpoints"],
+                       zip(r["path_summaries"], r["path_lines"]))
             summaries.append(summary)
             paths[oid] = {"warnings": summary.get("warnings", [])}
             if "lfp" in r:
@@ -250,6 +259,7 @@ def _collect(out, results, items, rows, nc, rep, node_table) -> _Collected:
                                   steepness=r["steepness"], knickpoints=r["knickpoints"])
             for what, png in r.get("figures", {}).items():
                 out.data(f"figures/{fid}_{what}.png", png)
+        layers.flush()
     finally:
         results.close()
     return c
@@ -289,12 +299,27 @@ def _profile_item(item):
         f.insert(0, "outlet_id", oid)
         text.append(csv_rows(f, NODE_COLUMNS))
     r = {"node_rows": "".join(text), "steepness": steep, "knickpoints": knick,
+         "steepness_rows": _rows(steep, STEEPNESS_COLUMNS),
+         "knickpoint_rows": _rows(knick, KNICKPOINT_COLUMNS),
          "summary": summary, "path_summaries": [lfp.summary(), ms.summary()],
          "path_lines": [_line_wkb(lfp), _line_wkb(ms)]}
     if figures:  # the flow paths themselves travel back only for the figure outlets
         r["figures"] = _figures(oid, channel, steep, knick, lfp, ms)
         r["lfp"], r["ms"] = lfp, ms
     return r
+
+
+def _rows(frame, columns) -> str:
+    """CSV rows of ``frame`` in the order of ``columns`` (pandas where the fast writer
+    declines a column)."""
+    from ...io.writers import csv_rows
+
+    text = csv_rows(frame, columns)
+    if text is None:
+        text = frame.reindex(columns=columns).to_csv(header=False, index=False,
+                                                     float_format="%.10g",
+                                                     lineterminator="\n")
+    return text
 
 
 def _line_wkb(prof) -> bytes:
@@ -399,35 +424,81 @@ def _figures(oid, nodes, steep, knick, lfp, ms) -> dict:
     return {what: figure_png(figs[what]) for what in FIGURES}
 
 
-def _write_layers(out, fm, net, steep, knick, lines, metadata):
-    """profiles.gpkg: ``profiles`` (segment lines with k_sn per outlet, and each outlet's
-    main stem and longest flow path) and ``knickpoints``."""
-    import geopandas as gpd
-    import pandas as pd
-    import shapely
+# the layer ``profiles`` of profiles.gpkg: the channel segments of every outlet with their
+# k_sn, and each outlet's main stem and longest flow path
+PROFILE_LAYER_COLUMNS = ["outlet_id", "kind", "segment_id", "profile_id", "strahler_order",
+                         "ksn_m_per_m", "ksn_stderr_m_per_m", "r2", "node_count", "chi_min_m",
+                         "chi_max_m", "elevation_min_m", "elevation_max_m", "concavity",
+                         "reference_area_m2", "length_m", "slope_10_85_m_per_m",
+                         "average_slope_m_per_m"]
+_KNICK_TYPES = {"outlet_id": object, "profile_id": "int32", "row": "int32", "col": "int32",
+                "kind": object, "in_filled_depression": bool}
+# outlets per chunk written to profiles.gpkg
+LAYER_CHUNK = 256
 
-    crs = fm.terrain.crs.to_wkt() if fm.terrain.crs is not None else None
-    seg = net.segments
-    geom = seg.set_index("segment_id").geometry
-    s = steep.merge(seg[["segment_id", "length_m"]], on="segment_id", how="left")
-    s.insert(0, "kind", "channel_segment")
-    geoms = list(geom.reindex(s["segment_id"]).to_numpy()) if len(s) else []
-    extra = []
-    for oid, ps, wkb in lines:
-        extra.append({"kind": ps["kind"], "outlet_id": oid, "length_m": ps["length_m"],
-                      "concavity": ps["concavity"],
-                      "reference_area_m2": ps["reference_area_m2"],
-                      "ksn_m_per_m": np.nan, "slope_10_85_m_per_m": ps["slope_10_85_m_per_m"],
-                      "average_slope_m_per_m": ps["average_slope_m_per_m"]})
-        geoms.append(shapely.from_wkb(wkb))
-    table = pd.concat([f for f in (s, pd.DataFrame(extra)) if len(f)] or [s],
-                      ignore_index=True)
-    first = ["outlet_id", "kind", "segment_id"]
-    table = table[[c for c in first if c in table] + [c for c in table if c not in first]]
-    profiles = gpd.GeoDataFrame(table, geometry=geoms, crs=crs)
-    k = knick.reset_index(drop=True)
-    kp = gpd.GeoDataFrame(k, geometry=shapely.points(k["x"].to_numpy(float),
-                                                     k["y"].to_numpy(float))
-                          if len(k) else [], crs=crs)
-    out.gpkg("profiles.gpkg", {"profiles": profiles, "knickpoints": kp}, metadata=metadata,
-             geometry_types={"profiles": "LineString", "knickpoints": "Point"})
+
+class _Layers:
+    """profiles.gpkg's rows, gathered for a chunk of outlets and then written
+    (:meth:`OutputFolder.gpkg_stream`): per chunk, the outlets' channel segments, then
+    their flow paths; the knickpoints in the second layer."""
+
+    def __init__(self, fm, net):
+        import geopandas as gpd
+        import pandas as pd
+
+        self.crs = fm.terrain.crs.to_wkt() if fm.terrain.crs is not None else None
+        seg = net.segments.set_index("segment_id")
+        self.geom = seg.geometry
+        self.length = seg["length_m"]
+        self.write = None
+        self.chunk = []
+
+        def empty(cols, types):
+            return gpd.GeoDataFrame({c: pd.Series(dtype=types.get(c, float)) for c in cols},
+                                    geometry=gpd.GeoSeries([], crs=self.crs), crs=self.crs)
+
+        self.schema = {
+            "profiles": empty(PROFILE_LAYER_COLUMNS, {"outlet_id": object, "kind": object}),
+            "knickpoints": empty(KNICKPOINT_COLUMNS, _KNICK_TYPES)}
+
+    def add(self, oid, steep, knick, paths):
+        self.chunk.append((oid, steep, knick, list(paths)))
+        if len(self.chunk) >= LAYER_CHUNK:
+            self.flush()
+
+    def flush(self):
+        import geopandas as gpd
+        import pandas as pd
+        import shapely
+
+        if not self.chunk:
+            return
+        steep = [s for _, s, _, _ in self.chunk if len(s)]
+        knick = [k for _, _, k, _ in self.chunk if len(k)]
+        extra, wkb = [], []
+        for oid, _, _, ps_lines in self.chunk:
+            for ps, line in ps_lines:
+                extra.append({"outlet_id": oid, "kind": ps["kind"], "length_m": ps["length_m"],
+                              "concavity": ps["concavity"],
+                              "reference_area_m2": ps["reference_area_m2"],
+                              "slope_10_85_m_per_m": ps["slope_10_85_m_per_m"],
+                              "average_slope_m_per_m": ps["average_slope_m_per_m"]})
+                wkb.append(line)
+        self.chunk = []
+        parts, geoms = [], []
+        if steep:
+            s = pd.concat(steep, ignore_index=True)
+            s["kind"] = "channel_segment"
+            s["length_m"] = self.length.reindex(s["segment_id"]).to_numpy()
+            parts.append(s)
+            geoms.extend(self.geom.reindex(s["segment_id"]).to_numpy())
+        if extra:
+            parts.append(pd.DataFrame(extra))
+            geoms.extend(shapely.from_wkb(wkb))
+        if parts:
+            table = pd.concat(parts, ignore_index=True).reindex(columns=PROFILE_LAYER_COLUMNS)
+            self.write("profiles", gpd.GeoDataFrame(table, geometry=geoms, crs=self.crs))
+        if knick:
+            k = pd.concat(knick, ignore_index=True).reindex(columns=KNICKPOINT_COLUMNS)
+            pts = shapely.points(k["x"].to_numpy(float), k["y"].to_numpy(float))
+            self.write("knickpoints", gpd.GeoDataFrame(k, geometry=pts, crs=self.crs))
