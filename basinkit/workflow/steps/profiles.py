@@ -168,9 +168,8 @@ def profiles_step(out, fm, placed, network, settings: ProfileSettings | None = N
             out.gpkg_stream("profiles.gpkg", layers.schema, metadata=layer_metadata(),
                             geometry_types={"profiles": "LineString",
                                             "knickpoints": "Point"}) as write_layer:
-        layers.write = write_layer
-        c = _collect(out, results, items, rows, nc, rep,
-                     (node_table, steep_table, knick_table), layers)
+        layers.write, layers.tables = write_layer, (steep_table, knick_table)
+        c = _collect(out, results, items, rows, nc, rep, node_table, layers)
     summaries, fails, paths = c.summaries, c.fails, c.paths
     flow_paths = _concat([pd.DataFrame(c.path_rows)], _PATH_FIRST)
     failures = pd.DataFrame(fails, columns=["outlet_id", "source", "reason"])
@@ -221,11 +220,10 @@ class _Collected:
     paths: dict = field(default_factory=dict)
 
 
-def _collect(out, results, items, rows, nc, rep, tables, layers) -> _Collected:
-    """Take the outlets' results in order: their rows to profile.csv, steepness.csv,
-    knickpoints.csv and profiles.gpkg as they come (the GeoPackage by chunks of
-    outlets); the flow paths' rows and the summaries kept."""
-    node_table, steep_table, knick_table = tables
+def _collect(out, results, items, rows, nc, rep, node_table, layers) -> _Collected:
+    """Take the outlets' results in order: their rows to profile.csv as they come, to
+    steepness.csv, knickpoints.csv and profiles.gpkg by chunks of outlets (``layers``);
+    the flow paths' rows and the summaries kept."""
     c = _Collected()
     path_rows, summaries, fails, paths = c.path_rows, c.summaries, c.fails, c.paths
     # results first in zip: the progress generator then runs to its end (its last line)
@@ -244,8 +242,6 @@ def _collect(out, results, items, rows, nc, rep, tables, layers) -> _Collected:
             for w in summary.get("warnings", []):
                 rep.warn(f"outlet {oid!r}: {w}")
             node_table.write_text(r["node_rows"])
-            steep_table.write_text(r["steepness_rows"])
-            knick_table.write_text(r["knickpoint_rows"])
             warning = "; ".join(summary.get("warnings", []))
             for ps in r["path_summaries"]:
                 path_rows.append({"outlet_id": oid, "file_id": fid, **ps,
@@ -299,8 +295,7 @@ def _profile_item(item):
         f.insert(0, "outlet_id", oid)
         text.append(csv_rows(f, NODE_COLUMNS))
     r = {"node_rows": "".join(text), "steepness": steep, "knickpoints": knick,
-         "steepness_rows": _rows(steep, STEEPNESS_COLUMNS),
-         "knickpoint_rows": _rows(knick, KNICKPOINT_COLUMNS),
+
          "summary": summary, "path_summaries": [lfp.summary(), ms.summary()],
          "path_lines": [_line_wkb(lfp), _line_wkb(ms)]}
     if figures:  # the flow paths themselves travel back only for the figure outlets
@@ -438,9 +433,11 @@ LAYER_CHUNK = 256
 
 
 class _Layers:
-    """profiles.gpkg's rows, gathered for a chunk of outlets and then written
-    (:meth:`OutputFolder.gpkg_stream`): per chunk, the outlets' channel segments, then
-    their flow paths; the knickpoints in the second layer."""
+    """steepness.csv's, knickpoints.csv's and profiles.gpkg's rows, gathered for a chunk
+    of outlets and then written (``tables``: the two CsvStreams; ``write``: the
+    GeoPackage's, :meth:`OutputFolder.gpkg_stream`). In the GeoPackage, per chunk, the
+    outlets' channel segments, then their flow paths; the knickpoints in the second
+    layer."""
 
     def __init__(self, fm, net):
         import geopandas as gpd
@@ -450,7 +447,7 @@ class _Layers:
         seg = net.segments.set_index("segment_id")
         self.geom = seg.geometry
         self.length = seg["length_m"]
-        self.write = None
+        self.write = self.tables = None
         self.chunk = []
 
         def empty(cols, types):
@@ -488,6 +485,7 @@ class _Layers:
         parts, geoms = [], []
         if steep:
             s = pd.concat(steep, ignore_index=True)
+            self.tables[0].write_text(_rows(s, STEEPNESS_COLUMNS))
             s["kind"] = "channel_segment"
             s["length_m"] = self.length.reindex(s["segment_id"]).to_numpy()
             parts.append(s)
@@ -500,5 +498,6 @@ class _Layers:
             self.write("profiles", gpd.GeoDataFrame(table, geometry=geoms, crs=self.crs))
         if knick:
             k = pd.concat(knick, ignore_index=True).reindex(columns=KNICKPOINT_COLUMNS)
+            self.tables[1].write_text(_rows(k, KNICKPOINT_COLUMNS))
             pts = shapely.points(k["x"].to_numpy(float), k["y"].to_numpy(float))
             self.write("knickpoints", gpd.GeoDataFrame(k, geometry=pts, crs=self.crs))
