@@ -69,6 +69,14 @@ def test_label_ranges_equal_one_mask_per_catchment(make):
         pd.testing.assert_frame_equal(fast, ref, check_exact=False, rtol=rtol, atol=0)
         for i in ids:
             pd.testing.assert_frame_equal(fc[i], rc[i], check_exact=False, rtol=1e-12, atol=0)
+        if make is _fractal:  # equal whole-number cell areas: curves and order statistics
+            for i in ids:     # (counted and selected over the label ranges) bit for bit
+                pd.testing.assert_frame_equal(fc[i], rc[i], check_exact=True)
+            exact = ["cell_count", "area_m2", "min_elevation_m", "max_elevation_m",
+                     "hypsometric_integral", "median_slope_m_per_m", "slope_p10_m_per_m",
+                     "slope_p90_m_per_m", "max_slope_m_per_m", "longest_flow_path_m",
+                     "flat_fraction"] + [c for c in ref.columns if c.startswith("aspect_")]
+            pd.testing.assert_frame_equal(fast[exact], ref[exact], check_exact=True)
 
 
 def _hyps_sorted(z, w, levels=101):
@@ -97,3 +105,88 @@ def test_hypsometry_by_counting_equals_the_sorted_sums(seed):
     w2 = np.full(z.size, 0.3)  # not whole numbers: the sorted sums are used
     for got, want in zip(_hypsometry(z, w2), _hyps_sorted(z, w2)):
         np.testing.assert_array_equal(got, want)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_wavelet_matrix_counts_and_kth_equal_numpy_sort(seed):
+    """Order statistics over slices (wavelet matrix on dense ranks) against numpy's sort of
+    each slice (reference library: numpy.sort, numpy.count_nonzero); ties, NaNs and -0.0
+    included."""
+    from basinkit.analysis._order_stats import WaveletMatrix, dense_ranks
+
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(1, 4000))
+    v = np.round(rng.normal(size=n), seed % 4).astype(np.float32 if seed % 2 else np.float64)
+    if seed % 3 == 0:
+        v[rng.random(n) < 0.1] = np.nan
+    v[: min(5, n)] = -0.0
+    ranks, distinct = dense_ranks(v)
+    finite = ~np.isnan(v)
+    np.testing.assert_array_equal(distinct[ranks][finite], v[finite])
+    wm = WaveletMatrix(v)
+    s = rng.integers(0, n, 80)
+    e = np.minimum(n, s + rng.integers(0, n + 1, 80))
+    thr = rng.normal(size=(80, 6))
+    thr[:, 0] = 0.0
+    thr[:, 1] = np.where(finite[s], v[s], 1.0)
+    k = rng.integers(-1, n + 1, (80, 4))
+    got_c = wm.counts_below(s, e, thr)
+    got_k = wm.kth_values(s, e, k)
+    for i in range(80):
+        seg = v[s[i]:e[i]].astype(np.float64)
+        for j in range(thr.shape[1]):
+            assert got_c[i, j] == np.count_nonzero(seg < thr[i, j])
+        srt = np.sort(seg)  # NaNs last, as the ranks
+        for j in range(k.shape[1]):
+            if 0 <= k[i, j] < seg.size:
+                np.testing.assert_array_equal(got_k[i, j], srt[k[i, j]])
+            else:
+                assert np.isnan(got_k[i, j])
+
+
+def test_label_sums_over_ranges_equal_direct_sums():
+    """Per-label sums combined over label ranges against direct numpy sums over the cells
+    of each range (reference library: numpy; the compensated sums agree to rounding)."""
+    from basinkit.analysis import _label_sums as ls
+    from basinkit.analysis._catchments import cells_by_label
+
+    rng = np.random.default_rng(5)
+    nr, nc, nlab = 40, 50, 12
+    lab = rng.integers(0, nlab, nr * nc).astype(np.int32)
+    valid = rng.random(nr * nc) > 0.05
+    z = rng.normal(100, 20, nr * nc).astype(np.float32)
+    z[rng.random(nr * nc) < 0.03] = np.nan
+    slope = rng.gamma(2.0, 0.1, nr * nc)
+    slope[rng.random(nr * nc) < 0.05] = np.nan
+    aspect = rng.uniform(0, 360, nr * nc)
+    aspect[rng.random(nr * nc) < 0.1] = np.nan
+    dl = rng.uniform(0, 1000, nr * nc)
+    row_area = rng.uniform(90, 110, nr)
+    order, starts = cells_by_label(lab, valid, nlab)
+    lo = np.array([1, 3, 5, 1, 11])
+    hi = np.array([11, 3, 9, 1, 11])
+    tot, cnt, ext, mom = ls.range_sums(lo, hi, *ls.label_sums(order, starts, nc, row_area, z,
+                                                             slope, aspect, dl))
+    for i in range(lo.size):
+        cells = np.flatnonzero(valid & (lab >= lo[i]) & (lab <= hi[i]))
+        a = row_area[cells // nc]
+        zc = z[cells].astype(np.float64)
+        okz = np.isfinite(zc)
+        sc = slope[cells]
+        oks = np.isfinite(sc)
+        assert tot[i, ls.AREA] == pytest.approx(a.sum(), rel=1e-14)
+        assert tot[i, ls.ZA] == pytest.approx(np.sum(zc[okz] * a[okz]), rel=1e-14)
+        assert tot[i, ls.ZW] == pytest.approx(a[okz].sum(), rel=1e-14)
+        assert tot[i, ls.GW] == pytest.approx(a[oks].sum(), rel=1e-14)
+        assert tot[i, ls.SA] == pytest.approx(np.sum(sc[oks] * a[oks]), rel=1e-14)
+        asp = aspect[cells][oks]
+        flat = ~np.isfinite(asp)
+        assert tot[i, ls.FLAT] == pytest.approx(a[oks][flat].sum(), rel=1e-14)
+        sector = np.floor(((asp[~flat] + 22.5) % 360.0) / 45.0).astype(int)
+        np.testing.assert_allclose(tot[i, 6:14],
+                                   np.bincount(sector, weights=a[oks][~flat], minlength=8),
+                                   rtol=1e-14)
+        assert list(cnt[i]) == [okz.sum(), oks.sum()]
+        assert list(ext[i]) == [zc[okz].min(), zc[okz].max(), dl[cells].max()]
+        assert mom[i, 0] == pytest.approx(sc[oks].mean(), rel=1e-13)
+        assert np.sqrt(mom[i, 1] / oks.sum()) == pytest.approx(np.std(sc[oks]), rel=1e-13)
