@@ -299,20 +299,12 @@ def _describe(ctx, cells, zm, sm, aspm, outlet, member, want_curve, poly):
     return _assemble(ctx, num, outlet, member, want_curve, poly)
 
 
-def _assemble(ctx, num, outlet, member, want_curve, poly):
-    """The descriptors' dict from the cell-based numbers ``num`` (see :func:`_describe`),
-    the polygon and the network."""
-    fm = ctx.fm
-    t = fm.terrain
-    orow, ocol = divmod(outlet, ctx.nc)
-    area = num["area"]
-    ox, oy = t.xy_of(orow, ocol)
-    out = {"outlet_x": float(ox), "outlet_y": float(oy), "outlet_row": orow,
-           "outlet_col": ocol, "cell_count": num["count"], "area_m2": area,
-           "area_km2": area / 1e6}
-    # ---- shape
+def _outline(ctx, poly, ox, oy):
+    """Perimeter along the cell edges, perimeter of the simplified outline and straight
+    basin length (m) of a catchment's polygon (see ``_shape_batch.outline_measures``)."""
     from .polygons import ground_area_perimeter
 
+    t = ctx.fm.terrain
     _, p_edges = ground_area_perimeter(poly, t.crs)
     # corners snapped to a millionth of a cell, no collinear vertices, rings in normal form
     # (start vertex, orientation): the simplified outline, and so the perimeter, then
@@ -324,10 +316,26 @@ def _assemble(ctx, num, outlet, member, want_curve, poly):
                                 .simplify(0))
     smooth = outline.simplify(tol, preserve_topology=True)
     _, perim = ground_area_perimeter(smooth, t.crs)
+    return p_edges, perim, _farthest_vertex(ctx.fm, poly, ox, oy)
+
+
+def _assemble(ctx, num, outlet, member, want_curve, poly, shape=None):
+    """The descriptors' dict from the cell-based numbers ``num`` (see :func:`_describe`),
+    the polygon (or its ``shape``: the three numbers of :func:`_outline`) and the
+    network."""
+    fm = ctx.fm
+    t = fm.terrain
+    orow, ocol = divmod(outlet, ctx.nc)
+    area = num["area"]
+    ox, oy = t.xy_of(orow, ocol)
+    out = {"outlet_x": float(ox), "outlet_y": float(oy), "outlet_row": orow,
+           "outlet_col": ocol, "cell_count": num["count"], "area_m2": area,
+           "area_km2": area / 1e6}
+    # ---- shape
+    p_edges, perim, lstraight = _outline(ctx, poly, ox, oy) if shape is None else shape
     out["perimeter_m"] = perim
     out["perimeter_cell_edges_m"] = p_edges
     out["longest_flow_path_m"] = float(num["dl_max"] - ctx.downstream_length[outlet])
-    lstraight = _farthest_vertex(fm, poly, ox, oy)
     out["basin_length_straight_m"] = lstraight
     with np.errstate(invalid="ignore", divide="ignore"):
         out["elongation_ratio"] = (2.0 * math.sqrt(area / math.pi) / lstraight
@@ -623,6 +631,7 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
         corder = order[ctx.channel_flat[order]]
         cstarts = np.concatenate([[0], np.cumsum(np.bincount(lab[corder], minlength=nlab))])
     h = np.linspace(0.0, 1.0, HYPSOMETRIC_LEVELS)
+    shapes = _range_shapes(ctx, polygons, outlets, where >= 0)
     rows, curves = [], {}
     todo = range(outlets.size)
     if progress is not None:
@@ -657,7 +666,8 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
                 nums = _range_numbers(ctx, num, k, h, order, starts, lo, hi)
                 if ctx.network is not None:
                     nums["channel_cells"] = corder[cstarts[lo]:cstarts[hi + 1]]
-                out, curve = _assemble(ctx, nums, o, member, want_curves, poly)
+                out, curve = _assemble(ctx, nums, o, member, want_curves, poly,
+                                       shapes.get(i))
             rec.update(out)
             rec["error"] = ""
             if want_curves:
@@ -666,6 +676,22 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
             rec["error"] = str(exc)
         rows.append(rec)
     return rows, curves
+
+
+def _range_shapes(ctx, polygons, outlets, ok):
+    """``{row: (perimeter along the cell edges, perimeter, straight length)}`` of the
+    given polygons, measured all at once (projected grids; else measured one by one)."""
+    if polygons is None or ctx.fm.terrain.crs.is_geographic:
+        return {}
+    from ..terrain.geometry import _linear_unit_to_metres
+    from ._shape_batch import outline_measures
+
+    rows = np.flatnonzero(ok & np.array([p is not None for p in polygons], dtype=bool))
+    orow, ocol = np.divmod(outlets[rows], ctx.nc)
+    x0, y0 = ctx.fm.terrain.xy_of(orow, ocol)
+    m = outline_measures([polygons[i] for i in rows], x0, y0,
+                         max(ctx.cell_w, ctx.cell_h), _linear_unit_to_metres(ctx.fm.terrain.crs))
+    return {int(i): (float(a), float(b), float(c)) for i, a, b, c in zip(rows, *m)}
 
 
 def _range_numbers(ctx, num, k, h, order, starts, lo, hi):
