@@ -75,7 +75,10 @@ def test_label_ranges_equal_one_mask_per_catchment(make):
             exact = ["cell_count", "area_m2", "min_elevation_m", "max_elevation_m",
                      "hypsometric_integral", "median_slope_m_per_m", "slope_p10_m_per_m",
                      "slope_p90_m_per_m", "max_slope_m_per_m", "longest_flow_path_m",
-                     "flat_fraction"] + [c for c in ref.columns if c.startswith("aspect_")]
+                     "flat_fraction", "channel_cells", "stream_count", "max_strahler_order",
+                     "total_stream_length_m", "bifurcation_ratio", "length_ratio",
+                     "area_ratio", "drainage_density_km_per_km2"]
+            exact += [c for c in ref.columns if c.startswith("aspect_") or "_order_" in c]
             pd.testing.assert_frame_equal(fast[exact], ref[exact], check_exact=True)
 
 
@@ -190,3 +193,16 @@ def test_label_sums_over_ranges_equal_direct_sums():
         assert list(ext[i]) == [zc[okz].min(), zc[okz].max(), dl[cells].max()]
         assert mom[i, 0] == pytest.approx(sc[oks].mean(), rel=1e-13)
         assert np.sqrt(mom[i, 1] / oks.sum()) == pytest.approx(np.std(sc[oks]), rel=1e-13)
+
+
+def test_pairwise_sum_equals_numpy_sum():
+    """The network kernel's total length is numpy's pairwise sum, bit for bit (reference
+    library: numpy.sum), for lengths around the block sizes and long arrays."""
+    from basinkit.analysis._nested_network import pairwise_sum
+
+    rng = np.random.default_rng(7)
+    for n in [*range(0, 140), 255, 256, 257, 1000, 4097, 100_003]:
+        a = rng.normal(size=n) * 10 ** rng.uniform(-3, 5, n)
+        assert pairwise_sum(a, 0, n) == np.sum(a)
+        b = np.where(rng.random(n) < 0.5, 10.0, 14.142135623730951)
+        assert pairwise_sum(np.concatenate([[1.0], b]), 1, n) == np.sum(b)

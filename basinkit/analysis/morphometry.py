@@ -12,6 +12,7 @@ import numpy as np
 
 from . import _catchments, _channels
 from ._measure_arrays import HYPSOMETRIC_LEVELS, _hypsometry, _percentiles
+from ._network_measures import network_keys, network_numbers
 from ..errors import InputError, OutletError
 
 __all__ = ["basin_morphometry", "morphometry_table", "hypsometric_curve",
@@ -133,71 +134,6 @@ def hypsometric_curve(elevation, weights=None, levels: int = HYPSOMETRIC_LEVELS)
     w = np.ones_like(z) if weights is None else np.asarray(weights, np.float64).ravel()
     ok = np.isfinite(z)
     return _curve_frame(*_hypsometry(z[ok], w[ok], levels))
-
-
-def _regress_ratio(orders, values, sign):
-    """Horton ratio from the slope of log10(value) on order: 10**(sign * slope)."""
-    ok = np.isfinite(values) & (values > 0)
-    if ok.sum() < 2:
-        return np.nan
-    b = np.polyfit(np.asarray(orders, float)[ok], np.log10(values[ok]), 1)[0]
-    return float(10.0 ** (sign * b))
-
-
-def _network_stats(ctx, cells, member, area_m2, out):
-    """Network keys of the catchment whose channel cells are ``cells`` (flat);
-    ``member(flat cells)`` tells which cells belong to it (a stream leaving it is cut at
-    its edge)."""
-    net = ctx.network
-    fm = ctx.fm
-    out["channel_cells"] = int(cells.size)
-    if cells.size == 0:
-        for k in ("stream_count", "total_stream_length_m", "max_strahler_order",
-                  "bifurcation_ratio", "length_ratio", "area_ratio",
-                  "drainage_density_km_per_km2", "stream_frequency_per_km2",
-                  "channel_maintenance_km2_per_km", "overland_flow_length_m"):
-            out[k] = 0 if k in ("stream_count", "total_stream_length_m",
-                                "max_strahler_order") else np.nan
-        out["drainage_density_km_per_km2"] = 0.0
-        out["stream_frequency_per_km2"] = 0.0
-        return
-    rec = fm.receiver[cells]
-    inside = rec >= 0
-    inside[inside] = member(rec[inside])
-    step = np.where(inside, fm.receiver_distance()[cells], 0.0)
-    stream = ctx.stream_flat[cells]
-    order = ctx.strahler_flat[cells].astype(np.int64)
-    area = fm.d8_upstream_area_flat()[cells]
-    u, inv = np.unique(stream, return_inverse=True)
-    s_len = np.bincount(inv, weights=step, minlength=u.size)
-    s_ord = np.zeros(u.size, np.int64)
-    s_ord[inv] = order
-    s_area = np.zeros(u.size)
-    np.maximum.at(s_area, inv, area)
-    kmax = int(s_ord.max())
-    ks = np.arange(1, kmax + 1)
-    n_k = np.bincount(s_ord, minlength=kmax + 1)[1:].astype(float)
-    l_k = np.bincount(s_ord, weights=s_len, minlength=kmax + 1)[1:]
-    a_k = np.bincount(s_ord, weights=s_area, minlength=kmax + 1)[1:]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean_l = l_k / n_k
-        mean_a = a_k / n_k
-    total = float(step.sum())
-    out["max_strahler_order"] = kmax
-    out["stream_count"] = int(u.size)
-    out["total_stream_length_m"] = total
-    for k in ks:
-        out[f"stream_count_order_{k}"] = int(n_k[k - 1])
-        out[f"stream_length_order_{k}_m"] = float(l_k[k - 1])
-    out["bifurcation_ratio"] = _regress_ratio(ks, n_k, -1)
-    out["length_ratio"] = _regress_ratio(ks, mean_l, 1)
-    out["area_ratio"] = _regress_ratio(ks, mean_a, 1)
-    a_km2 = area_m2 / 1e6
-    dd = (total / 1e3) / a_km2 if a_km2 > 0 else np.nan
-    out["drainage_density_km_per_km2"] = dd
-    out["stream_frequency_per_km2"] = u.size / a_km2 if a_km2 > 0 else np.nan
-    out["channel_maintenance_km2_per_km"] = 1.0 / dd if dd > 0 else np.nan
-    out["overland_flow_length_m"] = 1e3 / (2.0 * dd) if dd > 0 else np.nan
 
 
 def _farthest_vertex(fm, poly, x0, y0):
@@ -374,7 +310,9 @@ def _assemble(ctx, num, outlet, member, want_curve, poly, shape=None):
     # ---- network
     if ctx.network is not None:
         out["channel_min_area_m2"] = float(ctx.network.min_area_m2)
-        _network_stats(ctx, num["channel_cells"], member, area, out)
+        net = num["network"] if "network" in num else network_numbers(
+            ctx.fm, ctx.stream_flat, ctx.strahler_flat, num["channel_cells"], member)
+        network_keys(out, area, *net)
     return out, curve
 
 
@@ -630,6 +568,7 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
     if ctx.network is not None:  # the channel cells, listed by label too
         corder = order[ctx.channel_flat[order]]
         cstarts = np.concatenate([[0], np.cumsum(np.bincount(lab[corder], minlength=nlab))])
+        nets = _range_networks(ctx, lab, corder, cstarts, lo_all[okr], hi_all[okr])
     h = np.linspace(0.0, 1.0, HYPSOMETRIC_LEVELS)
     shapes = _range_shapes(ctx, polygons, outlets, where >= 0)
     rows, curves = [], {}
@@ -665,7 +604,7 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
             else:
                 nums = _range_numbers(ctx, num, k, h, order, starts, lo, hi)
                 if ctx.network is not None:
-                    nums["channel_cells"] = corder[cstarts[lo]:cstarts[hi + 1]]
+                    nums["network"] = tuple(v[k] for v in nets)
                 out, curve = _assemble(ctx, nums, o, member, want_curves, poly,
                                        shapes.get(i))
             rec.update(out)
@@ -676,6 +615,19 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
             rec["error"] = str(exc)
         rows.append(rec)
     return rows, curves
+
+
+def _range_networks(ctx, lab, corder, cstarts, lo, hi):
+    """The numbers of ``network_numbers`` of every label range, as arrays (one row each)."""
+    from ._nested_network import range_network
+
+    fm = ctx.fm
+    sid = ctx.stream_flat[corder]
+    order = ctx.strahler_flat[corder]
+    return range_network(lo, hi, cstarts, corder, lab, fm.receiver.ravel(),
+                         fm.receiver_distance().ravel(), ctx.stream_flat, ctx.strahler_flat,
+                         fm.d8_upstream_area_flat(), int(sid.max()) + 1 if sid.size else 1,
+                         int(order.max()) if order.size else 0)
 
 
 def _range_shapes(ctx, polygons, outlets, ok):
