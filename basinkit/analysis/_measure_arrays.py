@@ -5,6 +5,8 @@ sums (``_label_sums``) and order statistics over slices (``_order_stats``)."""
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+
 import numpy as np
 
 HYPSOMETRIC_LEVELS = 101
@@ -42,6 +44,38 @@ def _hypsometry(z, w, levels=HYPSOMETRIC_LEVELS):
     else:
         a = np.full(h.shape, above[0])
     return h, a, elev
+
+
+def _curve_frame(h, a, elev):
+    import pandas as pd
+
+    return pd.DataFrame({"relative_height": h, "relative_area_above": a / a[0],
+                         "elevation_m": elev, "area_above_m2": a})
+
+
+class CurveFrames(Mapping):
+    """``{catchment id: hypsometric curve DataFrame}`` (columns ``relative_height``,
+    ``relative_area_above``, ``elevation_m``, ``area_above_m2``), each frame made when it
+    is asked for from the arrays kept; ``arrays(id)`` gives them (relative heights, area
+    above in m², elevations) without a frame."""
+
+    def __init__(self, arrays):
+        self._arrays = dict(arrays)
+
+    def __getitem__(self, key):
+        return _curve_frame(*self._arrays[key])
+
+    def __contains__(self, key):
+        return key in self._arrays
+
+    def __iter__(self):
+        return iter(self._arrays)
+
+    def __len__(self):
+        return len(self._arrays)
+
+    def arrays(self, key):
+        return self._arrays[key]
 
 
 def _percentiles(v, qs):

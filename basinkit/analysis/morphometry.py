@@ -11,7 +11,8 @@ import math
 import numpy as np
 
 from . import _catchments, _channels
-from ._measure_arrays import HYPSOMETRIC_LEVELS, _hypsometry, _percentiles
+from ._measure_arrays import (HYPSOMETRIC_LEVELS, CurveFrames, _curve_frame, _hypsometry,
+                              _percentiles)
 from ._network_measures import network_keys, network_numbers
 from ..errors import InputError, OutletError
 
@@ -92,13 +93,6 @@ def _range_boxes(ranges, rmin, rmax, cmin, cmax):
             out[0][i], out[1][i] = rmin[lo:hi].min(), rmax[lo:hi].max()
             out[2][i], out[3][i] = cmin[lo:hi].min(), cmax[lo:hi].max()
     return out
-
-
-def _curve_frame(h, a, elev):
-    import pandas as pd
-
-    return pd.DataFrame({"relative_height": h, "relative_area_above": a / a[0],
-                         "elevation_m": elev, "area_above_m2": a})
 
 
 def hypsometric_curve(elevation, weights=None, levels: int = HYPSOMETRIC_LEVELS):
@@ -290,7 +284,7 @@ def _assemble(ctx, num, outlet, member, want_curve, poly, shape=None):
     out["melton_ruggedness"] = relief / math.sqrt(area) if area > 0 else np.nan
     h, a_above, elev = num["curve"]
     hi = float(np.trapezoid(a_above / a_above[0], h))
-    curve = _curve_frame(h, a_above, elev) if want_curve else None
+    curve = (h, a_above, elev) if want_curve else None  # a frame when asked for
     out["hypsometric_integral"] = hi if relief > 0 else np.nan
     out["elevation_relief_ratio"] = (zmean - zmin) / relief if relief > 0 else np.nan
     # ---- slope and aspect
@@ -409,7 +403,7 @@ def basin_morphometry(fm, mask, outlet_cell, network=None, return_curve=False):
     ctx = _Context(fm, network)
     r0, r1, c0, c1 = rr.min(), rr.max(), cc.min(), cc.max()
     out, curve = _measure(ctx, r0, r1, c0, c1, mask[r0:r1 + 1, c0:c1 + 1], outlet_cell, True)
-    return (out, curve) if return_curve else out
+    return (out, _curve_frame(*curve)) if return_curve else out
 
 
 def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
@@ -679,4 +673,4 @@ def _finish_table(rows, curves, return_curves):
                                        int(c.split("_order_")[1].split("_")[0])))
     other = [c for c in table.columns if c not in order_cols and c != "error"]
     table = table[other + order_cols + ["error"]]
-    return (table, curves) if return_curves else table
+    return (table, CurveFrames(curves)) if return_curves else table
