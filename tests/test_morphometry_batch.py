@@ -206,3 +206,42 @@ def test_pairwise_sum_equals_numpy_sum():
         assert pairwise_sum(a, 0, n) == np.sum(a)
         b = np.where(rng.random(n) < 0.5, 10.0, 14.142135623730951)
         assert pairwise_sum(np.concatenate([[1.0], b]), 1, n) == np.sum(b)
+
+
+def test_outline_measures_of_many_equal_one_at_a_time():
+    """The outlines measured as arrays of polygons (in threads, the simplification by 0
+    skipped where every corner turns) give the numbers of the one-polygon path bit for
+    bit (reference: that path, i.e. GEOS through shapely one geometry at a time), for the
+    delineation's polygons and for shapes with straight corners, holes and several
+    parts."""
+    from shapely.geometry import MultiPolygon, Polygon
+
+    from basinkit.analysis._shape_batch import outline_measures
+    from basinkit.analysis.morphometry import _Context, _outline
+
+    t = _fractal()
+    fm = route(t)
+    area = np.asarray(fm.upstream_area()).ravel()
+    cells = np.sort(np.random.default_rng(3).choice(
+        np.flatnonzero(np.isfinite(area) & (area >= np.nanpercentile(area, 95))), 30,
+        replace=False))
+    x, y = t.xy_of(cells // fm.ncols, cells % fm.ncols)
+    d = delineate(fm, [(f"o{i}", a, b) for i, (a, b) in enumerate(zip(x, y))],
+                  snap_radius_m=0, polygons=True)
+    x0, y0 = float(x[0]), float(y[0])
+    odd = [Polygon([(x0, y0), (x0 + 10, y0), (x0 + 20, y0), (x0 + 20, y0 + 20),
+                    (x0, y0 + 20)]),
+           Polygon([(x0, y0), (x0 + 40, y0), (x0 + 40, y0 + 40), (x0, y0 + 40)],
+                   [[(x0 + 10, y0 + 10), (x0 + 20, y0 + 10), (x0 + 30, y0 + 10),
+                     (x0 + 30, y0 + 30), (x0 + 10, y0 + 30)]]),
+           MultiPolygon([Polygon([(x0, y0), (x0 + 10, y0), (x0 + 10, y0 + 10),
+                                  (x0, y0 + 10)]),
+                         Polygon([(x0 + 20, y0), (x0 + 30, y0), (x0 + 40, y0),
+                                  (x0 + 40, y0 + 10), (x0 + 20, y0 + 10)])])]
+    polys = list(d.polygons) + odd
+    ox = np.r_[x, [x0] * len(odd)]
+    oy = np.r_[y, [y0] * len(odd)]
+    got = outline_measures(polys, ox, oy, 10.0, 1.0)
+    ctx = _Context(fm, None)
+    for i, p in enumerate(polys):
+        assert (got[0][i], got[1][i], got[2][i]) == _outline(ctx, p, ox[i], oy[i])

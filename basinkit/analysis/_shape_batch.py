@@ -35,8 +35,13 @@ def outline_measures(polys, x0, y0, tol, k, threads=2):
 
     def run(a, b):
         p = polys[a:b]
-        outline = shapely.normalize(shapely.simplify(
-            shapely.set_precision(p, tol * 1e-6, mode="pointwise"), 0))
+        snapped = shapely.set_precision(p, tol * 1e-6, mode="pointwise")
+        # dropping collinear corners (simplify by 0) changes nothing where every corner
+        # turns: left to GEOS only for polygons with a (nearly) straight corner
+        straight = _straight_corners(snapped)
+        if straight.any():
+            snapped[straight] = shapely.simplify(snapped[straight], 0)
+        outline = shapely.normalize(snapped)
         smooth = shapely.simplify(outline, tol, preserve_topology=True)
         out[0][a:b] = shapely.length(p) * k
         out[1][a:b] = shapely.length(smooth) * k
@@ -58,4 +63,38 @@ def outline_measures(polys, x0, y0, tol, k, threads=2):
         with ThreadPoolExecutor(int(threads)) as pool:
             for f in [pool.submit(run, a, b) for a, b in zip(bounds[:-1], bounds[1:])]:
                 f.result()
+    return out
+
+
+def _straight_corners(geoms):
+    """Whether a polygon has a ring corner that does not clearly turn (the sine of the
+    angle between its edges below 1e-6, a repeated point) or a ring too short to tell:
+    only those can lose a corner to a Douglas–Peucker simplification by 0."""
+    import shapely
+
+    out = np.zeros(geoms.size, dtype=bool)
+    parts, pidx = shapely.get_parts(geoms, return_index=True)
+    rings, ridx = shapely.get_rings(parts, return_index=True)
+    xy, cidx = shapely.get_coordinates(rings, return_index=True)
+    nring = np.bincount(cidx, minlength=rings.size)
+    out[pidx[ridx[nring < 4]]] = True
+    if xy.shape[0] == 0:
+        return out
+    change = np.r_[cidx[1:] != cidx[:-1], True]
+    v = xy[~change]  # each ring without its closing point
+    rid = cidx[~change]
+    n = rid.size
+    start = np.r_[True, rid[1:] != rid[:-1]]
+    end = np.r_[rid[1:] != rid[:-1], True]
+    idx = np.arange(n)
+    first = np.maximum.accumulate(np.where(start, idx, 0))
+    last = np.minimum.accumulate(np.where(end, idx, n)[::-1])[::-1]
+    prev = np.where(start, last, idx - 1)
+    nxt = np.where(end, first, idx + 1)
+    d1 = v - v[prev]
+    d2 = v[nxt] - v
+    cross = d1[:, 0] * d2[:, 1] - d1[:, 1] * d2[:, 0]
+    scale = np.hypot(d1[:, 0], d1[:, 1]) * np.hypot(d2[:, 0], d2[:, 1])
+    flat = ~(np.abs(cross) > 1e-6 * scale)  # NaN or zero-length edges count as straight
+    out[pidx[ridx[rid[flat]]]] = True
     return out
