@@ -29,6 +29,17 @@ def _add(s, c, k, v):
     s[k] = t
 
 
+@njit(cache=True, inline="always")
+def _two_sum(s, c, v):
+    """Neumaier's step: (new sum, new correction) after adding v to s (correction c)."""
+    t = s + v
+    if abs(s) >= abs(v):
+        c += (s - t) + v
+    else:
+        c += (v - t) + s
+    return t, c
+
+
 @njit(cache=True, nogil=True)
 def label_sums(order, starts, ncols, row_area, z, slope, aspect, dl):
     """Per label l (cells ``order[starts[l]:starts[l + 1]]``): compensated sums
@@ -43,9 +54,13 @@ def label_sums(order, starts, ncols, row_area, z, slope, aspect, dl):
     counts = np.zeros((nlab, 2), dtype=np.int64)
     ext = np.empty((nlab, 3))
     mom = np.zeros((nlab, 2))
+    sec = np.zeros(8)
+    secc = np.zeros(8)
     for l in range(nlab):
-        s = sums[l]
-        c = corr[l]
+        s_area = c_area = s_za = c_za = s_zw = c_zw = 0.0
+        s_gw = c_gw = s_sa = c_sa = s_flat = c_flat = 0.0
+        sec[:] = 0.0
+        secc[:] = 0.0
         zmin = np.inf
         zmax = -np.inf
         dmax = -np.inf
@@ -56,33 +71,40 @@ def label_sums(order, starts, ncols, row_area, z, slope, aspect, dl):
         for p in range(starts[l], starts[l + 1]):
             i = order[p]
             a = row_area[i // ncols]
-            _add(s, c, AREA, a)
+            s_area, c_area = _two_sum(s_area, c_area, a)
             d = dl[i]
             if d > dmax:
                 dmax = d
             v = np.float64(z[i])
             if np.isfinite(v):
                 nz += 1
-                if v < zmin:
-                    zmin = v
-                if v > zmax:
-                    zmax = v
-                _add(s, c, ZA, v * a)
-                _add(s, c, ZW, a)
+                zmin = min(zmin, v)
+                zmax = max(zmax, v)
+                s_za, c_za = _two_sum(s_za, c_za, v * a)
+                s_zw, c_zw = _two_sum(s_zw, c_zw, a)
             g = slope[i]
             if np.isfinite(g):
                 ng += 1
                 delta = g - mean
                 mean += delta / ng
                 m2 += delta * (g - mean)
-                _add(s, c, GW, a)
-                _add(s, c, SA, g * a)
+                s_gw, c_gw = _two_sum(s_gw, c_gw, a)
+                s_sa, c_sa = _two_sum(s_sa, c_sa, g * a)
                 asp = aspect[i]
                 if np.isfinite(asp):
                     k = int(np.floor(((asp + 22.5) % 360.0) / 45.0))
-                    _add(s, c, 6 + k, a)
+                    sec[k], secc[k] = _two_sum(sec[k], secc[k], a)
                 else:
-                    _add(s, c, FLAT, a)
+                    s_flat, c_flat = _two_sum(s_flat, c_flat, a)
+        sums[l, AREA], corr[l, AREA] = s_area, c_area
+        sums[l, ZA], corr[l, ZA] = s_za, c_za
+        sums[l, ZW], corr[l, ZW] = s_zw, c_zw
+        sums[l, GW], corr[l, GW] = s_gw, c_gw
+        sums[l, SA], corr[l, SA] = s_sa, c_sa
+        sums[l, FLAT], corr[l, FLAT] = s_flat, c_flat
+        for k in range(8):
+            sums[l, 6 + k] = sec[k]
+            corr[l, 6 + k] = secc[k]
         counts[l, 0] = nz
         counts[l, 1] = ng
         ext[l, 0] = zmin
