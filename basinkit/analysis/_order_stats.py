@@ -23,57 +23,65 @@ _TOP = np.uint64(0x8000000000000000)
 
 
 @njit(cache=True, nogil=True)
-def _order_keys(x, bits):
+def _order_keys(x, bits, top):
+    """Keys of float bits (``top`` = the sign bit of the width): ordered as the values."""
     n = x.shape[0]
-    keys = np.empty(n, dtype=np.uint64)
-    zero = np.uint64(0)
+    keys = np.empty(n, dtype=bits.dtype)
     for i in range(n):
         b = bits[i]
         if np.isnan(x[i]):
-            keys[i] = ~zero
-        elif b == _TOP:  # -0.0: as 0.0
-            keys[i] = _TOP
-        elif b & _TOP:
+            keys[i] = ~(b & 0)  # all ones: above everything
+        elif b == top:  # -0.0: as 0.0
+            keys[i] = top
+        elif b & top:
             keys[i] = ~b
         else:
-            keys[i] = b | _TOP
+            keys[i] = b | top
     return keys
 
 
 def order_keys(values) -> np.ndarray:
-    """uint64 keys ordered as the float values (−0.0 as 0.0, NaN above everything)."""
-    x = np.ascontiguousarray(values, dtype=np.float64)
-    return _order_keys(x, x.view(np.uint64))
+    """Unsigned integer keys ordered as the float values (−0.0 as 0.0, NaN above
+    everything): uint32 for float32 values, uint64 otherwise."""
+    x = np.asarray(values)
+    if x.dtype == np.float32:
+        x = np.ascontiguousarray(x)
+        return _order_keys(x, x.view(np.uint32), np.uint32(0x80000000))
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    return _order_keys(x, x.view(np.uint64), _TOP)
 
 
 @njit(cache=True, nogil=True)
-def _radix_order(keys):
-    """Stable LSD radix sort of uint64 keys by bytes: the order (int64) that sorts them.
-    Bytes that are the same in every key are skipped."""
+def _radix_order(keys, width):
+    """Stable LSD radix sort of unsigned keys of ``width`` bits by 11-bit digits: the
+    order (int64) that sorts them, and the sorted keys. Digits that are the same in every
+    key are skipped."""
     n = keys.shape[0]
-    hist = np.zeros((8, 257), dtype=np.int64)
+    nd = (width + 10) // 11
+    mask = np.uint64(2047)
+    hist = np.zeros((nd, 2049), dtype=np.int64)
     for i in range(n):
-        k = keys[i]
-        for d in range(8):
-            hist[d, ((k >> np.uint64(8 * d)) & np.uint64(255)) + 1] += 1
+        k = np.uint64(keys[i])
+        for d in range(nd):
+            hist[d, ((k >> np.uint64(11 * d)) & mask) + 1] += 1
     idx = np.arange(n)
     kk = keys.copy()
     idx2 = np.empty(n, dtype=np.int64)
     kk2 = np.empty(n, dtype=keys.dtype)
-    for d in range(8):
+    for d in range(nd):
         h = hist[d]
         skip = False
-        for b in range(1, 257):
+        for b in range(1, 2049):
             if h[b] == n:
                 skip = True
         if skip or n == 0:
             continue
-        for b in range(1, 257):
+        for b in range(1, 2049):
             h[b] += h[b - 1]
-        sh = np.uint64(8 * d)
+        sh = np.uint64(11 * d)
         for i in range(n):
             k = kk[i]
-            b = (k >> sh) & np.uint64(255)
+            b = (np.uint64(k) >> sh) & mask
             p = h[b]
             h[b] = p + 1
             kk2[p] = k
@@ -100,10 +108,13 @@ def _ranks_from_order(order, sorted_keys):
 def dense_ranks(values):
     """Dense ranks (int32) of float values and the distinct values in increasing order
     (``distinct[ranks] == values``; NaNs, if any, rank last)."""
-    x = np.asarray(values, dtype=np.float64)
-    order, sk = _radix_order(order_keys(x))
+    x = np.asarray(values)
+    if x.dtype != np.float32:
+        x = x.astype(np.float64, copy=False)
+    keys = order_keys(x)
+    order, sk = _radix_order(keys, keys.dtype.itemsize * 8)
     ranks, first = _ranks_from_order(order, sk)
-    return ranks, x[first]
+    return ranks, x[first].astype(np.float64)
 
 
 @njit(cache=True, inline="always")
@@ -117,11 +128,12 @@ def _popcount(x):
 @njit(cache=True, nogil=True)
 def build_wavelet(ranks, nbits):
     """Wavelet matrix of int ranks in ``[0, 2**nbits)``: per level (highest bit first)
-    the bits packed in uint64 words, the ones before each word and the zeros' count."""
+    and per 64 values, the count of ones before them and their bits (``blocks[level, w]
+    = (ones before, bits)``, side by side so that a rank query reads one cache line), and
+    per level the count of zeros."""
     n = ranks.shape[0]
     nw = (n >> 6) + 1
-    words = np.zeros((nbits, nw), dtype=np.uint64)
-    ones_before = np.zeros((nbits, nw + 1), dtype=np.int64)
+    blocks = np.zeros((nbits, nw + 1, 2), dtype=np.uint64)
     zeros = np.zeros(nbits, dtype=np.int64)
     cur = ranks.astype(np.int32)
     nxt = np.empty(n, dtype=np.int32)
@@ -143,30 +155,30 @@ def build_wavelet(ranks, nbits):
                 ones[oi] = v
                 zi += 1 - b
                 oi += b
-            words[lvl, w] = word
-            ones_before[lvl, w] = c
+            blocks[lvl, w, 1] = word
+            blocks[lvl, w, 0] = np.uint64(c)
             c += _popcount(word)
-        ones_before[lvl, nw] = c
+        blocks[lvl, nw, 0] = np.uint64(c)
         zeros[lvl] = zi
         for j in range(oi):
             nxt[zi + j] = ones[j]
         cur, nxt = nxt, cur
-    return words, ones_before, zeros
+    return blocks, zeros
 
 
 @njit(cache=True, inline="always")
-def _rank1(words, ones_before, lvl, i):
+def _rank1(blocks, lvl, i):
     """Ones among the first i bits of a level."""
     w = i >> 6
     r = i & 63
-    c = ones_before[lvl, w]
+    c = np.int64(blocks[lvl, w, 0])
     if r:
-        c += _popcount(words[lvl, w] & ((_ONE << np.uint64(r)) - _ONE))
+        c += _popcount(blocks[lvl, w, 1] & ((_ONE << np.uint64(r)) - _ONE))
     return c
 
 
 @njit(cache=True, nogil=True)
-def count_below(words, ones_before, zeros, s, e, x):
+def count_below(blocks, zeros, s, e, x):
     """How many values of the slice ``[s, e)`` have a rank below ``x``."""
     nbits = zeros.shape[0]
     if x <= 0 or e <= s:
@@ -175,8 +187,8 @@ def count_below(words, ones_before, zeros, s, e, x):
         return e - s
     res = 0
     for lvl in range(nbits):
-        os_ = _rank1(words, ones_before, lvl, s)
-        oe = _rank1(words, ones_before, lvl, e)
+        os_ = _rank1(blocks, lvl, s)
+        oe = _rank1(blocks, lvl, e)
         if (x >> (nbits - 1 - lvl)) & 1:
             res += (e - s) - (oe - os_)
             s = zeros[lvl] + os_
@@ -188,13 +200,13 @@ def count_below(words, ones_before, zeros, s, e, x):
 
 
 @njit(cache=True, nogil=True)
-def kth_smallest(words, ones_before, zeros, s, e, k):
+def kth_smallest(blocks, zeros, s, e, k):
     """Rank of the k-th smallest value (0-based) of the slice ``[s, e)`` (0 <= k < e - s)."""
     nbits = zeros.shape[0]
     val = 0
     for lvl in range(nbits):
-        os_ = _rank1(words, ones_before, lvl, s)
-        oe = _rank1(words, ones_before, lvl, e)
+        os_ = _rank1(blocks, lvl, s)
+        oe = _rank1(blocks, lvl, e)
         nz = (e - s) - (oe - os_)
         if k < nz:
             s = s - os_
@@ -208,18 +220,18 @@ def kth_smallest(words, ones_before, zeros, s, e, k):
 
 
 @njit(cache=True, nogil=True)
-def counts_below(words, ones_before, zeros, s, e, x):
+def counts_below(blocks, zeros, s, e, x):
     """``count_below`` for slices ``[s[i], e[i])`` and thresholds ``x[i, :]``."""
     n, m = x.shape
     out = np.zeros((n, m), dtype=np.int64)
     for i in range(n):
         for j in range(m):
-            out[i, j] = count_below(words, ones_before, zeros, s[i], e[i], x[i, j])
+            out[i, j] = count_below(blocks, zeros, s[i], e[i], x[i, j])
     return out
 
 
 @njit(cache=True, nogil=True)
-def kth_ranks(words, ones_before, zeros, s, e, k):
+def kth_ranks(blocks, zeros, s, e, k):
     """``kth_smallest`` for slices ``[s[i], e[i])`` and orders ``k[i, :]`` (−1 where
     ``k`` is outside the slice)."""
     n, m = k.shape
@@ -227,7 +239,7 @@ def kth_ranks(words, ones_before, zeros, s, e, k):
     for i in range(n):
         for j in range(m):
             if 0 <= k[i, j] < e[i] - s[i]:
-                out[i, j] = kth_smallest(words, ones_before, zeros, s[i], e[i], k[i, j])
+                out[i, j] = kth_smallest(blocks, zeros, s[i], e[i], k[i, j])
     return out
 
 
@@ -237,20 +249,35 @@ class WaveletMatrix:
     def __init__(self, values):
         self.ranks, self.distinct = dense_ranks(values)
         nbits = max(int(self.distinct.size - 1).bit_length(), 1)
-        self.words, self.ones_before, self.zeros = build_wavelet(self.ranks, nbits)
+        self.blocks, self.zeros = build_wavelet(self.ranks, nbits)
         del self.ranks
 
-    def counts_below(self, s, e, thresholds):
+    def counts_below(self, s, e, thresholds, threads=2):
         """How many values of each slice ``[s[i], e[i])`` are below ``thresholds[i, j]``
         (floats)."""
         x = np.searchsorted(self.distinct, thresholds, side="left").astype(np.int64)
-        return counts_below(self.words, self.ones_before, self.zeros,
-                            np.asarray(s, np.int64), np.asarray(e, np.int64), x)
+        return _by_rows(counts_below, self.blocks, self.zeros, s, e, x, threads)
 
-    def kth_values(self, s, e, k):
+    def kth_values(self, s, e, k, threads=2):
         """The k[i, j]-th smallest value (0-based) of each slice (NaN where k is outside
         the slice)."""
-        r = kth_ranks(self.words, self.ones_before, self.zeros, np.asarray(s, np.int64),
-                      np.asarray(e, np.int64), np.asarray(k, np.int64))
+        r = _by_rows(kth_ranks, self.blocks, self.zeros, s, e, np.asarray(k, np.int64),
+                     threads)
         out = self.distinct[np.maximum(r, 0)]
         return np.where(r >= 0, out, np.nan)
+
+
+def _by_rows(kernel, blocks, zeros, s, e, q, threads):
+    """``kernel`` over the rows of the queries, split between threads (it drops the GIL)."""
+    s = np.asarray(s, np.int64)
+    e = np.asarray(e, np.int64)
+    n = s.size
+    if threads <= 1 or n < 64:
+        return kernel(blocks, zeros, s, e, q)
+    from concurrent.futures import ThreadPoolExecutor
+
+    cut = np.linspace(0, n, int(threads) + 1).astype(np.int64)
+    with ThreadPoolExecutor(int(threads)) as pool:
+        parts = list(pool.map(lambda ab: kernel(blocks, zeros, s[ab[0]:ab[1]], e[ab[0]:ab[1]],
+                                                 q[ab[0]:ab[1]]), zip(cut[:-1], cut[1:])))
+    return np.concatenate(parts)
