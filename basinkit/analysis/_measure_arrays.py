@@ -117,7 +117,8 @@ class NestedNumbers:
         hi = np.asarray(hi, np.int64)
         s, e = starts[lo], starts[hi + 1]
         row_area = np.ascontiguousarray(row_area, dtype=np.float64)
-        with ThreadPoolExecutor(max(int(threads), 1)) as pool:  # the kernels drop the GIL
+        threads = max(int(threads), 1)
+        with ThreadPoolExecutor(min(threads, 2)) as pool:  # the kernels drop the GIL
             zw = pool.submit(lambda: WaveletMatrix(z[order]))
             sw = pool.submit(lambda: WaveletMatrix(slope[order]))
             sums = ls.label_sums(order, starts, ncols, row_area, z, slope, aspect, dl)
@@ -140,7 +141,7 @@ class NestedNumbers:
         x = self.elev.copy()
         x[:, -1] = self.zmax  # the top level: below the highest cells
         x[~self.curve_ok] = -np.inf
-        below = zwm.counts_below(s, e, x)
+        below = zwm.counts_below(s, e, x, threads)
         a = w0 * (nz[:, None] - below).astype(np.float64)
         flat = (self.zmax <= self.zmin)[:, None]
         a = np.where(flat, w0 * nz[:, None], a)
@@ -160,7 +161,7 @@ class NestedNumbers:
         khi = np.minimum(klo + 1, ng[:, None] - 1)
         ks = np.concatenate([klo, khi, ng[:, None] - 1], axis=1)
         ks[ng == 0] = -1
-        v = swm.kth_values(s, e, ks)
+        v = swm.kth_values(s, e, ks, threads)
         vlo, vhi = v[:, :3], v[:, 3:6]
         p = vlo + (vhi - vlo) * (pos - klo)
         self.slope_p10, self.slope_p50, self.slope_p90 = p[:, 0], p[:, 1], p[:, 2]

@@ -557,14 +557,17 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
     okr[okr] = starts[lo_all[okr]] < starts[hi_all[okr] + 1]
     where = np.full(outlets.size, -1, np.int64)
     where[okr] = np.arange(int(okr.sum()))
+    import numba
+
+    threads = max(1, int(numba.config.NUMBA_NUM_THREADS))  # as the tiled fill
     num = NestedNumbers(order, starts, lo_all[okr], hi_all[okr], ctx.nc, ctx.row_area, z,
-                        slope, aspect, ctx.downstream_length)
+                        slope, aspect, ctx.downstream_length, threads=threads)
     if ctx.network is not None:  # the channel cells, listed by label too
         corder = order[ctx.channel_flat[order]]
         cstarts = np.concatenate([[0], np.cumsum(np.bincount(lab[corder], minlength=nlab))])
         nets = _range_networks(ctx, lab, corder, cstarts, lo_all[okr], hi_all[okr])
     h = np.linspace(0.0, 1.0, HYPSOMETRIC_LEVELS)
-    shapes = _range_shapes(ctx, polygons, outlets, where >= 0)
+    shapes = _range_shapes(ctx, polygons, outlets, where >= 0, threads)
     rows, curves = [], {}
     todo = range(outlets.size)
     if progress is not None:
@@ -624,7 +627,7 @@ def _range_networks(ctx, lab, corder, cstarts, lo, hi):
                          int(order.max()) if order.size else 0)
 
 
-def _range_shapes(ctx, polygons, outlets, ok):
+def _range_shapes(ctx, polygons, outlets, ok, threads):
     """``{row: (perimeter along the cell edges, perimeter, straight length)}`` of the
     given polygons, measured all at once (projected grids; else measured one by one)."""
     if polygons is None or ctx.fm.terrain.crs.is_geographic:
@@ -636,7 +639,8 @@ def _range_shapes(ctx, polygons, outlets, ok):
     orow, ocol = np.divmod(outlets[rows], ctx.nc)
     x0, y0 = ctx.fm.terrain.xy_of(orow, ocol)
     m = outline_measures([polygons[i] for i in rows], x0, y0,
-                         max(ctx.cell_w, ctx.cell_h), _linear_unit_to_metres(ctx.fm.terrain.crs))
+                         max(ctx.cell_w, ctx.cell_h), _linear_unit_to_metres(ctx.fm.terrain.crs),
+                         threads=threads)
     return {int(i): (float(a), float(b), float(c)) for i, a, b, c in zip(rows, *m)}
 
 
