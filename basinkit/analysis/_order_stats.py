@@ -53,9 +53,9 @@ def order_keys(values) -> np.ndarray:
 
 @njit(cache=True, nogil=True)
 def _radix_order(keys, width):
-    """Stable LSD radix sort of unsigned keys of ``width`` bits by 11-bit digits: the
-    order (int64) that sorts them, and the sorted keys. Digits that are the same in every
-    key are skipped."""
+    """Stable LSD radix sort of unsigned keys of ``width`` bits by 11-bit digits, in place
+    (``keys`` is reused): the order (int32) that sorts them, and the sorted keys. Digits
+    that are the same in every key are skipped."""
     n = keys.shape[0]
     nd = (width + 10) // 11
     mask = np.uint64(2047)
@@ -64,9 +64,9 @@ def _radix_order(keys, width):
         k = np.uint64(keys[i])
         for d in range(nd):
             hist[d, ((k >> np.uint64(11 * d)) & mask) + 1] += 1
-    idx = np.arange(n)
-    kk = keys.copy()
-    idx2 = np.empty(n, dtype=np.int64)
+    idx = np.arange(n).astype(np.int32)
+    kk = keys
+    idx2 = np.empty(n, dtype=np.int32)
     kk2 = np.empty(n, dtype=keys.dtype)
     for d in range(nd):
         h = hist[d]
@@ -95,7 +95,7 @@ def _radix_order(keys, width):
 def _ranks_from_order(order, sorted_keys):
     n = order.shape[0]
     ranks = np.empty(n, dtype=np.int32)
-    first = np.empty(n, dtype=np.int64)  # position of each distinct key's first value
+    first = np.empty(n, dtype=np.int32)  # position of each distinct key's first value
     r = -1
     for i in range(n):
         if i == 0 or sorted_keys[i] != sorted_keys[i - 1]:
@@ -109,6 +109,8 @@ def dense_ranks(values):
     """Dense ranks (int32) of float values and the distinct values in increasing order
     (``distinct[ranks] == values``; NaNs, if any, rank last)."""
     x = np.asarray(values)
+    if x.size >= 2 ** 31:
+        raise ValueError("dense_ranks: more than 2**31 values (int32 ranks and positions)")
     if x.dtype != np.float32:
         x = x.astype(np.float64, copy=False)
     keys = order_keys(x)
