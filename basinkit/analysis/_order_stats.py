@@ -115,7 +115,9 @@ def dense_ranks(values):
         x = x.astype(np.float64, copy=False)
     keys = order_keys(x)
     order, sk = _radix_order(keys, keys.dtype.itemsize * 8)
+    del keys
     ranks, first = _ranks_from_order(order, sk)
+    del order, sk
     return ranks, x[first].astype(np.float64)
 
 
@@ -129,7 +131,7 @@ def _popcount(x):
 
 @njit(cache=True, nogil=True)
 def build_wavelet(ranks, nbits):
-    """Wavelet matrix of int ranks in ``[0, 2**nbits)``: per level (highest bit first)
+    """Wavelet matrix of int32 ranks in ``[0, 2**nbits)`` (reordered in place): per level (highest bit first)
     and per 64 values, the count of ones before them and their bits (``blocks[level, w]
     = (ones before, bits)``, side by side so that a rank query reads one cache line), and
     per level the count of zeros."""
@@ -137,7 +139,7 @@ def build_wavelet(ranks, nbits):
     nw = (n >> 6) + 1
     blocks = np.zeros((nbits, nw + 1, 2), dtype=np.uint64)
     zeros = np.zeros(nbits, dtype=np.int64)
-    cur = ranks.astype(np.int32)
+    cur = ranks  # reordered level by level: the ranks are used up
     nxt = np.empty(n, dtype=np.int32)
     ones = np.empty(n + 1, dtype=np.int32)
     for lvl in range(nbits):
