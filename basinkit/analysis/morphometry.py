@@ -11,13 +11,15 @@ import math
 import numpy as np
 
 from . import _catchments, _channels
+from ._measure_arrays import (HYPSOMETRIC_LEVELS, CurveFrames, _curve_frame, _hypsometry,
+                              _percentiles)
+from ._network_measures import network_keys, network_numbers
 from ..errors import InputError, OutletError
 
 __all__ = ["basin_morphometry", "morphometry_table", "hypsometric_curve",
            "ASPECT_SECTORS", "CAUTIONS"]
 
 ASPECT_SECTORS = ("n", "ne", "e", "se", "s", "sw", "w", "nw")
-HYPSOMETRIC_LEVELS = 101
 CAUTIONS = ("Morphometry is derived from a DEM: boundaries, channels and lengths are "
             "estimates that depend on the DEM's resolution and the channel threshold. "
             "Culverts, storm sewers and diversions are not represented unless burned in. "
@@ -93,47 +95,6 @@ def _range_boxes(ranges, rmin, rmax, cmin, cmax):
     return out
 
 
-def _hypsometry(z, w, levels=HYPSOMETRIC_LEVELS):
-    """Relative heights, area above each (m²) and their elevations, as arrays."""
-    h = np.linspace(0.0, 1.0, int(levels))
-    if z.size == 0:
-        return h, np.full(h.shape, np.nan), np.full(h.shape, np.nan)
-    zmin, zmax = z.min(), z.max()
-    elev = zmin + h * (zmax - zmin)
-    w0 = w[0]
-    if w0 == np.floor(w0) and w0 * z.size < 2.0 ** 52 and np.all(w == w0):
-        # equal whole-number cell areas (projected grids): the running sums of the sorted
-        # areas are exact, so area above a level is w0 times the count of cells at or above
-        # it; the counts come from binning against the levels, without a sort
-        n = z.size
-        if zmax > zmin:
-            j = np.searchsorted(elev, z, side="right")  # levels at or below each cell
-            below = np.cumsum(np.bincount(j, minlength=elev.size + 1))[:elev.size]
-            below[-1] = n - int(np.count_nonzero(z == zmax))  # top level: z < zmax
-            a = w0 * (n - below).astype(np.float64)
-        else:
-            a = np.full(h.shape, w0 * n)
-        return h, a, elev
-    order = np.argsort(z, kind="stable")
-    zs = z[order]
-    above = np.concatenate([np.cumsum(w[order][::-1])[::-1], [0.0]])  # area with z >= zs[i]
-    if zmax > zmin:
-        idx = np.searchsorted(zs, elev, side="left")
-        # guard the top level against rounding: the highest cells are at relative height 1
-        idx[-1] = np.searchsorted(zs, zmax, side="left")
-        a = above[idx]
-    else:
-        a = np.full(h.shape, above[0])
-    return h, a, elev
-
-
-def _curve_frame(h, a, elev):
-    import pandas as pd
-
-    return pd.DataFrame({"relative_height": h, "relative_area_above": a / a[0],
-                         "elevation_m": elev, "area_above_m2": a})
-
-
 def hypsometric_curve(elevation, weights=None, levels: int = HYPSOMETRIC_LEVELS):
     """Hypsometric curve (Strahler 1952): share of the basin area above each relative height.
 
@@ -169,71 +130,6 @@ def hypsometric_curve(elevation, weights=None, levels: int = HYPSOMETRIC_LEVELS)
     return _curve_frame(*_hypsometry(z[ok], w[ok], levels))
 
 
-def _regress_ratio(orders, values, sign):
-    """Horton ratio from the slope of log10(value) on order: 10**(sign * slope)."""
-    ok = np.isfinite(values) & (values > 0)
-    if ok.sum() < 2:
-        return np.nan
-    b = np.polyfit(np.asarray(orders, float)[ok], np.log10(values[ok]), 1)[0]
-    return float(10.0 ** (sign * b))
-
-
-def _network_stats(ctx, cells, member, area_m2, out):
-    """Network keys of the catchment of ``cells`` (flat); ``member(flat cells)`` tells
-    which cells belong to it (a stream leaving it is cut at its edge)."""
-    net = ctx.network
-    fm = ctx.fm
-    cells = cells[ctx.channel_flat[cells]]
-    out["channel_cells"] = int(cells.size)
-    if cells.size == 0:
-        for k in ("stream_count", "total_stream_length_m", "max_strahler_order",
-                  "bifurcation_ratio", "length_ratio", "area_ratio",
-                  "drainage_density_km_per_km2", "stream_frequency_per_km2",
-                  "channel_maintenance_km2_per_km", "overland_flow_length_m"):
-            out[k] = 0 if k in ("stream_count", "total_stream_length_m",
-                                "max_strahler_order") else np.nan
-        out["drainage_density_km_per_km2"] = 0.0
-        out["stream_frequency_per_km2"] = 0.0
-        return
-    rec = fm.receiver[cells]
-    inside = rec >= 0
-    inside[inside] = member(rec[inside])
-    step = np.where(inside, fm.receiver_distance()[cells], 0.0)
-    stream = ctx.stream_flat[cells]
-    order = ctx.strahler_flat[cells].astype(np.int64)
-    area = fm.d8_upstream_area_flat()[cells]
-    u, inv = np.unique(stream, return_inverse=True)
-    s_len = np.bincount(inv, weights=step, minlength=u.size)
-    s_ord = np.zeros(u.size, np.int64)
-    s_ord[inv] = order
-    s_area = np.zeros(u.size)
-    np.maximum.at(s_area, inv, area)
-    kmax = int(s_ord.max())
-    ks = np.arange(1, kmax + 1)
-    n_k = np.bincount(s_ord, minlength=kmax + 1)[1:].astype(float)
-    l_k = np.bincount(s_ord, weights=s_len, minlength=kmax + 1)[1:]
-    a_k = np.bincount(s_ord, weights=s_area, minlength=kmax + 1)[1:]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean_l = l_k / n_k
-        mean_a = a_k / n_k
-    total = float(step.sum())
-    out["max_strahler_order"] = kmax
-    out["stream_count"] = int(u.size)
-    out["total_stream_length_m"] = total
-    for k in ks:
-        out[f"stream_count_order_{k}"] = int(n_k[k - 1])
-        out[f"stream_length_order_{k}_m"] = float(l_k[k - 1])
-    out["bifurcation_ratio"] = _regress_ratio(ks, n_k, -1)
-    out["length_ratio"] = _regress_ratio(ks, mean_l, 1)
-    out["area_ratio"] = _regress_ratio(ks, mean_a, 1)
-    a_km2 = area_m2 / 1e6
-    dd = (total / 1e3) / a_km2 if a_km2 > 0 else np.nan
-    out["drainage_density_km_per_km2"] = dd
-    out["stream_frequency_per_km2"] = u.size / a_km2 if a_km2 > 0 else np.nan
-    out["channel_maintenance_km2_per_km"] = 1.0 / dd if dd > 0 else np.nan
-    out["overland_flow_length_m"] = 1e3 / (2.0 * dd) if dd > 0 else np.nan
-
-
 def _farthest_vertex(fm, poly, x0, y0):
     """Largest ground distance (m) from (x0, y0) to a vertex of the catchment polygon
     (cell corners on its boundary): planar on projected grids, geodesic on geographic."""
@@ -254,15 +150,6 @@ def _farthest_vertex(fm, poly, x0, y0):
 
     k = _linear_unit_to_metres(t.crs)
     return float(np.max(np.hypot(xy[:, 0] - x0, xy[:, 1] - y0)) * k)
-
-
-def _percentiles(v, qs):
-    """Linear-interpolation percentiles of a 1-D array (numpy's default rule)."""
-    pos = np.asarray(qs, dtype=float) / 100.0 * (v.size - 1)
-    lo = np.floor(pos).astype(np.int64)
-    hi = np.minimum(lo + 1, v.size - 1)
-    s = np.partition(v, np.unique(np.concatenate([lo, hi])))  # those ranks in place
-    return s[lo] + (s[hi] - s[lo]) * (pos - lo)
 
 
 def _measure(ctx, r0, r1, c0, c1, mwin, outlet, want_curve, poly=None):
@@ -316,18 +203,38 @@ def _outlet_outside(orow, ocol):
 def _describe(ctx, cells, zm, sm, aspm, outlet, member, want_curve, poly):
     """Descriptors of the catchment of ``cells`` (flat) from its cells' elevations, slopes
     and aspects, its polygon and ``member`` (see :func:`_network_stats`)."""
-    fm = ctx.fm
-    t = fm.terrain
-    orow, ocol = divmod(outlet, ctx.nc)
     am = ctx.row_area[cells // ctx.nc]
     area = float(am.sum())
-    ox, oy = t.xy_of(orow, ocol)
-    out = {"outlet_x": float(ox), "outlet_y": float(oy), "outlet_row": orow,
-           "outlet_col": ocol, "cell_count": int(cells.size), "area_m2": area,
-           "area_km2": area / 1e6}
-    # ---- shape
+    ok = np.isfinite(zm)
+    num = {"count": int(cells.size), "area": area,
+           "dl_max": ctx.downstream_length[cells].max(),
+           "zmin": float(zm[ok].min()), "zmax": float(zm[ok].max()),
+           "zmean": float(np.sum(zm[ok] * am[ok]) / am[ok].sum()),
+           "curve": _hypsometry(zm[ok].astype(np.float64), am[ok])}
+    good = np.isfinite(sm)
+    sw, aw = sm[good], am[good]
+    if sw.size:
+        p10, p50, p90 = _percentiles(sw, [10, 50, 90])
+        num["slope"] = (float(np.sum(sw * aw) / aw.sum()), float(p50), float(np.std(sw)),
+                        float(p10), float(p90), float(sw.max()))
+    am_asp = aspm[good]
+    flat = ~np.isfinite(am_asp)
+    sector = np.floor(((np.where(flat, 0.0, am_asp) + 22.5) % 360.0) / 45.0).astype(np.int64)
+    tot = aw.sum()
+    num["sectors"] = (np.bincount(sector[~flat], weights=aw[~flat], minlength=8) / tot
+                      if tot else np.zeros(8))
+    num["flat_fraction"] = float(aw[flat].sum() / tot) if tot else np.nan
+    if ctx.network is not None:
+        num["channel_cells"] = cells[ctx.channel_flat[cells]]
+    return _assemble(ctx, num, outlet, member, want_curve, poly)
+
+
+def _outline(ctx, poly, ox, oy):
+    """Perimeter along the cell edges, perimeter of the simplified outline and straight
+    basin length (m) of a catchment's polygon (see ``_shape_batch.outline_measures``)."""
     from .polygons import ground_area_perimeter
 
+    t = ctx.fm.terrain
     _, p_edges = ground_area_perimeter(poly, t.crs)
     # corners snapped to a millionth of a cell, no collinear vertices, rings in normal form
     # (start vertex, orientation): the simplified outline, and so the perimeter, then
@@ -339,11 +246,26 @@ def _describe(ctx, cells, zm, sm, aspm, outlet, member, want_curve, poly):
                                 .simplify(0))
     smooth = outline.simplify(tol, preserve_topology=True)
     _, perim = ground_area_perimeter(smooth, t.crs)
+    return p_edges, perim, _farthest_vertex(ctx.fm, poly, ox, oy)
+
+
+def _assemble(ctx, num, outlet, member, want_curve, poly, shape=None):
+    """The descriptors' dict from the cell-based numbers ``num`` (see :func:`_describe`),
+    the polygon (or its ``shape``: the three numbers of :func:`_outline`) and the
+    network."""
+    fm = ctx.fm
+    t = fm.terrain
+    orow, ocol = divmod(outlet, ctx.nc)
+    area = num["area"]
+    ox, oy = t.xy_of(orow, ocol)
+    out = {"outlet_x": float(ox), "outlet_y": float(oy), "outlet_row": orow,
+           "outlet_col": ocol, "cell_count": num["count"], "area_m2": area,
+           "area_km2": area / 1e6}
+    # ---- shape
+    p_edges, perim, lstraight = _outline(ctx, poly, ox, oy) if shape is None else shape
     out["perimeter_m"] = perim
     out["perimeter_cell_edges_m"] = p_edges
-    dl = ctx.downstream_length
-    out["longest_flow_path_m"] = float(dl[cells].max() - dl[outlet])
-    lstraight = _farthest_vertex(fm, poly, ox, oy)
+    out["longest_flow_path_m"] = float(num["dl_max"] - ctx.downstream_length[outlet])
     out["basin_length_straight_m"] = lstraight
     with np.errstate(invalid="ignore", divide="ignore"):
         out["elongation_ratio"] = (2.0 * math.sqrt(area / math.pi) / lstraight
@@ -353,45 +275,38 @@ def _describe(ctx, cells, zm, sm, aspm, outlet, member, want_curve, poly):
         out["compactness_coefficient"] = (perim / (2.0 * math.sqrt(math.pi * area))
                                           if area > 0 else np.nan)
     # ---- relief
-    ok = np.isfinite(zm)
-    zmin = float(zm[ok].min())
-    zmax = float(zm[ok].max())
-    zmean = float(np.sum(zm[ok] * am[ok]) / am[ok].sum())
+    zmin, zmax, zmean = num["zmin"], num["zmax"], num["zmean"]
     relief = zmax - zmin
     zo = float(ctx.z[orow, ocol])
     out.update(outlet_elevation_m=zo, min_elevation_m=zmin,
                max_elevation_m=zmax, mean_elevation_m=zmean, relief_m=relief)
     out["relief_ratio"] = relief / lstraight if lstraight > 0 else np.nan
     out["melton_ruggedness"] = relief / math.sqrt(area) if area > 0 else np.nan
-    h, a_above, elev = _hypsometry(zm[ok].astype(np.float64), am[ok])
+    h, a_above, elev = num["curve"]
     hi = float(np.trapezoid(a_above / a_above[0], h))
-    curve = _curve_frame(h, a_above, elev) if want_curve else None
+    curve = (h, a_above, elev) if want_curve else None  # a frame when asked for
     out["hypsometric_integral"] = hi if relief > 0 else np.nan
     out["elevation_relief_ratio"] = (zmean - zmin) / relief if relief > 0 else np.nan
     # ---- slope and aspect
-    good = np.isfinite(sm)
-    sw, aw = sm[good], am[good]
-    if sw.size:
-        out["mean_slope_m_per_m"] = float(np.sum(sw * aw) / aw.sum())
+    if "slope" in num:
+        mean, p50, std, p10, p90, smax = num["slope"]
+        out["mean_slope_m_per_m"] = mean
         out["mean_slope_deg"] = float(np.degrees(np.arctan(out["mean_slope_m_per_m"])))
-        p10, p50, p90 = _percentiles(sw, [10, 50, 90])
-        out["median_slope_m_per_m"] = float(p50)
-        out["slope_std_m_per_m"] = float(np.std(sw))
-        out["slope_p10_m_per_m"] = float(p10)
-        out["slope_p90_m_per_m"] = float(p90)
-        out["max_slope_m_per_m"] = float(sw.max())
-    am_asp = aspm[good]
-    flat = ~np.isfinite(am_asp)
-    sector = np.floor(((np.where(flat, 0.0, am_asp) + 22.5) % 360.0) / 45.0).astype(np.int64)
-    tot = aw.sum()
-    fr = np.bincount(sector[~flat], weights=aw[~flat], minlength=8) / tot if tot else np.zeros(8)
+        out["median_slope_m_per_m"] = p50
+        out["slope_std_m_per_m"] = std
+        out["slope_p10_m_per_m"] = p10
+        out["slope_p90_m_per_m"] = p90
+        out["max_slope_m_per_m"] = smax
+    fr = num["sectors"]
     for k, name in enumerate(ASPECT_SECTORS):
         out[f"aspect_{name}_fraction"] = float(fr[k])
-    out["flat_fraction"] = float(aw[flat].sum() / tot) if tot else np.nan
+    out["flat_fraction"] = num["flat_fraction"]
     # ---- network
     if ctx.network is not None:
         out["channel_min_area_m2"] = float(ctx.network.min_area_m2)
-        _network_stats(ctx, cells, member, area, out)
+        net = num["network"] if "network" in num else network_numbers(
+            ctx.fm, ctx.stream_flat, ctx.strahler_flat, num["channel_cells"], member)
+        network_keys(out, area, *net)
     return out, curve
 
 
@@ -488,7 +403,7 @@ def basin_morphometry(fm, mask, outlet_cell, network=None, return_curve=False):
     ctx = _Context(fm, network)
     r0, r1, c0, c1 = rr.min(), rr.max(), cc.min(), cc.max()
     out, curve = _measure(ctx, r0, r1, c0, c1, mask[r0:r1 + 1, c0:c1 + 1], outlet_cell, True)
-    return (out, curve) if return_curve else out
+    return (out, _curve_frame(*curve)) if return_curve else out
 
 
 def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
@@ -623,9 +538,12 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
 
 def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, polygons,
                 boxes):
-    """Rows (and curves) of the catchments given as depth-first label ranges."""
+    """Rows (and curves) of the catchments given as depth-first label ranges: the
+    cell-based numbers of all of them at once (:class:`._measure_arrays.NestedNumbers`),
+    then the polygon and network measures of each."""
     from affine import Affine
 
+    from ._measure_arrays import NestedNumbers
     from .polygons import mask_to_polygon
 
     lab = labels.ravel()
@@ -634,6 +552,22 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
         nr, nc = ctx.valid.shape
         ctx.slope, ctx.aspect = ctx.horn(0, nr - 1, 0, nc - 1)
     z, slope, aspect = ctx.z.ravel(), ctx.slope.ravel(), ctx.aspect.ravel()
+    lo_all, hi_all = ranges[:, 0], ranges[:, 1]
+    okr = (lo_all > 0) & (lo_all <= hi_all) & (hi_all < nlab)
+    okr[okr] = starts[lo_all[okr]] < starts[hi_all[okr] + 1]
+    where = np.full(outlets.size, -1, np.int64)
+    where[okr] = np.arange(int(okr.sum()))
+    import numba
+
+    threads = max(1, int(numba.config.NUMBA_NUM_THREADS))  # as the tiled fill
+    num = NestedNumbers(order, starts, lo_all[okr], hi_all[okr], ctx.nc, ctx.row_area, z,
+                        slope, aspect, ctx.downstream_length, threads=threads)
+    if ctx.network is not None:  # the channel cells, listed by label too
+        corder = order[ctx.channel_flat[order]]
+        cstarts = np.concatenate([[0], np.cumsum(np.bincount(lab[corder], minlength=nlab))])
+        nets = _range_networks(ctx, lab, corder, cstarts, lo_all[okr], hi_all[okr])
+    h = np.linspace(0.0, 1.0, HYPSOMETRIC_LEVELS)
+    shapes = _range_shapes(ctx, polygons, outlets, where >= 0, threads)
     rows, curves = [], {}
     todo = range(outlets.size)
     if progress is not None:
@@ -643,9 +577,8 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
         rec = {"catchment_id": cid.item() if hasattr(cid, "item") else cid}
         lo, hi = int(ranges[i, 0]), int(ranges[i, 1])
         try:
-            if not 0 < lo <= hi < nlab or starts[lo] == starts[hi + 1]:
+            if where[i] < 0:
                 raise InputError(f"catchment {cid} has no cells in the label grid")
-            cells = order[starts[lo]:starts[hi + 1]]
             o = int(outlets[i])
             if not lo <= lab[o] <= hi:
                 _outlet_outside(*divmod(o, ctx.nc))
@@ -660,8 +593,17 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
                 v = lab[flat]
                 return (v >= lo) & (v <= hi)
 
-            out, curve = _describe(ctx, cells, z[cells], slope[cells], aspect[cells], o,
-                                   member, want_curves, poly)
+            k = where[i]
+            if num.z_count[k] == 0:  # as measured on the cells (no elevation: an error)
+                cells = order[starts[lo]:starts[hi + 1]]
+                out, curve = _describe(ctx, cells, z[cells], slope[cells], aspect[cells], o,
+                                       member, want_curves, poly)
+            else:
+                nums = _range_numbers(ctx, num, k, h, order, starts, lo, hi)
+                if ctx.network is not None:
+                    nums["network"] = tuple(v[k] for v in nets)
+                out, curve = _assemble(ctx, nums, o, member, want_curves, poly,
+                                       shapes.get(i))
             rec.update(out)
             rec["error"] = ""
             if want_curves:
@@ -670,6 +612,59 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
             rec["error"] = str(exc)
         rows.append(rec)
     return rows, curves
+
+
+def _range_networks(ctx, lab, corder, cstarts, lo, hi):
+    """The numbers of ``network_numbers`` of every label range, as arrays (one row each)."""
+    from ._nested_network import range_network
+
+    fm = ctx.fm
+    sid = ctx.stream_flat[corder]
+    order = ctx.strahler_flat[corder]
+    return range_network(lo, hi, cstarts, corder, lab, fm.receiver.ravel(),
+                         fm.receiver_distance().ravel(), ctx.stream_flat, ctx.strahler_flat,
+                         fm.d8_upstream_area_flat(), int(sid.max()) + 1 if sid.size else 1,
+                         int(order.max()) if order.size else 0)
+
+
+def _range_shapes(ctx, polygons, outlets, ok, threads):
+    """``{row: (perimeter along the cell edges, perimeter, straight length)}`` of the
+    given polygons, measured all at once (projected grids; else measured one by one)."""
+    if polygons is None or ctx.fm.terrain.crs.is_geographic:
+        return {}
+    from ..terrain.geometry import _linear_unit_to_metres
+    from ._shape_batch import outline_measures
+
+    rows = np.flatnonzero(ok & np.array([p is not None for p in polygons], dtype=bool))
+    orow, ocol = np.divmod(outlets[rows], ctx.nc)
+    x0, y0 = ctx.fm.terrain.xy_of(orow, ocol)
+    m = outline_measures([polygons[i] for i in rows], x0, y0,
+                         max(ctx.cell_w, ctx.cell_h), _linear_unit_to_metres(ctx.fm.terrain.crs),
+                         threads=threads)
+    return {int(i): (float(a), float(b), float(c)) for i, a, b, c in zip(rows, *m)}
+
+
+def _range_numbers(ctx, num, k, h, order, starts, lo, hi):
+    """The numbers of :func:`_describe` for row ``k`` of a :class:`NestedNumbers`."""
+    area = float(num.area[k])
+    out = {"count": int(num.count[k]), "area": area, "dl_max": num.dl_max[k],
+           "zmin": float(num.zmin[k]), "zmax": float(num.zmax[k]),
+           "zmean": float(num.zmean[k])}
+    if num.curve_ok[k]:
+        out["curve"] = (h, num.a_above[k], num.elev[k])
+    else:  # unequal cell areas: the running sums of the sorted areas
+        cells = order[starts[lo]:starts[hi + 1]]
+        zm = ctx.z.ravel()[cells]
+        ok = np.isfinite(zm)
+        out["curve"] = _hypsometry(zm[ok].astype(np.float64),
+                                   ctx.row_area[cells // ctx.nc][ok])
+    if num.slope_count[k]:
+        out["slope"] = (float(num.slope_mean[k]), float(num.slope_p50[k]),
+                        float(num.slope_std[k]), float(num.slope_p10[k]),
+                        float(num.slope_p90[k]), float(num.slope_max[k]))
+    out["sectors"] = num.sector_fraction[k]
+    out["flat_fraction"] = float(num.flat_fraction[k])
+    return out
 
 
 def _finish_table(rows, curves, return_curves):
@@ -682,4 +677,4 @@ def _finish_table(rows, curves, return_curves):
                                        int(c.split("_order_")[1].split("_")[0])))
     other = [c for c in table.columns if c not in order_cols and c != "error"]
     table = table[other + order_cols + ["error"]]
-    return (table, curves) if return_curves else table
+    return (table, CurveFrames(curves)) if return_curves else table

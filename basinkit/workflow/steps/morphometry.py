@@ -85,6 +85,7 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
     import pandas as pd
 
     from ...analysis.catchments import delineate
+    from ...analysis._measure_arrays import CurveFrames
     from ...analysis.morphometry import morphometry_table
     from ...plot.hypsometry import plot_hypsometric_curve
     from ._figures import draw_pngs
@@ -115,7 +116,8 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
                                       return_curves=True, progress=rep.progress,
                                       label_ranges=ranges,
                                       polygons=d.polygons if nested else None)
-    curves = [curves.get(i.item() if hasattr(i, "item") else i) for i in table["catchment_id"]]
+    keys = [i.item() if hasattr(i, "item") else i for i in table["catchment_id"]]
+    curves = [curves.arrays(i) if i in curves else None for i in keys]  # (h, area, elev)
     table = table.drop(columns="catchment_id")
     table.insert(0, "outlet_id", tab["outlet_id"].astype(str).to_numpy())
     table.insert(1, "file_id", tab["file_id"].to_numpy())
@@ -128,16 +130,18 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
                               "error": errors["reason"].astype(str)})
         table = pd.concat([table, extra], ignore_index=True)
     table["error"] = table["error"].fillna("").astype(str)
-    hyps = []
     by_id = {}
-    for oid, curve in zip(tab["outlet_id"].astype(str), curves):
-        if curve is not None:
-            by_id.setdefault(oid, curve)
-            c = curve.assign(area_above_km2=curve["area_above_m2"] / 1e6)
-            c = c.drop(columns="area_above_m2")
-            c.insert(0, "outlet_id", oid)
-            hyps.append(c)
-    hyps = (pd.concat(hyps, ignore_index=True) if hyps else
+    parts = [(oid, c) for oid, c in zip(tab["outlet_id"].astype(str), curves) if c is not None]
+    for oid, c in parts:
+        by_id.setdefault(oid, c)
+    # one table of every curve, built from the arrays (no frame per outlet)
+    hyps = (pd.DataFrame({"outlet_id": [oid for oid, c in parts for _ in range(c[0].size)],
+                          "relative_height": np.concatenate([c[0] for _, c in parts]),
+                          "relative_area_above": np.concatenate([c[1] / c[1][0]
+                                                                 for _, c in parts]),
+                          "elevation_m": np.concatenate([c[2] for _, c in parts]),
+                          "area_above_km2": np.concatenate([c[1] for _, c in parts]) / 1e6})
+            if parts else
             pd.DataFrame(columns=["outlet_id", "relative_height", "relative_area_above",
                                   "elevation_m", "area_above_km2"]))
     fig_rows, missing = placed.figure_rows(s.figure_outlets)
@@ -150,7 +154,8 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
             if curves[k] is None:
                 continue
             oid, fid = tab["outlet_id"].iloc[k], tab["file_id"].iloc[k]
-            jobs.append((f"figures/{fid}_hypsometry.png", plot_hypsometric_curve, (curves[k],),
+            jobs.append((f"figures/{fid}_hypsometry.png", plot_hypsometric_curve,
+                         (CurveFrames({0: curves[k]})[0],),
                          {"label": f"outlet {oid}", "title": f"hypsometric curve, outlet {oid}",
                           "integral": float(table["hypsometric_integral"].iloc[k])}))
         for name, png in draw_pngs(jobs):
@@ -171,4 +176,4 @@ def morphometry_step(out, fm, placed, network=None, delineation=None,
     rep.info(f"measured {len(table) - len(bad)} catchments"
              + (f"; {len(bad)} of {len(table)} outlets could not be measured (see the error "
                 "column)" if len(bad) else ""))
-    return MorphometryResult(table, hyps, by_id)
+    return MorphometryResult(table, hyps, CurveFrames(by_id))
