@@ -61,13 +61,7 @@ def label_sums(order, starts, ncols, row_area, z, slope, aspect, dl):
         s_gw = c_gw = s_sa = c_sa = s_flat = c_flat = 0.0
         sec[:] = 0.0
         secc[:] = 0.0
-        zmin = np.inf
-        zmax = -np.inf
-        dmax = -np.inf
-        nz = 0
-        ng = 0
-        mean = 0.0
-        m2 = 0.0
+        zmin, zmax, dmax, nz, ng, mean, m2 = np.inf, -np.inf, -np.inf, 0, 0, 0.0, 0.0
         for p in range(starts[l], starts[l + 1]):
             i = order[p]
             a = row_area[i // ncols]
@@ -105,14 +99,20 @@ def label_sums(order, starts, ncols, row_area, z, slope, aspect, dl):
         for k in range(8):
             sums[l, 6 + k] = sec[k]
             corr[l, 6 + k] = secc[k]
-        counts[l, 0] = nz
-        counts[l, 1] = ng
-        ext[l, 0] = zmin
-        ext[l, 1] = zmax
-        ext[l, 2] = dmax
-        mom[l, 0] = mean
-        mom[l, 1] = m2
+        _put(l, nz, ng, zmin, zmax, dmax, mean, m2, counts, ext, mom)
     return sums, corr, counts, ext, mom
+
+
+@njit(cache=True, nogil=True)
+def _put(i, nz, ng, zmin, zmax, dmax, mean, m2, counts, ext, mom):
+    """Row ``i`` of the counts, extremes and moments."""
+    counts[i, 0] = nz
+    counts[i, 1] = ng
+    ext[i, 0] = zmin
+    ext[i, 1] = zmax
+    ext[i, 2] = dmax
+    mom[i, 0] = mean
+    mom[i, 1] = m2
 
 
 @njit(cache=True, nogil=True)
@@ -131,13 +131,7 @@ def range_sums(lo, hi, sums, corr, counts, ext, mom):
     for i in range(n):
         s[:] = 0.0
         c[:] = 0.0
-        zmin = np.inf
-        zmax = -np.inf
-        dmax = -np.inf
-        nz = 0
-        ng = 0
-        mean = 0.0
-        m2 = 0.0
+        zmin, zmax, dmax, nz, ng, mean, m2 = np.inf, -np.inf, -np.inf, 0, 0, 0.0, 0.0
         for l in range(lo[i], hi[i] + 1):
             for k in range(nc):
                 _add(s, c, k, sums[l, k])
@@ -158,11 +152,5 @@ def range_sums(lo, hi, sums, corr, counts, ext, mom):
                 dmax = ext[l, 2]
         for k in range(nc):
             out[i, k] = s[k] + c[k]
-        ocnt[i, 0] = nz
-        ocnt[i, 1] = ng
-        oext[i, 0] = zmin
-        oext[i, 1] = zmax
-        oext[i, 2] = dmax
-        omom[i, 0] = mean
-        omom[i, 1] = m2
+        _put(i, nz, ng, zmin, zmax, dmax, mean, m2, ocnt, oext, omom)
     return out, ocnt, oext, omom
