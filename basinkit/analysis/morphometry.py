@@ -507,8 +507,8 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
             todo = progress(todo, total=n, desc="morphometry")
         for i in todo:
             cid = ids[i]
-            rec = {"catchment_id": cid.item() if hasattr(cid, "item") else cid}
-            try:
+
+            def measure(i=i, cid=cid):
                 if labels is not None:
                     if cid <= 0 or rmin[cid] > rmax[cid]:
                         raise InputError(f"catchment {cid} has no cells in the label grid")
@@ -526,13 +526,9 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
                     mwin = m[r0:r1 + 1, c0:c1 + 1]
                 out, curve = _measure(ctx, r0, r1, c0, c1, mwin, outlets[i], return_curves,
                                       polys.get(int(cid)) if labels is not None else None)
-                rec.update(out)
-                rec["error"] = ""
-                if return_curves:
-                    curves[rec["catchment_id"]] = curve
-            except (InputError, OutletError) as exc:
-                rec["error"] = str(exc)
-            rows.append(rec)
+                return out, curve
+
+            _catchment_row(cid, measure, rows, curves, return_curves)
     return _finish_table(rows, curves, return_curves)
 
 
@@ -574,9 +570,9 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
         todo = progress(todo, total=outlets.size, desc="morphometry")
     for i in todo:
         cid = ids[i]
-        rec = {"catchment_id": cid.item() if hasattr(cid, "item") else cid}
         lo, hi = int(ranges[i, 0]), int(ranges[i, 1])
-        try:
+
+        def measure(i=i, cid=cid, lo=lo, hi=hi):
             if where[i] < 0:
                 raise InputError(f"catchment {cid} has no cells in the label grid")
             o = int(outlets[i])
@@ -604,13 +600,9 @@ def _range_rows(ctx, labels, ranges, nlab, outlets, ids, want_curves, progress, 
                     nums["network"] = tuple(v[k] for v in nets)
                 out, curve = _assemble(ctx, nums, o, member, want_curves, poly,
                                        shapes.get(i))
-            rec.update(out)
-            rec["error"] = ""
-            if want_curves:
-                curves[rec["catchment_id"]] = curve
-        except (InputError, OutletError) as exc:
-            rec["error"] = str(exc)
-        rows.append(rec)
+            return out, curve
+
+        _catchment_row(cid, measure, rows, curves, want_curves)
     return rows, curves
 
 
@@ -665,6 +657,22 @@ def _range_numbers(ctx, num, k, h, order, starts, lo, hi):
     out["sectors"] = num.sector_fraction[k]
     out["flat_fraction"] = float(num.flat_fraction[k])
     return out
+
+
+def _catchment_row(cid, measure, rows, curves, want_curves):
+    """One catchment's row of the table into ``rows`` (its curve into ``curves``):
+    ``measure()`` gives (values, curve); an InputError or OutletError it raises becomes
+    the row's ``error``, and the batch goes on."""
+    rec = {"catchment_id": cid.item() if hasattr(cid, "item") else cid}
+    try:
+        out, curve = measure()
+        rec.update(out)
+        rec["error"] = ""
+        if want_curves:
+            curves[rec["catchment_id"]] = curve
+    except (InputError, OutletError) as exc:
+        rec["error"] = str(exc)
+    rows.append(rec)
 
 
 def _finish_table(rows, curves, return_curves):
