@@ -295,7 +295,6 @@ def _profile_item(item):
         f.insert(0, "outlet_id", oid)
         text.append(csv_rows(f, NODE_COLUMNS))
     r = {"node_rows": "".join(text), "steepness": steep, "knickpoints": knick,
-
          "summary": summary, "path_summaries": [lfp.summary(), ms.summary()],
          "path_lines": [_line_wkb(lfp), _line_wkb(ms)]}
     if figures:  # the flow paths themselves travel back only for the figure outlets
