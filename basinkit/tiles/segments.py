@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 from numba import njit
 
-from ..analysis._channels import strahler_streams
+from ..analysis._channels import segment_paths, strahler_streams
 from ..errors import InputError
 from . import _flow_kernels as K
 from .accumulate import TileFlow, _check_layout, by_tile, take
@@ -66,30 +66,6 @@ def _pieces(d, rl, stack, mask, split, dist, h, w):
             length[p] += dist[row, d[row, i - row * w] // 45]
     return (piece, bottom[:npc].copy(), top[:npc].copy(), count[:npc].copy(),
             length[:npc].copy(), ndon)
-
-
-@njit(cache=True, nogil=True)
-def _paths(rl, top, bottom):
-    """Cells of every piece from its top down to its bottom (local), and offsets."""
-    m = top.shape[0]
-    offsets = np.zeros(m + 1, dtype=np.int64)
-    for p in range(m):
-        i = top[p]
-        k = 1
-        while i != bottom[p]:
-            i = rl[i]
-            k += 1
-        offsets[p + 1] = offsets[p] + k
-    cells = np.empty(offsets[m], dtype=np.int64)
-    for p in range(m):
-        i = top[p]
-        q = offsets[p]
-        cells[q] = i
-        while i != bottom[p]:
-            i = rl[i]
-            q += 1
-            cells[q] = i
-    return cells, offsets
 
 
 class _Tile:
@@ -162,7 +138,9 @@ def _segments_task(spec, ti, tj, split_cells, seg_of_piece, dist, edge_cells, ed
     shreve = np.asarray(store.read(orders[1], ti, tj)).ravel()
     z = (np.asarray(store.read(elevation, ti, tj), dtype=np.float64).ravel() if elevation
          else np.zeros(f.rl.shape[0]))
-    cells, offsets = _paths(f.rl, t.top, t.bottom)
+    # the in-memory walk, with no junction cell appended (a mask of no channel cells)
+    cells, offsets = segment_paths(f.rl, np.zeros(f.rl.shape[0], dtype=np.bool_), t.top,
+                                   t.bottom)
     res = {"junction": f.to_global(junction), "junction_segment": out[junction],
            "junction_order": order[junction], "junction_shreve": shreve[junction],
            "junction_ndon": ndon[junction], "junction_area": t.area[junction],
