@@ -4,7 +4,6 @@ place, so an interrupted run never leaves a half-written file under the final na
 from __future__ import annotations
 
 import contextlib
-import itertools
 import json
 import os
 import tempfile
@@ -183,7 +182,7 @@ def write_csv(path, frame):
     ``to_csv(index=False, float_format="%.10g", lineterminator="\n")``."""
     with atomic_path(path) as tmp:
         text = _csv_text(frame)
-        if text is None:  # a column kind the fast path does not know: pandas writes it
+        if text is None:  # column names that are not text: pandas writes them
             _floats_as_text(frame).to_csv(tmp, index=False, lineterminator="\n")
         else:
             with open(tmp, "w", encoding="utf-8", newline="") as fh:
@@ -200,8 +199,6 @@ def _quote(text: str) -> str:
 
 def _column_text(values):
     """One column as a list of CSV fields, or None for a kind left to pandas."""
-    import numpy as np
-
     kind = values.dtype.kind
     if kind == "f":
         fmt = "%.10g".__mod__
@@ -245,13 +242,11 @@ def _object_text(values):
 def _csv_text(frame):
     """The CSV text of ``frame`` as chunks of lines, formatted column by column (the tables
     of a 1 000-outlet job hold millions of values; pandas' per-value writer took most of
-    their writing time), or None when a column's kind is not one this handles."""
+    their writing time), or None for column names that are not text (pandas writes
+    those)."""
     if not all(isinstance(c, str) for c in frame.columns) or not len(frame.columns):
         return None
-    body = csv_rows(frame, list(frame.columns))
-    if body is None:
-        return None
-    return [csv_header(frame.columns), body]
+    return [csv_header(frame.columns), csv_rows(frame, list(frame.columns))]
 
 
 def csv_header(columns) -> str:
@@ -264,15 +259,16 @@ def csv_header(columns) -> str:
 _KERNEL_MIN_VALUES = 1_000
 
 
-def csv_rows(frame, columns) -> str | None:
+def csv_rows(frame, columns) -> str:
     """The rows of ``frame`` as CSV text in the order of ``columns`` (a column the frame
-    lacks is written empty), formatted as :func:`write_csv` does; None when a column's
-    kind is not one this handles. Per-outlet work formats its rows with this in the worker
-    processes, and the table is streamed (:class:`CsvStream`).
+    lacks is written empty), formatted as :func:`write_csv` does. Per-outlet work formats
+    its rows with this in the worker processes, and the table is streamed
+    (:class:`CsvStream`).
 
     Numbers, text and booleans are formatted and joined by compiled kernels
     (``io/_csv_text.py``), which give the same bytes as the per-value path
-    (:func:`_rows_by_lists`, kept for the rare column they leave to it)."""
+    (:func:`_rows_by_lists`, kept for the rare column they leave to it); a column of
+    another kind (dates, decimals in an object column) leaves the rows to pandas."""
     from . import _csv_text as K
 
     n = len(frame)
@@ -294,22 +290,18 @@ def csv_rows(frame, columns) -> str | None:
             b = K.float_fields(values)
         elif kind in "iu":
             b = K.int_fields(values)
-        elif kind == "b":
-            b = K.text_fields(["True" if x else "False" for x in values.tolist()])
-        elif kind == "O":
-            text = _object_text(values)
-            if text is None:
-                return None
-            b = K.text_fields(text)
         else:
-            return None
+            text = _column_text(values)
+            if text is None:
+                return _rows_by_pandas(frame, columns)
+            b = K.text_fields(text)
         if b is None:  # a NUL in a text, or integers beyond int64
             return _rows_by_lists(frame, columns)
         bufs.append(b)
     return K.rows_text(bufs, n)
 
 
-def _rows_by_lists(frame, columns) -> str | None:
+def _rows_by_lists(frame, columns) -> str:
     """:func:`csv_rows` value by value in Python."""
     n = len(frame)
     cols = []
@@ -317,13 +309,19 @@ def _rows_by_lists(frame, columns) -> str | None:
         if c in frame.columns:
             text = _column_text(frame[c].to_numpy())
             if text is None:
-                return None
+                return _rows_by_pandas(frame, columns)
         else:
             text = [""] * n
         cols.append(text)
     if len(cols) == 1:  # the csv module writes a lone empty field as "", not an empty line
         cols[0] = [x if x else '""' for x in cols[0]]
     return "\n".join(map(",".join, zip(*cols))) + "\n"
+
+
+def _rows_by_pandas(frame, columns) -> str:
+    """:func:`csv_rows` by pandas' writer (floats as :func:`write_csv` gives them)."""
+    return _floats_as_text(frame.reindex(columns=columns)).to_csv(
+        header=False, index=False, lineterminator="\n")
 
 
 class CsvStream:

@@ -303,19 +303,6 @@ def _profile_item(item):
     return r
 
 
-def _rows(frame, columns) -> str:
-    """CSV rows of ``frame`` in the order of ``columns`` (pandas where the fast writer
-    declines a column)."""
-    from ...io.writers import csv_rows
-
-    text = csv_rows(frame, columns)
-    if text is None:
-        text = frame.reindex(columns=columns).to_csv(header=False, index=False,
-                                                     float_format="%.10g",
-                                                     lineterminator="\n")
-    return text
-
-
 def _line_wkb(prof) -> bytes:
     """A flow path as a WKB line string (a one-node path as a line of two equal nodes)."""
     import shapely
@@ -467,6 +454,8 @@ class _Layers:
         import pandas as pd
         import shapely
 
+        from ...io.writers import csv_rows
+
         if not self.chunk:
             return
         steep = [s for _, s, _, _ in self.chunk if len(s)]
@@ -484,7 +473,7 @@ class _Layers:
         parts, geoms = [], []
         if steep:
             s = pd.concat(steep, ignore_index=True)
-            self.tables[0].write_text(_rows(s, STEEPNESS_COLUMNS))
+            self.tables[0].write_text(csv_rows(s, STEEPNESS_COLUMNS))
             s["kind"] = "channel_segment"
             s["length_m"] = self.length.reindex(s["segment_id"]).to_numpy()
             parts.append(s)
@@ -497,6 +486,6 @@ class _Layers:
             self.write("profiles", gpd.GeoDataFrame(table, geometry=geoms, crs=self.crs))
         if knick:
             k = pd.concat(knick, ignore_index=True).reindex(columns=KNICKPOINT_COLUMNS)
-            self.tables[1].write_text(_rows(k, KNICKPOINT_COLUMNS))
+            self.tables[1].write_text(csv_rows(k, KNICKPOINT_COLUMNS))
             pts = shapely.points(k["x"].to_numpy(float), k["y"].to_numpy(float))
             self.write("knickpoints", gpd.GeoDataFrame(k, geometry=pts, crs=self.crs))
