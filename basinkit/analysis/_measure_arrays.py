@@ -118,12 +118,14 @@ class NestedNumbers:
         s, e = starts[lo], starts[hi + 1]
         row_area = np.ascontiguousarray(row_area, dtype=np.float64)
         threads = max(int(threads), 1)
-        with ThreadPoolExecutor(min(threads, 2)) as pool:  # the kernels drop the GIL
-            zw = pool.submit(lambda: WaveletMatrix(z[order]))
-            sw = pool.submit(lambda: WaveletMatrix(slope[order]))
+        # the two matrices one after the other, beside the sums (the kernels drop the GIL):
+        # building one holds about 32 bytes per cell for a moment, so two at once would
+        # double a batch's peak memory for a second or two of wall time
+        with ThreadPoolExecutor(min(threads, 2)) as pool:
+            both = pool.submit(lambda: (WaveletMatrix(z[order]), WaveletMatrix(slope[order])))
             sums = ls.label_sums(order, starts, ncols, row_area, z, slope, aspect, dl)
             tot, cnt, ext, mom = ls.range_sums(lo, hi, *sums)
-            zwm, swm = zw.result(), sw.result()
+            zwm, swm = both.result()
         self.count = e - s
         self.area = tot[:, ls.AREA]
         self.dl_max = ext[:, 2]

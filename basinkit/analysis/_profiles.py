@@ -383,9 +383,11 @@ def knickpoints_one(x, y, min_nodes, noise_var, min_ratio, min_relief, max_break
 @njit(cache=True, nogil=True)
 def donor_lists(rec):
     """Donors of every cell in compressed form: the donors of cell i are
-    ``donors[offsets[i]:offsets[i + 1]]`` (increasing cell index). One O(N) pass."""
+    ``donors[offsets[i]:offsets[i + 1]]`` (increasing cell index). One O(N) pass. Both
+    int32 (a grid in memory has fewer than 2**31 cells: its receivers are int32), so
+    that the table kept for a batch's profiles is 8 bytes per cell."""
     n = rec.shape[0]
-    offsets = np.zeros(n + 1, dtype=np.int64)
+    offsets = np.zeros(n + 1, dtype=np.int32)
     for i in range(n):
         r = rec[i]
         if r >= 0:
