@@ -196,6 +196,13 @@ def test_small_job_runs_and_carries_on_past_a_bad_outlet(valley, tmp_path):
     assert expected.sum() == 1840
     assert np.array_equal(res.catchments.catchment_mask("gauge"), expected)
     assert good["area_m2"] == pytest.approx(expected.sum() * 100.0, rel=1e-12)
+    # the job let go of the polygons before its profiles; asked for, they come back from
+    # catchments.gpkg, with the closed-form area of the 1 840 cells
+    assert res.catchments.polygons is None
+    assert res.catchments.catchment_polygon("gauge").area == pytest.approx(184000.0,
+                                                                           rel=1e-12)
+    frame = res.catchments.subcatchments_frame()
+    assert frame.geometry.area.sum() == pytest.approx(184000.0, rel=1e-12)
     errors = pd.read_csv(tmp_path / "out" / "outlet_errors.csv")
     assert errors["outlet_id"].tolist() == ["far_away"]
     assert (tmp_path / "out" / "provenance.json").exists()

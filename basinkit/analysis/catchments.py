@@ -53,7 +53,7 @@ class Delineation:
         label ``L`` is exactly the cells with ``L <= label <= L + subtree_size - 1``.
     polygons : list of shapely geometries or None
         Full-catchment polygons aligned with :attr:`table` rows (None when
-        ``polygons=False``).
+        ``polygons=False``, or once a job has released them: :meth:`release_polygons`).
     subcatchment_polygons : list of shapely geometries or None
         Sub-catchment polygons aligned with :attr:`table` rows (None: the sub-catchment is
         empty, which cannot happen for an outlet on a valid cell, or polygons were off).
@@ -77,6 +77,30 @@ class Delineation:
     _fm: object = field(default=None, repr=False)
     _fractions: dict = field(default_factory=dict, repr=False)
     _index: dict = field(default=None, repr=False)
+    _polygons_file: object = field(default=None, repr=False)
+
+    def release_polygons(self, path) -> None:
+        """Let go of the polygons held in memory (a job does, once its later steps no
+        longer need them: a batch of nested catchments holds about 24 bytes per vertex).
+        :attr:`polygons` and :attr:`subcatchment_polygons` are None afterwards;
+        :meth:`catchment_polygon`, :meth:`catchments_frame` and
+        :meth:`subcatchments_frame` read them back from ``path``, the catchments
+        GeoPackage the job wrote."""
+        if self.polygons is not None:
+            self.polygons = self.subcatchment_polygons = None
+            self._polygons_file = path
+
+    def _geometries(self, layer):
+        """The polygons of ``layer`` (``catchments``/``subcatchments``) in table order:
+        held, read back from the job's GeoPackage once released, or None."""
+        held = self.polygons if layer == "catchments" else self.subcatchment_polygons
+        if held is not None or self._polygons_file is None:
+            return held
+        import pyogrio
+
+        f = pyogrio.read_dataframe(self._polygons_file, layer=layer, columns=["outlet_id"])
+        where = dict(zip(f["outlet_id"].astype(str), f.geometry.to_numpy()))
+        return [where.get(k) for k in self.table["outlet_id"].astype(str)]
 
     def _label_of(self, outlet_id):
         index = self._index
@@ -110,7 +134,8 @@ class Delineation:
     def catchment_polygon(self, outlet_id):
         """Full-catchment polygon of an outlet."""
         _, row = self._label_of(outlet_id)
-        return None if self.polygons is None else self.polygons[row]
+        polys = self._geometries("catchments")
+        return None if polys is None else polys[row]
 
     @property
     def downstream(self) -> dict:
@@ -123,7 +148,8 @@ class Delineation:
         """Full catchments as a GeoDataFrame (table columns + geometry), in the DEM CRS."""
         import geopandas as gpd
 
-        return gpd.GeoDataFrame(self.table.copy(), geometry=self.polygons, crs=self._crs())
+        return gpd.GeoDataFrame(self.table.copy(), geometry=self._geometries("catchments"),
+                                crs=self._crs())
 
     def subcatchments_frame(self):
         """Sub-catchments as a GeoDataFrame in the DEM CRS."""
@@ -134,7 +160,8 @@ class Delineation:
         f = self.table[cols].rename(columns={"subcatchment_area_m2": "area_m2",
                                              "subcatchment_cell_count": "cell_count"})
         f = f.assign(area_km2=f["area_m2"] / 1e6)
-        return gpd.GeoDataFrame(f, geometry=self.subcatchment_polygons, crs=self._crs())
+        return gpd.GeoDataFrame(f, geometry=self._geometries("subcatchments"),
+                                crs=self._crs())
 
     def outlets_frame(self, which="snapped"):
         """Outlet points (``"snapped"`` or ``"given"``, the latter in the DEM CRS)."""

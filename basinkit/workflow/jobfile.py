@@ -1,5 +1,5 @@
-"""Job files: the whole job (flow folder → catchments → channels → profiles → morphometry
-→ report) described in one TOML file; this module reads and checks them (the schema, with
+"""Job files: the whole job (flow folder → catchments → channels → morphometry → design
+flows → profiles → report) described in one TOML file; this module reads and checks them (the schema, with
 every key's type and default), :mod:`basinkit.workflow.runner` runs them.
 
 A job file names its inputs, the parameters of every stage and the outputs. Paths in it are

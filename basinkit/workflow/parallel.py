@@ -103,8 +103,13 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
                                 chunksize=chunk)
 
             def all_results():
+                from .._processes import return_freed_memory
+
                 yield first
-                yield from results
+                for k, r in enumerate(results, 2):
+                    yield r
+                    if k % TRIM_EVERY == 0:  # the results taken here, freed, handed back
+                        return_freed_memory()
 
             yield from wrap(all_results(), total=total, desc=desc)
     finally:

@@ -48,6 +48,8 @@ class JobResult:
     outlets : pandas.DataFrame or None
         One row per outlet given (catchments.csv with ``cell`` = -1 for failed outlets).
     catchments : Delineation or None
+        Its polygons are released before the profiles (read back from catchments.gpkg by
+        its ``catchment_polygon`` and frames).
     network : ChannelNetwork or None
     morphometry : pandas.DataFrame or None
         morphometry.csv.
@@ -134,7 +136,8 @@ def settings_of(job: JobSpec) -> dict:
 
 def run_job(job, output=None, overwrite: bool = False, console=None,
             report=None) -> JobResult:
-    """Run a job: flow folder → catchments → channels → profiles → morphometry → report.
+    """Run a job: flow folder → catchments → channels → morphometry → design flows →
+    profiles → report.
 
     Parameters
     ----------
@@ -260,19 +263,11 @@ def _run(job, out, rep, report):
                               reporter=rep)
     res.network = chres.network
     if placed is None:
-        timer.skip("profiles", "no outlets")
         timer.skip("morphometry", "no outlets")
+        timer.skip("profiles", "no outlets")
     else:
-        if job["profiles"]["enabled"]:
-            with timer("profiles"):
-                pres = profiles_step(out, fm, placed, chres.network, st["profiles"],
-                                     reporter=rep)
-            res.profiles = pres.paths
-            failures.append(pres.failures.assign(stage="profiles"))
-            if design is None:  # the design flows' flow paths use the same donor tables
-                fm.release("profiles")
-        else:
-            timer.skip("profiles", "turned off in the job file ([profiles] enabled = false)")
+        # the stages that read the catchment polygons first, then the profiles without
+        # them: a batch of nested catchments holds about 24 bytes per vertex in them
         if job["morphometry"]["enabled"]:
             with timer("morphometry"):
                 mres = morphometry_step(out, fm, placed, network=chres.network,
@@ -294,6 +289,16 @@ def _run(job, out, rep, report):
                 dres = design_flow_step(out, fm, placed, st["design_flow"], hydro=design,
                                         delineation=cres.delineation, reporter=rep)
             failures.append(dres.failures.assign(stage="design_flow"))
+        cres.delineation.release_polygons(out.destination / "catchments.gpkg")
+        if job["profiles"]["enabled"]:
+            with timer("profiles"):
+                pres = profiles_step(out, fm, placed, chres.network, st["profiles"],
+                                     reporter=rep)
+            res.profiles = pres.paths
+            failures.append(pres.failures.assign(stage="profiles"))
+            fm.release("profiles")  # nothing after needs the donor tables
+        else:
+            timer.skip("profiles", "turned off in the job file ([profiles] enabled = false)")
     cols = ["outlet_id", "source", "stage", "reason"]
     parts = [f[cols] for f in failures if len(f)]
     res.failures = (pd.concat(parts, ignore_index=True) if parts
