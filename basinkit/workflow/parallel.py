@@ -29,7 +29,7 @@ def shared(name):
 
 
 # a worker hands its freed memory back to the system after this many items
-TRIM_EVERY = 32
+TRIM_EVERY = 8
 _DONE = [0]
 
 

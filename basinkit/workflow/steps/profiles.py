@@ -415,7 +415,7 @@ PROFILE_LAYER_COLUMNS = ["outlet_id", "kind", "segment_id", "profile_id", "strah
 _KNICK_TYPES = {"outlet_id": object, "profile_id": "int32", "row": "int32", "col": "int32",
                 "kind": object, "in_filled_depression": bool}
 # outlets per chunk written to profiles.gpkg
-LAYER_CHUNK = 256
+LAYER_CHUNK = 128
 
 
 class _Layers:
