@@ -186,11 +186,12 @@ def return_freed_memory() -> bool:
     """
     if not _LIBC:
         import ctypes
-        import ctypes.util
 
+        # the C library already loaded in this process (not ctypes.util.find_library,
+        # which runs ldconfig: a subprocess started while a pool's thread forks a worker
+        # waits for that worker to end)
         try:
-            libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
-            _LIBC.append(libc.malloc_trim)
+            _LIBC.append(ctypes.CDLL(None).malloc_trim)
         except (OSError, AttributeError):
             _LIBC.append(None)
     trim = _LIBC[0]

@@ -90,11 +90,12 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
         import multiprocessing as mp
         import os
 
-        from .._processes import signals_held, worker_init
+        from .._processes import return_freed_memory, signals_held, worker_init
 
         # the first item here: kernels compiled and modules imported before the fork
         first = func(items[0])
         chunk = max(1, min(16, len(items) // (8 * int(workers))))
+        return_freed_memory()  # also finds the C library's trim before any fork
         with signals_held():  # Ctrl-C and SIGTERM wait until the workers are set up
             pool = mp.get_context("fork").Pool(int(workers), initializer=worker_init,
                                                initargs=(os.getpid(),))
@@ -103,8 +104,6 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
                                 chunksize=chunk)
 
             def all_results():
-                from .._processes import return_freed_memory
-
                 yield first
                 for k, r in enumerate(results, 2):
                     yield r
