@@ -3,7 +3,11 @@ colours (these plots and maps hold far fewer distinct colours than that, so the 
 not visible), written without a date so that the same figure gives the same bytes.
 
 The palette PNG is about a third of the bytes of a full-colour one and is faster to
-compress; the steps write their figures with it and the report embeds those files."""
+compress; the steps write their figures with it and the report embeds those files.
+
+:func:`plot_png` draws a plot function's figure on the figure kept for its kind
+(:func:`basinkit.plot._style.keeping_figures`): a job draws the same kinds for many
+outlets, and making the axes and their ticks is most of a drawing's time."""
 
 from __future__ import annotations
 
@@ -11,7 +15,7 @@ import io
 
 import numpy as np
 
-__all__ = ["figure_png", "FIGURE_DPI"]
+__all__ = ["figure_png", "plot_png", "FIGURE_DPI"]
 
 #: Resolution of the figures the steps write and the report embeds.
 FIGURE_DPI = 100
@@ -52,7 +56,8 @@ def figure_png(fig, dpi: int = FIGURE_DPI, colours: int = 256,
     if not 0 <= int(colours) <= 256:
         raise ValueError("colours must be 0 to 256")
     fig.set_dpi(dpi)
-    canvas = FigureCanvasAgg(fig)
+    # a kept figure keeps its canvas (and the canvas its renderer, cleared at each draw)
+    canvas = fig.canvas if type(fig.canvas) is FigureCanvasAgg else FigureCanvasAgg(fig)
     canvas.draw()
     im = Image.fromarray(np.asarray(canvas.buffer_rgba())[..., :3].copy())
     if colours:
@@ -62,3 +67,23 @@ def figure_png(fig, dpi: int = FIGURE_DPI, colours: int = 256,
     buf = io.BytesIO()
     im.save(buf, format="PNG", compress_level=6, dpi=(dpi, dpi))
     return buf.getvalue()
+
+
+def plot_png(plot, *args, dpi: int = FIGURE_DPI, colours: int = 256, **kwargs) -> bytes:
+    """PNG bytes (:func:`figure_png`) of ``plot(*args, **kwargs)``, a function of
+    :mod:`basinkit.plot` called without ``ax``, drawn on the figure kept for its kind in
+    this thread: the same bytes as on a new figure, whatever was drawn before.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from basinkit.plot.hypsometry import plot_hypsometric_curve
+    >>> c = pd.DataFrame({"relative_height": [0, 0.5, 1], "relative_area_above": [1, .3, 0]})
+    >>> plot_png(plot_hypsometric_curve, c, label="a") == figure_png(
+    ...     plot_hypsometric_curve(c, label="a"))
+    True
+    """
+    from ._style import keeping_figures
+
+    with keeping_figures():
+        return figure_png(plot(*args, **kwargs), dpi=dpi, colours=colours)
