@@ -4,11 +4,18 @@ Run by hand (not part of the tests):
 
     python bench/bench_figures.py capture            # runs the demo job once, keeps the inputs
     python bench/bench_figures.py time --draws 5     # CPU per figure, each kind drawn in turn
+    python bench/bench_figures.py time --package /path/to/other/checkout   # its basinkit
+    python bench/bench_figures.py demo --runs 3 --package A --package B  # warm demos in turn
 
 ``capture`` runs the demo job in this process (one worker), with the profiles step's
 ``_figures`` and the steps' ``draw_pngs`` wrapped so that their arguments are pickled to
 bench/out/figure_args.pkl; the job's output folder is kept under bench/out/figures_demo
 for the report's figures (maps, histograms, drawn from the folder).
+
+``demo`` runs the warm ``basinkit --log-json demo -o FOLDER --overwrite`` of each checkout
+given with ``--package`` in turn (A, B, A, B, ...; one warm-up run each first) and prints
+the medians of wall time, CPU (user + system of the command and its workers) and the
+stages' seconds (the ``stage_done`` records).
 
 ``time`` draws every captured figure ``--draws`` times, the outlets one after another as
 a job does (so that whatever a figure kind keeps between draws is used as in a job), and
@@ -83,8 +90,8 @@ def _report_figures():
 
 
 def time_figures(draws):
-    from basinkit.plot.png import figure_png
     from basinkit.workflow.steps import profiles as P
+    from basinkit.workflow.steps._figures import _draw
 
     with open(ARGS, "rb") as f:
         got = pickle.load(f)
@@ -104,23 +111,75 @@ def time_figures(draws):
     run("profiles (4 figures) per outlet", len(got["profiles"]),
         lambda: [P._figures(*a) for a in got["profiles"]])
     by = {}
-    for name, plot, args, kw in got["pngs"]:
-        by.setdefault(plot.__name__, []).append((plot, args, kw))
-    for k, jobs in by.items():
-        run(k, len(jobs), lambda jobs=jobs: [figure_png(p(*a, **kw)) for p, a, kw in jobs])
+    for job in got["pngs"]:
+        by.setdefault(job[1].__name__, []).append(job)
+    for k, jobs in by.items():  # as the steps draw them (draw_pngs' _draw)
+        run(k, len(jobs), lambda jobs=jobs: [_draw(j) for j in jobs])
     ids = list(d.ok_ids)
     run("report outlet_map", len(ids), lambda: [rf.outlet_map(i) for i in ids])
     run("report overview", 1, rf.overview)
     run("report distributions", 1, rf.distributions)
+    import basinkit
+
+    print(f"basinkit from {Path(basinkit.__file__).parent.parent}")
     for k, v in kinds.items():
         print(f"{k:36s} {1000 * v:8.1f} ms CPU")
 
 
+def demo(packages, runs):
+    import json
+    import os
+    import resource
+    import subprocess
+
+    out = Path(tempfile.mkdtemp())
+    rows = {p: [] for p in packages}
+
+    def once(pkg):
+        env = {**os.environ, "PYTHONPATH": str(pkg)}
+        r0 = resource.getrusage(resource.RUSAGE_CHILDREN)
+        t0 = time.perf_counter()
+        res = subprocess.run([sys.executable, "-m", "basinkit.cli", "--log-json", "demo",
+                              "-o", str(out / "demo"), "--overwrite"], env=env, cwd=out,
+                             capture_output=True, text=True)
+        wall = time.perf_counter() - t0
+        r1 = resource.getrusage(resource.RUSAGE_CHILDREN)
+        cpu = (r1.ru_utime - r0.ru_utime) + (r1.ru_stime - r0.ru_stime)
+        stages = {}
+        for line in (res.stdout + res.stderr).splitlines():
+            try:
+                rec = json.loads(line)
+            except ValueError:
+                continue
+            if isinstance(rec, dict) and rec.get("event") == "stage_done":
+                stages[rec["stage"]] = rec["seconds"]
+        return {"wall": wall, "cpu": cpu, **stages}
+
+    for p in packages:
+        once(p)  # warm-up
+    for _ in range(runs):
+        for p in packages:
+            rows[p].append(once(p))
+    keys = list(rows[packages[0]][0])
+    print("package".ljust(24) + "".join(k[:11].rjust(12) for k in keys))
+    for p, rs in rows.items():
+        med = [statistics.median(r.get(k, float("nan")) for r in rs) for k in keys]
+        print(Path(p).name.ljust(24) + "".join(f"{v:12.2f}" for v in med))
+    shutil.rmtree(out)
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("what", choices=["capture", "time"])
+    ap.add_argument("what", choices=["capture", "time", "demo"])
     ap.add_argument("--draws", type=int, default=5)
+    ap.add_argument("--package", action="append", default=[],
+                    help="import basinkit from this checkout (demo: each in turn)")
+    ap.add_argument("--runs", type=int, default=3)
     a = ap.parse_args(argv)
+    if a.what == "demo":
+        return demo([str(Path(p).resolve()) for p in a.package or [ROOT]], a.runs)
+    if a.package:
+        sys.path.insert(0, str(Path(a.package[-1]).resolve()))
     if a.what == "capture":
         capture()
     else:
