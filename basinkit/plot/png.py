@@ -13,8 +13,6 @@ from __future__ import annotations
 
 import io
 
-import numpy as np
-
 __all__ = ["figure_png", "plot_png", "FIGURE_DPI"]
 
 #: Resolution of the figures the steps write and the report embeds.
@@ -59,7 +57,10 @@ def figure_png(fig, dpi: int = FIGURE_DPI, colours: int = 256,
     # a kept figure keeps its canvas (and the canvas its renderer, cleared at each draw)
     canvas = fig.canvas if type(fig.canvas) is FigureCanvasAgg else FigureCanvasAgg(fig)
     canvas.draw()
-    im = Image.fromarray(np.asarray(canvas.buffer_rgba())[..., :3].copy())
+    w, h = canvas.get_width_height(physical=True)
+    # RGB from the RGBA buffer in one pass of Pillow (not a strided numpy copy)
+    im = Image.frombuffer("RGBA", (w, h), canvas.buffer_rgba(), "raw", "RGBA", 0,
+                          1).convert("RGB")
     if colours:
         how = {"octree": Image.Quantize.FASTOCTREE,
                "mediancut": Image.Quantize.MEDIANCUT}[method]
