@@ -317,7 +317,7 @@ def test_kept_figures_draw_what_new_figures_draw():
     which the outlets are drawn, DESIGN.md). Outside plot_png nothing is kept."""
     import warnings
 
-    from basinkit.plot._style import forget_kept_figures
+    from basinkit.plot._style import _KEPT, forget_kept_figures
     from basinkit.plot.png import figure_png, plot_png
 
     warnings.simplefilter("ignore")
@@ -330,5 +330,9 @@ def test_kept_figures_draw_what_new_figures_draw():
             kept = [plot_png(variants[i][0], *variants[i][1], **variants[i][2])
                     for i in order]
             assert kept == [fresh[i] for i in order], (kind, list(order))
+        # between drawings the kept figure holds no data (e.g. a map's relief image)
+        (fig,) = _KEPT.figures.values()
+        for ax in fig.axes:
+            assert not (ax.lines or ax.collections or ax.images or ax.patches or ax.texts)
         p, a, k = variants[0]
         assert p(*a, **k) is not p(*a, **k)  # new figures outside plot_png

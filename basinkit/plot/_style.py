@@ -85,6 +85,13 @@ def kept_figure(key, make):
     return fig
 
 
+def release_kept_figure(fig):
+    """Clear ``fig`` (:func:`clear_figure`) if it is one of this thread's kept figures, so
+    that a kept figure holds no data (a map's relief image) between drawings."""
+    if any(fig is f for f in getattr(_KEPT, "figures", {}).values()):
+        clear_figure(fig)
+
+
 def forget_kept_figures():
     """Drop the figures kept in this thread (the next ones are made anew)."""
     _KEPT.figures = {}

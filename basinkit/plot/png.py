@@ -84,7 +84,11 @@ def plot_png(plot, *args, dpi: int = FIGURE_DPI, colours: int = 256, **kwargs) -
     ...     plot_hypsometric_curve(c, label="a"))
     True
     """
-    from ._style import keeping_figures
+    from ._style import keeping_figures, release_kept_figure
 
     with keeping_figures():
-        return figure_png(plot(*args, **kwargs), dpi=dpi, colours=colours)
+        fig = plot(*args, **kwargs)
+        try:
+            return figure_png(fig, dpi=dpi, colours=colours)
+        finally:
+            release_kept_figure(fig)  # nothing of this plot's data kept until the next
