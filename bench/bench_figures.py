@@ -6,6 +6,7 @@ Run by hand (not part of the tests):
     python bench/bench_figures.py time --draws 5     # CPU per figure, each kind drawn in turn
     python bench/bench_figures.py time --package /path/to/other/checkout   # its basinkit
     python bench/bench_figures.py demo --runs 3 --package A --package B  # warm demos in turn
+    python bench/bench_figures.py kept --draws 4     # new figure against kept, interleaved
 
 ``capture`` runs the demo job in this process (one worker), with the profiles step's
 ``_figures`` and the steps' ``draw_pngs`` wrapped so that their arguments are pickled to
@@ -16,6 +17,11 @@ for the report's figures (maps, histograms, drawn from the folder).
 given with ``--package`` in turn (A, B, A, B, ...; one warm-up run each first) and prints
 the medians of wall time, CPU (user + system of the command and its workers) and the
 stages' seconds (the ``stage_done`` records).
+
+``kept`` draws every captured step figure on a new figure (``figure_png(plot(...))``, as
+before kept figures) and on the kept one (``plot_png``), one after the other for each
+figure, so that both see the same load; it checks that the bytes are equal and prints the
+median CPU of each per kind.
 
 ``time`` draws every captured figure ``--draws`` times, the outlets one after another as
 a job does (so that whatever a figure kind keeps between draws is used as in a job), and
@@ -168,9 +174,49 @@ def demo(packages, runs):
     shutil.rmtree(out)
 
 
+def kept(draws):
+    from basinkit.analysis import profile_fits as F
+    from basinkit.plot import profiles as G
+    from basinkit.plot.png import figure_png, plot_png
+
+    with open(ARGS, "rb") as f:
+        got = pickle.load(f)
+    warnings.simplefilter("ignore")
+    jobs = []
+    for oid, nodes, steep, knick, lfp, ms in got["profiles"]:
+        sa = (F.slope_area_fit(nodes["upstream_area_m2"], nodes["slope_m_per_m"])
+              if len(nodes) >= 3 else None)
+        jobs += [("long profile", G.plot_long_profile, (ms,), {"title": "a"}),
+                 ("long profile", G.plot_long_profile, (lfp,),
+                  {"knickpoints": G.knickpoints_on(lfp, knick), "title": "b"}),
+                 ("chi", G.plot_chi, (nodes,),
+                  {"knickpoints": knick, "steepness_table": steep, "title": "c"}),
+                 ("slope-area", G.plot_slope_area,
+                  (nodes["upstream_area_m2"], nodes["slope_m_per_m"]),
+                  {"fit": sa, "title": "d"})]
+    jobs += [(j[1].__name__, j[1], j[2], j[3]) for j in got["pngs"]]
+    res = {}
+    for rnd in range(draws + 1):  # the first round warms up
+        for kind, p, a, k in jobs:
+            t0 = time.process_time()
+            b1 = figure_png(p(*a, **k))
+            t1 = time.process_time()
+            b2 = plot_png(p, *a, **k)
+            t2 = time.process_time()
+            assert b1 == b2, kind
+            if rnd:
+                r = res.setdefault(kind, ([], []))
+                r[0].append(t1 - t0)
+                r[1].append(t2 - t1)
+    for kind, (f, k) in res.items():
+        a, b = statistics.median(f), statistics.median(k)
+        print(f"{kind:24s} new figure {1000 * a:6.1f} ms   kept {1000 * b:6.1f} ms   "
+              f"ratio {a / b:.2f}")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("what", choices=["capture", "time", "demo"])
+    ap.add_argument("what", choices=["capture", "time", "demo", "kept"])
     ap.add_argument("--draws", type=int, default=5)
     ap.add_argument("--package", action="append", default=[],
                     help="import basinkit from this checkout (demo: each in turn)")
@@ -182,6 +228,8 @@ def main(argv=None):
         sys.path.insert(0, str(Path(a.package[-1]).resolve()))
     if a.what == "capture":
         capture()
+    elif a.what == "kept":
+        kept(a.draws)
     else:
         time_figures(a.draws)
 
