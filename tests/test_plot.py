@@ -239,3 +239,100 @@ def test_figures_drawn_in_workers_are_those_drawn_here():
     assert [n for n, _ in here] == [j[0] for j in jobs]
     assert here == forked
     assert len({png for _, png in here}) == len(jobs)  # each its own curve
+
+
+def _plot_variants():
+    """Each kind of figure drawn on a kept figure, with data of different extents and
+    scales: ``{kind: [(plot, args, kwargs), ...]}``; the last of each kind draws no data
+    (an outlet without channels) where the function allows it."""
+    from types import SimpleNamespace
+
+    from basinkit.plot.hydrograph import plot_design_hydrograph
+    from basinkit.plot.hypsometry import plot_hypsometric_curve
+    from basinkit.plot.maps import plot_map
+    from basinkit.plot.profiles import plot_chi, plot_long_profile, plot_slope_area
+
+    rng = np.random.default_rng(1)
+
+    def prof(n, length, z0):
+        d = np.linspace(0, length, n)
+        z = z0 + 0.05 * d
+        return SimpleNamespace(kind="main_stem", distance_m=d, elevation_m=z + 1,
+                               elevation_conditioned_m=z, length_m=float(d[-1]))
+
+    def nodes(n, top):
+        t = pd.DataFrame({"chi_m": rng.uniform(0, top, n),
+                          "elevation_conditioned_m": rng.uniform(10, 10 + top, n),
+                          "is_main_stem": np.arange(n) < n // 2, "outlet_id": "a"})
+        t.attrs["concavity"] = 0.45
+        return t
+
+    def storm(peak, hours):
+        t = np.arange(0, hours, 0.1)
+        rain = np.exp(-((t - hours / 2) / 0.7) ** 2)
+        q = peak * np.exp(-((t - hours / 2 - 0.5) / 0.6) ** 2)
+        return pd.DataFrame({"time_h": t, "rainfall_in_step_mm": rain,
+                             "excess_in_step_mm": 0.5 * rain, "direct_runoff_m3_per_s": q,
+                             "base_flow_m3_per_s": np.full_like(t, 0.4),
+                             "discharge_m3_per_s": q + 0.4})
+
+    from shapely.geometry import LineString, Polygon
+
+    img = np.dstack([rng.uniform(0, 1, (40, 50, 3)), np.ones((40, 50))])
+    empty = nodes(0, 1)
+    area = 10 ** rng.uniform(2, 8, 300)
+    h = np.linspace(0, 1, 40)
+    return {
+        "long_profile": [(plot_long_profile, (prof(300, 12_000.0, 900.0),),
+                          {"title": "far"}),
+                         (plot_long_profile, (prof(20, 80.0, 3.0),),
+                          {"knickpoints": pd.DataFrame({"distance_from_outlet_m": [40.0],
+                                                        "elevation_m": [5.0]})})],
+        "chi": [(plot_chi, (nodes(400, 3000),), {"title": "big"}),
+                (plot_chi, (nodes(30, 5),), {}), (plot_chi, (empty,), {})],
+        "slope_area": [(plot_slope_area, (area, 30 * area ** -0.45), {}),
+                       (plot_slope_area, (area[:20] / 1e4, area[:20] ** 0.1), {}),
+                       (plot_slope_area, ([], []), {"title": "none"})],
+        "hypsometry": [(plot_hypsometric_curve, (pd.DataFrame(
+            {"relative_height": h, "relative_area_above": 1 - h ** 2}),),
+            {"integral": 0.6, "label": "a"}),
+            (plot_hypsometric_curve, (pd.DataFrame(
+                {"relative_height": h, "relative_area_above": 1 - h ** 0.3}),), {})],
+        "hydrograph": [(plot_design_hydrograph, (storm(40.0, 24.0),), {"title": "a"}),
+                       (plot_design_hydrograph, (storm(0.3, 6.0),), {"xlim_h": "all"})],
+        "map": [(plot_map, ((img, (0, 5000, 0, 4000)),),
+                 {"divides": [Polygon([(500, 500), (4000, 600), (2500, 3500)])],
+                  "channels": [LineString([(600, 600), (2000, 2000)])], "orders": [2],
+                  "snapped": np.array([[600.0, 600.0]]), "labels": ["a"], "title": "a"}),
+                (plot_map, (), {"window": (10.0, 10.5, 45.0, 45.4), "geographic": True,
+                                "metres_per_unit": 78_000.0})],
+    }
+
+
+def test_kept_figures_draw_what_new_figures_draw():
+    """plot_png draws each kind of figure on the one kept from the last drawing of that
+    kind, cleared: the bytes are those of a new figure, whatever was drawn before it (data
+    of other extents, log scales, no data at all), in either order (common practice, no
+    source: a figure shows only its own data; the products do not depend on the order in
+    which the outlets are drawn, DESIGN.md). Outside plot_png nothing is kept."""
+    import warnings
+
+    from basinkit.plot._style import _KEPT, forget_kept_figures
+    from basinkit.plot.png import figure_png, plot_png
+
+    warnings.simplefilter("ignore")
+    for kind, variants in _plot_variants().items():
+        fresh = [figure_png(p(*a, **k)) for p, a, k in variants]
+        assert len(set(fresh)) == len(fresh), kind
+        n = len(variants)
+        for order in (range(n), range(n)[::-1], [*range(n), *range(n)]):
+            forget_kept_figures()
+            kept = [plot_png(variants[i][0], *variants[i][1], **variants[i][2])
+                    for i in order]
+            assert kept == [fresh[i] for i in order], (kind, list(order))
+        # between drawings the kept figure holds no data (e.g. a map's relief image)
+        (fig,) = _KEPT.figures.values()
+        for ax in fig.axes:
+            assert not (ax.lines or ax.collections or ax.images or ax.patches or ax.texts)
+        p, a, k = variants[0]
+        assert p(*a, **k) is not p(*a, **k)  # new figures outside plot_png

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ._style import kept_figure
+
 __all__ = ["plot_design_hydrograph", "flood_window", "COLOURS"]
 
 COLOURS = {"rain": "#9ab7d3", "excess": "#2f5d8a", "flow": "#23395b", "direct": "#5b7fa6",
@@ -25,12 +27,17 @@ def _style(ax):
 def _axes(ax):
     """(figure, rain axes, flow axes) from None, a pair of axes or one axes."""
     if ax is None:
-        from matplotlib.figure import Figure
+        def make():
+            from matplotlib.figure import Figure
 
-        fig = Figure(figsize=(8.0, 5.6), dpi=120)
-        gs = fig.add_gridspec(2, 1, height_ratios=(1, 2.6), hspace=0.08)
-        flow = fig.add_subplot(gs[1])
-        rain = fig.add_subplot(gs[0], sharex=flow)
+            fig = Figure(figsize=(8.0, 5.6), dpi=120)
+            gs = fig.add_gridspec(2, 1, height_ratios=(1, 2.6), hspace=0.08)
+            flow = fig.add_subplot(gs[1])
+            fig.add_subplot(gs[0], sharex=flow)
+            return fig
+
+        fig = kept_figure(("design_hydrograph",), make)  # (keeping_figures: a kept one)
+        flow, rain = fig.axes
         return fig, rain, flow, "new"
     if isinstance(ax, (tuple, list)):
         rain, flow = ax

@@ -44,7 +44,8 @@ def plot_hypsometric_curve(curve, ax=None, *, integral=None, label=None, title=N
     >>> fig.axes[0].get_xlabel()
     'relative area above, a/A (–)'
     """
-    fig, ax = S.new_axes(ax, (5.4, 3.5), [0.13, 0.15, 0.83, 0.75])
+    fig, ax = S.new_axes(ax, (5.4, 3.5), [0.13, 0.15, 0.83, 0.75],
+                          kind="hypsometric_curve")
     a = np.asarray(curve["relative_area_above"], dtype=float)
     h = np.asarray(curve["relative_height"], dtype=float)
     text = label or "catchment"

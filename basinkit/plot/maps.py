@@ -214,7 +214,7 @@ def plot_map(background=None, ax=None, *, window=None, divides=(), channels=(),
     from matplotlib.ticker import ScalarFormatter
 
     rect = [0.14, 0.29, 0.82, 0.66] if legend == "below" else [0.09, 0.08, 0.62, 0.86]
-    fig, ax = S.new_axes(ax, figsize, rect)
+    fig, ax = S.new_axes(ax, figsize, rect, kind="map")
     if window is None:
         window = background[1] if background is not None else (0.0, 1.0, 0.0, 1.0)
     xmin, xmax, ymin, ymax = window

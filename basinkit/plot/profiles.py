@@ -7,6 +7,7 @@ import numpy as np
 
 from ..analysis.profile_fits import _log_bins
 from ..analysis.profiles import Profile
+from ._style import new_axes
 
 __all__ = ["plot_long_profile", "plot_chi", "plot_slope_area", "knickpoints_on",
            "COLOURS"]
@@ -22,14 +23,9 @@ COLOURS = {"conditioned": "#23395b", "raw": "#8ea8c3", "base": "#b5533c",
 AXES_RECT = (0.095, 0.12, 0.875, 0.79)
 
 
-def _axes(ax, figsize=(7.5, 4.5)):
+def _axes(ax, kind, figsize=(7.5, 4.5)):
     # a bare Figure (no pyplot): no GUI backend is touched, saving uses Agg
-    if ax is None:
-        from matplotlib.figure import Figure
-
-        fig = Figure(figsize=figsize, dpi=100)
-        ax = fig.add_axes(AXES_RECT)
-    return ax.figure, ax
+    return new_axes(ax, figsize, AXES_RECT, kind=kind)
 
 
 _SUPERSCRIPT = str.maketrans("0123456789-.", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻·")
@@ -122,7 +118,7 @@ def plot_long_profile(profile, ax=None, knickpoints=None, title=None):
     -------
     matplotlib.figure.Figure
     """
-    fig, ax = _axes(ax)
+    fig, ax = _axes(ax, "long_profile")
     d = profile.distance_m
     km = profile.length_m >= 5000
     dd = d / 1000.0 if km else d
@@ -166,7 +162,7 @@ def plot_chi(nodes, ax=None, knickpoints=None, steepness_table=None,
     -------
     matplotlib.figure.Figure
     """
-    fig, ax = _axes(ax)
+    fig, ax = _axes(ax, "chi")
     if isinstance(nodes, Profile):
         ax.plot(nodes.chi_m, nodes.elevation_conditioned_m, color=COLOURS["main"], lw=1.6,
                 label="profile")
@@ -216,7 +212,7 @@ def plot_slope_area(area_m2, slope_m_per_m, fit=None, ax=None, bins=20, title=No
     -------
     matplotlib.figure.Figure
     """
-    fig, ax = _axes(ax)
+    fig, ax = _axes(ax, "slope_area")
     a = np.asarray(area_m2, dtype=float)
     s = np.asarray(slope_m_per_m, dtype=float)
     ok = np.isfinite(a) & np.isfinite(s) & (a > 0) & (s > 0)

@@ -15,7 +15,8 @@ import math
 
 import numpy as np
 
-__all__ = ["Figures", "OVERVIEW_LABELS_MAX", "OVERVIEW_SEGMENTS_MAX", "DISTRIBUTIONS"]
+__all__ = ["Figures", "plot_uri", "OVERVIEW_LABELS_MAX", "OVERVIEW_SEGMENTS_MAX",
+           "DISTRIBUTIONS"]
 
 #: The overview labels its outlets only in a report of full sections with at most this many.
 OVERVIEW_LABELS_MAX = 30
@@ -43,6 +44,16 @@ def png_uri(fig, dpi=DPI, colours=256):
     from ..plot.png import figure_png
 
     return _png_uri(figure_png(fig, dpi=dpi, colours=colours))
+
+
+def plot_uri(plot, *args, **kwargs) -> str:
+    """``plot(*args, **kwargs)`` (a :mod:`basinkit.plot` function, without ``ax``) as a PNG
+    data URI like :func:`png_uri`, drawn on the figure kept for its kind
+    (:func:`basinkit.plot.png.plot_png`: the same bytes, without making the axes and their
+    ticks anew for every outlet)."""
+    from ..plot.png import plot_png
+
+    return _png_uri(plot_png(plot, *args, dpi=DPI, **kwargs))
 
 
 def _png_uri(data: bytes) -> str:
@@ -206,15 +217,14 @@ class Figures:
             return None
         win = self._window(poly, [tuple(given[0]), tuple(snapped[0])])
         geoms, orders = self._channels_in(win)
-        fig = plot_map(self._background(win), window=win,
-                       divides=[poly] if poly is not None else [], channels=geoms,
-                       orders=orders, lowered=self._lowered_in(win),
-                       given=given[np.isfinite(given).all(axis=1)],
-                       snapped=snapped[np.isfinite(snapped).all(axis=1)],
-                       geographic=self.dem.get("geographic", False),
-                       metres_per_unit=self.dem.get("metres_per_unit", 1.0),
-                       title=f"Catchment of {oid}", legend="below")
-        return png_uri(fig)
+        return plot_uri(plot_map, self._background(win), window=win,
+                        divides=[poly] if poly is not None else [], channels=geoms,
+                        orders=orders, lowered=self._lowered_in(win),
+                        given=given[np.isfinite(given).all(axis=1)],
+                        snapped=snapped[np.isfinite(snapped).all(axis=1)],
+                        geographic=self.dem.get("geographic", False),
+                        metres_per_unit=self.dem.get("metres_per_unit", 1.0),
+                        title=f"Catchment of {oid}", legend="below")
 
     def overview(self):
         """The whole DEM with every catchment; outlet labels only in a report of full
@@ -323,9 +333,8 @@ class Figures:
             return None
         view = _PathView(lfp)
         knick = knickpoints_on(view, self._rows("knickpoints", oid))
-        fig = plot_long_profile(view, knickpoints=knick,
-                                title=f"longest flow path, outlet {oid}")
-        return png_uri(fig)
+        return plot_uri(plot_long_profile, view, knickpoints=knick,
+                        title=f"longest flow path, outlet {oid}")
 
     def chi_plot(self, oid):
         from ..plot.profiles import plot_chi
@@ -346,9 +355,8 @@ class Figures:
         if steep is not None and "concavity" in steep.columns:
             theta = float(np.nanmedian(steep["concavity"].to_numpy(float)))
         nodes.attrs["concavity"] = theta
-        fig = plot_chi(nodes, knickpoints=self._rows("knickpoints", oid),
-                       steepness_table=steep, title=f"χ–elevation, outlet {oid}")
-        return png_uri(fig)
+        return plot_uri(plot_chi, nodes, knickpoints=self._rows("knickpoints", oid),
+                        steepness_table=steep, title=f"χ–elevation, outlet {oid}")
 
     def hypsometry(self, oid):
         from ..plot.hypsometry import plot_hypsometric_curve
@@ -360,10 +368,9 @@ class Figures:
         if rows is None or not {"relative_height", "relative_area_above"} <= set(rows.columns):
             return None
         hi = _num(self.d.tables["morphometry"].get(oid, {}).get("hypsometric_integral"))
-        fig = plot_hypsometric_curve(rows.sort_values("relative_height"), integral=hi,
-                                     label=f"outlet {oid}",
-                                     title=f"hypsometric curve, outlet {oid}")
-        return png_uri(fig)
+        return plot_uri(plot_hypsometric_curve, rows.sort_values("relative_height"),
+                        integral=hi, label=f"outlet {oid}",
+                        title=f"hypsometric curve, outlet {oid}")
 
 
 def _num(v):

@@ -14,12 +14,12 @@ FIGURE_FORK_MIN_ITEMS = 4
 def _draw(job):
     import warnings
 
-    from ...plot.png import figure_png
+    from ...plot.png import plot_png
 
     name, plot, args, kwargs = job
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)  # empty legends: the figure says it
-        return name, figure_png(plot(*args, **kwargs))
+        return name, plot_png(plot, *args, **kwargs)  # on the figure kept for its kind
 
 
 def draw_pngs(jobs, workers=2):

@@ -377,7 +377,7 @@ def _figures(oid, nodes, steep, knick, lfp, ms) -> dict:
 
     from ...analysis import profile_fits as F
     from ...plot import profiles as G
-    from ...plot.png import figure_png
+    from ...plot.png import plot_png
 
     ms_k = None
     if len(knick) and nodes["is_main_stem"].astype(bool).any():
@@ -389,20 +389,23 @@ def _figures(oid, nodes, steep, knick, lfp, ms) -> dict:
             sa = F.slope_area_fit(nodes["upstream_area_m2"], nodes["slope_m_per_m"])
         except InputError:
             sa = None
+    # each drawn before the next is made: plot_png reuses the figure kept for its kind
+    plots = {
+        "long_profile": (G.plot_long_profile, (ms,),
+                         {"knickpoints": ms_k, "title": f"main stem, outlet {oid}"}),
+        "longest_flow_path": (G.plot_long_profile, (lfp,),
+                              {"knickpoints": G.knickpoints_on(lfp, knick),
+                               "title": f"longest flow path, outlet {oid}"}),
+        "chi_elevation": (G.plot_chi, (nodes,),
+                          {"knickpoints": knick, "steepness_table": steep,
+                           "title": f"χ–elevation, outlet {oid}"}),
+        "slope_area": (G.plot_slope_area, (nodes["upstream_area_m2"],
+                                           nodes["slope_m_per_m"]),
+                       {"fit": sa, "title": f"slope–area, outlet {oid}"}),
+    }
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # empty plots of outlets without channels
-        figs = {
-            "long_profile": G.plot_long_profile(ms, knickpoints=ms_k,
-                                                title=f"main stem, outlet {oid}"),
-            "longest_flow_path": G.plot_long_profile(
-                lfp, knickpoints=G.knickpoints_on(lfp, knick),
-                title=f"longest flow path, outlet {oid}"),
-            "chi_elevation": G.plot_chi(nodes, knickpoints=knick, steepness_table=steep,
-                                        title=f"χ–elevation, outlet {oid}"),
-            "slope_area": G.plot_slope_area(nodes["upstream_area_m2"], nodes["slope_m_per_m"],
-                                            fit=sa, title=f"slope–area, outlet {oid}"),
-        }
-    return {what: figure_png(figs[what]) for what in FIGURES}
+        return {what: plot_png(plot, *args, **kw) for what, (plot, args, kw) in plots.items()}
 
 
 # the layer ``profiles`` of profiles.gpkg: the channel segments of every outlet with their
