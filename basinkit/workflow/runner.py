@@ -196,6 +196,10 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
     except BaseException:
         out.abort()  # the staging folder goes; the folder stays as the earlier run left it
         raise
+    finally:
+        from .warmup import stop_compile_ahead
+
+        stop_compile_ahead()
 
 
 def _run(job, out, rep, report):
@@ -206,6 +210,7 @@ def _run(job, out, rep, report):
     from .steps import (catchments_step, channels_step, flow_step, morphometry_step,
                         profiles_step)
     from .steps.flow import read_burn_lines, read_terrain
+    from .warmup import compile_ahead
 
     res = JobResult(folder=out.root, job=job)
     timer = StageTimer(rep)
@@ -224,6 +229,9 @@ def _run(job, out, rep, report):
     if job["routing"].get("scheduler"):
         rep.warn("[routing] scheduler applies to a DEM routed by tiles (max_memory or "
                  "tile_size); this one is routed in memory")
+    # a new machine: the later stages' kernels compile in a second process meanwhile
+    compile_ahead(["flow", "channels"] + (["catchments"] + [
+        s for s in ("profiles", "morphometry") if job[s]["enabled"]] if spec else []))
     with timer("read"):
         inputs = _hashes(job)
         terrain = read_terrain(st["flow"])

@@ -7,13 +7,24 @@ the GIL. Started before the read, the warm-up routes a small surface of the same
 will call is loaded by the time the real grid arrives; on a new machine it compiles them
 there instead. Grids of PARALLEL_MIN_CELLS cells or more use the parallel versions, which
 the warm-up then loads (see :func:`basinkit._jit.parallel_versions`).
+
+On a new machine (an empty kernel cache) a job also compiles the kernels of its later
+stages, which takes longer than the job itself; numba compiles one kernel at a time in a
+process. :func:`compile_ahead` forks one process that compiles those kernels, from the
+last stage's backwards, for the argument types the job will give them
+(:data:`LATER_KERNELS`), and writes them to the on-disk cache, while this process routes
+and goes on stage by stage from the first: where this process comes to a kernel the other
+has compiled, it loads it from the cache. The two meet somewhere in the middle and the
+compile work is shared between two cores. With the cache filled the process finds every
+kernel there and ends at once.
 """
 
 from __future__ import annotations
 
 import threading
 
-__all__ = ["start_warmup", "Warmup"]
+__all__ = ["start_warmup", "Warmup", "compile_ahead", "stop_compile_ahead",
+           "LATER_KERNELS"]
 
 #: side of the warm-up surface for grids larger than one fill tile (512 cells), so that
 #: the tiled fill's kernels load too; 64 otherwise
@@ -70,3 +81,209 @@ def warm_route_kernels(cells: int, method: str = "d8", conditioning: str = "fill
 def start_warmup(cells: int, method: str = "d8", conditioning: str = "fill") -> Warmup:
     """Start :func:`warm_route_kernels` in a background thread."""
     return Warmup(cells, method, conditioning)
+
+
+#: The kernels a job calls after ``route``, by stage, each in the order the job first calls
+#: it, with the argument types it gives it: ``(module under basinkit, name, types)``. Types:
+#: ``i2 i4 i8 u1 u4 u8 f4 f8 b1`` (integers, floats, booleans), an array of them with one
+#: ``:`` per dimension (C order), ``r`` after it for a read-only array. A job may call
+#: others (other options); those compile when called, as any kernel does.
+#: ``tests/test_compile_ahead.py`` checks that the demo job calls each of these.
+LATER_KERNELS = {
+    "flow": [  # reading the flow folder back
+        ("routing._d8", "azimuth_to_receivers", "i4[:] i8 i8"),
+        ("routing._stack", "accumulate_area", "i4[:] i4[:] i8 f8[:]"),
+    ],
+    "catchments": [
+        ("routing._d8", "label_nearest_outlet", "i4[:] i4[:] i8[:] i4[:] i8"),
+        ("analysis._catchments", "remap", "i4[:] i4[:]"),
+        ("analysis._catchments", "label_summary", "i4[:] i8 i8 f8[:] f8[:] b1[:]"),
+        ("analysis._trace", "label_edges", "i4[:] i8 i8 i8"),
+        ("analysis._trace", "trace_range", "i4[:] i8 i8 i8[:] i8 i8 i8 i8"),
+    ],
+    "channels": [
+        ("routing._d8", "receiver_distance", "i4[:] i8 f8[:,:]"),
+        ("analysis._channels", "build_network",
+         "i4[:] i4[:] f8[:]r f8 b1[:] b1 f8[:]r b1[:]"),
+        ("analysis._channels", "strahler_streams", "i2[:] i4[:]"),
+        ("analysis._channels", "segment_paths", "i4[:] b1[:] i8[:] i8[:]"),
+        ("io._csv_text", "_ints", "i8[:] u1[:]"),
+        ("io._csv_text", "_g10", "f8[:]r f8[:] u1[:] b1[:]"),
+        ("io._csv_text", "_interleave", "u1[:]r i8[:] i8 u1[:]"),
+    ],
+    "profiles": [
+        ("analysis._profiles", "donor_lists", "i4[:]"),
+        ("analysis._profiles", "upstream_cells", "i8[:] i4[:] i8[:] i2[:] i8 i8[:]"),
+        ("analysis._profiles", "preferred_donor", "i4[:] i4[:] f8[:]r f8[:]r"),
+        ("analysis._profiles", "cumulate_upstream", "i8[:] f8[:]"),
+        ("analysis._profiles", "stream_ids", "i8[:] i8[:]"),
+        ("analysis._profiles", "chi_local", "i8[:] f8[:] f8[:] f8"),
+        ("analysis._profiles", "window_slope", "i8[:] i8[:] f8[:] f8[:] f8 i8 f8"),
+        ("analysis._profiles", "knickpoints_one", "f8[:] f8[:] i8 f8 f8 f8 i8"),
+        ("routing._d8", "upstream_length", "i4[:] i4[:] f8[:]r"),
+        ("analysis._profiles", "trace_donors", "i8[:]r i8"),
+        ("analysis._profiles", "upstream_cells", "i8[:] i4[:] i8[:] u1[:] i8 i8[:]"),
+        ("io._csv_text", "_ints", "i8[:]r u1[:]"),
+    ],
+    "morphometry": [
+        ("analysis._channels", "label_bounding_boxes", "i4[:,:] i8"),
+        ("analysis._catchments", "cells_by_label", "i4[:] b1[:] i8"),
+        ("analysis._channels", "horn_slope_aspect", "f8[:,:] f8[:] f8[:] f8[:]"),
+        ("routing._d8", "downstream_length", "i4[:] i4[:] f8[:]r"),
+        ("analysis._order_stats", "_order_keys", "f4[:] u4[:] u4"),
+        ("analysis._order_stats", "_radix_order", "u4[:] i8"),
+        ("analysis._label_sums", "label_sums", "i8[:] i8[:] i8 f8[:] f4[:] f8[:] f8[:] f8[:]"),
+        ("analysis._order_stats", "_order_keys", "f8[:] u8[:] u8"),
+        ("analysis._order_stats", "_ranks_from_order", "i4[:] u4[:]"),
+        ("analysis._label_sums", "range_sums",
+         "i8[:] i8[:] f8[:,:] f8[:,:] i8[:,:] f8[:,:] f8[:,:]"),
+        ("analysis._order_stats", "_radix_order", "u8[:] i8"),
+        ("analysis._order_stats", "_ranks_from_order", "i4[:] u8[:]"),
+        ("analysis._order_stats", "build_wavelet", "i4[:] i8"),
+        ("analysis._order_stats", "counts_below", "u8[:,:,:] i8[:] i8[:] i8[:] i8[:,:]"),
+        ("analysis._order_stats", "kth_ranks", "u8[:,:,:] i8[:] i8[:] i8[:] i8[:,:]"),
+        ("analysis._nested_network", "range_network",
+         "i8[:] i8[:] i8[:] i8[:] i4[:] i4[:] f8[:]r i4[:] i2[:] f8[:]r i8 i8"),
+    ],
+}
+
+_TYPE_NAMES = {"b1": "boolean", "u1": "uint8", "i2": "int16", "i4": "int32", "i8": "int64",
+               "u4": "uint32", "u8": "uint64", "f4": "float32", "f8": "float64"}
+
+
+def argument_types(text: str) -> tuple:
+    """The numba types written as in :data:`LATER_KERNELS`.
+
+    Examples
+    --------
+    >>> [str(t) for t in argument_types("i4[:] f8[:,:]r u4")]
+    ['array(int32, 1d, C)', 'readonly array(float64, 2d, C)', 'uint32']
+    """
+    from numba.core import types
+
+    out = []
+    for word in text.split():
+        code, _, dims = word.partition("[")
+        t = getattr(types, _TYPE_NAMES[code])
+        if dims:
+            shape, _, flag = dims.partition("]")
+            t = types.Array(t, shape.count(":"), "C", readonly=flag == "r")
+        out.append(t)
+    return tuple(out)
+
+
+def _kernel(module: str, name: str):
+    import importlib
+
+    return getattr(importlib.import_module(f"basinkit.{module}"), name)
+
+
+def _in_cache(kernel, types) -> bool:
+    """Whether numba's on-disk cache holds ``kernel`` for ``types`` (read from its index,
+    without loading it); False when that cannot be told."""
+    try:
+        cache = kernel._cache
+        key = cache._index_key(types, kernel.targetctx.codegen())
+        return key in cache._cache_file._load_index()
+    except Exception:  # noqa: BLE001 - numba's internals changed: compile (it loads)
+        return False
+
+
+def missing_kernels(entries) -> list:
+    """The ``entries`` (as in :data:`LATER_KERNELS`) that numba's on-disk cache does not
+    hold (reading the cache's index files only: a few milliseconds)."""
+    out = []
+    for e in entries:
+        try:
+            cached = _in_cache(_kernel(e[0], e[1]), argument_types(e[2]))
+        except Exception:  # noqa: BLE001 - a kernel renamed: the job compiles what it uses
+            cached = True
+        if not cached:
+            out.append(e)
+    return out
+
+
+def compile_kernels(entries) -> list:
+    """Compile ``entries`` (as in :data:`LATER_KERNELS`) in this process, in their
+    order, each unless the on-disk cache holds it by then; numba saves each to the cache.
+    Returns the ``(module, name, types)`` compiled. A kernel that fails to compile is
+    passed over (the job meets it again and reports it)."""
+    done = []
+    for e in entries:
+        try:
+            kernel, types = _kernel(e[0], e[1]), argument_types(e[2])
+            if _in_cache(kernel, types):
+                continue
+            kernel.compile(types)
+            done.append(e)
+        except Exception:  # noqa: BLE001
+            continue
+    return done
+
+
+def later_kernels(stages) -> list:
+    """The entries of :data:`LATER_KERNELS` for ``stages``, in the order a job calls
+    them."""
+    return [e for stage in LATER_KERNELS if stage in stages for e in LATER_KERNELS[stage]]
+
+
+def _compile_backwards(parent_pid, entries):
+    from .._processes import worker_init
+
+    worker_init(parent_pid)
+    compile_kernels(list(reversed(entries)))
+
+
+_AHEAD: list = []
+
+
+def compile_ahead(stages):
+    """Fork a process that compiles the kernels of ``stages`` (keys of
+    :data:`LATER_KERNELS`) from the last backwards into the on-disk cache, and return it
+    (None where forking is not available, numba's compiler is off, or the cache holds
+    every kernel). Call it before any
+    kernel compiles in this process (before :func:`start_warmup`); stop it with
+    :func:`stop_compile_ahead`. The process ends with this one (as the workers do,
+    :func:`basinkit._processes.worker_init`) and once it has gone through the list. With
+    every kernel in the cache already (checked here, from the cache's index files) no
+    process starts."""
+    import multiprocessing as mp
+    import os
+
+    from .._processes import signals_held
+
+    if "fork" not in mp.get_all_start_methods() or _disabled():
+        return None
+    entries = missing_kernels(later_kernels(stages))
+    if not entries:  # the usual case: every kernel in the cache
+        return None
+    with signals_held():  # as the pools: signals wait until the process is set up
+        proc = mp.get_context("fork").Process(target=_compile_backwards,
+                                              args=(os.getpid(), entries),
+                                              name="basinkit-compile-ahead", daemon=True)
+        proc.start()
+    _AHEAD.append(proc)
+    return proc
+
+
+def _disabled() -> bool:
+    """numba's cache turned off (``NUMBA_DISABLE_JIT``): nothing to share."""
+    import os
+
+    return os.environ.get("NUMBA_DISABLE_JIT", "0") not in ("", "0")
+
+
+def stop_compile_ahead(wait: float = 5.0):
+    """End the processes of :func:`compile_ahead` still running (``SIGTERM``) and reap
+    them."""
+    while _AHEAD:
+        proc = _AHEAD.pop()
+        try:
+            if proc.is_alive():
+                proc.terminate()
+            proc.join(wait)
+            if proc.is_alive():
+                proc.kill()
+                proc.join(1)
+        except (OSError, ValueError, AssertionError):
+            pass
