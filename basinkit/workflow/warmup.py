@@ -237,22 +237,47 @@ def _compile_backwards(parent_pid, entries):
 _AHEAD: list = []
 
 
-def compile_ahead(stages):
+def _core_free() -> bool:
+    """Whether a core is free for a second process: two cores or more, and the load
+    average of the last minute more than half a core under their number
+    (``os.getloadavg``). On a machine busy with other work, two processes get no more
+    time than one (Linux shares the cores between sessions first), and the second one
+    adds work of its own (numba set up again, the helpers that kernels share compiled
+    again), so the job would end later."""
+    import os
+
+    try:
+        cores = os.cpu_count() or 1
+        return cores >= 2 and os.getloadavg()[0] < cores - 0.5
+    except OSError:  # no load average (not a Unix system): no second process
+        return False
+
+
+#: ``BASINKIT_COMPILE_AHEAD=0`` never starts the second process, ``=1`` starts it even on a
+#: busy machine (for tests and benchmarks); unset, only with a core free
+COMPILE_AHEAD_ENV = "BASINKIT_COMPILE_AHEAD"
+
+
+def compile_ahead(stages, *, when_busy: bool = False):
     """Fork a process that compiles the kernels of ``stages`` (keys of
-    :data:`LATER_KERNELS`) from the last backwards into the on-disk cache, and return it
-    (None where forking is not available, numba's compiler is off, or the cache holds
-    every kernel). Call it before any
-    kernel compiles in this process (before :func:`start_warmup`); stop it with
-    :func:`stop_compile_ahead`. The process ends with this one (as the workers do,
-    :func:`basinkit._processes.worker_init`) and once it has gone through the list. With
-    every kernel in the cache already (checked here, from the cache's index files) no
-    process starts."""
+    :data:`LATER_KERNELS`) from the last backwards into the on-disk cache, and return it.
+
+    None (no process) where forking is not available, numba's compiler is off, the cache
+    holds every kernel (checked here, from the cache's index files: the usual case), or
+    no core is free (:func:`_core_free`) unless ``when_busy``; :data:`COMPILE_AHEAD_ENV`
+    overrides the last. Call it before any kernel compiles in this process (before
+    :func:`start_warmup`); stop it with :func:`stop_compile_ahead`. The process ends with
+    this one (as the workers do, :func:`basinkit._processes.worker_init`) and once it has
+    gone through the list."""
     import multiprocessing as mp
     import os
 
     from .._processes import signals_held
 
     if "fork" not in mp.get_all_start_methods() or _disabled():
+        return None
+    mode = os.environ.get(COMPILE_AHEAD_ENV, "").strip()
+    if mode == "0" or not (when_busy or mode == "1" or _core_free()):
         return None
     entries = missing_kernels(later_kernels(stages))
     if not entries:  # the usual case: every kernel in the cache
