@@ -258,14 +258,42 @@ def _core_free() -> bool:
 COMPILE_AHEAD_ENV = "BASINKIT_COMPILE_AHEAD"
 
 
+def _looks_cached(entry) -> bool:
+    """Whether numba's cache has an index file for ``entry``'s kernel, from file names
+    alone (without importing numba, which takes half a second): in ``NUMBA_CACHE_DIR``,
+    else beside the module (``__pycache__``) or in the user's cache folder, as numba's
+    cache locators place them (``<module>.<name>-<line>.py<version>.nbi`` in a folder
+    named after the module's folder and the SHA-1 of its path). Where numba changes these
+    names the answer is False and :func:`missing_kernels` decides, in the other process."""
+    import glob
+    import hashlib
+    import os
+    import sys
+
+    module, name = entry[0], entry[1]
+    folder = os.path.join(os.path.dirname(os.path.abspath(__file__)), os.pardir,
+                          *module.split(".")[:-1])
+    folder = os.path.normpath(folder)
+    sub = f"{os.path.basename(folder)}_{hashlib.sha1(folder.encode()).hexdigest()}"
+    pattern = f"{module.split('.')[-1]}.{name}-*.py{sys.version_info[0]}" \
+              f"{sys.version_info[1]}*.nbi"
+    if os.environ.get("NUMBA_CACHE_DIR"):
+        places = [os.path.join(os.path.abspath(os.environ["NUMBA_CACHE_DIR"]), sub)]
+    else:
+        user = os.environ.get("XDG_CACHE_HOME") or os.path.expanduser("~/.cache")
+        places = [os.path.join(folder, "__pycache__"), os.path.join(user, "numba", sub)]
+    return any(glob.glob(os.path.join(glob.escape(p), pattern)) for p in places)
+
+
 def compile_ahead(stages, *, when_busy: bool = False):
     """Fork a process that compiles the kernels of ``stages`` (keys of
     :data:`LATER_KERNELS`) from the last backwards into the on-disk cache, and return it.
 
     None (no process) where forking is not available, numba's compiler is off, the cache
-    holds every kernel (checked here, from the cache's index files: the usual case), or
-    no core is free (:func:`_core_free`) unless ``when_busy``; :data:`COMPILE_AHEAD_ENV`
-    overrides the last. Call it before any kernel compiles in this process (before
+    holds the last kernel (:func:`_looks_cached`; the usual case: the process would
+    compile it first), or no core is free (:func:`_core_free`) unless ``when_busy``;
+    :data:`COMPILE_AHEAD_ENV` overrides the last. The process checks every kernel in the
+    cache before it compiles it (:func:`compile_kernels`). Call it before any kernel compiles in this process (before
     :func:`start_warmup`); stop it with :func:`stop_compile_ahead`. The process ends with
     this one (as the workers do, :func:`basinkit._processes.worker_init`) and once it has
     gone through the list."""
@@ -279,8 +307,10 @@ def compile_ahead(stages, *, when_busy: bool = False):
     mode = os.environ.get(COMPILE_AHEAD_ENV, "").strip()
     if mode == "0" or not (when_busy or mode == "1" or _core_free()):
         return None
-    entries = missing_kernels(later_kernels(stages))
-    if not entries:  # the usual case: every kernel in the cache
+    entries = later_kernels(stages)
+    # the usual case: the kernel the process would compile first is in the cache (the
+    # process checks every kernel before compiling it)
+    if not entries or _looks_cached(entries[-1]):
         return None
     with signals_held():  # as the pools: signals wait until the process is set up
         proc = mp.get_context("fork").Process(target=_compile_backwards,
