@@ -8,7 +8,9 @@
   process then loads it instead of compiling it (numba's cache: its index is read again
   for every new signature; numba's documentation, "Cache sharing" and "Notes on
   caching").
-- With every listed kernel in the cache, no process starts.
+- With every listed kernel in the cache, no process starts; nor when turned off
+  (``BASINKIT_COMPILE_AHEAD=0``) or when no core is free (load average; common practice,
+  no source). Stopping it ends it at once (SIGTERM, signal(7)).
 - The demo's products are the same, byte for byte, whether the kernels were compiled
   ahead or not (DESIGN.md, the output contract: deterministic outputs). The kernels are
   the same code either way; the test runs the demo job with an empty cache (the other
@@ -88,6 +90,35 @@ def test_a_kernel_compiled_ahead_is_loaded_not_compiled(tmp_path):
         print(warmup.compile_ahead(["catchments"], when_busy=True) is None)
         """, cache).split()
     assert loaded == ["1", "0", "True"]  # all in the cache now: no process starts
+
+
+def test_stop_ends_the_process_at_once(tmp_path):
+    """SIGTERM ends it where it is (signal(7): the default action of SIGTERM)."""
+    out = _run("""
+        import time
+        from basinkit.workflow import warmup
+        proc = warmup.compile_ahead(["morphometry", "profiles"], when_busy=True)
+        time.sleep(0.5)
+        warmup.stop_compile_ahead()
+        print(proc.is_alive(), proc.exitcode)
+        """, tmp_path / "cache").split()
+    assert out == ["False", "-15"]
+
+
+def test_no_process_when_turned_off_or_without_a_free_core(monkeypatch, tmp_path):
+    monkeypatch.setenv("NUMBA_CACHE_DIR", str(tmp_path))  # empty: every kernel missing
+    monkeypatch.setenv(warmup.COMPILE_AHEAD_ENV, "0")
+    assert warmup.compile_ahead(["catchments"], when_busy=True) is None
+    monkeypatch.delenv(warmup.COMPILE_AHEAD_ENV)
+    monkeypatch.setattr(os, "getloadavg", lambda: (1.7, 1.0, 1.0))
+    monkeypatch.setattr(os, "cpu_count", lambda: 2)
+    assert not warmup._core_free()
+    assert warmup.compile_ahead(["catchments"]) is None
+    monkeypatch.setattr(os, "getloadavg", lambda: (1.2, 1.0, 1.0))
+    assert warmup._core_free()
+    monkeypatch.setattr(os, "cpu_count", lambda: 1)
+    monkeypatch.setattr(os, "getloadavg", lambda: (0.0, 0.0, 0.0))
+    assert not warmup._core_free()  # one core: nothing to share
 
 
 def _hashes(folder):
