@@ -312,6 +312,7 @@ def compile_ahead(stages, *, when_busy: bool = False):
     # process checks every kernel before compiling it)
     if not entries or _looks_cached(entries[-1]):
         return None
+    _set_up_numba()  # once, for both processes (this one would do it first thing anyway)
     with signals_held():  # as the pools: signals wait until the process is set up
         proc = mp.get_context("fork").Process(target=_compile_backwards,
                                               args=(os.getpid(), entries),
@@ -319,6 +320,18 @@ def compile_ahead(stages, *, when_busy: bool = False):
         proc.start()
     _AHEAD.append(proc)
     return proc
+
+
+def _set_up_numba():
+    """Import numba and set up its typing and compiling contexts (about a second, done
+    before a process's first compile), so that the forked process inherits them."""
+    try:
+        from numba.core.registry import cpu_target
+
+        cpu_target.typing_context.refresh()
+        cpu_target.target_context.refresh()
+    except Exception:  # noqa: BLE001 - the first compile sets them up instead
+        pass
 
 
 def _disabled() -> bool:
