@@ -105,6 +105,30 @@ def test_stop_ends_the_process_at_once(tmp_path):
     assert out == ["False", "-15"]
 
 
+def test_the_process_stops_where_the_job_has_come(tmp_path):
+    """The job coming to a stage waits for the kernel of that stage (or an earlier one)
+    the other process is compiling, and the other process then compiles nothing more
+    (common practice, no source: one process compiles a kernel, never two at once)."""
+    out = _run("""
+        import time
+        from basinkit.workflow import warmup
+        entries = warmup.later_kernels(warmup.LATER_KERNELS)
+        proc = warmup.compile_ahead(list(warmup.LATER_KERNELS), when_busy=True)
+        time.sleep(0.5)
+        warmup.stage_begins("flow")  # nothing of flow's is being compiled: no wait
+        print(proc.is_alive())
+        warmup.stage_begins("design_flow")  # after them all
+        print(warmup._AHEAD[-1].there.value)
+        proc.join(60)
+        print(proc.exitcode, len(entries) - len(warmup.missing_kernels(entries)))
+        """, tmp_path / "cache").split()
+    alive, there, code, compiled = out
+    assert (alive, there, code) == ("True", "-1", "0")
+    # the one or two of the last stage's kernels it had begun (none on a very busy machine)
+    # of the 38, not the rest
+    assert int(compiled) <= 3
+
+
 def test_no_process_when_turned_off_or_without_a_free_core(monkeypatch, tmp_path):
     monkeypatch.setenv("NUMBA_CACHE_DIR", str(tmp_path))  # empty: every kernel missing
     monkeypatch.setenv(warmup.COMPILE_AHEAD_ENV, "0")

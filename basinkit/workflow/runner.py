@@ -202,6 +202,17 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
         stop_compile_ahead()
 
 
+class _StageTimer(StageTimer):
+    """The stage timer, telling the compile-ahead process (if any) each stage the job comes
+    to (:func:`basinkit.workflow.warmup.stage_begins`)."""
+
+    def __call__(self, name):
+        from .warmup import stage_begins
+
+        stage_begins(name)
+        return super().__call__(name)
+
+
 def _run(job, out, rep, report):
     """The stages of :func:`run_job`, written into ``out`` (checked, not yet open)."""
     import pandas as pd
@@ -213,7 +224,7 @@ def _run(job, out, rep, report):
     from .warmup import compile_ahead
 
     res = JobResult(folder=out.root, job=job)
-    timer = StageTimer(rep)
+    timer = _StageTimer(rep)
     res.stages = timer.stages
     t_start = time.perf_counter()
     st = settings_of(job)

@@ -23,8 +23,8 @@ from __future__ import annotations
 
 import threading
 
-__all__ = ["start_warmup", "Warmup", "compile_ahead", "stop_compile_ahead",
-           "LATER_KERNELS"]
+__all__ = ["start_warmup", "Warmup", "compile_ahead", "stage_begins",
+           "stop_compile_ahead", "LATER_KERNELS"]
 
 #: side of the warm-up surface for grids larger than one fill tile (512 cells), so that
 #: the tiled fill's kernels load too; 64 otherwise
@@ -100,6 +100,12 @@ LATER_KERNELS = {
         ("analysis._catchments", "label_summary", "i4[:] i8 i8 f8[:] f8[:] b1[:]"),
         ("analysis._trace", "label_edges", "i4[:] i8 i8 i8"),
         ("analysis._trace", "trace_range", "i4[:] i8 i8 i8[:] i8 i8 i8 i8"),
+        # the tables' text, from any stage on that writes a table (every argument type of
+        # a kernel goes in the first stage that may call it: see _Ahead)
+        ("io._csv_text", "_ints", "i8[:] u1[:]"),
+        ("io._csv_text", "_ints", "i8[:]r u1[:]"),
+        ("io._csv_text", "_g10", "f8[:]r f8[:] u1[:] b1[:]"),
+        ("io._csv_text", "_interleave", "u1[:]r i8[:] i8 u1[:]"),
     ],
     "channels": [
         ("routing._d8", "receiver_distance", "i4[:] i8 f8[:,:]"),
@@ -107,9 +113,6 @@ LATER_KERNELS = {
          "i4[:] i4[:] f8[:]r f8 b1[:] b1 f8[:]r b1[:]"),
         ("analysis._channels", "strahler_streams", "i2[:] i4[:]"),
         ("analysis._channels", "segment_paths", "i4[:] b1[:] i8[:] i8[:]"),
-        ("io._csv_text", "_ints", "i8[:] u1[:]"),
-        ("io._csv_text", "_g10", "f8[:]r f8[:] u1[:] b1[:]"),
-        ("io._csv_text", "_interleave", "u1[:]r i8[:] i8 u1[:]"),
     ],
     "profiles": [
         ("analysis._profiles", "donor_lists", "i4[:]"),
@@ -123,7 +126,6 @@ LATER_KERNELS = {
         ("routing._d8", "upstream_length", "i4[:] i4[:] f8[:]r"),
         ("analysis._profiles", "trace_donors", "i8[:]r i8"),
         ("analysis._profiles", "upstream_cells", "i8[:] i4[:] i8[:] u1[:] i8 i8[:]"),
-        ("io._csv_text", "_ints", "i8[:]r u1[:]"),
     ],
     "morphometry": [
         ("analysis._channels", "label_bounding_boxes", "i4[:,:] i8"),
@@ -227,14 +229,77 @@ def later_kernels(stages) -> list:
     return [e for stage in LATER_KERNELS if stage in stages for e in LATER_KERNELS[stage]]
 
 
-def _compile_backwards(parent_pid, entries):
+def _stage_index(name) -> int:
+    """The position of stage ``name`` in :data:`LATER_KERNELS` (``read``, before them all:
+    -1; a stage after them, e.g. ``design_flow``: their number)."""
+    stages = list(LATER_KERNELS)
+    return stages.index(name) if name in stages else (-1 if name == "read" else len(stages))
+
+
+class _Ahead:
+    """The other process, and what the two share (under ``lock``): ``here``, the stage
+    this process has come to, and ``there``, the stage of the kernel the other process is
+    compiling (-1: none). The other process compiles a kernel only of a stage this one has
+    not come to; this one, coming to a stage, waits for a kernel of it that the other is
+    compiling. So no kernel is ever compiled by both at once: numba's cache of a kernel is
+    one index file per kernel, which two processes saving different argument types at the
+    same moment could leave wrong."""
+
+    def __init__(self, ctx, items):
+        import os
+
+        self.lock = ctx.Lock()
+        self.here = ctx.RawValue("i", -1)
+        self.there = ctx.RawValue("i", -1)
+        self.proc = ctx.Process(target=_compile_backwards,
+                                args=(os.getpid(), items, self.lock, self.here,
+                                      self.there),
+                                name="basinkit-compile-ahead", daemon=True)
+
+
+def _compile_backwards(parent_pid, items, lock, here, there):
+    """The other process: ``items`` = ``[(stage index, entry)]``, the last first, as long
+    as this process's parent has not come to their stage."""
     from .._processes import worker_init
 
     worker_init(parent_pid)
-    compile_kernels(list(reversed(entries)))
+    for k, entry in reversed(items):
+        with lock:
+            if k <= here.value:  # the job is there: it compiles the rest as it goes
+                return
+            there.value = k
+        try:
+            compile_kernels([entry])
+        finally:
+            with lock:
+                there.value = -1
 
 
 _AHEAD: list = []
+
+
+def stage_begins(name: str, wait: float = 300.0):
+    """Tell the process of :func:`compile_ahead` (if any) that the job comes to stage
+    ``name``: it compiles no kernel of this stage or an earlier one from now on, and a
+    kernel of one that it is compiling is waited for (at most ``wait`` seconds, then it
+    is stopped), so that this process loads it instead of compiling it too."""
+    import time
+
+    if not _AHEAD:
+        return
+    a, k = _AHEAD[-1], _stage_index(name)
+    with a.lock:
+        a.here.value = max(a.here.value, k)
+    deadline = time.monotonic() + wait
+    while True:
+        with a.lock:
+            busy = 0 <= a.there.value <= k
+        if not busy or not a.proc.is_alive():
+            return
+        if time.monotonic() > deadline:
+            stop_compile_ahead()
+            return
+        time.sleep(0.02)
 
 
 def _core_free() -> bool:
@@ -293,10 +358,13 @@ def compile_ahead(stages, *, when_busy: bool = False):
     holds the last kernel (:func:`_looks_cached`; the usual case: the process would
     compile it first), or no core is free (:func:`_core_free`) unless ``when_busy``;
     :data:`COMPILE_AHEAD_ENV` overrides the last. The process checks every kernel in the
-    cache before it compiles it (:func:`compile_kernels`). Call it before any kernel compiles in this process (before
-    :func:`start_warmup`); stop it with :func:`stop_compile_ahead`. The process ends with
-    this one (as the workers do, :func:`basinkit._processes.worker_init`) and once it has
-    gone through the list."""
+    cache before it compiles it (:func:`compile_kernels`).
+
+    Call it before any kernel compiles in this process (before :func:`start_warmup`),
+    tell it each stage the job comes to (:func:`stage_begins`) and stop it with
+    :func:`stop_compile_ahead`. The process ends with this one (as the workers do,
+    :func:`basinkit._processes.worker_init`), once it has gone through the list, and
+    when the job comes to the stage of the next kernel in it."""
     import multiprocessing as mp
     import os
 
@@ -307,19 +375,18 @@ def compile_ahead(stages, *, when_busy: bool = False):
     mode = os.environ.get(COMPILE_AHEAD_ENV, "").strip()
     if mode == "0" or not (when_busy or mode == "1" or _core_free()):
         return None
-    entries = later_kernels(stages)
+    items = [(_stage_index(stage), e) for stage in LATER_KERNELS if stage in stages
+             for e in LATER_KERNELS[stage]]
     # the usual case: the kernel the process would compile first is in the cache (the
     # process checks every kernel before compiling it)
-    if not entries or _looks_cached(entries[-1]):
+    if not items or _looks_cached(items[-1][1]):
         return None
     _set_up_numba()  # once, for both processes (this one would do it first thing anyway)
+    ahead = _Ahead(mp.get_context("fork"), items)
     with signals_held():  # as the pools: signals wait until the process is set up
-        proc = mp.get_context("fork").Process(target=_compile_backwards,
-                                              args=(os.getpid(), entries),
-                                              name="basinkit-compile-ahead", daemon=True)
-        proc.start()
-    _AHEAD.append(proc)
-    return proc
+        ahead.proc.start()
+    _AHEAD.append(ahead)
+    return ahead.proc
 
 
 def _set_up_numba():
@@ -345,7 +412,7 @@ def stop_compile_ahead(wait: float = 5.0):
     """End the processes of :func:`compile_ahead` still running (``SIGTERM``) and reap
     them."""
     while _AHEAD:
-        proc = _AHEAD.pop()
+        proc = _AHEAD.pop().proc
         try:
             if proc.is_alive():
                 proc.terminate()
