@@ -125,7 +125,7 @@ def test_the_process_stops_where_the_job_has_come(tmp_path):
     alive, there, code, compiled = out
     assert (alive, there, code) == ("True", "-1", "0")
     # the one or two of the last stage's kernels it had begun (none on a very busy machine)
-    # of the 38, not the rest
+    # of the 42, not the rest
     assert int(compiled) <= 3
 
 

@@ -14,9 +14,11 @@ process. :func:`compile_ahead` forks one process that compiles those kernels, fr
 last stage's backwards, for the argument types the job will give them
 (:data:`LATER_KERNELS`), and writes them to the on-disk cache, while this process routes
 and goes on stage by stage from the first: where this process comes to a kernel the other
-has compiled, it loads it from the cache. The two meet somewhere in the middle and the
-compile work is shared between two cores. With the cache filled the process finds every
-kernel there and ends at once.
+has compiled, it loads it from the cache. The job tells the other process each stage it
+comes to (:func:`stage_begins`): the other compiles nothing of a stage the job has reached,
+and the job waits for a kernel of its stage that the other is compiling; so the two meet
+in the middle, share the compiling between two cores and never compile one kernel twice.
+With the cache filled, or on a machine without a free core, no process starts.
 """
 
 from __future__ import annotations
@@ -134,7 +136,8 @@ LATER_KERNELS = {
         ("routing._d8", "downstream_length", "i4[:] i4[:] f8[:]r"),
         ("analysis._order_stats", "_order_keys", "f4[:] u4[:] u4"),
         ("analysis._order_stats", "_radix_order", "u4[:] i8"),
-        ("analysis._label_sums", "label_sums", "i8[:] i8[:] i8 f8[:] f4[:] f8[:] f8[:] f8[:]"),
+        ("analysis._label_sums", "label_sums",
+         "i8[:] i8[:] i8 f8[:] f4[:] f8[:] f8[:] f8[:]"),
         ("analysis._order_stats", "_order_keys", "f8[:] u8[:] u8"),
         ("analysis._order_stats", "_ranks_from_order", "i4[:] u4[:]"),
         ("analysis._label_sums", "range_sums",
