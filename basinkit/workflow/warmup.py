@@ -386,8 +386,11 @@ def compile_ahead(stages, *, when_busy: bool = False):
         return None
     _set_up_numba()  # once, for both processes (this one would do it first thing anyway)
     ahead = _Ahead(mp.get_context("fork"), items)
-    with signals_held():  # as the pools: signals wait until the process is set up
-        ahead.proc.start()
+    try:
+        with signals_held():  # as the pools: signals wait until the process is set up
+            ahead.proc.start()
+    except (OSError, AssertionError):  # no process left (EAGAIN), or in a daemon process
+        return None
     _AHEAD.append(ahead)
     return ahead.proc
 
