@@ -307,16 +307,15 @@ def stage_begins(name: str, wait: float = 300.0):
 
 def _core_free() -> bool:
     """Whether a core is free for a second process: two cores or more, and the load
-    average of the last minute more than half a core under their number
-    (``os.getloadavg``). On a machine busy with other work, two processes get no more
-    time than one (Linux shares the cores between sessions first), and the second one
-    adds work of its own (numba set up again, the helpers that kernels share compiled
-    again), so the job would end later."""
+    average of the last minute under their number less one (``os.getloadavg``). On a
+    machine busy with other work, two processes get no more time than one (Linux shares
+    the cores between sessions first), and the second one adds work of its own (the
+    helpers that kernels share compiled again), so the job would end later."""
     import os
 
     try:
         cores = os.cpu_count() or 1
-        return cores >= 2 and os.getloadavg()[0] < cores - 0.5
+        return cores >= 2 and os.getloadavg()[0] < cores - 1
     except OSError:  # no load average (not a Unix system): no second process
         return False
 
