@@ -134,11 +134,11 @@ def test_no_process_when_turned_off_or_without_a_free_core(monkeypatch, tmp_path
     monkeypatch.setenv(warmup.COMPILE_AHEAD_ENV, "0")
     assert warmup.compile_ahead(["catchments"], when_busy=True) is None
     monkeypatch.delenv(warmup.COMPILE_AHEAD_ENV)
-    monkeypatch.setattr(os, "getloadavg", lambda: (1.2, 0.5, 0.5))
+    monkeypatch.setattr(os, "getloadavg", lambda: (1.7, 0.5, 0.5))
     monkeypatch.setattr(os, "cpu_count", lambda: 2)
     assert not warmup._core_free()
     assert warmup.compile_ahead(["catchments"]) is None
-    monkeypatch.setattr(os, "getloadavg", lambda: (0.8, 1.5, 1.5))
+    monkeypatch.setattr(os, "getloadavg", lambda: (1.2, 2.5, 2.5))
     assert warmup._core_free()
     monkeypatch.setattr(os, "cpu_count", lambda: 1)
     monkeypatch.setattr(os, "getloadavg", lambda: (0.0, 0.0, 0.0))

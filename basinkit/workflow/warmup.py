@@ -307,7 +307,8 @@ def stage_begins(name: str, wait: float = 300.0):
 
 def _core_free() -> bool:
     """Whether a core is free for a second process: two cores or more, and the load
-    average of the last minute under their number less one (``os.getloadavg``). On a
+    average of the last minute under their number less a half (``os.getloadavg``; it
+    counts this job's own earlier runs too, finished or not). On a
     machine busy with other work, two processes get no more time than one (Linux shares
     the cores between sessions first), and the second one adds work of its own (the
     helpers that kernels share compiled again), so the job would end later."""
@@ -315,7 +316,7 @@ def _core_free() -> bool:
 
     try:
         cores = os.cpu_count() or 1
-        return cores >= 2 and os.getloadavg()[0] < cores - 1
+        return cores >= 2 and os.getloadavg()[0] < cores - 0.5
     except OSError:  # no load average (not a Unix system): no second process
         return False
 
