@@ -215,43 +215,53 @@ def bench_route(sizes, runs, before=None):
     return rows
 
 
-def bench_startup(runs):
-    env = env_with_package()
+def _versions(before):
+    """(label, PYTHONPATH root) of the checkouts timed in turn."""
+    return [("after", ROOT)] + ([("before", Path(before))] if before is not None else [])
+
+
+def bench_startup(runs, before=None):
     tmp = Path(tempfile.mkdtemp(prefix="bench_commands_"))
     try:
         out = {}
-        for name, cmd in (("help", basinkit_cmd("--help")),
-                          ("demo", basinkit_cmd("demo", "-o", tmp / "demo",
-                                                "--overwrite"))):
-            timed(cmd, env)
-            t, cpu = [], []
+        for name, args in (("help", ("--help",)),
+                           ("demo", ("demo", "-o", tmp / "demo", "--overwrite"))):
+            cmd = basinkit_cmd(*args)
+            t = {label: [] for label, _ in _versions(before)}
+            cpu = {label: [] for label, _ in _versions(before)}
+            for label, root in _versions(before):
+                timed(cmd, env_with_package(root))  # not counted: fills the cache
             for _ in range(runs):
-                t.append(timed(cmd, env)[0])
-                cpu.append(CPU_SECONDS[-1])
+                for label, root in _versions(before):  # in turn
+                    t[label].append(timed(cmd, env_with_package(root))[0])
+                    cpu[label].append(CPU_SECONDS[-1])
             out[name] = t
-            print(f"warm {name}: median {statistics.median(t):.2f} s "
-                  f"(min {min(t):.2f}, max {max(t):.2f}, {runs} runs; CPU median "
-                  f"{statistics.median(cpu):.2f} s; load {os.getloadavg()[0]:.1f})",
-                  flush=True)
+            for label in t:
+                print(f"warm {name} ({label}): median {statistics.median(t[label]):.2f} s "
+                      f"(min {min(t[label]):.2f}, max {max(t[label]):.2f}, {runs} runs; "
+                      f"CPU median {statistics.median(cpu[label]):.2f} s; load "
+                      f"{os.getloadavg()[0]:.1f})", flush=True)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     return out
 
 
-def bench_cold_demo(runs):
+def bench_cold_demo(runs, before=None):
     tmp = Path(tempfile.mkdtemp(prefix="bench_commands_"))
     try:
-        t = []
+        t = {label: [] for label, _ in _versions(before)}
         for i in range(runs):
-            cache = tmp / f"cache{i}"
-            cache.mkdir()
-            w, _, _ = timed(basinkit_cmd("demo", "-o", tmp / "demo", "--overwrite"),
-                            env_with_package(NUMBA_CACHE_DIR=str(cache)))
-            t.append(w)
-            print(f"  cold demo run {i + 1}: {w:.1f} s ({CPU_SECONDS[-1]:.1f} s CPU, load "
-                  f"{os.getloadavg()[0]:.1f})", flush=True)
-        print(f"cold demo: median {statistics.median(t):.1f} s (min {min(t):.1f}, "
-              f"max {max(t):.1f}, {runs} runs)", flush=True)
+            for label, root in _versions(before):  # in turn
+                cache = tmp / f"cache-{label}-{i}"
+                cache.mkdir()
+                w, mb, _ = timed(basinkit_cmd("demo", "-o", tmp / "demo", "--overwrite"),
+                                 env_with_package(root, NUMBA_CACHE_DIR=str(cache)))
+                t[label].append(w)
+                print(f"  cold demo run {i + 1} ({label}): {w:.1f} s ({CPU_SECONDS[-1]:.1f} "
+                      f"s CPU, peak {mb:.0f} MB, load {os.getloadavg()[0]:.1f})", flush=True)
+        for label in t:
+            print(f"cold demo ({label}): median {statistics.median(t[label]):.1f} s (min "
+                  f"{min(t[label]):.1f}, max {max(t[label]):.1f}, {runs} runs)", flush=True)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     return t
@@ -268,8 +278,9 @@ def main():
     ap.add_argument("--sizes", type=int, nargs="+", default=[2048, 4096])
     ap.add_argument("--runs", type=int, default=3)
     ap.add_argument("--before", type=Path,
-                    help="route: also time this other checkout of basinkit (e.g. a "
-                         "'git worktree' of an earlier commit) in the same rounds")
+                    help="route, startup, cold-demo: also time this other checkout of "
+                         "basinkit (e.g. a 'git worktree' of an earlier commit) in the same "
+                         "rounds")
     ap.add_argument("--json", type=Path, help="also write the figures to this file")
     a = ap.parse_args()
     print(f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, load average "
@@ -277,9 +288,9 @@ def main():
     if a.what == "route":
         res = bench_route(a.sizes, a.runs, a.before)
     elif a.what == "startup":
-        res = bench_startup(a.runs)
+        res = bench_startup(a.runs, a.before)
     elif a.what == "cold-demo":
-        res = bench_cold_demo(a.runs)
+        res = bench_cold_demo(a.runs, a.before)
     else:
         res = {n: run_inproc(n) for n in a.sizes}
         print(json.dumps(res, indent=1))

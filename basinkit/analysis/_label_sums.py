@@ -103,7 +103,7 @@ def label_sums(order, starts, ncols, row_area, z, slope, aspect, dl):
     return sums, corr, counts, ext, mom
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, inline="always")
 def _put(i, nz, ng, zmin, zmax, dmax, mean, m2, counts, ext, mom):
     """Row ``i`` of the counts, extremes and moments."""
     counts[i, 0] = nz

@@ -162,7 +162,7 @@ def trace_range(lab, nr, nc, keys, e0, e1, lo, hi):
     return cols[:nv], rows[:nv], starts[:nring + 1], area2[:nring], on_outline
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, inline="always")
 def _emit(cols, rows, nv, sc, sr, k0, k1, starts, area2, nring):
     """Write corners sc/sr[k0:k1] as a closed ring at nv; returns (nv, nring)."""
     starts[nring] = nv
@@ -181,7 +181,7 @@ def _emit(cols, rows, nv, sc, sr, k0, k1, starts, area2, nring):
     return nv, nring + 1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, inline="always")
 def _close_ring(cols, rows, first, nv, starts, area2, nring, nc):
     """Close the ring of corners ``first..nv-1``. A ring that passes a corner twice (the
     region's cells meet there diagonally around an outside pocket) is split there into

@@ -199,6 +199,21 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
     except BaseException:
         out.abort()  # the staging folder goes; the folder stays as the earlier run left it
         raise
+    finally:
+        from .warmup import stop_compile_ahead
+
+        stop_compile_ahead()
+
+
+class _StageTimer(StageTimer):
+    """The stage timer, telling the compile-ahead process (if any) each stage the job comes
+    to (:func:`basinkit.workflow.warmup.stage_begins`)."""
+
+    def __call__(self, name):
+        from .warmup import stage_begins
+
+        stage_begins(name)
+        return super().__call__(name)
 
 
 def _run(job, out, rep, report):
@@ -209,9 +224,10 @@ def _run(job, out, rep, report):
     from .steps import (catchments_step, channels_step, flow_step, morphometry_step,
                         profiles_step)
     from .steps.flow import read_burn_lines, read_terrain
+    from .warmup import compile_ahead
 
     res = JobResult(folder=out.root, job=job)
-    timer = StageTimer(rep)
+    timer = _StageTimer(rep)
     res.stages = timer.stages
     t_start = time.perf_counter()
     st = settings_of(job)
@@ -227,6 +243,9 @@ def _run(job, out, rep, report):
     if job["routing"].get("scheduler"):
         rep.warn("[routing] scheduler applies to a DEM routed by tiles (max_memory or "
                  "tile_size); this one is routed in memory")
+    # a new machine: the later stages' kernels compile in a second process meanwhile
+    compile_ahead(["flow", "channels"] + (["catchments"] + [
+        s for s in ("profiles", "morphometry") if job[s]["enabled"]] if spec else []))
     with timer("read"):
         inputs = _hashes(job)
         terrain = read_terrain(st["flow"])

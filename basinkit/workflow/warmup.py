@@ -7,13 +7,26 @@ the GIL. Started before the read, the warm-up routes a small surface of the same
 will call is loaded by the time the real grid arrives; on a new machine it compiles them
 there instead. Grids of PARALLEL_MIN_CELLS cells or more use the parallel versions, which
 the warm-up then loads (see :func:`basinkit._jit.parallel_versions`).
+
+On a new machine (an empty kernel cache) a job also compiles the kernels of its later
+stages, which takes longer than the job itself; numba compiles one kernel at a time in a
+process. :func:`compile_ahead` forks one process that compiles those kernels, from the
+last stage's backwards, for the argument types the job will give them
+(:data:`LATER_KERNELS`), and writes them to the on-disk cache, while this process routes
+and goes on stage by stage from the first: where this process comes to a kernel the other
+has compiled, it loads it from the cache. The job tells the other process each stage it
+comes to (:func:`stage_begins`): the other compiles nothing of a stage the job has reached,
+and the job waits for a kernel of its stage that the other is compiling; so the two meet
+in the middle, share the compiling between two cores and never compile one kernel twice.
+With the cache filled, or on a machine without a free core, no process starts.
 """
 
 from __future__ import annotations
 
 import threading
 
-__all__ = ["start_warmup", "Warmup"]
+__all__ = ["start_warmup", "Warmup", "compile_ahead", "stage_begins",
+           "stop_compile_ahead", "LATER_KERNELS"]
 
 #: side of the warm-up surface for grids larger than one fill tile (512 cells), so that
 #: the tiled fill's kernels load too; 64 otherwise
@@ -70,3 +83,348 @@ def warm_route_kernels(cells: int, method: str = "d8", conditioning: str = "fill
 def start_warmup(cells: int, method: str = "d8", conditioning: str = "fill") -> Warmup:
     """Start :func:`warm_route_kernels` in a background thread."""
     return Warmup(cells, method, conditioning)
+
+
+#: The kernels a job calls after ``route``, by stage, each in the order the job first calls
+#: it, with the argument types it gives it: ``(module under basinkit, name, types)``. Types:
+#: ``i2 i4 i8 u1 u4 u8 f4 f8 b1`` (integers, floats, booleans), an array of them with one
+#: ``:`` per dimension (C order), ``r`` after it for a read-only array. A job may call
+#: others (other options); those compile when called, as any kernel does.
+#: ``tests/test_compile_ahead.py`` checks that the demo job calls each of these.
+LATER_KERNELS = {
+    "flow": [  # reading the flow folder back
+        ("routing._d8", "azimuth_to_receivers", "i4[:] i8 i8"),
+        ("routing._stack", "accumulate_area", "i4[:] i4[:] i8 f8[:]"),
+    ],
+    "catchments": [
+        ("routing._d8", "label_nearest_outlet", "i4[:] i4[:] i8[:] i4[:] i8"),
+        ("analysis._catchments", "remap", "i4[:] i4[:]"),
+        ("analysis._catchments", "label_summary", "i4[:] i8 i8 f8[:] f8[:] b1[:]"),
+        ("analysis._trace", "label_edges", "i4[:] i8 i8 i8"),
+        ("analysis._trace", "trace_range", "i4[:] i8 i8 i8[:] i8 i8 i8 i8"),
+        # the tables' text, from any stage on that writes a table (every argument type of
+        # a kernel goes in the first stage that may call it: see _Ahead)
+        ("io._csv_text", "_ints", "i8[:] u1[:]"),
+        ("io._csv_text", "_ints", "i8[:]r u1[:]"),
+        ("io._csv_text", "_g10", "f8[:]r f8[:] u1[:] b1[:]"),
+        ("io._csv_text", "_interleave", "u1[:]r i8[:] i8 u1[:]"),
+    ],
+    "channels": [
+        ("routing._d8", "receiver_distance", "i4[:] i8 f8[:,:]"),
+        ("analysis._channels", "build_network",
+         "i4[:] i4[:] f8[:]r f8 b1[:] b1 f8[:]r b1[:]"),
+        ("analysis._channels", "strahler_streams", "i2[:] i4[:]"),
+        ("analysis._channels", "segment_paths", "i4[:] b1[:] i8[:] i8[:]"),
+    ],
+    "morphometry": [
+        ("analysis._channels", "label_bounding_boxes", "i4[:,:] i8"),
+        ("analysis._catchments", "cells_by_label", "i4[:] b1[:] i8"),
+        ("analysis._channels", "horn_slope_aspect", "f8[:,:] f8[:] f8[:] f8[:]"),
+        ("routing._d8", "downstream_length", "i4[:] i4[:] f8[:]r"),
+        ("analysis._order_stats", "_order_keys", "f4[:] u4[:] u4"),
+        ("analysis._order_stats", "_radix_order", "u4[:] i8"),
+        ("analysis._label_sums", "label_sums",
+         "i4[:] i8[:] i8 f8[:] f4[:] f8[:] f8[:] f8[:]"),
+        ("analysis._order_stats", "_order_keys", "f8[:] u8[:] u8"),
+        ("analysis._order_stats", "_ranks_from_order", "i4[:] u4[:]"),
+        ("analysis._label_sums", "range_sums",
+         "i8[:] i8[:] f8[:,:] f8[:,:] i8[:,:] f8[:,:] f8[:,:]"),
+        ("analysis._order_stats", "_radix_order", "u8[:] i8"),
+        ("analysis._order_stats", "_ranks_from_order", "i4[:] u8[:]"),
+        ("analysis._order_stats", "build_wavelet", "i4[:] i8"),
+        ("analysis._order_stats", "counts_below", "u8[:,:,:] i8[:] i8[:] i8[:] i8[:,:]"),
+        ("analysis._order_stats", "kth_ranks", "u8[:,:,:] i8[:] i8[:] i8[:] i8[:,:]"),
+        ("analysis._nested_network", "range_network",
+         "i8[:] i8[:] i8[:] i4[:] i4[:] i4[:] f8[:]r i4[:] i2[:] f8[:]r i8 i8"),
+    ],
+    "profiles": [
+        ("analysis._profiles", "donor_lists", "i4[:]"),
+        ("analysis._profiles", "upstream_cells", "i4[:] i4[:] i8[:] i2[:] i8 i8[:]"),
+        ("analysis._profiles", "preferred_donor", "i4[:] i4[:] f8[:]r f8[:]r"),
+        ("analysis._profiles", "cumulate_upstream", "i8[:] f8[:]"),
+        ("analysis._profiles", "stream_ids", "i8[:] i8[:]"),
+        ("analysis._profiles", "chi_local", "i8[:] f8[:] f8[:] f8"),
+        ("analysis._profiles", "window_slope", "i8[:] i8[:] f8[:] f8[:] f8 i8 f8"),
+        ("analysis._profiles", "knickpoints_one", "f8[:] f8[:] i8 f8 f8 f8 i8"),
+        ("routing._d8", "upstream_length", "i4[:] i4[:] f8[:]r"),
+        ("analysis._profiles", "trace_donors", "i4[:]r i8"),
+        ("analysis._profiles", "upstream_cells", "i4[:] i4[:] i8[:] u1[:] i8 i8[:]"),
+    ],
+}
+
+_TYPE_NAMES = {"b1": "boolean", "u1": "uint8", "i2": "int16", "i4": "int32", "i8": "int64",
+               "u4": "uint32", "u8": "uint64", "f4": "float32", "f8": "float64"}
+
+
+def argument_types(text: str) -> tuple:
+    """The numba types written as in :data:`LATER_KERNELS`.
+
+    Examples
+    --------
+    >>> [str(t) for t in argument_types("i4[:] f8[:,:]r u4")]
+    ['array(int32, 1d, C)', 'readonly array(float64, 2d, C)', 'uint32']
+    """
+    from numba.core import types
+
+    out = []
+    for word in text.split():
+        code, _, dims = word.partition("[")
+        t = getattr(types, _TYPE_NAMES[code])
+        if dims:
+            shape, _, flag = dims.partition("]")
+            t = types.Array(t, shape.count(":"), "C", readonly=flag == "r")
+        out.append(t)
+    return tuple(out)
+
+
+def _kernel(module: str, name: str):
+    import importlib
+
+    return getattr(importlib.import_module(f"basinkit.{module}"), name)
+
+
+def _in_cache(kernel, types) -> bool:
+    """Whether numba's on-disk cache holds ``kernel`` for ``types`` (read from its index,
+    without loading it); False when that cannot be told."""
+    try:
+        cache = kernel._cache
+        key = cache._index_key(types, kernel.targetctx.codegen())
+        return key in cache._cache_file._load_index()
+    except Exception:  # noqa: BLE001 - numba's internals changed: compile (it loads)
+        return False
+
+
+def missing_kernels(entries) -> list:
+    """The ``entries`` (as in :data:`LATER_KERNELS`) that numba's on-disk cache does not
+    hold (reading the cache's index files only: a few milliseconds)."""
+    out = []
+    for e in entries:
+        try:
+            cached = _in_cache(_kernel(e[0], e[1]), argument_types(e[2]))
+        except Exception:  # noqa: BLE001 - a kernel renamed: the job compiles what it uses
+            cached = True
+        if not cached:
+            out.append(e)
+    return out
+
+
+def compile_kernels(entries) -> list:
+    """Compile ``entries`` (as in :data:`LATER_KERNELS`) in this process, in their
+    order, each unless the on-disk cache holds it by then; numba saves each to the cache.
+    Returns the ``(module, name, types)`` compiled. A kernel that fails to compile is
+    passed over (the job meets it again and reports it)."""
+    done = []
+    for e in entries:
+        try:
+            kernel, types = _kernel(e[0], e[1]), argument_types(e[2])
+            if _in_cache(kernel, types):
+                continue
+            kernel.compile(types)
+            done.append(e)
+        except Exception:  # noqa: BLE001
+            continue
+    return done
+
+
+def later_kernels(stages) -> list:
+    """The entries of :data:`LATER_KERNELS` for ``stages``, in the order a job calls
+    them."""
+    return [e for stage in LATER_KERNELS if stage in stages for e in LATER_KERNELS[stage]]
+
+
+def _stage_index(name) -> int:
+    """The position of stage ``name`` in :data:`LATER_KERNELS` (``read``, before them all:
+    -1; a stage after them, e.g. ``design_flow``: their number)."""
+    stages = list(LATER_KERNELS)
+    return stages.index(name) if name in stages else (-1 if name == "read" else len(stages))
+
+
+class _Ahead:
+    """The other process, and what the two share (under ``lock``): ``here``, the stage
+    this process has come to, and ``there``, the stage of the kernel the other process is
+    compiling (-1: none). The other process compiles a kernel only of a stage this one has
+    not come to; this one, coming to a stage, waits for a kernel of it that the other is
+    compiling. So no kernel is ever compiled by both at once: numba's cache of a kernel is
+    one index file per kernel, which two processes saving different argument types at the
+    same moment could leave wrong."""
+
+    def __init__(self, ctx, items):
+        import os
+
+        self.lock = ctx.Lock()
+        self.here = ctx.RawValue("i", -1)
+        self.there = ctx.RawValue("i", -1)
+        self.proc = ctx.Process(target=_compile_backwards,
+                                args=(os.getpid(), items, self.lock, self.here,
+                                      self.there),
+                                name="basinkit-compile-ahead", daemon=True)
+
+
+def _compile_backwards(parent_pid, items, lock, here, there):
+    """The other process: ``items`` = ``[(stage index, entry)]``, the last first, as long
+    as this process's parent has not come to their stage."""
+    from .._processes import worker_init
+
+    worker_init(parent_pid)
+    for k, entry in reversed(items):
+        with lock:
+            if k <= here.value:  # the job is there: it compiles the rest as it goes
+                return
+            there.value = k
+        try:
+            compile_kernels([entry])
+        finally:
+            with lock:
+                there.value = -1
+
+
+_AHEAD: list = []
+
+
+def stage_begins(name: str, wait: float = 300.0):
+    """Tell the process of :func:`compile_ahead` (if any) that the job comes to stage
+    ``name``: it compiles no kernel of this stage or an earlier one from now on, and a
+    kernel of one that it is compiling is waited for (at most ``wait`` seconds, then it
+    is stopped), so that this process loads it instead of compiling it too."""
+    import time
+
+    if not _AHEAD:
+        return
+    a, k = _AHEAD[-1], _stage_index(name)
+    with a.lock:
+        a.here.value = max(a.here.value, k)
+    deadline = time.monotonic() + wait
+    while True:
+        with a.lock:
+            busy = 0 <= a.there.value <= k
+        if not busy or not a.proc.is_alive():
+            return
+        if time.monotonic() > deadline:
+            stop_compile_ahead()
+            return
+        time.sleep(0.02)
+
+
+def _core_free() -> bool:
+    """Whether a core is free for a second process: two cores or more, and the load
+    average of the last minute under their number less a half (``os.getloadavg``; it
+    counts this job's own earlier runs too, finished or not). On a
+    machine busy with other work, two processes get no more time than one (Linux shares
+    the cores between sessions first), and the second one adds work of its own (the
+    helpers that kernels share compiled again), so the job would end later."""
+    import os
+
+    try:
+        cores = os.cpu_count() or 1
+        return cores >= 2 and os.getloadavg()[0] < cores - 0.5
+    except OSError:  # no load average (not a Unix system): no second process
+        return False
+
+
+#: ``BASINKIT_COMPILE_AHEAD=0`` never starts the second process, ``=1`` starts it even on a
+#: busy machine (for tests and benchmarks); unset, only with a core free
+COMPILE_AHEAD_ENV = "BASINKIT_COMPILE_AHEAD"
+
+
+def _looks_cached(entry) -> bool:
+    """Whether numba's cache has an index file for ``entry``'s kernel, from file names
+    alone (without importing numba, which takes half a second): in ``NUMBA_CACHE_DIR``,
+    else beside the module (``__pycache__``) or in the user's cache folder, as numba's
+    cache locators place them (``<module>.<name>-<line>.py<version>.nbi`` in a folder
+    named after the module's folder and the SHA-1 of its path). Where numba changes these
+    names the answer is False and :func:`missing_kernels` decides, in the other process."""
+    import glob
+    import hashlib
+    import os
+    import sys
+
+    module, name = entry[0], entry[1]
+    folder = os.path.join(os.path.dirname(os.path.abspath(__file__)), os.pardir,
+                          *module.split(".")[:-1])
+    folder = os.path.normpath(folder)
+    sub = f"{os.path.basename(folder)}_{hashlib.sha1(folder.encode()).hexdigest()}"
+    pattern = f"{module.split('.')[-1]}.{name}-*.py{sys.version_info[0]}" \
+              f"{sys.version_info[1]}*.nbi"
+    if os.environ.get("NUMBA_CACHE_DIR"):
+        places = [os.path.join(os.path.abspath(os.environ["NUMBA_CACHE_DIR"]), sub)]
+    else:
+        user = os.environ.get("XDG_CACHE_HOME") or os.path.expanduser("~/.cache")
+        places = [os.path.join(folder, "__pycache__"), os.path.join(user, "numba", sub)]
+    return any(glob.glob(os.path.join(glob.escape(p), pattern)) for p in places)
+
+
+def compile_ahead(stages, *, when_busy: bool = False):
+    """Fork a process that compiles the kernels of ``stages`` (keys of
+    :data:`LATER_KERNELS`) from the last backwards into the on-disk cache, and return it.
+
+    None (no process) where forking is not available, numba's compiler is off, the cache
+    holds the last kernel (:func:`_looks_cached`; the usual case: the process would
+    compile it first), or no core is free (:func:`_core_free`) unless ``when_busy``;
+    :data:`COMPILE_AHEAD_ENV` overrides the last. The process checks every kernel in the
+    cache before it compiles it (:func:`compile_kernels`).
+
+    Call it before any kernel compiles in this process (before :func:`start_warmup`),
+    tell it each stage the job comes to (:func:`stage_begins`) and stop it with
+    :func:`stop_compile_ahead`. The process ends with this one (as the workers do,
+    :func:`basinkit._processes.worker_init`), once it has gone through the list, and
+    when the job comes to the stage of the next kernel in it."""
+    import multiprocessing as mp
+    import os
+
+    from .._processes import signals_held
+
+    if "fork" not in mp.get_all_start_methods() or _disabled():
+        return None
+    mode = os.environ.get(COMPILE_AHEAD_ENV, "").strip()
+    if mode == "0" or not (when_busy or mode == "1" or _core_free()):
+        return None
+    items = [(_stage_index(stage), e) for stage in LATER_KERNELS if stage in stages
+             for e in LATER_KERNELS[stage]]
+    # the usual case: the kernel the process would compile first is in the cache (the
+    # process checks every kernel before compiling it)
+    if not items or _looks_cached(items[-1][1]):
+        return None
+    _set_up_numba()  # once, for both processes (this one would do it first thing anyway)
+    ahead = _Ahead(mp.get_context("fork"), items)
+    try:
+        with signals_held():  # as the pools: signals wait until the process is set up
+            ahead.proc.start()
+    except (OSError, AssertionError):  # no process left (EAGAIN), or in a daemon process
+        return None
+    _AHEAD.append(ahead)
+    return ahead.proc
+
+
+def _set_up_numba():
+    """Import numba and set up its typing and compiling contexts (about a second, done
+    before a process's first compile), so that the forked process inherits them."""
+    try:
+        from numba.core.registry import cpu_target
+
+        cpu_target.typing_context.refresh()
+        cpu_target.target_context.refresh()
+    except Exception:  # noqa: BLE001 - the first compile sets them up instead
+        pass
+
+
+def _disabled() -> bool:
+    """numba's cache turned off (``NUMBA_DISABLE_JIT``): nothing to share."""
+    import os
+
+    return os.environ.get("NUMBA_DISABLE_JIT", "0") not in ("", "0")
+
+
+def stop_compile_ahead(wait: float = 5.0):
+    """End the processes of :func:`compile_ahead` still running (``SIGTERM``) and reap
+    them."""
+    while _AHEAD:
+        proc = _AHEAD.pop().proc
+        try:
+            if proc.is_alive():
+                proc.terminate()
+            proc.join(wait)
+            if proc.is_alive():
+                proc.kill()
+                proc.join(1)
+        except (OSError, ValueError, AssertionError):
+            pass
