@@ -201,6 +201,7 @@ def test_small_job_runs_and_carries_on_past_a_bad_outlet(valley, tmp_path):
     assert res.catchments.polygons is None
     assert res.catchments.catchment_polygon("gauge").area == pytest.approx(184000.0,
                                                                            rel=1e-12)
+    assert len(res.catchments.polygons) == len(res.catchments.table)  # read once, held
     frame = res.catchments.subcatchments_frame()
     assert frame.geometry.area.sum() == pytest.approx(184000.0, rel=1e-12)
     errors = pd.read_csv(tmp_path / "out" / "outlet_errors.csv")

@@ -82,9 +82,9 @@ class Delineation:
     def release_polygons(self, path) -> None:
         """Let go of the polygons held in memory (a job does, once its later steps no
         longer need them: a batch of nested catchments holds about 24 bytes per vertex).
-        :attr:`polygons` and :attr:`subcatchment_polygons` are None afterwards;
-        :meth:`catchment_polygon`, :meth:`catchments_frame` and
-        :meth:`subcatchments_frame` read them back from ``path``, the catchments
+        :attr:`polygons` and :attr:`subcatchment_polygons` are None afterwards, until
+        :meth:`catchment_polygon`, :meth:`catchments_frame` or
+        :meth:`subcatchments_frame` reads them back from ``path``, the catchments
         GeoPackage the job wrote."""
         if self.polygons is not None:
             self.polygons = self.subcatchment_polygons = None
@@ -92,15 +92,19 @@ class Delineation:
 
     def _geometries(self, layer):
         """The polygons of ``layer`` (``catchments``/``subcatchments``) in table order:
-        held, read back from the job's GeoPackage once released, or None."""
-        held = self.polygons if layer == "catchments" else self.subcatchment_polygons
+        held, or read back once from the job's GeoPackage after a release (and held
+        again, so that asking outlet by outlet reads the file once), or None."""
+        attr = "polygons" if layer == "catchments" else "subcatchment_polygons"
+        held = getattr(self, attr)
         if held is not None or self._polygons_file is None:
             return held
         import pyogrio
 
         f = pyogrio.read_dataframe(self._polygons_file, layer=layer, columns=["outlet_id"])
         where = dict(zip(f["outlet_id"].astype(str), f.geometry.to_numpy()))
-        return [where.get(k) for k in self.table["outlet_id"].astype(str)]
+        held = [where.get(k) for k in self.table["outlet_id"].astype(str)]
+        setattr(self, attr, held)
+        return held
 
     def _label_of(self, outlet_id):
         index = self._index
