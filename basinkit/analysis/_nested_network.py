@@ -9,6 +9,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from ._sorting import argsort_stable
+
 
 @njit(cache=True, nogil=True)
 def _block_sum(a, start, n):
@@ -129,9 +131,9 @@ def range_network(lo, hi, cstarts, corder, lab, receiver, rdist, stream, strahle
                 s_area[j] = a
         ncell[i] = e - s
         nstream[i] = m
-        total[i] = pairwise_sum(steps, 0, e - s)
+        total[i] = pairwise_sum(steps, np.int64(0), e - s)
         # streams in increasing id (as np.unique), sums per order in that order
-        srt = np.argsort(ids[:m])
+        srt = argsort_stable(ids[:m])
         km = 0
         for q in range(m):
             j = srt[q]

@@ -13,6 +13,8 @@ Two kinds of arrays are used:
 import numpy as np
 from numba import njit
 
+from ._sorting import argsort_stable, search_left
+
 
 @njit(cache=True, nogil=True)
 def preferred_donor(rec, order, key, tie):
@@ -375,7 +377,7 @@ def knickpoints_one(x, y, min_nodes, noise_var, min_ratio, min_relief, max_break
         stack_lo[sp] = k + 1
         stack_hi[sp] = hi
         sp += 1
-    order = np.argsort(ks[:nk])
+    order = argsort_stable(ks[:nk])
     return (ks[:nk][order], kb[:nk][order], ka[:nk][order], kd[:nk][order],
             kr[:nk][order])
 
@@ -442,7 +444,7 @@ def upstream_cells(offsets, donors, starts, level, threshold, stops):
                 if level[d] < threshold:
                     continue
                 if nstop > 1:
-                    j = np.searchsorted(stops, d)
+                    j = search_left(stops, d)
                     if j < nstop and stops[j] == d:
                         continue
                 if m == cap:

@@ -17,6 +17,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from ._sorting import argsort_stable, search_left
+
 # side s of a cell: 0 north, 1 east, 2 south, 3 west; an edge on side s is walked in
 # direction s: 0 east, 1 south, 2 west, 3 north
 _DR = np.array([-1, 0, 1, 0], dtype=np.int64)  # neighbour across side s
@@ -190,7 +192,7 @@ def _close_ring(cols, rows, first, nv, starts, area2, nring, nc):
     sc = cols[first:nv].copy()
     sr = rows[first:nv].copy()
     key = sr * (nc + 1) + sc
-    sk = np.sort(key)
+    sk = key[argsort_stable(key)]
     ndup = 0
     for k in range(1, n):
         if sk[k] == sk[k - 1] and (ndup == 0 or sk[k] != sk[k - 2]):
@@ -210,13 +212,13 @@ def _close_ring(cols, rows, first, nv, starts, area2, nring, nc):
     top = 0
     nv = first
     for k in range(n):
-        q = np.searchsorted(dup, key[k])
+        q = search_left(dup, key[k])
         isdup = q < ndup and dup[q] == key[k]
         if isdup and last[q] >= 0:
             p = last[q]  # a loop from the corner's first visit back to it
             nv, nring = _emit(cols, rows, nv, stc, str_, p, top, starts, area2, nring)
             for t in range(p + 1, top):  # corners of the loop leave the stack
-                qq = np.searchsorted(dup, stk[t])
+                qq = search_left(dup, stk[t])
                 if qq < ndup and dup[qq] == stk[t]:
                     last[qq] = -1
             top = p + 1
