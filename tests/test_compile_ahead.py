@@ -26,6 +26,8 @@ import sys
 import textwrap
 from pathlib import Path
 
+import pandas as pd
+
 from basinkit.workflow import warmup
 
 REPO = Path(__file__).resolve().parents[1]
@@ -46,10 +48,15 @@ def test_later_kernels_keep_the_stage_order():
     assert warmup.later_kernels(()) == []
 
 
-def test_the_demo_job_calls_every_listed_kernel_with_the_listed_types(tmp_path):
+def test_the_demo_job_calls_every_listed_kernel_with_the_listed_types(tmp_path,
+                                                                     monkeypatch):
+    """With its catchments measured all at once (as a job of many outlets measures
+    them), the demo job calls every kernel of the list."""
+    import basinkit.analysis.morphometry as morph
     from basinkit.workflow.jobfile import demo_job_path, read_job
     from basinkit.workflow.runner import run_job
 
+    monkeypatch.setattr(morph, "WINDOW_MAX_CATCHMENTS", 0)
     run_job(read_job(demo_job_path()), output=tmp_path / "demo")
     unused = []
     for stage, entries in warmup.LATER_KERNELS.items():
@@ -58,6 +65,24 @@ def test_the_demo_job_calls_every_listed_kernel_with_the_listed_types(tmp_path):
             if warmup.argument_types(text) not in kernel.signatures:
                 unused.append((stage, name, text, kernel.signatures))
     assert not unused, unused
+
+
+def test_a_few_outlets_compile_no_kernel_of_the_nested_measures():
+    """The demo's 13 outlets are measured each on its window: the process compiling
+    ahead leaves out the kernels that measure many nested catchments at once."""
+    from basinkit.analysis.morphometry import WINDOW_MAX_CATCHMENTS
+    from basinkit.workflow.jobfile import demo_job_path, read_job
+    from basinkit.workflow.runner import _later_stages, settings_of
+
+    job = read_job(demo_job_path())
+    spec = settings_of(job)["outlets"]
+    raw, _ = spec.read()
+    assert len(raw) <= WINDOW_MAX_CATCHMENTS
+    assert "nested_morphometry" not in _later_stages(job, spec, raw)
+    many = pd.concat([raw] * (WINDOW_MAX_CATCHMENTS // len(raw) + 1), ignore_index=True)
+    assert "nested_morphometry" in _later_stages(job, spec, many)
+    job["morphometry"]["enabled"] = False
+    assert "nested_morphometry" not in _later_stages(job, spec, many)
 
 
 def _run(code, cache, **env):

@@ -36,8 +36,22 @@ def _fractal():
                               crs="EPSG:32633")
 
 
+@pytest.mark.parametrize("path", ["nested", "windows"])
 @pytest.mark.parametrize("make", [_fractal, _jacksboro], ids=["fractal", "jacksboro"])
-def test_label_ranges_equal_one_mask_per_catchment(make):
+def test_label_ranges_equal_one_mask_per_catchment(make, path, monkeypatch):
+    """Both ways of measuring label ranges: all at once on the cells listed by label
+    (many catchments), or each on its window (few: WINDOW_MAX_CATCHMENTS)."""
+    import basinkit.analysis.morphometry as morph
+
+    if path == "nested":
+        monkeypatch.setattr(morph, "WINDOW_MAX_CATCHMENTS", 0)
+    else:
+        monkeypatch.setattr(morph, "WINDOW_MAX_CELLS", 10**12)
+
+        def not_this_way(*a, **k):
+            raise AssertionError("measured all at once, not window by window")
+
+        monkeypatch.setattr(morph, "_range_rows", not_this_way)
     t = make()
     fm = route(t)
     area = np.asarray(fm.upstream_area()).ravel()
@@ -67,6 +81,8 @@ def test_label_ranges_equal_one_mask_per_catchment(make):
                                      polygons=polygons)
         assert (fast["error"] == "").all()
         pd.testing.assert_frame_equal(fast, ref, check_exact=False, rtol=rtol, atol=0)
+        if path == "windows" and polygons is None:  # the same windows, the same sums
+            pd.testing.assert_frame_equal(fast, ref, check_exact=True)
         for i in ids:
             pd.testing.assert_frame_equal(fc[i], rc[i], check_exact=False, rtol=1e-12, atol=0)
         if make is _fractal:  # equal whole-number cell areas: curves and order statistics

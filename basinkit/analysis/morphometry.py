@@ -63,16 +63,12 @@ class _Context:
         return _channels.horn_slope_aspect(zp, self.dx[r0:r1 + 1], self.dy_up[r0:r1 + 1],
                                            self.dy_down[r0:r1 + 1])
 
-    def use_full_grid_slope(self, rmin, rmax, cmin, cmax, which):
+    def use_full_grid_slope(self, r0, r1, c0, c1):
         """Compute slope and aspect once for the whole grid when the catchments' padded
-        windows cover more cells in all than the grid (nested catchments)."""
-        which = np.asarray(which)
-        k = which[(which > 0) & (which < rmin.size)]
-        r0, r1, c0, c1 = rmin[k], rmax[k], cmin[k], cmax[k]
-        ok = r1 >= r0
-        cells = float(np.sum((r1[ok] - r0[ok] + 3.0) * (c1[ok] - c0[ok] + 3.0)))
+        windows (rows ``r0..r1``, cols ``c0..c1`` each) cover more cells in all than the
+        grid (nested catchments)."""
         nr, nc = self.valid.shape
-        if cells > nr * nc:
+        if _window_cells(r0, r1, c0, c1) > nr * nc:
             self.slope, self.aspect = self.horn(0, nr - 1, 0, nc - 1)
 
     @property
@@ -80,6 +76,23 @@ class _Context:
         if self._dl is None:
             self._dl = self.fm.downstream_length().ravel()
         return self._dl
+
+
+def _window_cells(r0, r1, c0, c1) -> float:
+    """The cells of the windows rows ``r0..r1``, cols ``c0..c1`` padded by one cell, in
+    all (empty windows, ``r1 < r0``, count nothing)."""
+    ok = r1 >= r0
+    return float(np.sum((r1[ok] - r0[ok] + 3.0) * (c1[ok] - c0[ok] + 3.0)))
+
+
+#: Nested catchments (label ranges) are measured each on its window, as catchments
+#: given by masks are, when they are at most this many and their padded windows hold at
+#: most WINDOW_MAX_CELLS cells in all: a few tenths of a second of numpy work, less than
+#: listing the whole grid's cells by label for :class:`._measure_arrays.NestedNumbers`
+#: (and, on a new machine, than compiling its kernels: about 10 s). Both give the same
+#: numbers up to the order of summation (``tests/test_morphometry_batch.py``).
+WINDOW_MAX_CATCHMENTS = 64
+WINDOW_MAX_CELLS = 2_000_000
 
 
 def _range_boxes(ranges, rmin, rmax, cmin, cmax):
@@ -431,8 +444,10 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
         With a label grid: catchment ``i`` is the cells labelled ``label_ranges[i, 0]`` to
         ``label_ranges[i, 1]`` (the depth-first labels of
         :class:`~basinkit.analysis.catchments.Delineation`, where a nested catchment is a
-        contiguous label range), measured on its cells, listed once for all catchments by
-        label (a range is one slice of that list), without masks or windows.
+        contiguous label range). Many (more than ``WINDOW_MAX_CATCHMENTS``, or windows
+        of more than ``WINDOW_MAX_CELLS`` cells in all) are measured on their cells,
+        listed once for all catchments by label (a range is one slice of that list),
+        without masks or windows; a few each on its window, as masks are.
     polygons : sequence of shapely geometries, optional
         With ``label_ranges``: each catchment's polygon, as the delineation traced it
         (default: traced here from its cells).
@@ -494,11 +509,16 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
         if len(masks) != n:
             raise InputError(f"{len(masks)} catchment masks for {n} outlets")
     if labels is not None and label_ranges is not None:
-        rows, curves = _range_rows(ctx, labels, ranges, nlab, outlets, ids, return_curves,
-                                   progress, polygons, (rmin, rmax, cmin, cmax))
-        return _finish_table(rows, curves, return_curves)
-    if labels is not None:
-        ctx.use_full_grid_slope(rmin, rmax, cmin, cmax, ids)
+        if n > WINDOW_MAX_CATCHMENTS or \
+                _window_cells(rmin, rmax, cmin, cmax) > WINDOW_MAX_CELLS:
+            rows, curves = _range_rows(ctx, labels, ranges, nlab, outlets, ids,
+                                       return_curves, progress, polygons,
+                                       (rmin, rmax, cmin, cmax))
+            return _finish_table(rows, curves, return_curves)
+        ctx.use_full_grid_slope(rmin, rmax, cmin, cmax)
+    elif labels is not None:
+        k = ids[(ids > 0) & (ids < rmin.size)]
+        ctx.use_full_grid_slope(rmin[k], rmax[k], cmin[k], cmax[k])
     import rasterio
 
     with rasterio.Env():  # one GDAL environment for every polygon of the batch
@@ -509,11 +529,21 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
             cid = ids[i]
 
             def measure(i=i, cid=cid):
-                if labels is not None:
+                poly = None
+                if labels is not None and label_ranges is not None:
+                    lo, hi = int(ranges[i, 0]), int(ranges[i, 1])
+                    if not 0 < lo <= hi < nlab or rmin[i] > rmax[i]:
+                        raise InputError(f"catchment {cid} has no cells in the label grid")
+                    r0, r1, c0, c1 = rmin[i], rmax[i], cmin[i], cmax[i]
+                    w = labels[r0:r1 + 1, c0:c1 + 1]
+                    mwin = (w >= lo) & (w <= hi)
+                    poly = polygons[i] if polygons is not None else None
+                elif labels is not None:
                     if cid <= 0 or rmin[cid] > rmax[cid]:
                         raise InputError(f"catchment {cid} has no cells in the label grid")
                     r0, r1, c0, c1 = rmin[cid], rmax[cid], cmin[cid], cmax[cid]
                     mwin = labels[r0:r1 + 1, c0:c1 + 1] == cid
+                    poly = polys.get(int(cid))
                 else:
                     m = np.asarray(masks[i], dtype=bool)
                     if m.shape != fm.shape:
@@ -525,7 +555,7 @@ def morphometry_table(fm, masks_or_labels, outlet_cells, ids=None, network=None,
                     r0, r1, c0, c1 = rr[0], rr[-1], cc[0], cc[-1]
                     mwin = m[r0:r1 + 1, c0:c1 + 1]
                 out, curve = _measure(ctx, r0, r1, c0, c1, mwin, outlets[i], return_curves,
-                                      polys.get(int(cid)) if labels is not None else None)
+                                      poly)
                 return out, curve
 
             _catchment_row(cid, measure, rows, curves, return_curves)

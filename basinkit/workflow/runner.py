@@ -205,6 +205,21 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
         stop_compile_ahead()
 
 
+def _later_stages(job, spec, raw) -> list:
+    """The stages of :data:`.warmup.LATER_KERNELS` whose kernels ``job`` will call:
+    many outlets (more than ``WINDOW_MAX_CATCHMENTS``) are measured all at once, a few
+    each on its window (:func:`basinkit.analysis.morphometry.morphometry_table`)."""
+    if not spec:
+        return ["flow", "channels"]
+    from ..analysis.morphometry import WINDOW_MAX_CATCHMENTS
+
+    stages = ["flow", "channels", "catchments"]
+    stages += [s for s in ("profiles", "morphometry") if job[s]["enabled"]]
+    if job["morphometry"]["enabled"] and len(raw) > WINDOW_MAX_CATCHMENTS:
+        stages.append("nested_morphometry")
+    return stages
+
+
 class _StageTimer(StageTimer):
     """The stage timer, telling the compile-ahead process (if any) each stage the job comes
     to (:func:`basinkit.workflow.warmup.stage_begins`)."""
@@ -243,16 +258,15 @@ def _run(job, out, rep, report):
     if job["routing"].get("scheduler"):
         rep.warn("[routing] scheduler applies to a DEM routed by tiles (max_memory or "
                  "tile_size); this one is routed in memory")
-    # a new machine: the later stages' kernels compile in a second process meanwhile
-    compile_ahead(["flow", "channels"] + (["catchments"] + [
-        s for s in ("profiles", "morphometry") if job[s]["enabled"]] if spec else []))
     with timer("read"):
+        raw = read_errors = None
+        if spec:  # first: how many outlets decides which kernels the job will need
+            raw, read_errors = spec.read()
+        # a new machine: the later stages' kernels compile in a second process meanwhile
+        compile_ahead(_later_stages(job, spec, raw))
         inputs = _hashes(job)
         terrain = read_terrain(st["flow"])
         burn = read_burn_lines(st["flow"], terrain.crs)
-        raw = read_errors = None
-        if spec:
-            raw, read_errors = spec.read()
         design = _design_flow_inputs(job, st, terrain, inputs)
     out.open()
     res.terrain = terrain

@@ -116,11 +116,10 @@ LATER_KERNELS = {
         ("analysis._channels", "strahler_streams", "i2[:] i4[:]"),
         ("analysis._channels", "segment_paths", "i4[:] b1[:] i8[:] i8[:]"),
     ],
-    "morphometry": [
-        ("analysis._channels", "label_bounding_boxes", "i4[:,:] i8"),
+    # many nested catchments, measured all at once on the cells listed by label (a few
+    # are measured each on its window: analysis.morphometry.WINDOW_MAX_CATCHMENTS)
+    "nested_morphometry": [
         ("analysis._catchments", "cells_by_label", "i4[:] b1[:] i8"),
-        ("analysis._channels", "horn_slope_aspect", "f8[:,:] f8[:] f8[:] f8[:]"),
-        ("routing._d8", "downstream_length", "i4[:] i4[:] f8[:]r"),
         ("analysis._order_stats", "_order_keys", "f4[:] u4[:] u4"),
         ("analysis._order_stats", "_radix_order", "u4[:] i8"),
         ("analysis._label_sums", "label_sums",
@@ -136,6 +135,11 @@ LATER_KERNELS = {
         ("analysis._order_stats", "kth_ranks", "u8[:,:,:] i8[:] i8[:] i8[:] i8[:,:]"),
         ("analysis._nested_network", "range_network",
          "i8[:] i8[:] i8[:] i4[:] i4[:] i4[:] f8[:]r i4[:] i2[:] f8[:]r i8 i8"),
+    ],
+    "morphometry": [
+        ("analysis._channels", "label_bounding_boxes", "i4[:,:] i8"),
+        ("analysis._channels", "horn_slope_aspect", "f8[:,:] f8[:] f8[:] f8[:]"),
+        ("routing._d8", "downstream_length", "i4[:] i4[:] f8[:]r"),
     ],
     "profiles": [
         ("analysis._profiles", "donor_lists", "i4[:]"),
