@@ -92,19 +92,32 @@ def read_terrain(settings: FlowSettings):
 
     The kernels of ``route`` load in a background thread meanwhile
     (:mod:`basinkit.workflow.warmup`)."""
+    import gc
+
     from ..warmup import start_warmup
 
-    warm = start_warmup(_raster_cells(settings.dem), settings.method, settings.conditioning)
+    # loading numba and the kernels makes hundreds of thousands of objects that live as
+    # long as the process: the cyclic collector, walking them again and again meanwhile,
+    # took a tenth of a second or more; it runs again once they are loaded
+    collecting = gc.isenabled()
+    gc.disable()
     try:
-        from ...io.dem import read_dem
+        warm = start_warmup(_raster_cells(settings.dem), settings.method,
+                            settings.conditioning)
+        try:
+            from ...io.dem import read_dem
 
-        return read_dem(settings.dem, band=settings.band, crs=settings.crs,
-                        sea_level=settings.sea_level_m, base_level=settings.base_level,
-                        replace_crs=settings.replace_crs, cell_size=settings.cell_size,
-                        origin=settings.origin, elevation_range=settings.elevation_range_m,
-                        implausible_elevations=settings.implausible_elevations)
+            return read_dem(settings.dem, band=settings.band, crs=settings.crs,
+                            sea_level=settings.sea_level_m, base_level=settings.base_level,
+                            replace_crs=settings.replace_crs, cell_size=settings.cell_size,
+                            origin=settings.origin,
+                            elevation_range=settings.elevation_range_m,
+                            implausible_elevations=settings.implausible_elevations)
+        finally:
+            warm.join()
     finally:
-        warm.join()
+        if collecting:
+            gc.enable()
 
 
 def _raster_cells(path) -> int:
