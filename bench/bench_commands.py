@@ -173,12 +173,15 @@ def bench_route(sizes, runs, before=None):
                   str(tmp / "pysheds")]
             timed(bk, env_with_package())  # warm the file cache and the kernel cache
             a, b, mem_a, mem_b, old = [], [], [], [], []
+            cpu = {"after": [], "pysheds": [], "before": []}
+            loads = []
             if before is not None:
                 bk_old = basinkit_cmd("route", dem, "-o", tmp / "flow_before", "--overwrite")
                 timed(bk_old, env_with_package(before))
             for _ in range(runs):
                 if before is not None:
                     old.append(timed(bk_old, env_with_package(before))[0])
+                    cpu["before"].append(CPU_SECONDS[-1])
                     print(f"  {n}²: before {old[-1]:.2f} s ({CPU_SECONDS[-1]:.2f} s CPU)",
                           flush=True)
                 wa, ma, _ = timed(bk, env_with_package())
@@ -186,6 +189,8 @@ def bench_route(sizes, runs, before=None):
                 wb, mb, _ = timed(ps, env_with_package())
                 cb = CPU_SECONDS[-1]
                 a.append(wa), b.append(wb), mem_a.append(ma), mem_b.append(mb)
+                cpu["after"].append(ca), cpu["pysheds"].append(cb)
+                loads.append(os.getloadavg()[0])
                 print(f"  {n}²: basinkit {wa:.2f} s ({ca:.2f} s CPU), pysheds {wb:.2f} s "
                       f"({cb:.2f} s CPU), load {os.getloadavg()[0]:.1f}", flush=True)
             size_mb = sum(f.stat().st_size for f in (tmp / "flow").iterdir()) / 1e6
@@ -199,7 +204,8 @@ def bench_route(sizes, runs, before=None):
                "ratio_median": statistics.median(y / x for x, y in zip(a, b)),
                "basinkit_peak_mb": max(mem_a), "pysheds_peak_mb": max(mem_b),
                "flow_folder_mb": size_mb, "inproc": ip, "route_s": route_s,
-               "outside_route_share": 1 - route_s / med_a, "before_s": old}
+               "outside_route_share": 1 - route_s / med_a, "before_s": old,
+               "cpu_s": cpu, "load": loads}
         rows.append(row)
         print(f"{n}²: basinkit {med_a:.2f} s (median of {runs}), pysheds "
               f"{row['pysheds_median_s']:.2f} s, ratio {row['ratio_median']:.2f}×; "
@@ -208,6 +214,11 @@ def bench_route(sizes, runs, before=None):
               f"writing {100 * row['outside_route_share']:.0f} % of the command; flow "
               f"folder {size_mb:.0f} MB; peak {row['basinkit_peak_mb']:.0f} MB vs "
               f"{row['pysheds_peak_mb']:.0f} MB", flush=True)
+        print(f"{n}²: CPU seconds, median: basinkit {statistics.median(cpu['after']):.2f}, "
+              f"pysheds {statistics.median(cpu['pysheds']):.2f}, ratio "
+              f"{statistics.median(cpu['pysheds']) / statistics.median(cpu['after']):.2f}×"
+              + (f", before {statistics.median(cpu['before']):.2f}" if old else "")
+              + f"; load {min(loads):.1f}-{max(loads):.1f}", flush=True)
         if old:
             print(f"{n}²: before {statistics.median(old):.2f} s (median), ratio pysheds / "
                   f"before {statistics.median(y / x for x, y in zip(old, b)):.2f}×",

@@ -329,3 +329,24 @@ def test_load_flow_refuses_looping_directions_and_exits_into_nodata(tmp_path):
         ds.write(d, 1)
     with pytest.raises(InputError, match="loop"):
         load_flow(tmp_path / "flow")
+
+
+def test_only_a_process_of_its_own_freezes_the_collector_at_exit(monkeypatch):
+    """Common practice (no source): main() called with arguments (a host program, the
+    tests) leaves the garbage collector as it is; without arguments (the ``basinkit``
+    process) it freezes it just before exiting, so the interpreter's exit skips the
+    collector's walks."""
+    import importlib
+    import sys
+
+    cli_main = importlib.import_module("basinkit.cli.main")
+
+    calls = []
+    monkeypatch.setattr(cli_main, "_spare_the_exit", lambda: calls.append(1))
+    with pytest.raises(SystemExit):
+        cli_main.main(["--help"])
+    assert calls == []
+    monkeypatch.setattr(sys, "argv", ["basinkit", "--help"])
+    with pytest.raises(SystemExit):
+        cli_main.main()
+    assert calls == [1]

@@ -19,7 +19,7 @@ from affine import Affine
 from basinkit import load_flow, read_dem, route, write_flow_folder
 from basinkit.errors import InputError
 from basinkit.io import writers
-from basinkit.io.flow_folder import FILES
+from basinkit.io.flow_folder import FILES, FlowFolderWriter
 
 TR = Affine(10, 0, 500000, 0, -10, 5000000)
 
@@ -95,6 +95,52 @@ def test_two_runs_give_byte_identical_rasters(tmp_path, dem300):
     b = write_flow_folder(route(read_dem(dem)), tmp_path / "b")
     for key in ("conditioned", "d8", "cells", "area"):
         assert digest(a / FILES[key]) == digest(b / FILES[key]), key
+
+
+def test_folder_written_while_routing_has_the_bytes_of_the_one_written_after(tmp_path,
+                                                                            dem300):
+    """Output contract (byte-identical products): the layers written in the background
+    thread while route() runs (FlowFolderWriter) are the bytes write_flow_folder writes
+    from the finished model, flow.json included. Closed form for the hand-over: route()
+    hands over the conditioned elevations and the final receivers, once each."""
+    dem, _ = dem300
+    terrain = read_dem(dem)
+    seen = []
+    with FlowFolderWriter(tmp_path / "during", overwrite=False) as w:
+        w.georeference(terrain)
+
+        def ready(name, grid):
+            seen.append((name, grid))
+            w.ready(name, grid)
+
+        fm = route(terrain, ready=ready)
+        during = w.finish(fm)
+    assert [n for n, _ in seen] == ["conditioned", "receivers"]
+    np.testing.assert_array_equal(seen[0][1], fm.terrain.elevation)
+    np.testing.assert_array_equal(seen[1][1], fm.receiver)
+    after = write_flow_folder(route(read_dem(dem)), tmp_path / "after")
+    for key in ("conditioned", "d8", "cells", "area", "meta"):
+        assert digest(during / FILES[key]) == digest(after / FILES[key]), key
+
+
+def test_a_failed_background_write_raises_and_the_thread_stops(tmp_path, dem300,
+                                                               monkeypatch):
+    """Common practice (no source): an error of the writing thread is raised by finish(),
+    not lost, and leaving the block waits for the thread."""
+    from basinkit.io import flow_folder
+
+    dem, _ = dem300
+    terrain = read_dem(dem)
+
+    def broken(path, *args, **kwargs):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(flow_folder, "_write_layer", broken)
+    with pytest.raises(OSError, match="No space left"):
+        with FlowFolderWriter(tmp_path / "flow") as w:
+            w.georeference(terrain)
+            w.finish(route(terrain, ready=w.ready))
+    assert w._pool is None
 
 
 def test_the_dem_is_referenced_and_read_back_from_its_file(tmp_path, dem300):

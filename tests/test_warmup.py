@@ -58,6 +58,34 @@ def test_warmup_loads_the_versions_a_grid_will_use():
     assert _stack._sweep_bands.parallel.signatures
 
 
+def _signatures():
+    from numba.core.registry import CPUDispatcher
+
+    from basinkit.conditioning import _fill, _tiled_fill
+
+    out = {}
+    for m in (_d8, _stack, _fill, _tiled_fill):
+        for name, v in vars(m).items():
+            for f in (v, getattr(v, "serial", None), getattr(v, "parallel", None)):
+                if isinstance(f, CPUDispatcher):
+                    out[(m.__name__, f.__name__)] = len(f.signatures)
+    return out
+
+
+def test_after_the_warmup_routing_a_tiled_grid_loads_no_other_kernel(fractal):
+    """The warm-up fills its small surface by small tiles and routes it: a grid the fill
+    takes by tiles (more than 512 x 512 cells) then calls no kernel, and no argument
+    types, that the warm-up did not load (numba's dispatcher records the signatures it
+    holds; common practice, no source)."""
+    warm_route_kernels(600 * 600)
+    before = _signatures()
+    fm = route(terrain_from_array(fractal(600, 600, seed=5), cellsize=10))
+    fm.direction_d8()
+    fm.upstream_area()
+    after = _signatures()
+    assert {k: v for k, v in after.items() if before.get(k) != v} == {}
+
+
 def test_flow_folder_is_the_same_after_a_warmup(tmp_path, fractal):
     import hashlib
 

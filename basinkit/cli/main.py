@@ -215,7 +215,20 @@ def main(argv=None):
         if previous is not None:  # main() called again in one process (the tests)
             signal.signal(signal.SIGTERM, previous)
             _HANDLER_PID.pop()
+    if argv is None:
+        _spare_the_exit()
     sys.exit(code)
+
+
+def _spare_the_exit():
+    """In a process of its own (``main()`` without arguments), move every object to the
+    garbage collector's permanent generation: the interpreter's exit then skips the
+    collector's walks over the objects numba and the libraries made (0.3-0.4 s of a
+    command, measured). Objects are still freed by reference counting and the exit
+    handlers still run; only cyclic garbage made before this point stays unvisited."""
+    import gc
+
+    gc.freeze()
 
 
 def _settle_outputs(ok, console=None):

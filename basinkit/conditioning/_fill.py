@@ -305,6 +305,8 @@ def change_summary(orig, cond, valid, row_area):
     max_down = 0.0
     vol_up = 0.0
     vol_down = 0.0
+    # raised cells not yet reached by the count of depressions below
+    up = np.zeros(nr * nc, dtype=np.uint8)
     for r in range(nr):
         a = row_area[r]
         for c in range(nc):
@@ -313,6 +315,7 @@ def change_summary(orig, cond, valid, row_area):
             d = np.float64(cond[r, c]) - np.float64(orig[r, c])
             if d > 0:
                 raised += 1
+                up[r * nc + c] = 1
                 vol_up += d * a
                 if d > max_up:
                     max_up = d
@@ -322,30 +325,47 @@ def change_summary(orig, cond, valid, row_area):
                 if -d > max_down:
                     max_down = -d
     # count depressions: connected components of raised cells
-    seen = np.zeros((nr, nc), dtype=np.bool_)
+    offs = np.empty(8, dtype=np.int64)
+    for k in range(8):
+        offs[k] = DROW[k] * nc + DCOL[k]
+    inv = 1.0 / max(nc, 1)
     queue = np.empty(max(raised, 1), dtype=np.int64)
     ndep = 0
-    for r0 in range(nr):
-        for c0 in range(nc):
-            if seen[r0, c0] or not valid[r0, c0] or not cond[r0, c0] > orig[r0, c0]:
-                continue
-            ndep += 1
-            seen[r0, c0] = True
-            head = 0
-            tail = 1
-            queue[0] = r0 * nc + c0
-            while head < tail:
-                i = queue[head]
-                head += 1
-                r = i // nc
-                c = i - r * nc
+    for i0 in range(nr * nc):
+        if up[i0] == 0:
+            continue
+        ndep += 1
+        up[i0] = 0
+        head = 0
+        tail = 1
+        queue[0] = i0
+        while head < tail:
+            i = queue[head]
+            head += 1
+            # the row by a floating-point estimate and one correction (exact below 2**52
+            # cells; an integer division per cell costs more)
+            r = np.int64(i * inv)
+            if r * nc > i:
+                r -= 1
+            elif (r + 1) * nc <= i:
+                r += 1
+            c = i - r * nc
+            if r > 0 and r < nr - 1 and c > 0 and c < nc - 1:
+                for k in range(8):
+                    j = i + offs[k]
+                    if up[j]:
+                        up[j] = 0
+                        queue[tail] = j
+                        tail += 1
+            else:
                 for k in range(8):
                     rr = r + DROW[k]
                     cc = c + DCOL[k]
-                    if rr < 0 or rr >= nr or cc < 0 or cc >= nc or seen[rr, cc]:
+                    if rr < 0 or rr >= nr or cc < 0 or cc >= nc:
                         continue
-                    if valid[rr, cc] and cond[rr, cc] > orig[rr, cc]:
-                        seen[rr, cc] = True
-                        queue[tail] = rr * nc + cc
+                    j = rr * nc + cc
+                    if up[j]:
+                        up[j] = 0
+                        queue[tail] = j
                         tail += 1
     return raised, lowered, max_up, max_down, vol_up, vol_down, ndep

@@ -14,7 +14,7 @@ from ..terrain.model import Terrain
 from .writers import (prepare_output_dir, provenance, raster_codec, write_geotiff,
                       write_json)
 
-__all__ = ["FILES", "write_flow_folder", "load_flow"]
+__all__ = ["FILES", "write_flow_folder", "FlowFolderWriter", "load_flow"]
 
 # file names inside a flow folder
 FILES = {
@@ -39,48 +39,136 @@ def write_flow_folder(fm, folder, overwrite: bool = False,
     elevation_input.tif, as well, so that the folder stands on its own; a DEM that did not
     come from a file (an array) is always copied.
     """
+    with FlowFolderWriter(folder, overwrite) as writer:
+        return writer.finish(fm, extra_provenance=extra_provenance, copy_input=copy_input)
 
-    out = prepare_output_dir(folder, overwrite)
-    for name in FILES.values():  # no stale layer of an earlier run may stay listed
-        (out / name).unlink(missing_ok=True)
-    t = fm.terrain
-    nod = np.float32(np.nan)
-    src = t.source if isinstance(t.source, dict) else {}
-    input_record = None
-    if fm.input_elevation is not None:
-        if copy_input is None:
-            copy_input = not (src.get("path") and src.get("sha256"))
-        if copy_input:
-            write_geotiff(out / FILES["input"], fm.input_elevation, t.transform, t.crs,
+
+#: the layers ``route`` hands over as they become final (its ``ready`` callback): key in
+#: FILES, nodata value
+_EARLY_LAYERS = {"conditioned": ("conditioned", np.float32(np.nan)),
+                 "receivers": ("d8", D8_NODATA)}
+
+
+def _write_layer(path, name, grid, transform, crs, shape, nodata):
+    if name == "receivers":  # the direction codes, made here (a kernel without the GIL)
+        grid = _d8.receivers_to_azimuth(grid, shape[1]).reshape(shape)
+    write_geotiff(path, grid, transform, crs, nodata=nodata)
+
+
+class FlowFolderWriter:
+    """A flow folder written while the route is still running.
+
+    Pass :meth:`ready` as ``route(..., ready=writer.ready)``: the conditioned elevations
+    and the D8 directions are written in one background thread as soon as ``route`` has
+    them (the direction codes are made there too; GDAL compresses and writes without the
+    GIL, and the routing kernels that follow leave a core free part of the time), and :meth:`finish` writes the rest once the
+    model is complete and waits for them. The files are the bytes
+    :func:`write_flow_folder` writes. Use it as a context manager, so that the thread has
+    stopped before the folder is given up after an error.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from basinkit import terrain_from_array, route
+    >>> from basinkit.io.flow_folder import FlowFolderWriter
+    >>> t = terrain_from_array(np.add.outer(np.arange(4.0, 0, -1), np.zeros(3)), cellsize=10)
+    >>> with FlowFolderWriter("flow_example", overwrite=True) as w:
+    ...     w.georeference(t)
+    ...     out = w.finish(route(t, ready=w.ready))
+    >>> sorted(p.name for p in out.iterdir())[:2]
+    ['accumulation_cells.tif', 'direction_d8.tif']
+    """
+
+    def __init__(self, folder, overwrite: bool = False):
+        self.out = prepare_output_dir(folder, overwrite)
+        for name in FILES.values():  # no stale layer of an earlier run may stay listed
+            (self.out / name).unlink(missing_ok=True)
+        self._pool = None
+        self._pending = {}
+        self._georef = None
+
+    def georeference(self, terrain):
+        """The transform and CRS of the layers (the terrain's); needed before
+        :meth:`ready` is called."""
+        self._georef = (terrain.transform, terrain.crs, terrain.shape)
+
+    def ready(self, name, grid):
+        """Start writing a layer ``route`` has finished (see its ``ready``); layers this
+        writer does not write early are left to :meth:`finish`."""
+        if name not in _EARLY_LAYERS or self._georef is None:
+            return
+        from concurrent.futures import ThreadPoolExecutor
+
+        key, nodata = _EARLY_LAYERS[name]
+        if self._pool is None:
+            self._pool = ThreadPoolExecutor(1, thread_name_prefix="basinkit-flow-writer")
+        self._pending[key] = self._pool.submit(_write_layer, self.out / FILES[key], name,
+                                               grid, *self._georef, nodata)
+
+    def finish(self, fm, extra_provenance: dict | None = None,
+               copy_input: bool | None = None):
+        """Write the layers not written yet and flow.json; wait for the background writes
+        (their errors raise here). Returns the folder (see :func:`write_flow_folder`)."""
+        out = self.out
+        t = fm.terrain
+        nod = np.float32(np.nan)
+        src = t.source if isinstance(t.source, dict) else {}
+        input_record = None
+        if fm.input_elevation is not None:
+            if copy_input is None:
+                copy_input = not (src.get("path") and src.get("sha256"))
+            if copy_input:
+                write_geotiff(out / FILES["input"], fm.input_elevation, t.transform, t.crs,
+                              nodata=nod)
+                input_record = {"stored": "copy", "file": FILES["input"]}
+            else:
+                input_record = {"stored": "reference", "path": src["path"],
+                                "sha256": src["sha256"], "band": src.get("band") or 1}
+        if "conditioned" not in self._pending:
+            write_geotiff(out / FILES["conditioned"], t.elevation, t.transform, t.crs,
                           nodata=nod)
-            input_record = {"stored": "copy", "file": FILES["input"]}
+        if "d8" not in self._pending:
+            write_geotiff(out / FILES["d8"], fm.direction_d8(), t.transform, t.crs,
+                          nodata=D8_NODATA)
+        if fm.dinf_azimuth is not None:
+            write_geotiff(out / FILES["dinf"], fm.dinf_azimuth, t.transform, t.crs,
+                          nodata=nod)
+        cells = fm.accumulation(unit="cells")
+        if cells.dtype.kind == "i":
+            cells = np.where(t.valid, cells.astype(np.int32, copy=False), np.int32(0))
+            write_geotiff(out / FILES["cells"], cells, t.transform, t.crs, nodata=0)
         else:
-            input_record = {"stored": "reference", "path": src["path"],
-                            "sha256": src["sha256"], "band": src.get("band") or 1}
-    write_geotiff(out / FILES["conditioned"], t.elevation, t.transform, t.crs, nodata=nod)
-    write_geotiff(out / FILES["d8"], fm.direction_d8(), t.transform, t.crs,
-                  nodata=D8_NODATA)
-    if fm.dinf_azimuth is not None:
-        write_geotiff(out / FILES["dinf"], fm.dinf_azimuth, t.transform, t.crs,
-                      nodata=nod)
-    cells = fm.accumulation(unit="cells")
-    if cells.dtype.kind == "i":
-        cells = np.where(t.valid, cells, 0).astype(np.int32)
-        write_geotiff(out / FILES["cells"], cells, t.transform, t.crs, nodata=0)
-    else:
-        write_geotiff(out / FILES["cells"], cells.astype(np.float32), t.transform, t.crs,
-                      nodata=nod)
-    write_geotiff(out / FILES["area"], fm.upstream_area(), t.transform, t.crs,
-                  nodata=np.nan)
-    meta = provenance(fm.parameters, {"dem": t.source}, crs=t.crs, shape=t.shape,
-                      conditioning=(fm.summary.to_dict() if fm.summary else None),
-                      files={k: v for k, v in FILES.items()
-                             if (out / v).exists() or k == "meta"},
-                      base_level=bool(t.base_level is not None and t.base_level.any()),
-                      input_elevation=input_record, raster_codec=raster_codec(),
-                      **(extra_provenance or {}))
-    write_json(out / FILES["meta"], meta)
-    return out
+            write_geotiff(out / FILES["cells"], cells.astype(np.float32), t.transform,
+                          t.crs, nodata=nod)
+        del cells
+        write_geotiff(out / FILES["area"], fm.upstream_area(), t.transform, t.crs,
+                      nodata=np.nan)
+        for key in list(self._pending):
+            self._pending.pop(key).result()
+        meta = provenance(fm.parameters, {"dem": t.source}, crs=t.crs, shape=t.shape,
+                          conditioning=(fm.summary.to_dict() if fm.summary else None),
+                          files={k: v for k, v in FILES.items()
+                                 if (out / v).exists() or k == "meta"},
+                          base_level=bool(t.base_level is not None and t.base_level.any()),
+                          input_elevation=input_record, raster_codec=raster_codec(),
+                          **(extra_provenance or {}))
+        write_json(out / FILES["meta"], meta)
+        return out
+
+    def close(self):
+        """Wait for the background thread (a write under way ends; queued ones are
+        dropped)."""
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+        self._pending.clear()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
 
 
 def _read_band(path):

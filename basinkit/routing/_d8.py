@@ -10,6 +10,7 @@ from numba import njit, prange
 
 from ..conditioning._fill import DCOL, DROW
 from .._jit import parallel_for_large_grids
+from ._stack import _row_of
 
 NO_FLOW = -3  # internal: a cell with no downslope neighbour that is not an exit (a flat)
 
@@ -180,6 +181,7 @@ def resolve_flats(z, valid, rec, dist):
     n = nr * nc
     zf = z.ravel()
     vf = valid.ravel()
+    inv = 1.0 / nc  # rows by _row_of: an integer division costs more, cell after cell
     offs = np.empty(8, dtype=np.int64)
     for k in range(8):
         offs[k] = DROW[k] * nc + DCOL[k]
@@ -197,12 +199,10 @@ def resolve_flats(z, valid, rec, dist):
     # non-flat neighbours in the order of their first flat neighbour, the low edges among them
     mark = np.zeros(n, dtype=np.uint8)
     touched = np.empty(max(min(8 * nflat, n - nflat), 1), dtype=np.int32)
-    high = np.empty(nflat, dtype=np.int32)
     ntouch = 0
-    nhigh = 0
     for t in range(nflat):
         i = flats[t]
-        r = i // nc
+        r = _row_of(i, nc, inv)
         c = i - r * nc
         zc = zf[i]
         inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
@@ -225,9 +225,6 @@ def resolve_flats(z, valid, rec, dist):
                     ntouch += 1
                 if zn == zc:
                     mark[j] |= _LOW
-        if mark[i] & _HIGH:
-            high[nhigh] = i
-            nhigh += 1
     nlow = 0
     for t in range(ntouch):
         j = touched[t]
@@ -258,7 +255,7 @@ def resolve_flats(z, valid, rec, dist):
             head += 1
             is_flat = labels[i] > 0
             # low edges spread too: flats that share an outlet cell become one flat
-            r = i // nc
+            r = _row_of(i, nc, inv)
             c = i - r * nc
             inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
             for k in range(8):
@@ -284,7 +281,7 @@ def resolve_flats(z, valid, rec, dist):
     # each flat on its own (independent: disjoint cells), in parallel
     for L in prange(nlab):
         _finish_flat(L + 1, members, start[L], start[L + 1], queue, labels, mark, mask, rec,
-                     dist, offs, nr, nc)
+                     dist, offs, nr, nc, inv)
     unresolved = 0
     for t in range(nflat):
         i = flats[t]
@@ -295,7 +292,8 @@ def resolve_flats(z, valid, rec, dist):
 
 
 @njit(cache=True, nogil=True)
-def _finish_flat(lab, members, a, b, queue, labels, mark, mask, rec, dist, offs, nr, nc):
+def _finish_flat(lab, members, a, b, queue, labels, mark, mask, rec, dist, offs, nr, nc,
+                 inv):
     # gradient away from higher terrain, breadth first from the high edges; held in mask
     tail = a
     for t in range(a, b):
@@ -312,7 +310,7 @@ def _finish_flat(lab, members, a, b, queue, labels, mark, mask, rec, dist, offs,
         d = mask[i]
         if d > height:
             height = d
-        r = i // nc
+        r = _row_of(i, nc, inv)
         c = i - r * nc
         inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
         for k in range(8):
@@ -344,7 +342,7 @@ def _finish_flat(lab, members, a, b, queue, labels, mark, mask, rec, dist, offs,
             level_end = tail
         i = queue[head]
         head += 1
-        r = i // nc
+        r = _row_of(i, nc, inv)
         c = i - r * nc
         inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
         for k in range(8):
@@ -368,7 +366,7 @@ def _finish_flat(lab, members, a, b, queue, labels, mark, mask, rec, dist, offs,
         i = queue[t]
         if labels[i] < 0:
             continue
-        r = i // nc
+        r = _row_of(i, nc, inv)
         c = i - r * nc
         inside = r > 0 and r < nr - 1 and c > 0 and c < nc - 1
         mi = mask[i]

@@ -216,7 +216,7 @@ def _read_only(a):
 
 
 def route(terrain: Terrain, method: str = "d8", conditioning: str = "fill",
-          mfd_exponent: float = 1.1, **condition_options) -> FlowModel:
+          mfd_exponent: float = 1.1, *, ready=None, **condition_options) -> FlowModel:
     """Condition (unless ``conditioning="none"``) and route flow over a DEM.
 
     Parameters
@@ -230,6 +230,12 @@ def route(terrain: Terrain, method: str = "d8", conditioning: str = "fill",
         See :func:`basinkit.condition`.
     mfd_exponent : float
         Exponent p of the multiple-flow-direction partition (Freeman 1991: 1.1).
+    ready : callable, optional
+        Called as ``ready(name, grid)`` as soon as a layer of the model is final, while
+        the routing goes on: ``"conditioned"`` (the conditioned elevations, float32) after
+        conditioning, ``"receivers"`` (:attr:`FlowModel.receiver`, flat int32) once
+        the receivers are final. The flow step writes them meanwhile
+        (:class:`basinkit.io.flow_folder.FlowFolderWriter`); the grids must not be changed.
     **condition_options
         Passed to :func:`basinkit.condition` (``epsilon``, ``burn``, ``burn_depth``, ...).
 
@@ -270,19 +276,23 @@ def route(terrain: Terrain, method: str = "d8", conditioning: str = "fill",
     check_memory(terrain.size, ROUTE_BYTES_PER_CELL + EXTRA_BYTES_PER_CELL.get(method, 0))
     raw = terrain.elevation
     cond, summary = condition(terrain, method=conditioning, **condition_options)
+    if ready is not None:
+        ready("conditioned", cond.elevation)
     params = {"method": method, "conditioning": conditioning,
               **{k: (str(v) if isinstance(v, Path) else v)
                  for k, v in condition_options.items() if v is not None}}
     if method == "mfd":
         params["mfd_exponent"] = mfd_exponent
-    fm = flow_from_conditioned(cond, method, params)
+    fm = flow_from_conditioned(cond, method, params, ready)
     fm.input_elevation = raw
     fm.summary = summary
     return fm
 
 
-def flow_from_conditioned(cond: Terrain, method: str, params: dict) -> FlowModel:
-    """Build the FlowModel from an already conditioned surface."""
+def flow_from_conditioned(cond: Terrain, method: str, params: dict,
+                          ready=None) -> FlowModel:
+    """Build the FlowModel from an already conditioned surface (``ready``: see
+    :func:`route`)."""
     z = cond.elevation
     valid = cond.valid
     seeds = exit_cells(cond)
@@ -296,6 +306,8 @@ def flow_from_conditioned(cond: Terrain, method: str, params: dict) -> FlowModel
         unresolved = _d8.resolve_flats(z, valid, rec, dist)[1]
         if unresolved:
             params = {**params, "cells_without_outlet": int(unresolved)}
+    if ready is not None:
+        ready("receivers", rec)
     # the stack, the cell count and the upstream area come out of one sweep
     stack, count, area = _stack.stack_count_area(rec, cond.shape[1], cond.geometry.area)
     fm = FlowModel(cond, rec, stack, method, parameters=params)

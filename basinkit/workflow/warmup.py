@@ -28,9 +28,14 @@ import threading
 __all__ = ["start_warmup", "Warmup", "compile_ahead", "stage_begins",
            "stop_compile_ahead", "LATER_KERNELS"]
 
-#: side of the warm-up surface for grids larger than one fill tile (512 cells), so that
-#: the tiled fill's kernels load too; 64 otherwise
-_TILED_SIDE = 520
+#: side of the warm-up surface, and of the tiles its tiled fill uses for grids that the
+#: real fill will fill by tiles (larger than one 512-cell tile): the same kernels, for
+#: the same argument types, on a surface small enough that the warm-up computes next to
+#: nothing besides loading them
+_SIDE = 64
+_WARM_TILE = 32
+#: cells above which the fill goes by tiles (conditioning/_tiled_fill.TILE squared)
+_TILED_CELLS = 512 * 512
 
 
 class Warmup:
@@ -63,18 +68,26 @@ def warm_route_kernels(cells: int, method: str = "d8", conditioning: str = "fill
     import numpy as np
 
     from .._jit import PARALLEL_MIN_CELLS, parallel_versions
+    from ..conditioning import exit_cells
+    from ..conditioning._tiled_fill import fill_exact_tiled
     from ..routing import route
     from ..terrain import terrain_from_array
 
-    side = _TILED_SIDE if cells > 512 * 512 else 64
     rng = np.random.default_rng(0)
     # a tilted plane with rounded noise: pits to fill and flats to drain
-    z = np.add.outer(np.arange(side, 0, -1) * 0.5, np.zeros(side))
-    z = np.round(z + rng.normal(0, 2.0, (side, side))).astype(np.float32)
+    z = np.add.outer(np.arange(_SIDE, 0, -1) * 0.5, np.zeros(_SIDE))
+    z = np.round(z + rng.normal(0, 2.0, (_SIDE, _SIDE))).astype(np.float32)
+    terrain = terrain_from_array(z, cellsize=10.0)
     big = cells >= PARALLEL_MIN_CELLS
     with parallel_versions() if big else contextlib.nullcontext():
-        fm = route(terrain_from_array(z, cellsize=10.0), method=method,
-                   conditioning=conditioning)
+        if cells > _TILED_CELLS and conditioning in ("fill", "breach"):
+            # the tiled fill's kernels, on small tiles; a filled surface is then routed
+            # as it is (route would fill it whole, with a kernel the grid does not use)
+            filled = z.copy()
+            fill_exact_tiled(filled, terrain.valid, exit_cells(terrain), tile=_WARM_TILE)
+            if conditioning == "fill":
+                terrain, conditioning = terrain.with_elevation(filled), "none"
+        fm = route(terrain, method=method, conditioning=conditioning)
         fm.direction_d8()
         fm.accumulation(unit="cells")
         fm.upstream_area()

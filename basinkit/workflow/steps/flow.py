@@ -92,19 +92,32 @@ def read_terrain(settings: FlowSettings):
 
     The kernels of ``route`` load in a background thread meanwhile
     (:mod:`basinkit.workflow.warmup`)."""
+    import gc
+
     from ..warmup import start_warmup
 
-    warm = start_warmup(_raster_cells(settings.dem), settings.method, settings.conditioning)
+    # loading numba and the kernels makes hundreds of thousands of objects that live as
+    # long as the process: the cyclic collector, walking them again and again meanwhile,
+    # took a tenth of a second or more; it runs again once they are loaded
+    collecting = gc.isenabled()
+    gc.disable()
     try:
-        from ...io.dem import read_dem
+        warm = start_warmup(_raster_cells(settings.dem), settings.method,
+                            settings.conditioning)
+        try:
+            from ...io.dem import read_dem
 
-        return read_dem(settings.dem, band=settings.band, crs=settings.crs,
-                        sea_level=settings.sea_level_m, base_level=settings.base_level,
-                        replace_crs=settings.replace_crs, cell_size=settings.cell_size,
-                        origin=settings.origin, elevation_range=settings.elevation_range_m,
-                        implausible_elevations=settings.implausible_elevations)
+            return read_dem(settings.dem, band=settings.band, crs=settings.crs,
+                            sea_level=settings.sea_level_m, base_level=settings.base_level,
+                            replace_crs=settings.replace_crs, cell_size=settings.cell_size,
+                            origin=settings.origin,
+                            elevation_range=settings.elevation_range_m,
+                            implausible_elevations=settings.implausible_elevations)
+        finally:
+            warm.join()
     finally:
-        warm.join()
+        if collecting:
+            gc.enable()
 
 
 def _raster_cells(path) -> int:
@@ -152,7 +165,7 @@ def flow_step(out, settings: FlowSettings, terrain=None, burn=None, reporter=Non
     """
     import time
 
-    from ...io.flow_folder import FILES, write_flow_folder
+    from ...io.flow_folder import FILES, FlowFolderWriter
     from ...routing.flow_model import route
 
     rep = as_reporter(reporter)
@@ -175,25 +188,30 @@ def flow_step(out, settings: FlowSettings, terrain=None, burn=None, reporter=Non
                 max_breach_length=settings.max_breach_length_m)
     if settings.burn_lines:
         opts.update(burn=burn, burn_depth=settings.burn_depth_m)
-    fm = route(terrain, method=settings.method, conditioning=settings.conditioning,
-               mfd_exponent=settings.mfd_exponent, **opts)
-    if settings.burn_lines:  # the layers' names, not the geometries, in the record
-        fm.parameters["burn"] = [str(p) for p in settings.burn_lines]
-    if settings.sea_level_m is not None:
-        fm.parameters["sea_level"] = settings.sea_level_m
-    if settings.base_level is not None:
-        fm.parameters["base_level"] = str(settings.base_level)
-    for line in (fm.summary.lines() if fm.summary else []):
-        rep.info(line)
-    inputs = {}
-    if settings.burn_lines:
-        from ...io.hashing import file_sha256
-
-        inputs = {f"burn_lines_{i + 1}": {"path": str(p), "sha256": file_sha256(p)}
-                  for i, p in enumerate(settings.burn_lines)}
     folder = out.folder
-    write_flow_folder(fm, folder, overwrite=True, copy_input=settings.copy_input,
-                      extra_provenance={"cautions": CAUTION_TEXT, "burn_line_inputs": inputs})
+    # the conditioned elevations and the directions are written in a background thread
+    # while route() goes on; the rest once the model is complete
+    with FlowFolderWriter(folder, overwrite=True) as writer:
+        writer.georeference(terrain)
+        fm = route(terrain, method=settings.method, conditioning=settings.conditioning,
+                   mfd_exponent=settings.mfd_exponent, ready=writer.ready, **opts)
+        if settings.burn_lines:  # the layers' names, not the geometries, in the record
+            fm.parameters["burn"] = [str(p) for p in settings.burn_lines]
+        if settings.sea_level_m is not None:
+            fm.parameters["sea_level"] = settings.sea_level_m
+        if settings.base_level is not None:
+            fm.parameters["base_level"] = str(settings.base_level)
+        for line in (fm.summary.lines() if fm.summary else []):
+            rep.info(line)
+        inputs = {}
+        if settings.burn_lines:
+            from ...io.hashing import file_sha256
+
+            inputs = {f"burn_lines_{i + 1}": {"path": str(p), "sha256": file_sha256(p)}
+                      for i, p in enumerate(settings.burn_lines)}
+        writer.finish(fm, copy_input=settings.copy_input,
+                      extra_provenance={"cautions": CAUTION_TEXT,
+                                        "burn_line_inputs": inputs})
     for name in FILES.values():
         if (Path(folder) / name).exists():
             out.adopt(name)
