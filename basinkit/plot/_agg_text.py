@@ -8,7 +8,9 @@ text in matplotlib's Agg renderer finds its font (going through the font lists o
 settings at every call), lays the string out glyph by glyph (kerning, fallback fonts) and
 renders every glyph with FreeType at its position. Here:
 
-- the font files of a text's properties are found once per properties and font settings;
+- the font files of a text's properties are found once per properties and font settings,
+  and a string's size (width, height, descent) measured once per string, properties,
+  resolution and settings (matplotlib keeps it per renderer, that is per figure);
 - the layout of a string is kept per font, size, resolution and string (the layout is a
   function of these alone);
 - a glyph's bitmap is kept per font, size, resolution, glyph, transform and the position's
@@ -54,6 +56,8 @@ def _classes():
     fonts: dict = {}
     layouts: dict = {}
     glyphs: dict = {}
+    metrics: dict = {}
+    matrices: dict = {}
     font_lists = ("font.serif", "font.sans-serif", "font.cursive", "font.fantasy",
                   "font.monospace", "font.family", "text.hinting_factor",
                   "text.kerning_factor", "text.hinting")
@@ -70,6 +74,18 @@ def _classes():
             font.clear()
             font.set_size(font_prop.get_size_in_points(), self.dpi)
             return font
+
+        def get_text_width_height_descent(self, s, prop, ismath):
+            if ismath:  # mathtext and TeX: matplotlib's own measure
+                return super().get_text_width_height_descent(s, prop, ismath)
+            key = (s, prop.copy(), self.dpi, B.get_hinting_flag(),
+                   tuple(str(mpl.rcParams[k]) for k in font_lists))
+            whd = metrics.get(key)
+            if whd is None:
+                if len(metrics) >= _MAX_LAYOUTS:
+                    metrics.clear()
+                whd = metrics[key] = super().get_text_width_height_descent(s, prop, ismath)
+            return whd
 
         def draw_text(self, gc, x, y, s, prop, angle, ismath=False, mtext=None):
             if ismath:
@@ -107,12 +123,17 @@ def _classes():
             mode = RenderMode.NORMAL if aa else RenderMode.MONO
             height = self.height
             for font, size, index, slant, extend, dx, dy in glyph_items:
-                matrix = (0x10000 * np.array([[cos, -sin], [sin, cos]])
-                          @ [[extend, extend * slant], [0, 1]]).round().astype(int)
+                mkey = (angle, extend, slant)
+                matrix = matrices.get(mkey)
+                if matrix is None:
+                    m = (0x10000 * np.array([[cos, -sin], [sin, cos]])
+                         @ [[extend, extend * slant], [0, 1]]).round().astype(int)
+                    matrix = matrices[mkey] = (m, tuple(m.ravel().tolist()))
+                matrix, matrix_key = matrix
                 # the position in FreeType's 1/64 of a pixel (y upwards), as matplotlib's
                 dx64 = round(0x40 * (x + dx * cos - dy * sin))
                 dy64 = round(0x40 * (height - y + dx * sin + dy * cos))
-                key = (font, size, self.dpi, index, tuple(matrix.ravel().tolist()),
+                key = (font, size, self.dpi, index, matrix_key,
                        dx64 & 63, dy64 & 63, flags, aa)
                 hit = glyphs.get(key)
                 if hit is None:
