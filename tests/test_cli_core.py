@@ -342,7 +342,7 @@ def test_only_a_process_of_its_own_freezes_the_collector_at_exit(monkeypatch):
     cli_main = importlib.import_module("basinkit.cli.main")
 
     calls = []
-    monkeypatch.setattr(cli_main, "_spare_the_exit", lambda: calls.append(1))
+    monkeypatch.setattr(cli_main, "_skip_exit_collections", lambda: calls.append(1))
     with pytest.raises(SystemExit):
         cli_main.main(["--help"])
     assert calls == []

@@ -336,3 +336,45 @@ def test_kept_figures_draw_what_new_figures_draw():
             assert not (ax.lines or ax.collections or ax.images or ax.patches or ax.texts)
         p, a, k = variants[0]
         assert p(*a, **k) is not p(*a, **k)  # new figures outside plot_png
+
+
+def _text_figures(shift):
+    """Figures of text alone: sizes, angles (90°, 30°), fallback glyphs, mathtext, text
+    without antialiasing and text running off the figure's edges, moved by ``shift``
+    pixels."""
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(3, 2), dpi=100)
+    dx = shift / 300
+    fig.text(0.1 + dx, 0.8, "slope–area, outlet a₁ (m²)", size=9)
+    fig.text(0.05 + dx, 0.1, "elevation (m)", rotation=90, size=8)
+    fig.text(0.3 + dx, 0.3, "χ–elevation 1234.5", rotation=30, size=11)
+    fig.text(0.5 + dx, 0.55, r"$k_{sn}$ = 42", size=10)
+    fig.text(0.55 + dx, 0.1, "no antialiasing", antialiased=False, size=7)
+    fig.text(-0.05 + dx, 0.45, "off the left edge", size=12)
+    fig.text(0.85 + dx, 0.97, "off the top right", size=12)
+    return fig
+
+
+def test_cached_text_draws_the_pixels_of_matplotlib():
+    """Text drawn through the font, layout and glyph caches (basinkit.plot._agg_text)
+    gives the PNG bytes of matplotlib's own Agg canvas: every kind of figure the steps and
+    the report draw, and text at other angles, sizes and fractions of a pixel, drawn with
+    the caches filled by earlier drawings (reference: matplotlib's Agg renderer)."""
+    import warnings
+
+    from basinkit.plot._agg_text import cached_text_available
+    from basinkit.plot.png import figure_png
+
+    if not cached_text_available():
+        pytest.skip("this matplotlib lacks the internals of the text caches")
+    warnings.simplefilter("ignore")
+    calls = [v for variants in _plot_variants().values() for v in variants]
+    for _ in range(2):  # the second round draws from filled caches
+        for p, a, k in calls:
+            assert figure_png(p(*a, **k)) == figure_png(p(*a, **k), cached_text=False), p
+        for fig in _step_figures():
+            assert figure_png(fig) == figure_png(fig, cached_text=False)
+        for shift in (0.0, 0.3, 1.0, 2.71, 17.5):
+            assert (figure_png(_text_figures(shift), colours=0)
+                    == figure_png(_text_figures(shift), colours=0, cached_text=False))

@@ -363,3 +363,22 @@ def test_report_embeds_the_figures_the_steps_drew(demo, tmp_path):
                 "hypsometric curve of crossing"):
         assert f'alt="{alt}"' in text
     assert 'alt="design storm and hydrograph of crossing' in text
+
+
+def test_report_the_same_drawn_in_workers(many):
+    """The overview, the distributions and the full sections drawn in forked workers give
+    the HTML drawn in this process, byte for byte, and the progress counts the sections
+    only (common practice, no source: a figure is a function of the folder's files)."""
+    from basinkit.report import render_report
+
+    folder, ids = many
+    seen = []
+
+    def progress(it, total=None, desc=""):
+        seen.append((total, desc))
+        return it
+
+    two = render_report(folder, workers=2, progress=progress)
+    assert "histograms of catchment area" in two and "overview map" in two
+    assert two == render_report(folder, workers=1)
+    assert [s for s in seen if s[1] == "report sections"] == [(10, "report sections")]

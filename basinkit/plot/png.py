@@ -20,7 +20,7 @@ FIGURE_DPI = 100
 
 
 def figure_png(fig, dpi: int = FIGURE_DPI, colours: int = 256,
-               method: str = "octree") -> bytes:
+               method: str = "octree", cached_text: bool = True) -> bytes:
     """PNG bytes of a matplotlib figure, with a palette of ``colours`` colours (0: full
     colour) and ``dpi`` recorded in the file.
 
@@ -35,6 +35,10 @@ def figure_png(fig, dpi: int = FIGURE_DPI, colours: int = 256,
         How the palette is chosen: ``octree`` (fast; keeps the colours of small markers
         over a shaded relief) or ``mediancut`` (slower; merges rare colours into common
         ones).
+    cached_text : bool
+        Draw text through the per-process font, layout and glyph caches
+        (:mod:`basinkit.plot._agg_text`: the same pixels, faster); false: matplotlib's own
+        Agg canvas.
 
     Returns
     -------
@@ -48,14 +52,15 @@ def figure_png(fig, dpi: int = FIGURE_DPI, colours: int = 256,
     >>> figure_png(fig, dpi=50)[:8] == b"\\x89PNG\\r\\n\\x1a\\n"
     True
     """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from PIL import Image
+
+    from ._agg_text import agg_canvas
 
     if not 0 <= int(colours) <= 256:
         raise ValueError("colours must be 0 to 256")
     fig.set_dpi(dpi)
     # a kept figure keeps its canvas (and the canvas its renderer, cleared at each draw)
-    canvas = fig.canvas if type(fig.canvas) is FigureCanvasAgg else FigureCanvasAgg(fig)
+    canvas = agg_canvas(fig, cached_text)
     canvas.draw()
     w, h = canvas.get_width_height(physical=True)
     # RGB from the RGBA buffer in one pass of Pillow (not a strided numpy copy)

@@ -83,19 +83,34 @@ def _outlet_section(d, figs, oid):
 _STATE: dict = {}
 
 
+#: The report's own figures of the whole folder, drawn in the same workers as the outlet
+#: sections (first: they take longest): job key -> Figures method.
+_WHOLE_FIGURES = {("figure", "overview"): "overview",
+                  ("figure", "distributions"): "distributions"}
+
+
 def _section_job(oid):
+    """``(key, result)``: an outlet's full section (``oid`` its id), or for a key of
+    :data:`_WHOLE_FIGURES` what that Figures method returns (the overview also with the
+    outlets it labelled)."""
     import warnings
 
+    figs = _STATE["figs"]
+    if oid in _WHOLE_FIGURES:
+        res = getattr(figs, _WHOLE_FIGURES[oid])()
+        return oid, ((res, figs.overview_labels) if oid == ("figure", "overview") else res)
     with warnings.catch_warnings():  # empty legends, all-NaN medians: the figure says it
         warnings.simplefilter("ignore", UserWarning)
         warnings.simplefilter("ignore", RuntimeWarning)
-        return oid, _outlet_section(_STATE["d"], _STATE["figs"], oid)
+        return oid, _outlet_section(_STATE["d"], figs, oid)
 
 
 def _sections(d, figs, ids, workers, progress):
-    """The full sections, drawn in ``workers`` forked processes when there are several
+    """The full sections (and the whole-folder figures among ``ids``, keys of
+    :data:`_WHOLE_FIGURES`), drawn in ``workers`` forked processes when there are several
     (figures are independent and matplotlib draws on one core), else one by one; the
     output does not depend on it."""
+    import gc
     import os
 
     if workers is None:
@@ -122,11 +137,15 @@ def _sections(d, figs, ids, workers, progress):
                                                initializer=worker_init,
                                                initargs=(os.getpid(),))
                     try:
-                        with signals_held():  # the workers are forked by the first submit
-                            it = pool.map(_section_job, ids)
-                        if progress is not None:
-                            it = progress(it, total=len(ids), desc="report sections")
-                        sections = dict(it)
+                        # the objects alive now stay out of the workers' collections:
+                        # they are not walked (and their pages not copied) in each worker
+                        gc.freeze()
+                        try:
+                            with signals_held():  # the workers are forked by the first
+                                it = pool.map(_section_job, ids)  # submit
+                        finally:
+                            gc.unfreeze()  # this process collects them as before
+                        sections = _gathered(it, ids, progress)
                     except BaseException:
                         stop_executor(pool)
                         raise
@@ -134,12 +153,28 @@ def _sections(d, figs, ids, workers, progress):
                     return sections
                 except (OSError, BrokenProcessPool):
                     pass  # drawn in this process below
-        it = (_section_job(i) for i in ids)
-        if progress is not None:
-            it = progress(it, total=len(ids), desc="report sections")
-        return dict(it)
+        return _gathered((_section_job(i) for i in ids), ids, progress)
     finally:
         _STATE.clear()
+
+
+def _gathered(results, ids, progress):
+    """``{key: result}`` of the ``(key, result)`` pairs, the outlet sections counted by
+    ``progress`` (the whole-folder figures not)."""
+    done = {}
+
+    def sections():
+        for key, res in results:
+            done[key] = res
+            if key not in _WHOLE_FIGURES:
+                yield key
+
+    n = sum(1 for k in ids if k not in _WHOLE_FIGURES)
+    it = sections() if progress is None else progress(sections(), total=n,
+                                                         desc="report sections")
+    for _ in it:
+        pass
+    return done
 
 
 def render_report(folder, *, report_outlets=(), full_sections_max=50, progress=None,
@@ -211,7 +246,10 @@ def render_report(folder, *, report_outlets=(), full_sections_max=50, progress=N
         parts.append('<div class="warnings"><h3>Warnings about the whole run</h3><ul>'
                      + "".join(f"<li>{H.esc(m)}</li>" for m in d.job_notes) + "</ul></div>")
     parts += ['<h2 id="products">What this folder holds</h2>', H.products_html(d)]
-    ov = figs.overview()
+    whole = [k for k, want in ((("figure", "overview"), True),
+                               (("figure", "distributions"), n_ok >= 10)) if want]
+    done = _sections(d, figs, whole + list(d.sections), workers, progress)
+    ov, figs.overview_labels = done.get(("figure", "overview"), (None, None))
     if ov:
         cap = ("Shaded relief of the DEM, catchment divides"
                + (" (sub-catchments)" if d.summary_mode else "")
@@ -220,7 +258,7 @@ def render_report(folder, *, report_outlets=(), full_sections_max=50, progress=N
                   " (not labelled: find them in the table below)."))
         parts += ['<h2 id="overview">Overview</h2>', _img(ov, "overview map", cap)]
     if n_ok >= 10:
-        uri, shown = figs.distributions()
+        uri, shown = done[("figure", "distributions")]
         if uri:
             parts += ['<h2 id="distributions">Distributions</h2>',
                       f'<p class="note">Over the {n_ok:,} delineated outlets; dashed: the '
@@ -237,7 +275,6 @@ def render_report(folder, *, report_outlets=(), full_sections_max=50, progress=N
         parts.append('<nav class="toc">' + "".join(
             f'<div><a href="#outlet-{H.esc(d.file_id[i])}">{H.esc(i)}</a></div>'
             for i in d.sections) + "</nav>")
-    done = _sections(d, figs, d.sections, workers, progress)
     parts += [done[oid] for oid in d.sections]
     parts += ['<section class="provenance"><h2 id="provenance">Provenance</h2>',
               H.provenance_html(d), "</section>",

@@ -87,6 +87,7 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
                 yield func(item)
             return
         import functools
+        import gc
         import multiprocessing as mp
         import os
 
@@ -96,9 +97,15 @@ def map_outlets(func, items, workers=2, shared=None, progress=None, desc="", tot
         first = func(items[0])
         chunk = max(1, min(16, len(items) // (8 * int(workers))))
         return_freed_memory()  # also finds the C library's trim before any fork
-        with signals_held():  # Ctrl-C and SIGTERM wait until the workers are set up
-            pool = mp.get_context("fork").Pool(int(workers), initializer=worker_init,
-                                               initargs=(os.getpid(),))
+        # the objects alive now stay out of the workers' garbage collections: not walked
+        # (their pages not copied) in every worker; this process collects them as before
+        gc.freeze()
+        try:
+            with signals_held():  # Ctrl-C and SIGTERM wait until the workers are set up
+                pool = mp.get_context("fork").Pool(int(workers), initializer=worker_init,
+                                                   initargs=(os.getpid(),))
+        finally:
+            gc.unfreeze()
         with pool:
             results = pool.imap(functools.partial(_trimmed, func), items[1:],
                                 chunksize=chunk)

@@ -194,8 +194,14 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
     folder = Path(output) if output is not None else job["outputs"]["folder"]
     # written into a staging folder beside it (out.open()), swapped in at the end
     out = OutputFolder(folder, overwrite, reporter=rep).check()
+    import gc
+
+    # the libraries' objects, alive for the whole run, are frozen after the read stage
+    # (``_run``): out of the run's garbage collections, which walk them all otherwise;
+    # not when the caller froze objects of its own
+    freeze = gc.get_freeze_count() == 0
     try:
-        return _run(job, out, rep, report)
+        return _run(job, out, rep, report, freeze)
     except BaseException:
         out.abort()  # the staging folder goes; the folder stays as the earlier run left it
         raise
@@ -203,6 +209,8 @@ def run_job(job, output=None, overwrite: bool = False, console=None,
         from .warmup import stop_compile_ahead
 
         stop_compile_ahead()
+        if freeze:
+            gc.unfreeze()
 
 
 def _later_stages(job, spec, raw) -> list:
@@ -231,8 +239,12 @@ class _StageTimer(StageTimer):
         return super().__call__(name)
 
 
-def _run(job, out, rep, report):
-    """The stages of :func:`run_job`, written into ``out`` (checked, not yet open)."""
+def _run(job, out, rep, report, freeze=False):
+    """The stages of :func:`run_job`, written into ``out`` (checked, not yet open);
+    ``freeze``: the objects alive after the read stage left out of the garbage
+    collections (``gc.freeze``; the caller unfreezes)."""
+    import gc
+
     import pandas as pd
 
     from ..io.flow_folder import load_flow
@@ -268,6 +280,8 @@ def _run(job, out, rep, report):
         terrain = read_terrain(st["flow"])
         burn = read_burn_lines(st["flow"], terrain.crs)
         design = _design_flow_inputs(job, st, terrain, inputs)
+    if freeze:
+        gc.freeze()
     out.open()
     res.terrain = terrain
     with timer("flow"):
