@@ -71,14 +71,7 @@ def _inside(lab, nr, nc, r, c, lo, hi):
 @njit(cache=True, nogil=True)
 def _find(keys, a0, a1, key):
     """Position of ``key`` in the sorted ``keys[a0:a1]`` (-1 if absent)."""
-    lo = a0
-    hi = a1
-    while lo < hi:
-        mid = (lo + hi) >> 1
-        if keys[mid] < key:
-            lo = mid + 1
-        else:
-            hi = mid
+    lo = a0 + search_left(keys[a0:a1], key)
     if lo < a1 and keys[lo] == key:
         return lo
     return -1
