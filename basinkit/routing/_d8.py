@@ -105,7 +105,7 @@ def _d8_row(r, zf, vf, sf, bf, dist, rec, nr, nc):
         res = res if vf[i] else invalid
         nflat += res == no_flow
         rec[i] = res
-    nflat += _d8_cell(r, 0, zf, vf, sf, bf, dist, rec, nr, nc)
+    nflat += _d8_cell(r, np.int64(0), zf, vf, sf, bf, dist, rec, nr, nc)
     nflat += _d8_cell(r, nc - 1, zf, vf, sf, bf, dist, rec, nr, nc)
     return nflat
 
