@@ -130,28 +130,31 @@ def test_stop_ends_the_process_at_once(tmp_path):
     assert out == ["False", "-15"]
 
 
-def test_the_process_stops_where_the_job_has_come(tmp_path):
-    """The job coming to a stage waits for the kernel of that stage (or an earlier one)
-    the other process is compiling, and the other process then compiles nothing more
-    (common practice, no source: one process compiles a kernel, never two at once)."""
+def test_the_two_processes_meet_and_compile_each_kernel_once(tmp_path):
+    """The job coming to a stage compiles the listed kernels of that stage and the
+    earlier ones that the other process has not taken, from the first, and waits for
+    one the other is compiling; the other stops where it meets the job's. Every kernel
+    is compiled once, by one of the two: the job's a run from the first, the other's a
+    run from the last (common practice, no source: one process compiles a kernel, never
+    two at once)."""
     out = _run("""
         import time
         from basinkit.workflow import warmup
         entries = warmup.later_kernels(warmup.LATER_KERNELS)
         proc = warmup.compile_ahead(list(warmup.LATER_KERNELS), when_busy=True)
-        time.sleep(0.5)
-        warmup.stage_begins("flow")  # nothing of flow's is being compiled: no wait
-        print(proc.is_alive())
-        warmup.stage_begins("design_flow")  # after them all
-        print(warmup._AHEAD[-1].there.value)
+        time.sleep(1.0)
+        warmup.stage_begins("flow")
+        warmup.stage_begins("design_flow")  # after them all: the rest compiled here
         proc.join(60)
-        print(proc.exitcode, len(entries) - len(warmup.missing_kernels(entries)))
+        print(proc.exitcode, len(warmup.missing_kernels(entries)))
+        print("".join(str(v) for v in warmup._AHEAD[-1].state))
         """, tmp_path / "cache").split()
-    alive, there, code, compiled = out
-    assert (alive, there, code) == ("True", "-1", "0")
-    # the one or two of the last stage's kernels it had begun (none on a very busy machine)
-    # of the 42, not the rest
-    assert int(compiled) <= 3
+    code, missing, states = out
+    assert (code, missing) == ("0", "0")
+    here, there = states.count("3"), states.count("2")
+    assert here + there == len(states)
+    assert states == "3" * here + "2" * there
+    assert here >= len(warmup.LATER_KERNELS["flow"])
 
 
 def test_no_process_when_turned_off_or_without_a_free_core(monkeypatch, tmp_path):

@@ -84,8 +84,11 @@ def codec_available(codec: str) -> bool:
             with warnings.catch_warnings(), rasterio.Env(CPL_LOG="/dev/null"):
                 warnings.simplefilter("ignore")
                 with MemoryFile() as mem:
+                    # georeferenced, so that reading it back warns of nothing (the
+                    # filter above is not thread-safe: the flow folder writes in a thread)
                     with mem.open(driver="GTiff", height=1, width=1, count=1,
-                                  dtype="uint8", compress=codec) as ds:
+                                  dtype="uint8", compress=codec,
+                                  transform=rasterio.transform.from_origin(0, 1, 1, 1)) as ds:
                         ds.write(np.zeros((1, 1, 1), np.uint8))
                     with mem.open() as ds:
                         ok = str(ds.profile.get("compress", "")).lower() == codec

@@ -15,9 +15,10 @@ last stage's backwards, for the argument types the job will give them
 (:data:`LATER_KERNELS`), and writes them to the on-disk cache, while this process routes
 and goes on stage by stage from the first: where this process comes to a kernel the other
 has compiled, it loads it from the cache. The job tells the other process each stage it
-comes to (:func:`stage_begins`): the other compiles nothing of a stage the job has reached,
-and the job waits for a kernel of its stage that the other is compiling; so the two meet
-in the middle, share the compiling between two cores and never compile one kernel twice.
+comes to (:func:`stage_begins`) and compiles the listed kernels of that stage the other has
+not taken, from the first, while the other goes on from the last, kernel by kernel; the job
+waits for a kernel the other is compiling. So the two meet wherever the job is, even within
+a stage, share the compiling between two cores and never compile one kernel twice.
 With the cache filled, or on a machine without a free core, no process starts.
 """
 
@@ -256,43 +257,48 @@ def _stage_index(name) -> int:
     return stages.index(name) if name in stages else (-1 if name == "read" else len(stages))
 
 
+#: states of a listed kernel, shared by the two processes
+_FREE, _THEIRS, _DONE_THERE, _DONE_HERE = 0, 1, 2, 3
+
+
 class _Ahead:
-    """The other process, and what the two share (under ``lock``): ``here``, the stage
-    this process has come to, and ``there``, the stage of the kernel the other process is
-    compiling (-1: none). The other process compiles a kernel only of a stage this one has
-    not come to; this one, coming to a stage, waits for a kernel of it that the other is
-    compiling. So no kernel is ever compiled by both at once: numba's cache of a kernel is
-    one index file per kernel, which two processes saving different argument types at the
-    same moment could leave wrong."""
+    """The other process, and what the two share (under ``lock``): ``state``, one byte
+    per listed kernel: free, being compiled by the other process, compiled there, or
+    taken by this one. The other process takes the kernels one by one from the last,
+    this one from the first as the job comes to their stage (:func:`stage_begins`); the
+    other stops where it meets one this process took, and this one waits for a kernel
+    the other is compiling. So every kernel is compiled once, by one of the two, and
+    the two meet wherever the job is: numba's cache of a kernel is one index file per
+    kernel, which two processes saving different argument types at the same moment
+    could leave wrong."""
 
     def __init__(self, ctx, items):
         import os
 
+        self.items = items
         self.lock = ctx.Lock()
-        self.here = ctx.RawValue("i", -1)
-        self.there = ctx.RawValue("i", -1)
+        self.state = ctx.RawArray("b", len(items))
         self.proc = ctx.Process(target=_compile_backwards,
-                                args=(os.getpid(), items, self.lock, self.here,
-                                      self.there),
+                                args=(os.getpid(), items, self.lock, self.state),
                                 name="basinkit-compile-ahead", daemon=True)
 
 
-def _compile_backwards(parent_pid, items, lock, here, there):
-    """The other process: ``items`` = ``[(stage index, entry)]``, the last first, as long
-    as this process's parent has not come to their stage."""
+def _compile_backwards(parent_pid, items, lock, state):
+    """The other process: ``items`` = ``[(stage index, entry)]``, the last first, until
+    it meets one its parent has taken."""
     from .._processes import worker_init
 
     worker_init(parent_pid)
-    for k, entry in reversed(items):
+    for j in reversed(range(len(items))):
         with lock:
-            if k <= here.value:  # the job is there: it compiles the rest as it goes
+            if state[j] != _FREE:  # the job's side from here on
                 return
-            there.value = k
+            state[j] = _THEIRS
         try:
-            compile_kernels([entry])
+            compile_kernels([items[j][1]])
         finally:
             with lock:
-                there.value = -1
+                state[j] = _DONE_THERE
 
 
 _AHEAD: list = []
@@ -300,26 +306,33 @@ _AHEAD: list = []
 
 def stage_begins(name: str, wait: float = 300.0):
     """Tell the process of :func:`compile_ahead` (if any) that the job comes to stage
-    ``name``: it compiles no kernel of this stage or an earlier one from now on, and a
-    kernel of one that it is compiling is waited for (at most ``wait`` seconds, then it
-    is stopped), so that this process loads it instead of compiling it too."""
+    ``name``, and compile here the listed kernels of this stage and the earlier ones
+    that the other process has not taken (it takes none of them from now on); one it is
+    compiling is waited for (at most ``wait`` seconds, then it is stopped), so that this
+    process loads it instead of compiling it too."""
     import time
 
     if not _AHEAD:
         return
     a, k = _AHEAD[-1], _stage_index(name)
-    with a.lock:
-        a.here.value = max(a.here.value, k)
     deadline = time.monotonic() + wait
-    while True:
-        with a.lock:
-            busy = 0 <= a.there.value <= k
-        if not busy or not a.proc.is_alive():
-            return
-        if time.monotonic() > deadline:
-            stop_compile_ahead()
-            return
-        time.sleep(0.02)
+    for j, (stage, entry) in enumerate(a.items):
+        if stage > k:
+            break
+        while True:
+            with a.lock:
+                st = a.state[j]
+                if st == _FREE:
+                    a.state[j] = _DONE_HERE
+            if st == _FREE:
+                compile_kernels([entry])
+                break
+            if st != _THEIRS or not a.proc.is_alive():
+                break
+            if time.monotonic() > deadline:
+                stop_compile_ahead()
+                return
+            time.sleep(0.02)
 
 
 def _core_free() -> bool:
