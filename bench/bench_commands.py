@@ -99,7 +99,9 @@ def timed(cmd, env=None):
 
 
 def basinkit_cmd(*args):
-    return [sys.executable, "-m", "basinkit.cli", "--quiet", *map(str, args)]
+    # -P: the current folder not first on sys.path (``-m`` puts it before PYTHONPATH, so
+    # run from a checkout every version timed would import that checkout's basinkit)
+    return [sys.executable, "-P", "-m", "basinkit.cli", "--quiet", *map(str, args)]
 
 
 # ---------------------------------------------------------------- the pysheds script

@@ -75,7 +75,10 @@ def main(argv=None):
             r = one_run(pkg)
             runs[pkg].append(r)
             print(f"run {i + 1} {pkg}: {by_stage(r)['total']:.1f} s CPU", flush=True)
-    stages = list(by_stage(runs[packages[0]][0]))
+    stages = []  # every stage of every checkout (a list may have gained one)
+    for pkg in packages:
+        stages += [st for st in by_stage(runs[pkg][0]) if st not in stages]
+    stages.append(stages.pop(stages.index("total")))
     print("\nmedian CPU seconds of compiling, by stage")
     print("stage".ljust(16) + "".join(os.path.basename(pkg.rstrip('/'))[:14].rjust(16)
                                       for pkg in packages))
