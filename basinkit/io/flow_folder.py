@@ -61,8 +61,9 @@ class FlowFolderWriter:
     Pass :meth:`ready` as ``route(..., ready=writer.ready)``: the conditioned elevations
     and the D8 directions are written in one background thread as soon as ``route`` has
     them (the direction codes are made there too; GDAL compresses and writes without the
-    GIL, and the routing kernels that follow leave a core free part of the time), and :meth:`finish` writes the rest once the
-    model is complete and waits for them. The files are the bytes
+    GIL, and the routing kernels that follow leave a core free part of the time), and
+    :meth:`finish` writes the rest once the model is complete and waits for them. The
+    files are the bytes
     :func:`write_flow_folder` writes. Use it as a context manager, so that the thread has
     stopped before the folder is given up after an error.
 
